@@ -1,0 +1,178 @@
+"""Scaling fits for every (solver, tolerance, kernel, geometry) group of a run.
+
+Each group's per-size medians of a cost column are fitted with
+``harness.scaling.fit_power_law``; the bootstrap resamples the per-repeat timings of
+``timings.csv`` pooled over the group's tasks at each size; compressed-solver time fits are
+paired with the dense fit of the same kernel and geometry for the crossover size.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from harness.analysis.load import RunData
+from harness.scaling import (
+    Crossover,
+    Extrapolation,
+    PowerLawFit,
+    ScalingError,
+    crossover,
+    extrapolate,
+    fit_power_law,
+)
+
+TIME_METRICS: tuple[str, ...] = ("t_factor", "t_logdet", "t_solve", "t_gradient", "t_total")
+MEMORY_METRICS: tuple[str, ...] = ("peak_rss_bytes", "nbytes")
+GROUP_COLUMNS: tuple[str, ...] = ("solver", "tol", "kernel", "geometry")
+DENSE_SOLVER = "dense"
+
+
+@dataclass(frozen=True)
+class ScalingRow:
+    """One group's fit of one metric (``fit`` is None and ``refused`` says why)."""
+
+    solver: str
+    tol: float
+    kernel: str
+    geometry: str
+    metric: str
+    fit: PowerLawFit | None
+    refused: str = ""
+    crossover: Crossover | None = None
+    extrapolation: Extrapolation | None = None
+
+    @property
+    def label(self) -> str:
+        return solver_label(self.solver, self.tol)
+
+    def to_dict(self) -> dict[str, object]:
+        out: dict[str, object] = {"solver": self.solver, "tol": self.tol,
+                                  "kernel": self.kernel, "geometry": self.geometry,
+                                  "metric": self.metric, "refused": self.refused}
+        if self.fit is not None:
+            out.update({f"fit_{k}": v for k, v in self.fit.to_dict().items()})
+        if self.crossover is not None:
+            out.update({f"crossover_{k}": v for k, v in self.crossover.to_dict().items()})
+        if self.extrapolation is not None:
+            out.update({f"extrap_{k}": v for k, v in self.extrapolation.to_dict().items()})
+        return out
+
+
+def solver_label(solver: str, tol: float) -> str:
+    """``dense`` or ``hodlr tol=1e-06``."""
+    if tol is None or (isinstance(tol, float) and math.isnan(tol)):
+        return solver
+    return f"{solver} tol={tol:.0e}"
+
+
+def _is_exact(tol: float) -> bool:
+    return isinstance(tol, float) and math.isnan(tol)
+
+
+def _repeats(run: RunData, keys: pd.DataFrame, metric: str) -> dict[float, list[float]] | None:
+    if not metric.startswith("t_") or run.timings.empty:
+        return None
+    phase = metric[2:]
+    t = run.timings[run.timings["phase"] == phase]
+    joined = t.merge(keys[["key", "n"]], on="key", how="inner")
+    if joined.empty:
+        return None
+    return {float(n): g["seconds"].tolist() for n, g in joined.groupby("n")}
+
+
+def scaling_rows(
+    run: RunData,
+    *,
+    metrics: Sequence[str] = TIME_METRICS + MEMORY_METRICS,
+    level: float = 0.95,
+    n_boot: int = 500,
+    rng: np.random.Generator | None = None,
+    extrapolate_to: float | None = None,
+) -> list[ScalingRow]:
+    """Fit every group and metric of ``run`` (only ``ok`` rows with a positive value).
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator, optional
+        Bootstrap stream; ``default_rng(rng)`` is applied once and shared in a fixed order,
+        so the same run and seed give the same intervals.
+    extrapolate_to : float, optional
+        Size for a prediction with its interval.
+    """
+    gen = np.random.default_rng(rng)
+    ok = run.ok
+    rows: list[ScalingRow] = []
+    if ok.empty:
+        return rows
+    groups = ok.groupby(list(GROUP_COLUMNS), dropna=False, sort=True)
+    fits: dict[tuple[str, float, str, str, str], PowerLawFit] = {}
+    pending: list[tuple[tuple[str, float, str, str], str, PowerLawFit | None, str]] = []
+    for gkey, frame in groups:
+        solver, tol, kernel, geometry = (str(gkey[0]), float(gkey[1]), str(gkey[2]),
+                                         str(gkey[3]))
+        for metric in metrics:
+            sub = frame[["key", "n", metric]].dropna()
+            sub = sub[sub[metric] > 0]
+            if sub.empty:
+                continue
+            try:
+                fit = fit_power_law(sub["n"].to_numpy(), sub[metric].to_numpy(),
+                                    repeats=_repeats(run, sub, metric), level=level,
+                                    n_boot=n_boot, rng=gen)
+                refused = ""
+            except ScalingError as exc:
+                fit, refused = None, str(exc)
+            if fit is not None:
+                fits[(solver, tol, kernel, geometry, metric)] = fit
+            pending.append(((solver, tol, kernel, geometry), metric, fit, refused))
+    dense = {}
+    for (solver, tol, kernel, geometry, metric), fit in fits.items():
+        if _is_exact(tol) and (solver == DENSE_SOLVER
+                               or (kernel, geometry, metric) not in dense):
+            dense[(kernel, geometry, metric)] = fit
+    for (solver, tol, kernel, geometry), metric, fit, refused in pending:
+        cross = None
+        ref = dense.get((kernel, geometry, metric))
+        if fit is not None and ref is not None and not _is_exact(tol) \
+                and metric.startswith("t_"):
+            cross = crossover(fit, ref, level=level)
+        ext = extrapolate(fit, extrapolate_to) if fit is not None and extrapolate_to else None
+        rows.append(ScalingRow(solver=solver, tol=tol, kernel=kernel, geometry=geometry,
+                               metric=metric, fit=fit, refused=refused, crossover=cross,
+                               extrapolation=ext))
+    return rows
+
+
+def scaling_frame(rows: Sequence[ScalingRow]) -> pd.DataFrame:
+    """A flat table of ``rows`` (one line per group and metric) for display and export."""
+    records = []
+    for r in rows:
+        f = r.fit
+        rec: dict[str, object] = {
+            "solver": r.label, "kernel": r.kernel, "geometry": r.geometry, "metric": r.metric,
+            "sizes": "" if f is None else f"{int(min(f.sizes))}-{int(max(f.sizes))} ({f.k})",
+            "slope": np.nan if f is None else f.slope,
+            "ci_low": np.nan if f is None else f.ci_low,
+            "ci_high": np.nan if f is None else f.ci_high,
+            "boot_low": np.nan if f is None else f.boot_low,
+            "boot_high": np.nan if f is None else f.boot_high,
+            "r_squared": np.nan if f is None else f.r_squared,
+            "local_slopes": "" if f is None else " ".join(f"{s:.2f}" for s in f.local_slopes),
+            "refs_in_ci": "" if f is None else ", ".join(
+                f"{k:g}" for k, v in f.reference_inside.items() if v) or "none",
+            "crossover_n": np.nan if r.crossover is None else r.crossover.fitted,
+            "crossover_low": np.nan if r.crossover is None else r.crossover.low,
+            "crossover_high": np.nan if r.crossover is None else r.crossover.high,
+            "note": r.refused,
+        }
+        if r.extrapolation is not None:
+            e = r.extrapolation
+            rec.update({"predict_n": e.n, "predict": e.value, "predict_low": e.low,
+                        "predict_high": e.high, "extrapolated": e.extrapolated})
+        records.append(rec)
+    return pd.DataFrame.from_records(records)

@@ -1,0 +1,105 @@
+"""One model evaluation by a named reference or solver, as the CLI's ``evaluate`` needs it.
+
+Exact references (``dense``, ``statespace``, ``kronecker``) return their own exact
+record; compressed solvers and plugins go through the generic likelihood code with a
+trace estimator. Both end in the same ``SolverOutcome``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from harness.exact import ReferenceEvaluation, dense_evaluate
+from harness.kernels import Kernel
+
+EXACT_REFERENCES = ("dense", "statespace", "kronecker")
+
+
+class EvaluationError(ValueError):
+    """The requested solver cannot evaluate this model (wrong geometry, kernel, option)."""
+
+
+@dataclass(frozen=True)
+class SolverOptions:
+    """Options of ``covaudit evaluate`` that reach the solver."""
+
+    tol: float = 1e-8
+    leaf_size: int = 128
+    trace: str | None = None
+    probes: int = 64
+    seed: int = 0
+    separable: bool = False
+    memory_budget: int | None = None
+
+
+@dataclass(frozen=True)
+class SolverOutcome:
+    """What one evaluation produced, whichever path produced it."""
+
+    solver: str
+    reference: str
+    loglik: float
+    logdet: float
+    quadratic: float
+    beta: np.ndarray
+    score: np.ndarray | None
+    fisher: np.ndarray | None
+    certificate: float | None
+    seconds: Mapping[str, float]
+    notes: tuple[str, ...] = ()
+    extra: Mapping[str, Any] = field(default_factory=dict)
+
+
+def _from_reference(solver: str, ev: ReferenceEvaluation) -> SolverOutcome:
+    return SolverOutcome(solver=solver, reference=ev.reference, loglik=ev.loglik,
+                         logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta, score=ev.score,
+                         fisher=ev.fisher, certificate=ev.certificate, seconds=ev.seconds,
+                         notes=ev.notes)
+
+
+def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
+                         mean: str, reml: bool, score: bool, fisher: bool,
+                         options: SolverOptions) -> SolverOutcome:
+    """Evaluate L (and score, Fisher) at the kernel's parameters with ``solver``."""
+    if options.separable and solver not in ("kronecker", "dense"):
+        raise EvaluationError(
+            f"--separable is supported with --solver kronecker or dense, not {solver!r}")
+    if solver == "dense":
+        if options.separable:
+            from harness.exact.kronecker import separable_dense_evaluate
+
+            ev = separable_dense_evaluate(points, y, kernel, mean=mean, reml=reml, score=score,
+                                          fisher=fisher, memory_budget=options.memory_budget)
+        else:
+            ev = dense_evaluate(points, y, kernel, mean=mean, reml=reml, score=score,
+                                fisher=fisher, memory_budget=options.memory_budget)
+        return _from_reference(solver, ev)
+    if solver == "statespace":
+        from harness.exact.statespace import StateSpaceReference
+
+        reference = StateSpaceReference(points, kernel)
+        if fisher:
+            raise EvaluationError("--fisher is not available with --solver statespace; "
+                                  "use --solver dense at moderate n")
+        return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score))
+    if solver == "kronecker":
+        if not options.separable:
+            raise EvaluationError(
+                "--solver kronecker evaluates separable (product) kernels only; add --separable "
+                "(a product of 1D kernels is a different model from the isotropic kernel)")
+        from harness.exact.kronecker import KroneckerReference
+
+        reference = KroneckerReference(points, kernel)
+        return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score,
+                                                          fisher=fisher))
+    return _compressed(solver, points, y, kernel, mean=mean, reml=reml, score=score,
+                       fisher=fisher, options=options)
+
+
+def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
+                reml: bool, score: bool, fisher: bool, options: SolverOptions) -> SolverOutcome:
+    raise EvaluationError(f"solver {solver!r} is not available yet")

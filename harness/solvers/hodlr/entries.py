@@ -1,0 +1,89 @@
+"""Entries of Sigma (or of one derivative dSigma/dlog l_k) in cluster-tree order.
+
+``KernelEntries`` hands the HODLR builder the two things it needs: dense diagonal leaf
+blocks and low-rank approximations of off-diagonal blocks. Kernels with a compiled
+closed form go through ``harness.kernels.rows`` (leaf fills and ACA rows/columns in
+numba, GIL released); the general Matern family goes through the kernel's numpy path
+one row or column at a time.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from harness.kernels.assembly import FAMILY_FUNCTIONS
+from harness.kernels.base import Kernel
+from harness.kernels.rows import fill_block, mode_for
+from harness.solvers.hodlr.aca import LowRank, aca_callable, aca_compiled, recompress
+
+
+@dataclass(frozen=True)
+class KernelEntries:
+    """Entries of one matrix over points already in tree order.
+
+    Parameters
+    ----------
+    kernel : Kernel
+    points : ndarray, shape (n, d)
+        Coordinates in tree order.
+    which : int or None
+        None for Sigma (nugget included on the diagonal); k for dSigma/dlog l_k
+        (k = 0 for an isotropic kernel), which has no nugget.
+    """
+
+    kernel: Kernel
+    points: np.ndarray
+    which: int | None = None
+
+    @property
+    def scaled(self) -> np.ndarray:
+        return self.kernel.scale_points(self.points)
+
+    def _param_index(self) -> int:
+        return 1 + int(self.which or 0)
+
+    def leaf(self, start: int, stop: int, scaled: np.ndarray) -> np.ndarray:
+        """Dense Sigma[start:stop, start:stop] (or its derivative), C-ordered."""
+        k = self.kernel
+        if k.compiled:
+            out = np.empty((stop - start, stop - start))
+            xs = scaled[start:stop]
+            fill_block(FAMILY_FUNCTIONS[k.family][1], xs, xs, k.shape_value, k.variance,
+                       mode_for(k.isotropic, self.which), out)
+            if self.which is None:
+                out.flat[:: stop - start + 1] += k.nugget
+            return out
+        idx = np.arange(start, stop)
+        if self.which is None:
+            return k.block(self.points, idx, idx)
+        return k.derivative_block(self.points, idx, idx, self._param_index())
+
+    def off_diagonal(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray,
+                     *, tol: float, checks: np.ndarray) -> LowRank:
+        """Sigma[rows, cols] ~ U V' for disjoint ranges, to relative Frobenius ``tol``.
+
+        Half the tolerance goes to ACA, half to the recompression (``aca`` module).
+        """
+        k = self.kernel
+        (r0, r1), (c0, c1) = rows, cols
+        m, n = r1 - r0, c1 - c0
+        if k.compiled:
+            a, b = aca_compiled(FAMILY_FUNCTIONS[k.family][1], scaled[r0:r1], scaled[c0:c1],
+                                k.shape_value, k.variance, mode_for(k.isotropic, self.which),
+                                0.5 * tol, min(m, n), checks)
+        else:
+            cols_idx = np.arange(c0, c1)
+            rows_idx = np.arange(r0, r1)
+            p = self._param_index()
+
+            def value(rr: np.ndarray, cc: np.ndarray) -> np.ndarray:
+                if self.which is None:
+                    return k.cross_covariance(self.points[rr], self.points[cc])
+                return k.block_with_derivatives(self.points, rr, cc)[1][p]
+
+            a, b = aca_callable(lambda i: value(np.array([r0 + i]), cols_idx)[0],
+                                lambda j: value(rows_idx, np.array([c0 + j]))[:, 0],
+                                m, n, tol=0.5 * tol, checks=checks)
+        return recompress(a, b, tol=0.5 * tol)
