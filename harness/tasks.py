@@ -101,6 +101,9 @@ class Task:
     kernel_params : mapping
         Natural-scale parameters for ``make_kernel``; these are also the data-generating
         parameters theta_0.
+    separable : bool
+        Use the product (separable) form of the kernel, ``harness.exact.kronecker
+        .SeparableKernel``, which the Kronecker reference needs on tensor grids.
     mean : str
         ``zero``, ``constant`` or ``linear``.
     reml : bool
@@ -146,6 +149,7 @@ class Task:
     d: int
     kernel: str
     kernel_params: Mapping[str, Any]
+    separable: bool
     mean: str
     reml: bool
     solver: str
@@ -205,14 +209,14 @@ class Task:
     def label(self) -> str:
         """A readable name: ``pointset-n-d/kernel/solver@tol/mean/seed``."""
         tol = "exact" if self.tol is None else f"{self.tol:.0e}"
-        return (f"{self.pointset.name}-n{self.n}-d{self.d}/{self.kernel}/"
+        return (f"{self.pointset.name}-n{self.n}-d{self.d}/{self.kernel}{'-sep' if self.separable else ''}/"
                 f"{self.solver}@{tol}/{self.mean}{'-reml' if self.reml else ''}/s{self.seed}")
 
     def data_identity(self) -> dict[str, Any]:
         """The parameters that define the data (shared by all solvers of one cell)."""
         return {"pointset": self.pointset.to_dict(), "n": self.n, "d": self.d,
                 "kernel": self.kernel, "kernel_params": dict(self.kernel_params),
-                "mean": self.mean, "holdout": self.holdout}
+                "separable": self.separable, "mean": self.mean, "holdout": self.holdout}
 
     def streams(self) -> dict[str, np.random.Generator]:
         """Independent generators named by ``STREAMS`` (see module docstring)."""

@@ -5,7 +5,7 @@ mean, theta = (log s2, log l). With rho = exp(-spacing / l) and c = spacing / l 
 process is a stationary AR(1) with coefficient rho and innovation variance s2 (1 - rho^2)
 (the Ornstein-Uhlenbeck exact discretization), whose exact Gaussian likelihood in
 innovations form (Brockwell and Davis 1991, *Time Series: Theory and Methods*, 2nd ed.,
-eq. 8.7.4 with the AR(1) one-step predictors of section 5.2) gives:
+section 8.7, with the one-step predictors of section 5.2) gives:
 
     logdet          n log s2 + (n - 1) log(1 - rho^2)
     quadratic_ones  1' K^-1 1 = (1 + (n - 1) (1 - rho) / (1 + rho)) / s2
@@ -33,7 +33,7 @@ CASES = [  # n, spacing, lengthscale, variance
 ]
 
 AR1 = ("AR(1) exact Gaussian likelihood, innovations form: Brockwell and Davis (1991) "
-       "Time Series: Theory and Methods, eq. 8.7.4 and section 5.2; OU exact discretization")
+       "Time Series: Theory and Methods, sections 5.2 and 8.7; OU exact discretization")
 JACOBI = AR1 + "; derivative by Jacobi's formula d log det K = tr(K^-1 dK)"
 FISHER = ("sum of conditional Fisher informations of y_i | y_(i-1) ~ N(rho y_(i-1), "
           "s2 (1 - rho^2)) (martingale score decomposition), AR(1) as in " + AR1)

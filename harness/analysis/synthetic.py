@@ -99,15 +99,15 @@ def write_synthetic_run(
                                  status="skipped", error_type="",
                                  error_message=f"n={n} beyond dense limit {dense_max_n}",
                                  **common))
-                continue
-            total = 4e-10 * n ** dense_exponent
-            rows.append(_row(key=key, solver="dense", solver_version="1", n=n, seed=seed,
-                             tol=np.nan, trace_method="exact", reference="dense",
-                             status="ok", reference_certificate=0.4, probes=0,
-                             loglik_abs_err=0.0, logdet_abs_err=0.0, param_shift_se_max=0.0,
-                             kriging_mean_err_sd_max=0.0, nbytes=8.0 * n * n,
-                             peak_rss_bytes=1.2e8 + 8.0 * n * n, **timed(key, total),
-                             **common))
+            else:
+                total = 4e-10 * n ** dense_exponent
+                rows.append(_row(key=key, solver="dense", solver_version="1", n=n,
+                                 seed=seed, tol=np.nan, trace_method="exact",
+                                 reference="dense", status="ok", reference_certificate=0.4,
+                                 probes=0, loglik_abs_err=0.0, logdet_abs_err=0.0,
+                                 param_shift_se_max=0.0, kriging_mean_err_sd_max=0.0,
+                                 nbytes=8.0 * n * n, peak_rss_bytes=1.2e8 + 8.0 * n * n,
+                                 **timed(key, total), **common))
             for tol in tolerances:
                 for p_index, p in enumerate(probes):
                     key = _key(("hodlr", n, seed, tol, p))

@@ -5,7 +5,7 @@ x_1 < .. < x_n is Markov: the Ornstein-Uhlenbeck exact discretization gives
 f_i = rho_i f_{i-1} + e_i, rho_i = exp(-(x_i - x_{i-1}) / l), e_i ~ N(0, s2 (1 - rho_i^2)),
 f_1 ~ N(0, s2) (a first-order autoregression with gap-dependent coefficient; Brockwell
 and Davis 1991, *Time Series: Theory and Methods*, 2nd ed., sections 5.2 and 8.7, the
-innovations form of the Gaussian likelihood, eq. 8.7.4). With v_1 = s2,
+innovations form of the Gaussian likelihood in section 8.7). With v_1 = s2,
 v_i = s2 (1 - rho_i^2) and rho_1 = 0:
 
     log det K = sum_i log v_i = n log s2 + sum_{i>=2} log(1 - rho_i^2),

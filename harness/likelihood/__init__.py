@@ -1,0 +1,18 @@
+"""Gaussian-process log-likelihood, score, Fisher information and kriging through any
+Factorization (dense or compressed), with exact or stochastic trace terms."""
+
+from harness.likelihood.kriging import kriging
+from harness.likelihood.loglik import TRACE_CHOICES, evaluate_likelihood
+from harness.likelihood.result import KrigingPrediction, LikelihoodEvaluation
+from harness.likelihood.traces import EXACT_TRACE_MAX_N, ExactTraceSizeError, TraceTerms
+
+__all__ = [
+    "EXACT_TRACE_MAX_N",
+    "TRACE_CHOICES",
+    "ExactTraceSizeError",
+    "KrigingPrediction",
+    "LikelihoodEvaluation",
+    "TraceTerms",
+    "evaluate_likelihood",
+    "kriging",
+]

@@ -1,0 +1,181 @@
+"""The report's figures, drawn with matplotlib's object API (``Figure``, no pyplot state).
+
+Each function takes the results (and fits) and returns a ``Figure``, or None when the run
+holds nothing to draw. Worst cases over seeds are plotted, as the verdicts use them.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+
+import numpy as np
+import pandas as pd
+from matplotlib.axes import Axes
+from matplotlib.figure import Figure
+
+from harness.analysis.scaling_table import ScalingRow, solver_label
+from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
+from harness.verdict import Thresholds
+
+METRIC_TITLES: dict[str, str] = {
+    "loglik_abs_err": "|log-likelihood error| (nats)",
+    "param_shift_se_max": "max implied parameter shift (SE)",
+    "kriging_mean_err_sd_max": "max kriging mean error (predictive SD)",
+    "trace_z_max": "max |trace z-score|",
+    "trace_rel_err_max": "max relative trace error",
+    "t_factor": "factor time (s)", "t_logdet": "log det time (s)", "t_solve": "solve time (s)",
+    "t_gradient": "gradient time (s)", "t_total": "total time (s)",
+    "peak_rss_bytes": "peak RSS (bytes)", "nbytes": "factor storage (bytes)",
+}
+
+
+def _ok(results: pd.DataFrame) -> pd.DataFrame:
+    return results[results["status"] == "ok"]
+
+
+def _positive(frame: pd.DataFrame, column: str) -> pd.DataFrame:
+    return frame[frame[column].notna() & (frame[column] > 0)]
+
+
+def _threshold(ax: Axes, value: float, label: str) -> None:
+    ax.axhline(value, **THRESHOLD_STYLE)
+    ax.annotate(plain(label), xy=(0.99, value), xycoords=("axes fraction", "data"),
+                ha="right", va="bottom", fontsize=7, color=THRESHOLD_STYLE["color"])
+
+
+def _grid(n_panels: int, *, width: float = 7.2, height: float = 2.8) -> tuple[Figure,
+                                                                             list[Axes]]:
+    cols = min(2, n_panels)
+    rows = math.ceil(n_panels / cols)
+    fig = Figure(figsize=(width, height * rows), layout="constrained")
+    axes = [fig.add_subplot(rows, cols, i + 1) for i in range(n_panels)]
+    return fig, axes
+
+
+def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> Figure | None:
+    """Worst error over seeds against tolerance, one series per (solver, n), threshold
+    lines at the verdict limits (and at |z| = limit for trace z-scores)."""
+    ok = _ok(results)
+    ok = ok[ok["tol"].notna()]
+    panels = [("loglik_abs_err", thresholds.loglik_nats, "safe limit"),
+              ("param_shift_se_max", thresholds.param_shift_se, "safe limit"),
+              ("kriging_mean_err_sd_max", thresholds.kriging_mean_sd, "safe limit"),
+              ("trace_z_max", thresholds.trace_z_limit, f"|z| = {thresholds.trace_z_limit:g}")]
+    panels = [p for p in panels if not _positive(ok, p[0]).empty]
+    if not panels:
+        return None
+    with figure_rc():
+        fig, axes = _grid(len(panels))
+        for ax, (metric, limit, label) in zip(axes, panels, strict=True):
+            data = _positive(ok, metric)
+            worst = data.groupby(["solver", "n", "tol"])[metric].max().reset_index()
+            for i, ((solver, n), g) in enumerate(worst.groupby(["solver", "n"], sort=True)):
+                g = g.sort_values("tol")
+                ax.plot(g["tol"], g[metric], label=plain(f"{solver} n={int(n)}"),
+                        markersize=4, **series_style(i).kwargs())
+            _threshold(ax, limit, label)
+            ax.set_xscale("log")
+            ax.set_yscale("log")
+            ax.set_xlabel("compression tolerance")
+            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+        axes[0].legend(loc="best")
+    return fig
+
+
+def error_vs_n(results: pd.DataFrame, *, thresholds: Thresholds) -> Figure | None:
+    """Worst log-likelihood error and parameter shift against n, per (solver, tolerance)."""
+    ok = _ok(results)
+    ok = ok[ok["tol"].notna()]
+    panels = [(m, lim) for m, lim in (("loglik_abs_err", thresholds.loglik_nats),
+                                      ("param_shift_se_max", thresholds.param_shift_se))
+              if not _positive(ok, m).empty]
+    if not panels:
+        return None
+    with figure_rc():
+        fig, axes = _grid(len(panels))
+        for ax, (metric, limit) in zip(axes, panels, strict=True):
+            worst = _positive(ok, metric).groupby(["solver", "tol", "n"])[metric].max()
+            worst = worst.reset_index()
+            for i, ((solver, tol), g) in enumerate(worst.groupby(["solver", "tol"],
+                                                                 sort=True)):
+                g = g.sort_values("n")
+                ax.plot(g["n"], g[metric], label=plain(solver_label(solver, tol)),
+                        markersize=4, **series_style(i).kwargs())
+            _threshold(ax, limit, "safe limit")
+            ax.set_xscale("log")
+            ax.set_yscale("log")
+            ax.set_xlabel("n")
+            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+        axes[0].legend(loc="best")
+    return fig
+
+
+def cost_vs_n(results: pd.DataFrame, rows: Sequence[ScalingRow], *,
+              metrics: Sequence[str]) -> Figure | None:
+    """Per-size medians on log-log axes with the fitted power law; the legend gives each
+    fitted exponent with its confidence interval."""
+    ok = _ok(results)
+    panels = [m for m in metrics if m in ok and not _positive(ok, m).empty]
+    if not panels:
+        return None
+    fits = {(r.label, r.metric): r for r in rows}
+    with figure_rc():
+        fig, axes = _grid(len(panels), height=3.2)
+        for ax, metric in zip(axes, panels, strict=True):
+            med = _positive(ok, metric).groupby(["solver", "tol", "n"], dropna=False)[metric]
+            med = med.median().reset_index()
+            for i, ((solver, tol), g) in enumerate(med.groupby(["solver", "tol"],
+                                                               dropna=False, sort=True)):
+                label = solver_label(solver, tol)
+                style = series_style(i)
+                g = g.sort_values("n")
+                row = fits.get((label, metric))
+                fit = row.fit if row is not None else None
+                text = label if fit is None else (
+                    f"{label}: b={fit.slope:.2f} [{fit.ci_low:.2f}, {fit.ci_high:.2f}]")
+                ax.plot(g["n"], g[metric], color=style.color, marker=style.marker,
+                        linestyle="none", markersize=4, label=plain(text))
+                if fit is not None:
+                    grid = np.geomspace(min(fit.sizes), max(fit.sizes), 20)
+                    ax.plot(grid, fit.predict(grid), color=style.color,
+                            linestyle=style.linestyle, linewidth=1.0)
+            ax.set_xscale("log")
+            ax.set_yscale("log")
+            ax.set_xlabel("n")
+            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+            ax.legend(loc="upper left")
+    return fig
+
+
+def trace_vs_probes(results: pd.DataFrame) -> Figure | None:
+    """Worst relative trace error against the number of probes, with the p^-1/2
+    (Hutchinson) and p^-1 (Hutch++; Meyer, Musco, Musco & Woodruff, SOSA 2021) rates
+    drawn through the first point for reference."""
+    ok = _ok(results)
+    data = _positive(ok[~ok["trace_method"].isin(["", "exact"])], "trace_rel_err_max")
+    data = data[data["probes"].notna() & (data["probes"] > 0)]
+    if data.empty:
+        return None
+    worst = data.groupby(["trace_method", "solver", "tol", "probes"], dropna=False)[
+        "trace_rel_err_max"].max().reset_index()
+    with figure_rc():
+        fig = Figure(figsize=(7.2, 3.2), layout="constrained")
+        ax = fig.add_subplot()
+        for i, ((method, solver, tol), g) in enumerate(
+                worst.groupby(["trace_method", "solver", "tol"], dropna=False, sort=True)):
+            g = g.sort_values("probes")
+            ax.plot(g["probes"], g["trace_rel_err_max"],
+                    label=plain(f"{method}, {solver_label(solver, tol)}"), markersize=4,
+                    **series_style(i).kwargs())
+        p = np.geomspace(worst["probes"].min(), worst["probes"].max(), 10)
+        first = worst.sort_values("probes")["trace_rel_err_max"].iloc[0]
+        for rate, style in ((0.5, (0, (1, 2))), (1.0, (0, (4, 2, 1, 2)))):
+            ax.plot(p, first * (p / p[0]) ** -rate, color="#444444", linestyle=style,
+                    linewidth=1.0, label=f"rate p^-{rate:g}")
+        ax.set_xscale("log")
+        ax.set_yscale("log")
+        ax.set_xlabel("probes p")
+        ax.set_title(METRIC_TITLES["trace_rel_err_max"], fontsize=9)
+        ax.legend(loc="best", ncols=2)
+    return fig

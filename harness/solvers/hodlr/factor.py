@@ -1,0 +1,229 @@
+"""Symmetric factorization K = W W' of a HODLR matrix (tree order).
+
+Method of Ambikasaran, O'Neil and Singh, "Fast symmetric factorization of hierarchical
+matrices with applications", arXiv 1405.0223 (sec. 3-4), for the GP likelihood as in
+Ambikasaran, Foreman-Mackey, Greengard, Hogg and O'Neil, IEEE TPAMI 38 (2016) 252-265:
+
+    K = W_L W_{L-1} ... W_0 W_0' ... W_{L-1}' W_L',    W = W_L W_{L-1} ... W_0,
+
+with W_L = blockdiag(chol(D_j)) over the leaves and, for each level l < L, W_l block
+diagonal over the level-l nodes p. At node p (children a, b) the off-diagonal pair,
+after all finer factors have been divided out of its bases, is
+[[I, U V'], [V U', I]] = I + Q M Q' with U = Q_a R_a, V = Q_b R_b (thin QR),
+Q = blockdiag(Q_a, Q_b), M = [[0, G], [G', 0]], G = R_a R_b'. Its symmetric factor
+(paper, Lemma 3.1 with orthonormal Q) is
+
+    W_p = I + Q (L - I) Q',   L = chol(I + M) = [[I, 0], [G', L_22]],
+    L_22 = chol(I - G' G),
+
+so only the b-rows of a vector change under W_p, W_p^-1 and their transposes, and
+
+    log det K = sum_j log det D_j + 2 sum_p sum log diag(L_22,p)   (TPAMI 2016, eq. 18).
+
+The bases of all coarser levels are divided by W_l as level l is factored, bottom up
+(the paper's Algorithm 2); they live in one array, ``basis`` (n x sum of max ranks),
+whose level-l columns hold Q_a / Q_b once level l is done. I - G'G fails to be
+positive definite exactly when the compressed matrix is not: that is reported as
+``CompressionBreakdownError`` with the level and node.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.linalg import blas, lapack, solve_triangular
+
+from harness.geometry.tree import ClusterTree
+from harness.solvers.hodlr.compressed import HodlrMatrix
+from harness.solvers.hodlr.orth import thin_qr
+
+
+class CompressionBreakdownError(np.linalg.LinAlgError):
+    """The compressed covariance is not positive definite at some tree level and node."""
+
+    def __init__(self, *, level: int, block: int, rows: tuple[int, int], depth: int,
+                 detail: str) -> None:
+        self.level, self.block, self.rows, self.depth = level, block, rows, depth
+        where = ("leaf" if level == depth else "off-diagonal pair of node")
+        super().__init__(
+            f"compressed covariance lost positive definiteness at tree level {level} of "
+            f"{depth} ({where} {block}, rows {rows[0]}:{rows[1]} in tree order): {detail}; "
+            "the compression tolerance is too loose for this matrix's conditioning: "
+            "use a tighter tol (e.g. 100x smaller) or a larger nugget")
+
+
+@dataclass(frozen=True)
+class NodeFactor:
+    """W_p at one internal node: rank r, G = R_a R_b' and L_22 = chol(I - G'G)."""
+
+    rank: int
+    g: np.ndarray
+    l22: np.ndarray
+
+
+@dataclass(frozen=True)
+class SymmetricFactor:
+    """W with K = W W' in tree order (see module docstring)."""
+
+    tree: ClusterTree
+    leaf_chol: tuple[np.ndarray, ...]
+    basis: np.ndarray
+    offsets: np.ndarray
+    nodes: tuple[tuple[NodeFactor, ...], ...]
+    logdet: float
+
+    @property
+    def nbytes(self) -> int:
+        return int(self.basis.nbytes + sum(c.nbytes for c in self.leaf_chol)
+                   + sum(f.g.nbytes + f.l22.nbytes for lv in self.nodes for f in lv))
+
+    def _node_views(self, level: int, j: int) -> tuple[slice, slice, np.ndarray, np.ndarray]:
+        b = self.tree.bounds[level + 1]
+        s, mid, e = int(b[2 * j]), int(b[2 * j + 1]), int(b[2 * j + 2])
+        r = self.nodes[level][j].rank
+        c0 = int(self.offsets[level])
+        return (slice(s, mid), slice(mid, e), self.basis[s:mid, c0:c0 + r],
+                self.basis[mid:e, c0:c0 + r])
+
+    def _leaves(self) -> list[tuple[int, int, np.ndarray]]:
+        b = self.tree.bounds[self.tree.depth]
+        return [(int(b[j]), int(b[j + 1]), c) for j, c in enumerate(self.leaf_chol)]
+
+    def apply(self, x: np.ndarray) -> np.ndarray:
+        """W x (x: (n, k), tree order): W_0 first, leaves last."""
+        y = x.copy()
+        for level in range(self.tree.depth):
+            for j, f in enumerate(self.nodes[level]):
+                if f.rank:
+                    ia, ib, qa, qb = self._node_views(level, j)
+                    ta, tb = qa.T @ y[ia], qb.T @ y[ib]
+                    y[ib] += qb @ (f.g.T @ ta + f.l22 @ tb - tb)
+        for s, e, c in self._leaves():
+            y[s:e] = c @ y[s:e]
+        return y
+
+    def apply_transpose(self, x: np.ndarray) -> np.ndarray:
+        """W' x: leaves first, then W_{L-1}' ... W_0'."""
+        y = x.copy()
+        for s, e, c in self._leaves():
+            y[s:e] = c.T @ y[s:e]
+        for level in range(self.tree.depth - 1, -1, -1):
+            for j, f in enumerate(self.nodes[level]):
+                if f.rank:
+                    ia, ib, qa, qb = self._node_views(level, j)
+                    tb = qb.T @ y[ib]
+                    y[ia] += qa @ (f.g @ tb)
+                    y[ib] += qb @ (f.l22.T @ tb - tb)
+        return y
+
+    def solve(self, x: np.ndarray) -> np.ndarray:
+        """W^-1 x: leaves first, then W_{L-1}^-1 ... W_0^-1."""
+        y = x.copy()
+        for s, e, c in self._leaves():
+            y[s:e] = solve_triangular(c, y[s:e], lower=True, check_finite=False)
+        for level in range(self.tree.depth - 1, -1, -1):
+            for j, f in enumerate(self.nodes[level]):
+                if f.rank:
+                    ia, ib, qa, qb = self._node_views(level, j)
+                    _inverse_update(f, qa, qb, y[ia], y[ib])
+        return y
+
+    def solve_transpose(self, x: np.ndarray) -> np.ndarray:
+        """W'^-1 x: W_0'^-1 first, leaves last."""
+        y = x.copy()
+        for level in range(self.tree.depth):
+            for j, f in enumerate(self.nodes[level]):
+                if f.rank:
+                    ia, ib, qa, qb = self._node_views(level, j)
+                    tb = qb.T @ y[ib]
+                    w = solve_triangular(f.l22, tb, lower=True, trans="T", check_finite=False)
+                    y[ia] -= qa @ (f.g @ w)
+                    y[ib] -= qb @ (tb - w)
+        for s, e, c in self._leaves():
+            y[s:e] = solve_triangular(c, y[s:e], lower=True, trans="T", check_finite=False)
+        return y
+
+
+def _inverse_update(f: NodeFactor, qa: np.ndarray, qb: np.ndarray, xa: np.ndarray,
+                    xb: np.ndarray) -> None:
+    """x <- W_p^-1 x in place: x_b -= Q_b (t_b - L_22^-1 (t_b - G' t_a)), t = Q' x."""
+    ta, tb = qa.T @ xa, qb.T @ xb
+    w = solve_triangular(f.l22, tb - f.g.T @ ta, lower=True, check_finite=False)
+    xb -= qb @ (tb - w)
+
+
+def _chol_lower(a: np.ndarray) -> tuple[np.ndarray, int]:
+    c, info = lapack.dpotrf(a, lower=1, clean=1, overwrite_a=0)
+    return c, int(info)
+
+
+def factor_symmetric(hodlr: HodlrMatrix, *, threads: int) -> SymmetricFactor:
+    """W W' = K for the HODLR matrix K (Algorithm 2 of arXiv 1405.0223, bottom up).
+
+    Raises
+    ------
+    CompressionBreakdownError
+        When a leaf block or a level's I - G'G is not numerically positive definite.
+    """
+    tree = hodlr.tree
+    depth, n = tree.depth, tree.n
+    max_ranks = [max((p.rank for p in level), default=0) for level in hodlr.pairs]
+    offsets = np.concatenate([[0], np.cumsum(max_ranks, dtype=np.int64)]).astype(np.int64)
+    basis = np.zeros((n, int(offsets[-1])))
+    for level, pairs in enumerate(hodlr.pairs):
+        b, c0 = tree.bounds[level + 1], int(offsets[level])
+        for j, p in enumerate(pairs):
+            s, mid, e = int(b[2 * j]), int(b[2 * j + 1]), int(b[2 * j + 2])
+            basis[s:mid, c0:c0 + p.rank] = p.u
+            basis[mid:e, c0:c0 + p.rank] = p.v
+    leaf_b = tree.bounds[depth]
+
+    def leaf(j: int) -> tuple[np.ndarray, float]:
+        s, e = int(leaf_b[j]), int(leaf_b[j + 1])
+        c, info = _chol_lower(hodlr.leaves[j])
+        if info != 0:
+            raise CompressionBreakdownError(
+                level=depth, block=j, rows=(s, e), depth=depth,
+                detail=f"the dense leaf block is not positive definite (dpotrf info={info})")
+        if basis.shape[1]:
+            rows = basis[s:e].T  # Fortran view of a C block: in-place X <- L^-1 X
+            blas.dtrsm(1.0, c, rows, side=1, lower=1, trans_a=1, overwrite_b=1)
+        return c, 2.0 * float(np.sum(np.log(np.diag(c))))
+
+    def node(level: int, j: int, rank: int) -> tuple[NodeFactor, float]:
+        b = tree.bounds[level + 1]
+        s, mid, e = int(b[2 * j]), int(b[2 * j + 1]), int(b[2 * j + 2])
+        c0 = int(offsets[level])
+        if rank == 0:
+            return NodeFactor(0, np.zeros((0, 0)), np.zeros((0, 0))), 0.0
+        qa, ra = thin_qr(basis[s:mid, c0:c0 + rank])
+        qb, rb = thin_qr(basis[mid:e, c0:c0 + rank])
+        g = ra @ rb.T
+        l22, info = _chol_lower(np.eye(rank) - g.T @ g)
+        if info != 0:
+            norm = float(np.linalg.norm(g, 2))
+            raise CompressionBreakdownError(
+                level=level, block=j, rows=(s, e), depth=depth,
+                detail=f"the scaled off-diagonal coupling has 2-norm {norm:.6g} >= 1 "
+                       f"(I - G'G not positive definite, dpotrf info={info})")
+        basis[s:mid, c0:c0 + rank] = qa
+        basis[mid:e, c0:c0 + rank] = qb
+        f = NodeFactor(rank, g, l22)
+        if c0:
+            _inverse_update(f, qa, qb, basis[s:mid, :c0], basis[mid:e, :c0])
+        return f, 2.0 * float(np.sum(np.log(np.diag(l22))))
+
+    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
+        leaf_out = list(pool.map(leaf, range(leaf_b.shape[0] - 1)))
+        node_out: list[list[tuple[NodeFactor, float]]] = [[] for _ in range(depth)]
+        for level in range(depth - 1, -1, -1):
+            ranks = [p.rank for p in hodlr.pairs[level]]
+            node_out[level] = list(pool.map(lambda j, lv=level, rk=ranks: node(lv, j, rk[j]),
+                                            range(len(ranks))))
+    logdet = sum(ld for _, ld in leaf_out) + sum(ld for lv in node_out for _, ld in lv)
+    return SymmetricFactor(tree=tree, leaf_chol=tuple(c for c, _ in leaf_out), basis=basis,
+                           offsets=offsets,
+                           nodes=tuple(tuple(f for f, _ in lv) for lv in node_out),
+                           logdet=float(logdet))

@@ -1,0 +1,383 @@
+"""Is a tolerance safe for a dataset? Verdicts with their evidence, and a recommendation.
+
+A tolerance is *safe* for a dataset (DESIGN section 7) when, over every task of that
+dataset and tolerance,
+
+- |log-likelihood error| <= 0.1 nat,
+- every implied parameter shift |(F^-1 (g~ - g))_i| / SE_i <= 0.1,
+- the kriging mean error |m~ - m| / sqrt(v) <= 0.05 predictive SD, and
+- the reference itself is certified (dense: scaled Cholesky residual below 30, the pass
+  ratio of the LAPACK test suite; structured exact references are exact by construction).
+
+These limits are common practice chosen for this tool, not a published standard; every one
+is configurable through ``Thresholds`` (case file ``[verdict]`` table or CLI options). A
+metric that was not measured makes the verdict ``incomplete`` rather than safe. The
+recommendation is the loosest safe tolerance with its speed-up in median total time over
+the dense solver (over the tightest tolerance when no dense timing exists).
+
+Stochastic trace estimators are checked separately: the fraction of tasks whose z-score
+|estimate - exact| / reported SE lies within +-2 is tested against a minimum fraction with
+a one-sided exact binomial test (scipy.stats.binomtest); a significantly low fraction means
+the estimator's reported standard error is too small.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, fields, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+#: Columns that identify a dataset (the problem the solver is asked to solve).
+DATASET_COLUMNS: tuple[str, ...] = ("case", "kernel", "shape", "n", "d", "geometry", "mean",
+                                    "variance", "lengthscale", "nugget")
+STRUCTURED_REFERENCES: frozenset[str] = frozenset({"statespace", "kronecker"})
+CERTIFICATE_COLUMN = "reference_certificate"
+COMMON_PRACTICE = ("common practice chosen for covaudit, not a published standard; "
+                   "set your own limits where your application requires")
+LAPACK_BASIS = ("the pass ratio of LAPACK's own test suite (scaled residual < 30), "
+                "adopted here as common practice")
+
+
+class ThresholdError(ValueError):
+    """A threshold setting is unknown or not a positive number."""
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """Limits for a safe tolerance and for a calibrated trace estimator (all common practice).
+
+    Attributes
+    ----------
+    loglik_nats : float
+        Largest |log-likelihood error| in nats.
+    param_shift_se : float
+        Largest implied parameter shift in standard errors.
+    kriging_mean_sd : float
+        Largest kriging mean error in predictive standard deviations.
+    certificate_max : float
+        Largest scaled Cholesky residual of a certified dense reference.
+    trace_z_limit : float
+        |z| counted as inside.
+    trace_min_fraction : float
+        Smallest acceptable fraction of z-scores inside +-trace_z_limit.
+    trace_alpha : float
+        Significance level of the one-sided binomial test.
+    """
+
+    loglik_nats: float = 0.1
+    param_shift_se: float = 0.1
+    kriging_mean_sd: float = 0.05
+    certificate_max: float = 30.0
+    trace_z_limit: float = 2.0
+    trace_min_fraction: float = 0.8
+    trace_alpha: float = 0.05
+
+    def __post_init__(self) -> None:
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if isinstance(value, bool) or not isinstance(value, int | float) \
+                    or not math.isfinite(value) or value <= 0:
+                raise ThresholdError(f"threshold {f.name}: expected a positive number, "
+                                     f"got {value!r}")
+        for name in ("trace_min_fraction", "trace_alpha"):
+            if getattr(self, name) >= 1:
+                raise ThresholdError(f"threshold {name}: expected a value below 1, got "
+                                     f"{getattr(self, name)!r}")
+
+    @classmethod
+    def from_mapping(cls, table: Mapping[str, Any], *, source: str = "[verdict]"
+                     ) -> Thresholds:
+        """Build from a mapping such as a case file's ``[verdict]`` table."""
+        known = {f.name for f in fields(cls)}
+        unknown = sorted(set(table) - known)
+        if unknown:
+            raise ThresholdError(f"{source}: unknown setting(s) {', '.join(unknown)}; "
+                                 f"known: {', '.join(sorted(known))}")
+        return cls(**{k: table[k] for k in table})
+
+    @classmethod
+    def from_case_file(cls, path: str | Path) -> Thresholds:
+        """Read the ``[verdict]`` table of a TOML case file (defaults when it has none)."""
+        p = Path(path)
+        try:
+            data = tomllib.loads(p.read_text(encoding="utf-8"))
+        except (OSError, tomllib.TOMLDecodeError) as exc:
+            raise ThresholdError(f"{p}: cannot read the case file ({exc})") from exc
+        return cls.from_case_text_table(data.get("verdict", {}), source=f"{p} [verdict]")
+
+    @classmethod
+    def from_case_text(cls, text: str) -> Thresholds:
+        """Read the ``[verdict]`` table from case file text (as stored in run.json)."""
+        try:
+            data = tomllib.loads(text)
+        except tomllib.TOMLDecodeError as exc:
+            raise ThresholdError(f"case file text in run.json: not TOML ({exc})") from exc
+        return cls.from_case_text_table(data.get("verdict", {}), source="case file [verdict]")
+
+    @classmethod
+    def from_case_text_table(cls, table: object, *, source: str) -> Thresholds:
+        if not isinstance(table, Mapping):
+            raise ThresholdError(f"{source}: expected a table, got {type(table).__name__}")
+        return cls.from_mapping(table, source=source)
+
+    def with_overrides(self, **values: float | None) -> Thresholds:
+        """A copy with the given settings replaced (None leaves a setting as it is)."""
+        return replace(self, **{k: v for k, v in values.items() if v is not None})
+
+    def to_dict(self) -> dict[str, float]:
+        return {f.name: getattr(self, f.name) for f in fields(self)}
+
+
+@dataclass(frozen=True)
+class Evidence:
+    """One metric's contribution to a verdict."""
+
+    metric: str
+    value: float
+    threshold: float
+    passed: bool | None  # None when the metric was not available
+    available: bool
+    basis: str = COMMON_PRACTICE
+    note: str = ""
+
+    def to_dict(self) -> dict[str, object]:
+        return {"metric": self.metric, "value": self.value, "threshold": self.threshold,
+                "passed": self.passed, "available": self.available, "basis": self.basis,
+                "note": self.note}
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """Whether one (dataset, solver, tolerance) is safe: ``safe``, ``unsafe``,
+    ``incomplete`` (nothing failed but something was not measured) or ``failed`` (no task
+    finished)."""
+
+    dataset: Mapping[str, object]
+    solver: str
+    tol: float
+    status: str
+    evidence: tuple[Evidence, ...]
+    tasks_ok: int
+    tasks_failed: int
+    t_total: float
+
+    @property
+    def safe(self) -> bool:
+        return self.status == "safe"
+
+    def to_dict(self) -> dict[str, object]:
+        return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
+                "status": self.status, "evidence": [e.to_dict() for e in self.evidence],
+                "tasks_ok": self.tasks_ok, "tasks_failed": self.tasks_failed,
+                "t_total": self.t_total}
+
+
+@dataclass(frozen=True)
+class Recommendation:
+    """The loosest safe tolerance of a solver on a dataset (``tol`` NaN when none is safe)."""
+
+    dataset: Mapping[str, object]
+    solver: str
+    tol: float
+    speedup: float
+    speedup_over: str
+    reason: str
+
+    def to_dict(self) -> dict[str, object]:
+        return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
+                "speedup": self.speedup, "speedup_over": self.speedup_over,
+                "reason": self.reason}
+
+
+@dataclass(frozen=True)
+class TraceCalibration:
+    """Fraction of trace z-scores inside +-limit for one estimator setting.
+
+    ``p_value`` is the one-sided binomial probability of so few inside if the true fraction
+    were ``min_fraction``; ``flagged`` when the fraction is below it and p < alpha. The row
+    value ``trace_z_max`` is a maximum over parameters, so even a calibrated estimator
+    gives a fraction below the single-z 0.954 (about 0.954^p for p parameters).
+    """
+
+    solver: str
+    tol: float
+    trace_method: str
+    probes: float
+    count: int
+    inside: int
+    fraction: float
+    p_value: float
+    flagged: bool
+
+    def to_dict(self) -> dict[str, object]:
+        return {"solver": self.solver, "tol": self.tol, "trace_method": self.trace_method,
+                "probes": self.probes, "count": self.count, "inside": self.inside,
+                "fraction": self.fraction, "p_value": self.p_value, "flagged": self.flagged}
+
+
+@dataclass(frozen=True)
+class VerdictSet:
+    """All verdicts, recommendations and trace checks of one run."""
+
+    thresholds: Thresholds
+    verdicts: tuple[Verdict, ...]
+    recommendations: tuple[Recommendation, ...]
+    trace: tuple[TraceCalibration, ...]
+
+    def to_dict(self) -> dict[str, object]:
+        return {"thresholds": self.thresholds.to_dict(),
+                "verdicts": [v.to_dict() for v in self.verdicts],
+                "recommendations": [r.to_dict() for r in self.recommendations],
+                "trace": [t.to_dict() for t in self.trace]}
+
+
+def _max_metric(frame: pd.DataFrame, column: str) -> float:
+    if column not in frame:
+        return float("nan")
+    values = pd.to_numeric(frame[column], errors="coerce").abs().dropna()
+    return float(values.max()) if len(values) else float("nan")
+
+
+def _threshold_evidence(metric: str, value: float, threshold: float) -> Evidence:
+    if math.isnan(value):
+        return Evidence(metric, value, threshold, None, False, note="not measured")
+    return Evidence(metric, value, threshold, bool(value <= threshold), True)
+
+
+def _certificate_evidence(frame: pd.DataFrame, limit: float) -> Evidence:
+    metric = "reference_certified"
+    refs = sorted(set(frame["reference"].astype(str)) - {""})
+    if refs and set(refs) <= STRUCTURED_REFERENCES:
+        return Evidence(metric, float("nan"), limit, True, True, basis=LAPACK_BASIS,
+                        note=f"exact structured reference ({', '.join(refs)})")
+    value = _max_metric(frame, CERTIFICATE_COLUMN)
+    if math.isnan(value):
+        why = ("tolerance-ladder reference is not certified against an exact one"
+               if "ladder" in refs else "reference certificate not recorded")
+        return Evidence(metric, value, limit, None, False, basis=LAPACK_BASIS, note=why)
+    return Evidence(metric, value, limit, bool(value < limit), True, basis=LAPACK_BASIS,
+                    note=f"reference: {', '.join(refs) or 'unknown'}")
+
+
+def _status(evidence: Sequence[Evidence]) -> str:
+    if any(e.passed is False for e in evidence):
+        return "unsafe"
+    if any(not e.available for e in evidence):
+        return "incomplete"
+    return "safe"
+
+
+def _median(frame: pd.DataFrame, column: str) -> float:
+    values = frame[column].dropna() if column in frame else pd.Series(dtype=float)
+    return float(values.median()) if len(values) else float("nan")
+
+
+def _dataset_dict(key: tuple[object, ...]) -> dict[str, object]:
+    return {c: (v.item() if isinstance(v, np.generic) else v)
+            for c, v in zip(DATASET_COLUMNS, key, strict=True)}
+
+
+def judge(results: pd.DataFrame, *, thresholds: Thresholds | None = None) -> VerdictSet:
+    """Verdicts for every (dataset, compressed solver, tolerance) of a results table.
+
+    Parameters
+    ----------
+    results : DataFrame
+        Rows as in ``results.csv`` (``harness.analysis.load_run(...).results``).
+    thresholds : Thresholds, optional
+        Defaults to ``Thresholds()``.
+    """
+    th = thresholds or Thresholds()
+    verdicts: list[Verdict] = []
+    recommendations: list[Recommendation] = []
+    frame = results.copy()
+    for c in DATASET_COLUMNS:
+        if c not in frame:
+            frame[c] = ""
+    compressed = frame[frame["tol"].notna()]
+    exact = frame[frame["tol"].isna() & (frame["status"] == "ok")]
+    for dkey, dframe in compressed.groupby(list(DATASET_COLUMNS), dropna=False, sort=True):
+        dataset = _dataset_dict(dkey)
+        for solver, sframe in dframe.groupby("solver", sort=True):
+            per_tol: list[Verdict] = []
+            for tol, tframe in sframe.groupby("tol", sort=True):
+                ok = tframe[tframe["status"] == "ok"]
+                failed = int((tframe["status"] == "failed").sum())
+                if ok.empty:
+                    per_tol.append(Verdict(dataset, str(solver), float(tol), "failed", (),
+                                           0, failed, float("nan")))
+                    continue
+                evidence = (
+                    _threshold_evidence("loglik_abs_err", _max_metric(ok, "loglik_abs_err"),
+                                        th.loglik_nats),
+                    _threshold_evidence("param_shift_se_max",
+                                        _max_metric(ok, "param_shift_se_max"),
+                                        th.param_shift_se),
+                    _threshold_evidence("kriging_mean_err_sd_max",
+                                        _max_metric(ok, "kriging_mean_err_sd_max"),
+                                        th.kriging_mean_sd),
+                    _certificate_evidence(ok, th.certificate_max),
+                )
+                per_tol.append(Verdict(dataset, str(solver), float(tol), _status(evidence),
+                                       evidence, len(ok), failed, _median(ok, "t_total")))
+            verdicts.extend(per_tol)
+            recommendations.append(_recommend(dataset, str(solver), per_tol, exact, dkey))
+    return VerdictSet(th, tuple(verdicts), tuple(recommendations),
+                      trace_calibration(frame, thresholds=th))
+
+
+def _recommend(dataset: dict[str, object], solver: str, per_tol: Sequence[Verdict],
+               exact: pd.DataFrame, dkey: tuple[object, ...]) -> Recommendation:
+    safe = [v for v in per_tol if v.safe]
+    if not safe:
+        statuses = ", ".join(f"{v.tol:g}: {v.status}" for v in per_tol)
+        return Recommendation(dataset, solver, float("nan"), float("nan"), "",
+                              f"no tolerance is safe ({statuses})")
+    best = max(safe, key=lambda v: v.tol)
+    mask = np.ones(len(exact), dtype=bool)
+    for c, v in zip(DATASET_COLUMNS, dkey, strict=True):
+        col = exact[c]
+        mask &= (col.isna().to_numpy() if isinstance(v, float) and math.isnan(v)
+                 else (col == v).to_numpy())
+    dense = exact[mask]
+    if "dense" in set(dense["solver"]):
+        dense = dense[dense["solver"] == "dense"]
+    t_dense = _median(dense, "t_total")
+    if not math.isnan(t_dense):
+        return Recommendation(dataset, solver, best.tol, t_dense / best.t_total,
+                              str(dense["solver"].iloc[0]), "loosest safe tolerance")
+    tightest = min(per_tol, key=lambda v: v.tol)
+    return Recommendation(dataset, solver, best.tol, tightest.t_total / best.t_total,
+                          f"{solver} tol={tightest.tol:g}",
+                          "loosest safe tolerance (no dense timing: speed-up over the "
+                          "tightest tolerance)")
+
+
+def trace_calibration(results: pd.DataFrame, *, thresholds: Thresholds | None = None
+                      ) -> tuple[TraceCalibration, ...]:
+    """Binomial check of trace z-scores per (solver, tol, trace_method, probes)."""
+    th = thresholds or Thresholds()
+    rows = results[(results["status"] == "ok")
+                   & ~results["trace_method"].isin(["", "exact"])
+                   & results["trace_z_max"].notna()]
+    out: list[TraceCalibration] = []
+    for (solver, tol, method, probes), g in rows.groupby(
+            ["solver", "tol", "trace_method", "probes"], dropna=False, sort=True):
+        z = g["trace_z_max"].abs().to_numpy()
+        inside = int(np.sum(z <= th.trace_z_limit))
+        count = int(z.size)
+        fraction = inside / count
+        p = float(stats.binomtest(inside, count, th.trace_min_fraction,
+                                  alternative="less").pvalue)
+        out.append(TraceCalibration(str(solver), float(tol), str(method), float(probes),
+                                    count, inside, fraction, p,
+                                    bool(fraction < th.trace_min_fraction
+                                         and p < th.trace_alpha)))
+    return tuple(out)

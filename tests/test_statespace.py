@@ -1,0 +1,197 @@
+"""State-space (Kalman) reference against the dense Gaussian likelihood computed here.
+
+Ground truth: the Matern correlations of Rasmussen and Williams (2006, eq. 4.17) and their
+log-length-scale derivatives written out with numpy below, a numpy Cholesky, the GLS /
+REML likelihood written from its definition (Harville 1974, eq. 5) and the analytic score
+1/2 a' S_i a - 1/2 tr(P S_i) (Rasmussen and Williams 2006, eq. 5.9).
+"""
+
+import numpy as np
+import pytest
+
+from harness.exact.statespace import StateSpaceError, StateSpaceReference
+from harness.kernels import Exponential, Gaussian, Matern, Matern32, Matern52
+
+SQ3, SQ5 = np.sqrt(3.0), np.sqrt(5.0)
+
+
+def matern_dense(family, r):
+    """(rho, -r rho'(r)) of R&W eq. 4.17, written independently of the package."""
+    if family == "exponential":
+        e = np.exp(-r)
+        return e, r * e
+    if family == "matern32":
+        a = SQ3 * r
+        e = np.exp(-a)
+        return (1 + a) * e, a * a * e
+    a = SQ5 * r
+    e = np.exp(-a)
+    return (1 + a + a * a / 3) * e, a * a * (1 + a) * e / 3
+
+
+def dense_model(family, x, s2, ls, tau2):
+    """Sigma and [dSigma/dlog s2, dSigma/dlog l, (dSigma/dlog tau2)] by numpy."""
+    r = np.abs(x[:, None] - x[None, :]) / ls
+    rho, slope = matern_dense(family, r)
+    sigma = s2 * rho + tau2 * np.eye(x.size)
+    derivs = [s2 * rho, s2 * slope] + ([tau2 * np.eye(x.size)] if tau2 > 0 else [])
+    return sigma, derivs
+
+
+def design(x, mean):
+    n = x.size
+    return {"zero": np.empty((n, 0)), "constant": np.ones((n, 1)),
+            "linear": np.column_stack([np.ones(n), x])}[mean]
+
+
+def dense_inverse(sigma):
+    """(Sigma^-1, log det Sigma) by a numpy Cholesky."""
+    chol = np.linalg.cholesky(sigma)
+    cinv = np.linalg.inv(chol)
+    return cinv.T @ cinv, 2 * np.sum(np.log(np.diag(chol)))
+
+
+def dense_loglik_and_score(dense, derivs, y, f, reml):
+    """Profile ML / REML log-likelihood and its analytic score, from the definitions."""
+    n, p = f.shape
+    sinv, logdet = dense
+    if p:
+        gram = f.T @ sinv @ f
+        beta = np.linalg.solve(gram, f.T @ sinv @ y)
+        proj = sinv - sinv @ f @ np.linalg.solve(gram, f.T @ sinv)
+    else:
+        gram, beta, proj = None, np.empty(0), sinv
+    r = y - f @ beta
+    quad = r @ sinv @ r
+    if reml and p:
+        ll = -0.5 * (quad + logdet + np.linalg.slogdet(gram)[1] - np.linalg.slogdet(f.T @ f)[1]
+                     + (n - p) * np.log(2 * np.pi))
+        tr_mat = proj
+    else:
+        ll = -0.5 * (quad + logdet + n * np.log(2 * np.pi))
+        tr_mat = sinv
+    a = sinv @ r
+    quads = np.array([0.5 * a @ d @ a for d in derivs])
+    traces = np.array([0.5 * np.sum(tr_mat * d) for d in derivs])
+    return ll, logdet, quads - traces, np.abs(quads) + np.abs(traces)
+
+
+KERNELS = {"exponential": Exponential, "matern32": Matern32, "matern52": Matern52}
+
+
+@pytest.fixture(scope="module")
+def problem():
+    rng = np.random.default_rng(20240611)
+    n = 2000
+    x = rng.random(n) * 3.0
+    out = {}
+    for fam in KERNELS:
+        s2, ls, tau2 = 1.7, 0.3, 0.05
+        sigma, derivs = dense_model(fam, x, s2, ls, tau2)
+        # data drawn from the model plus a linear trend
+        y = np.linalg.cholesky(sigma) @ rng.standard_normal(n) + 0.4 + 0.2 * x
+        out[fam] = (KERNELS[fam](variance=s2, lengthscale=ls, nugget=tau2), dense_inverse(sigma),
+                    derivs, y)
+    return x, out
+
+
+@pytest.mark.parametrize("family", list(KERNELS))
+@pytest.mark.parametrize("mean,reml", [("zero", False), ("constant", False),
+                                       ("constant", True), ("linear", False), ("linear", True)])
+def test_loglik_matches_dense(problem, family, mean, reml):
+    x, models = problem
+    kernel, sigma, derivs, y = models[family]
+    ll, logdet, _, _ = dense_loglik_and_score(sigma, derivs, y, design(x, mean), reml)
+    ev = StateSpaceReference(x, kernel).evaluate(y, mean=mean, reml=reml, score=False)
+    assert ev.reference == "statespace"
+    assert ev.logdet == pytest.approx(logdet, rel=1e-9)
+    assert ev.loglik == pytest.approx(ll, rel=1e-9)
+
+
+@pytest.mark.parametrize("family", list(KERNELS))
+@pytest.mark.parametrize("mean,reml", [("zero", False), ("linear", True)])
+def test_score_matches_dense_analytic(problem, family, mean, reml):
+    x, models = problem
+    kernel, sigma, derivs, y = models[family]
+    _, _, score, scale = dense_loglik_and_score(sigma, derivs, y, design(x, mean), reml)
+    ev = StateSpaceReference(x, kernel).evaluate(y, mean=mean, reml=reml)
+    assert ev.param_names == ("log_variance", "log_lengthscale", "log_nugget")
+    # relative to the size of the two terms that cancel in the score
+    np.testing.assert_array_less(np.abs(ev.score - score), 1e-6 * scale)
+    assert any("central differences" in note for note in ev.notes)
+
+
+def test_unsorted_points_give_the_same_likelihood(problem):
+    x, models = problem
+    kernel, sigma, derivs, y = models["matern32"]
+    perm = np.random.default_rng(1).permutation(x.size)
+    ll, _, _, _ = dense_loglik_and_score(sigma, derivs, y, design(x, "linear"), False)
+    ev = StateSpaceReference(x[perm], kernel).evaluate(y[perm], mean="linear", score=False)
+    assert ev.loglik == pytest.approx(ll, rel=1e-9)
+
+
+def test_whiten_gives_inverse_quadratic_forms():
+    # V' Sigma^-1 U by numpy against (W^-1 V)' (W^-1 U)
+    rng = np.random.default_rng(3)
+    x = rng.random(300)
+    sigma, _ = dense_model("matern52", x, 0.9, 0.2, 0.01)
+    v = rng.standard_normal((300, 3))
+    ref = StateSpaceReference(x[:, None], Matern52(variance=0.9, lengthscale=0.2, nugget=0.01))
+    w = ref.whiten(v)
+    np.testing.assert_allclose(w.T @ w, v.T @ np.linalg.solve(sigma, v), rtol=1e-9)
+    np.testing.assert_allclose(ref.whiten(v[:, 0]), w[:, 0])
+
+
+@pytest.mark.parametrize("family,rtol", [("exponential", 1e-10), ("matern32", 1e-9),
+                                         ("matern52", 1e-7)])
+def test_zero_nugget_on_a_regular_grid(family, rtol):
+    # dense Cholesky of the noise-free correlation (moderately conditioned at this spacing)
+    x = np.linspace(0.0, 1.0, 200)
+    sigma, _ = dense_model(family, x, 1.2, 0.05, 0.0)
+    y = np.sin(7 * x)
+    chol = np.linalg.cholesky(sigma)
+    z = np.linalg.solve(chol, y)
+    ll = -0.5 * (z @ z + 2 * np.sum(np.log(np.diag(chol))) + x.size * np.log(2 * np.pi))
+    kernel = KERNELS[family](variance=1.2, lengthscale=0.05)
+    assert kernel.param_names == ("log_variance", "log_lengthscale")
+    ev = StateSpaceReference(x, kernel).evaluate(y, score=False)
+    assert ev.loglik == pytest.approx(ll, rel=rtol)
+
+
+def test_duplicate_points_need_a_nugget():
+    x = np.array([0.0, 0.1, 0.1, 0.4])
+    with pytest.raises(StateSpaceError, match="singular.*add a nugget"):
+        StateSpaceReference(x, Matern32(lengthscale=0.3))
+    # with a nugget the duplicates are fine: dense numpy likelihood
+    sigma, _ = dense_model("matern32", x, 1.0, 0.3, 0.2)
+    y = np.array([0.3, -0.2, 0.1, 0.5])
+    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1] + 4 * np.log(2 * np.pi))
+    ev = StateSpaceReference(x, Matern32(lengthscale=0.3, nugget=0.2)).evaluate(y, score=False)
+    assert ev.loglik == pytest.approx(ll, rel=1e-12)
+
+
+def test_general_matern_with_half_integer_nu_is_accepted():
+    # Matern(nu=2.5) is the same model as Matern52: the dense numpy value
+    x = np.linspace(0, 1, 50)
+    sigma, _ = dense_model("matern52", x, 1.0, 0.3, 0.1)
+    y = np.cos(3 * x)
+    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1] + 50 * np.log(2 * np.pi))
+    ref = StateSpaceReference(x, Matern(lengthscale=0.3, nugget=0.1, nu=2.5))
+    assert ref.evaluate(y, score=False).loglik == pytest.approx(ll, rel=1e-12)
+
+
+@pytest.mark.parametrize("points,kernel,message", [
+    (np.zeros((5, 2)), Matern32(lengthscale=0.1), "1-dimensional"),
+    (np.arange(5.0), Gaussian(lengthscale=0.1), "half-integer Matern"),
+    (np.arange(5.0), Matern(lengthscale=0.1, nu=1.0), "half-integer Matern"),
+    (np.arange(5.0), Matern32(lengthscale=(0.1, 0.2)), "one length scale"),
+])
+def test_refusals_name_the_problem(points, kernel, message):
+    with pytest.raises(StateSpaceError, match=message):
+        StateSpaceReference(points, kernel)
+
+
+def test_wrong_data_shape_is_refused():
+    ref = StateSpaceReference(np.arange(5.0), Exponential(lengthscale=1.0))
+    with pytest.raises(StateSpaceError, match=r"expected shape \(5,\)"):
+        ref.evaluate(np.zeros(4))
