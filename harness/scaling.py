@@ -213,11 +213,12 @@ def fit_power_law(
             samples.append(rep)
         if all(r.size >= 2 for r in samples):
             gen = np.random.default_rng(rng)
-            bs, as_ = np.empty(n_boot), np.empty(n_boot)
-            for i in range(n_boot):
-                yb = np.log([np.median(gen.choice(r, size=r.size, replace=True))
-                             for r in samples])
-                as_[i], bs[i], *_ = _ols(x, yb)
+            yb = np.log(np.column_stack([
+                np.median(r[gen.integers(0, r.size, size=(n_boot, r.size))], axis=1)
+                for r in samples]))
+            xc = x - x.mean()
+            bs = (yb - yb.mean(axis=1, keepdims=True)) @ xc / float(xc @ xc)
+            as_ = yb.mean(axis=1) - bs * x.mean()
             tail = 50 * (1 - level)
             boot_lo, boot_hi = (float(q) for q in np.percentile(bs, [tail, 100 - tail]))
             boot_b, boot_a = tuple(bs.tolist()), tuple(as_.tolist())

@@ -104,7 +104,9 @@ def test_matches_dense_on_40x50_grid(grid40x50, mean, reml):
     np.testing.assert_allclose(ev.score, truth["score"], rtol=1e-10,
                                atol=1e-10 * np.abs(truth["traces"]).max())
     b = np.random.default_rng(0).standard_normal((2000, 2))
-    np.testing.assert_allclose(ref.solve(b), truth["sinv"] @ b, rtol=1e-10, atol=1e-12)
+    # solves compared normwise (entrywise relative error is cancellation-limited)
+    exact = truth["sinv"] @ b
+    assert np.linalg.norm(ref.solve(b) - exact) <= 1e-10 * np.linalg.norm(exact)
 
 
 def test_whiten_matvec_and_derivative_products(grid40x50):
@@ -181,10 +183,7 @@ def test_not_a_grid_is_refused_with_the_reason():
     with pytest.raises(NotAGridError,
                        match="3 distinct x values x 7 distinct y values = 21 != 20 points"):
         KroneckerReference(pts, SeparableKernel(Matern32(lengthscale=0.2)))
-    dup = tensor_grid((2, 2))
-    dup[3] = dup[0]
-    dup = np.vstack([dup, [[1.0, 1.0]]])[[0, 1, 2, 3, 4]]
-    with pytest.raises(NotAGridError):
+    with pytest.raises(NotAGridError, match="more than once"):
         detect_grid(np.vstack([tensor_grid((2, 2))[:3], tensor_grid((2, 2))[:1]]))
 
 

@@ -165,7 +165,8 @@ def test_duplicate_points_need_a_nugget():
     # with a nugget the duplicates are fine: dense numpy likelihood
     sigma, _ = dense_model("matern32", x, 1.0, 0.3, 0.2)
     y = np.array([0.3, -0.2, 0.1, 0.5])
-    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1] + 4 * np.log(2 * np.pi))
+    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1]
+                 + 4 * np.log(2 * np.pi))
     ev = StateSpaceReference(x, Matern32(lengthscale=0.3, nugget=0.2)).evaluate(y, score=False)
     assert ev.loglik == pytest.approx(ll, rel=1e-12)
 
@@ -175,7 +176,8 @@ def test_general_matern_with_half_integer_nu_is_accepted():
     x = np.linspace(0, 1, 50)
     sigma, _ = dense_model("matern52", x, 1.0, 0.3, 0.1)
     y = np.cos(3 * x)
-    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1] + 50 * np.log(2 * np.pi))
+    ll = -0.5 * (y @ np.linalg.solve(sigma, y) + np.linalg.slogdet(sigma)[1]
+                 + 50 * np.log(2 * np.pi))
     ref = StateSpaceReference(x, Matern(lengthscale=0.3, nugget=0.1, nu=2.5))
     assert ref.evaluate(y, score=False).loglik == pytest.approx(ll, rel=1e-12)
 

@@ -86,13 +86,15 @@ def exponential_chain(points: np.ndarray, *, variance: float, lengthscale: float
     if x.ndim == 2 and x.shape[1] == 1:
         x = x[:, 0]
     if x.ndim != 1 or x.size < 1:
-        raise ClosedFormError(f"points: expected shape (n,) or (n, 1) with n >= 1, got {np.shape(points)}")
+        raise ClosedFormError(
+            f"points: expected shape (n,) or (n, 1) with n >= 1, got {np.shape(points)}")
     gaps = np.diff(x)
     if np.any(gaps <= 0):
         raise ClosedFormError("points: the closed forms need strictly increasing coordinates "
                               f"(found {int(np.count_nonzero(gaps <= 0))} non-positive gap(s))")
     if not (variance > 0 and lengthscale > 0):
-        raise ClosedFormError(f"variance and lengthscale must be > 0, got {variance!r}, {lengthscale!r}")
+        raise ClosedFormError(
+            f"variance and lengthscale must be > 0, got {variance!r}, {lengthscale!r}")
     c = gaps / lengthscale
     return ExponentialChain(rho=np.exp(-c), scaled_gaps=c, variance=float(variance))
 

@@ -325,7 +325,8 @@ class KroneckerReference:
     def _check_values(self, values: np.ndarray, name: str) -> np.ndarray:
         v = np.asarray(values, dtype=float)
         if v.shape[:1] != (self.n,) or v.ndim > 2:
-            raise KroneckerError(f"{name}: expected shape ({self.n},) or ({self.n}, k), got {v.shape}")
+            raise KroneckerError(
+                f"{name}: expected shape ({self.n},) or ({self.n}, k), got {v.shape}")
         return v
 
     def _rotate(self, g: np.ndarray, transpose: bool) -> np.ndarray:

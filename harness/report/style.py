@@ -76,7 +76,7 @@ def figure_bytes(fig: Figure, fmt: str) -> bytes:
         raise ValueError(f"figure format must be one of {', '.join(_METADATA)}, got {fmt!r}")
     buf = io.BytesIO()
     with figure_rc():
-        fig.savefig(buf, format=fmt, metadata=_METADATA[fmt], bbox_inches="tight")
+        fig.savefig(buf, format=fmt, metadata=_METADATA[fmt])
     return buf.getvalue()
 
 

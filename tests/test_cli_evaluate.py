@@ -1,0 +1,125 @@
+"""``covaudit evaluate`` end to end on real files, and its bad-input errors."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+import scipy.stats
+
+from harness.cli import main
+from harness.kernels import Matern32
+
+
+@pytest.fixture
+def datafile(tmp_path):
+    rng = np.random.default_rng(4)
+    pts = rng.random((200, 2))
+    frame = pd.DataFrame({"x": pts[:, 0], "y": pts[:, 1], "v": rng.standard_normal(200)})
+    path = tmp_path / "obs.csv"
+    frame.to_csv(path, index=False)
+    return path, frame
+
+
+BASE = ["--coords", "x,y", "--value", "v", "--kernel", "matern32", "--param", "variance=1",
+        "--param", "lengthscale=0.1", "--param", "nugget=0.01"]
+
+
+def test_json_output_keys_and_value(datafile, capsys):
+    path, frame = datafile
+    assert main(["evaluate", str(path), *BASE, "--json", "--fisher"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    for key in ("n", "kernel", "params", "solver", "loglik", "logdet", "quadratic", "score",
+                "fisher", "certificate", "seconds", "seconds_assemble", "seconds_factor"):
+        assert key in out
+    assert set(out["score"]) == {"log_variance", "log_lengthscale", "log_nugget"}
+    # Source: scipy.stats.multivariate_normal.logpdf of the same model.
+    pts = frame[["x", "y"]].to_numpy()
+    sigma = Matern32(1.0, 0.1, 0.01).covariance(pts)
+    expected = scipy.stats.multivariate_normal(np.zeros(200), sigma).logpdf(frame["v"])
+    assert out["loglik"] == pytest.approx(expected, rel=1e-10)
+    assert len(out["fisher"]) == 3 and out["certificate"] < 30
+
+
+def test_anisotropic_keys(datafile, capsys):
+    path, _ = datafile
+    args = ["--coords", "x,y", "--value", "v", "--kernel", "matern52", "--param",
+            "lengthscale=0.1,0.3", "--param", "nugget=0.01", "--json"]
+    assert main(["evaluate", str(path), *args]) == 0
+    out = json.loads(capsys.readouterr().out)
+    assert list(out["score"]) == ["log_variance", "log_lengthscale_1", "log_lengthscale_2",
+                                  "log_nugget"]
+
+
+def test_readable_summary(datafile, capsys):
+    path, _ = datafile
+    assert main(["evaluate", str(path), *BASE, "--mean", "linear"]) == 0
+    out = capsys.readouterr().out
+    assert "loglik" in out and "certificate" in out and "beta" in out
+
+
+def _error(capsys, argv):
+    code = main(argv)
+    return code, capsys.readouterr().err
+
+
+def test_nan_rows_are_named(tmp_path, capsys):
+    path = tmp_path / "nan.csv"
+    pd.DataFrame({"x": [0.1, np.nan, 0.3, 0.4], "y": [0, 1, 2, 3.0],
+                  "v": [1, 2, np.inf, 4.0]}).to_csv(path, index=False)
+    code, err = _error(capsys, ["evaluate", str(path), *BASE])
+    assert code == 2 and "row(s) 2, 3" in err and "--drop-missing" in err
+
+
+def test_missing_column_lists_columns(datafile, capsys):
+    path, _ = datafile
+    argv = ["evaluate", str(path), "--coords", "x,z", *BASE[2:]]
+    code, err = _error(capsys, argv)
+    assert code == 2 and "no column 'z'" in err and "x, y, v" in err
+
+
+def test_unknown_kernel_lists_known(datafile, capsys):
+    path, _ = datafile
+    argv = ["evaluate", str(path), "--coords", "x,y", "--value", "v", "--kernel", "matern",
+            "--param", "lengthscale=0.1"]
+    code, err = _error(capsys, argv)
+    assert code == 2 and "'nu' is required" in err
+    argv[7] = "maternn"
+    code, err = _error(capsys, argv)
+    assert code == 2 and "known kernels" in err
+
+
+@pytest.mark.parametrize("param, message", [("variance=-1", "variance must be"),
+                                            ("lengthscale=0", "lengthscale must be"),
+                                            ("lengthscale=abc", "not a number")])
+def test_bad_parameters(datafile, capsys, param, message):
+    path, _ = datafile
+    argv = ["evaluate", str(path), "--coords", "x,y", "--value", "v", "--kernel", "matern32",
+            "--param", param]
+    if not param.startswith("lengthscale"):
+        argv += ["--param", "lengthscale=0.1"]
+    code, err = _error(capsys, argv)
+    assert code == 2 and message in err
+
+
+def test_duplicates_with_zero_nugget(tmp_path, capsys):
+    path = tmp_path / "dup.csv"
+    pd.DataFrame({"x": [0.1, 0.1, 0.5], "y": [0.2, 0.2, 0.5], "v": [1.0, 2.0, 3.0]}).to_csv(
+        path, index=False)
+    argv = ["evaluate", str(path), "--coords", "x,y", "--value", "v", "--kernel", "matern32",
+            "--param", "lengthscale=0.1"]
+    code, err = _error(capsys, argv)
+    assert code == 2 and "duplicate" in err and "nugget" in err
+
+
+def test_empty_and_wrong_type_files(tmp_path, capsys):
+    empty = tmp_path / "empty.csv"
+    empty.write_text("")
+    code, err = _error(capsys, ["evaluate", str(empty), *BASE])
+    assert code == 2 and "empty" in err
+    other = tmp_path / "obs.xlsx"
+    other.write_text("x")
+    code, err = _error(capsys, ["evaluate", str(other), *BASE])
+    assert code == 2 and "unrecognised file type" in err
