@@ -16,12 +16,12 @@ family and parameters, y drawn from the model, then
    the data-generating model are zero. A data file's value column is used as given.
    Errors compare the solver and the reference on the same y, so how y was drawn does not
    bias them.
-3. the solver's factorization (memory traced), its likelihood, score and trace estimate,
+3. the solver's factorization, its likelihood, score and trace estimate,
    and the metrics of ``harness.metrics`` at theta_0 and at theta_0 + perturbation.
 
 Timing (``audit_timing``) is a separate job so that the runner can schedule it alone: it
 times factor, log det, solve, gradient and the total on white-noise data (their cost does
-not depend on the values).
+not depend on the values), then traces the memory of one more factorization.
 """
 
 from __future__ import annotations
@@ -49,7 +49,7 @@ from harness.metrics import (
     trace_errors,
 )
 from harness.tasks import Task
-from harness.timing import measure_memory, thread_settings, time_phase
+from harness.timing import measure_memory, peak_rss, thread_settings, time_phase
 
 HALF_INTEGER_NU = (0.5, 1.5, 2.5)
 #: Central-difference step (log scale) of the observed information when a reference
@@ -222,12 +222,12 @@ def _ladder_reference(task: Task, data: TaskData, kernel: Kernel, solver: Any,
         raise TaskSkipped("ladder reference needs a tolerance; the solver is exact")
     tol = task.tol / task.ladder_factor
     fact = solver.factorize(data.points, kernel, kernel.theta, tol=tol,
-                            **dict(task.solver_options))
+                            **solver_options(task, solver, streams))
     probe_seed = int(streams["probes"].integers(2 ** 63))
 
     def evaluate(model: Kernel, y: np.ndarray) -> Any:
         f = fact if model is kernel else solver.factorize(
-            data.points, kernel, model.theta, tol=tol, **dict(task.solver_options))
+            data.points, kernel, model.theta, tol=tol, **solver_options(task, solver, streams))
         return evaluate_likelihood(f, data.points, y, model, mean=task.mean, reml=task.reml,
                                    score=True, trace=task.trace_method, probes=task.probes,
                                    rng=probe_seed + 1, fisher=True)
@@ -301,15 +301,38 @@ def _resolve(task: Task) -> Any:
     return solver
 
 
+def _accepts(factory: Any, name: str) -> bool:
+    import inspect
+
+    try:
+        params = inspect.signature(factory).parameters
+    except (TypeError, ValueError):
+        return False
+    return name in params or any(p.kind is inspect.Parameter.VAR_KEYWORD
+                                 for p in params.values())
+
+
+def solver_options(task: Task, solver: Any, streams: dict[str, np.random.Generator]
+                   ) -> dict[str, Any]:
+    """The factory's options, with ``rng`` seeded from the task's ``solver`` stream when the
+    factory takes one and the case does not set it (so randomized solvers are
+    reproducible, and every factorization of the task uses the same seed)."""
+    options = dict(task.solver_options)
+    if "rng" not in options and _accepts(solver.factory, "rng"):
+        options["rng"] = int(np.random.default_rng(streams["solver"].bit_generator.seed_seq)
+                             .integers(2 ** 63))
+    return options
+
+
 def _draw_y(task: Task, data: TaskData, kernel: Kernel, reference: Reference, solver: Any,
-            rng: np.random.Generator) -> tuple[np.ndarray, str]:
+            streams: dict[str, np.random.Generator]) -> tuple[np.ndarray, str]:
     if data.observed is not None:
         return data.observed, f"file column {task.pointset.value_column!r}"
-    z = rng.standard_normal(data.points.shape[0])
+    z = streams["sample"].standard_normal(data.points.shape[0])
     if reference.apply_sqrt is not None and reference.kind == "dense":
         return reference.apply_sqrt(z), "dense Cholesky factor"
     fact = solver.factorize(data.points, kernel, kernel.theta, tol=task.sample_tol,
-                            **dict(task.solver_options))
+                            **solver_options(task, solver, streams))
     if not fact.supports_sqrt:
         raise TaskSkipped(f"cannot draw y: the {reference.kind} reference and solver "
                           f"{task.solver!r} offer no square root (apply_sqrt)")
@@ -374,14 +397,14 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
 
     clock = time.perf_counter()
     reference, declined = choose_reference(task, data, kernel, solver, streams)
-    y, y_source = _draw_y(task, data, kernel, reference, solver, streams["sample"])
+    y, y_source = _draw_y(task, data, kernel, reference, solver, streams)
     theta0 = kernel.theta
     ref0 = reference.evaluate(kernel, y)
     seconds["reference"] = time.perf_counter() - clock
 
     clock = time.perf_counter()
-    memory, fact = measure_memory(lambda: solver.factorize(
-        data.points, kernel, theta0, tol=task.tol, **dict(task.solver_options)))
+    fact = solver.factorize(data.points, kernel, theta0, tol=task.tol,
+                            **solver_options(task, solver, streams))
     seconds["factor"] = time.perf_counter() - clock
     _check_finite("log det", fact.logdet(), task.solver)
     clock = time.perf_counter()
@@ -421,7 +444,7 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
         theta1 = theta0 + task.perturbation
         kernel1 = kernel.with_theta(theta1)
         fact1 = solver.factorize(data.points, kernel, theta1, tol=task.tol,
-                                 **dict(task.solver_options))
+                                 **solver_options(task, solver, streams))
         sol1 = evaluate_likelihood(fact1, data.points, y, kernel1, mean=task.mean,
                                    reml=task.reml, score=True, trace=task.trace_method,
                                    probes=task.probes, rng=streams["probes"], fisher=False)
@@ -476,13 +499,12 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
                    "loglik": sol0.loglik, "score": _jsonable(sol0.score),
                    "trace_estimate": _jsonable(sol0.trace_estimate),
                    "trace_stderr": _jsonable(sol0.trace_stderr),
-                   "nbytes": int(fact.nbytes), "ranks": _jsonable(ranks) if ranks is not None
-                   and not callable(ranks) else None,
+                   "nbytes": int(fact.nbytes), "ranks": None if callable(ranks) else ranks,
                    "solves": sol0.solves, "matvecs": sol0.matvecs},
         "data": {"n": int(data.points.shape[0]), "d": int(data.points.shape[1]),
                  "y_source": y_source, "theta0": theta0.tolist(), "param_names": list(names),
                  "kernel": kernel.describe()},
-        "memory": memory.to_dict(),
+        "memory": {"process_peak_rss_bytes": peak_rss()},
         "seconds": seconds,
         "notes": notes,
     }
@@ -508,7 +530,7 @@ def audit_timing(task: Task) -> dict[str, Any]:
     data = build_data(task, streams)
     y = streams["sample"].standard_normal(data.points.shape[0])
     theta = kernel.theta
-    options = dict(task.solver_options)
+    options = solver_options(task, solver, streams)
 
     def factor() -> Any:
         return solver.factorize(data.points, kernel, theta, tol=task.tol, **options)
@@ -528,5 +550,8 @@ def audit_timing(task: Task) -> dict[str, Any]:
         trace=task.trace_method, probes=task.probes, rng=0), **reps)
     t_total, _ = time_phase("total", total, **reps)
     phases = [t_factor, t_logdet, t_solve, t_grad, t_total]
+    # Traced after the timed calls, so JIT compilation is not traced (tracemalloc slows
+    # allocation-heavy code; its run is not one of the timed samples).
+    memory, _ = measure_memory(factor)
     return {"phases": {p.phase: p.to_dict() for p in phases}, "threads": thread_settings(),
-            "nbytes": int(fact.nbytes)}
+            "nbytes": int(fact.nbytes), "memory": memory.to_dict()}

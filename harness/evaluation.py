@@ -13,7 +13,13 @@ from typing import Any
 
 import numpy as np
 
-from harness.exact import ReferenceEvaluation, dense_evaluate
+from harness.exact import (
+    KroneckerReference,
+    ReferenceEvaluation,
+    SeparableKernel,
+    StateSpaceReference,
+    dense_evaluate,
+)
 from harness.kernels import Kernel
 
 EXACT_REFERENCES = ("dense", "statespace", "kronecker")
@@ -69,18 +75,11 @@ def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel:
         raise EvaluationError(
             f"--separable is supported with --solver kronecker or dense, not {solver!r}")
     if solver == "dense":
-        if options.separable:
-            from harness.exact.kronecker import separable_dense_evaluate
-
-            ev = separable_dense_evaluate(points, y, kernel, mean=mean, reml=reml, score=score,
-                                          fisher=fisher, memory_budget=options.memory_budget)
-        else:
-            ev = dense_evaluate(points, y, kernel, mean=mean, reml=reml, score=score,
-                                fisher=fisher, memory_budget=options.memory_budget)
+        model = SeparableKernel(kernel) if options.separable else kernel
+        ev = dense_evaluate(points, y, model, mean=mean, reml=reml, score=score,
+                            fisher=fisher, memory_budget=options.memory_budget)
         return _from_reference(solver, ev)
     if solver == "statespace":
-        from harness.exact.statespace import StateSpaceReference
-
         reference = StateSpaceReference(points, kernel)
         if fisher:
             raise EvaluationError("--fisher is not available with --solver statespace; "
@@ -91,9 +90,7 @@ def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel:
             raise EvaluationError(
                 "--solver kronecker evaluates separable (product) kernels only; add --separable "
                 "(a product of 1D kernels is a different model from the isotropic kernel)")
-        from harness.exact.kronecker import KroneckerReference
-
-        reference = KroneckerReference(points, kernel)
+        reference = KroneckerReference(points, SeparableKernel(kernel))
         return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score,
                                                           fisher=fisher))
     return _compressed(solver, points, y, kernel, mean=mean, reml=reml, score=score,

@@ -123,3 +123,42 @@ def test_empty_and_wrong_type_files(tmp_path, capsys):
     other.write_text("x")
     code, err = _error(capsys, ["evaluate", str(other), *BASE])
     assert code == 2 and "unrecognised file type" in err
+
+
+def test_structured_references_agree_with_dense_through_the_cli(tmp_path, capsys):
+    # The Kalman (Hartikainen and Sarkka 2010) and Kronecker references against the
+    # certified dense Cholesky on the same files, through the command line.
+    rng = np.random.default_rng(8)
+    line = tmp_path / "line.csv"
+    pd.DataFrame({"t": np.sort(rng.random(400)), "v": rng.standard_normal(400)}).to_csv(
+        line, index=False)
+    grid = tmp_path / "grid.csv"
+    gx, gy = np.meshgrid(np.linspace(0, 1, 12), np.linspace(0, 1, 15), indexing="ij")
+    pd.DataFrame({"x": gx.ravel(), "y": gy.ravel(), "v": rng.standard_normal(180)}).to_csv(
+        grid, index=False)
+    runs = {
+        "statespace": [str(line), "--coords", "t", "--param", "lengthscale=0.05"],
+        "kronecker": [str(grid), "--coords", "x,y", "--param", "lengthscale=0.2,0.3",
+                      "--separable"],
+    }
+    for solver, args in runs.items():
+        results = []
+        for name in ("dense", solver):
+            argv = ["evaluate", *args, "--value", "v", "--kernel", "matern32", "--param",
+                    "nugget=0.1", "--mean", "constant", "--solver", name, "--json"]
+            assert main(argv) == 0
+            results.append(json.loads(capsys.readouterr().out))
+        assert results[1]["loglik"] == pytest.approx(results[0]["loglik"], rel=1e-9)
+        for key, value in results[0]["score"].items():
+            assert results[1]["score"][key] == pytest.approx(value, rel=1e-5, abs=1e-6)
+
+
+def test_kronecker_needs_a_grid_and_separable(datafile, capsys):
+    path, _ = datafile
+    argv = ["evaluate", str(path), *BASE, "--solver", "kronecker"]
+    code, err = _error(capsys, argv)
+    assert code == 2 and "--separable" in err
+    code, err = _error(capsys, argv + ["--separable"])
+    assert code == 2 and "do not form a tensor grid" in err
+    code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "statespace"])
+    assert code == 2 and "1-dimensional" in err

@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from threadpoolctl import threadpool_limits
 
 from harness.exact.closed_forms import (
     ClosedFormError,
@@ -27,6 +28,14 @@ from harness.exact.statespace import StateSpaceReference
 from harness.kernels import Exponential
 
 TABLE = Path(__file__).resolve().parents[1] / "reference" / "check_values.csv"
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _one_blas_thread():
+    """Dense checks on one BLAS thread: on a shared 2-core machine OpenBLAS threads
+    contend and a 2,000 x 2,000 Cholesky ran 25x slower with two threads."""
+    with threadpool_limits(limits=1):
+        yield
 
 
 def load_rows():

@@ -8,6 +8,7 @@ numpy linear algebra: log det, solves, tr(P S_i), 1/2 tr(P S_i P S_j) and the sc
 
 import numpy as np
 import pytest
+from threadpoolctl import threadpool_limits
 
 from harness.exact.gridcheck import NotAGridError, detect_grid
 from harness.exact.kronecker import (
@@ -21,6 +22,14 @@ from harness.geometry.pointsets import tensor_grid
 from harness.kernels import Exponential, Gaussian, Matern32
 
 SQ3 = np.sqrt(3.0)
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _one_blas_thread():
+    """Dense checks on one BLAS thread: on a shared 2-core machine OpenBLAS threads
+    contend and a 2,000 x 2,000 Cholesky ran 25x slower with two threads."""
+    with threadpool_limits(limits=1):
+        yield
 
 
 def factor_1d(family, r):
@@ -50,9 +59,14 @@ def dense_product(family, pts, s2, ls, tau2, isotropic):
     return s2 * corr + tau2 * np.eye(n), derivs
 
 
-def dense_truth(sigma, derivs, y, f, reml):
+def dense_truth(sigma, derivs, y, f, reml, cache=None):
+    """Dense numpy truth; ``cache`` keeps Sigma^-1 and Sigma^-1 S_i between calls."""
     n, p = f.shape
-    sinv = np.linalg.inv(sigma)
+    cache = {} if cache is None else cache
+    if "sinv" not in cache:
+        cache["sinv"] = np.linalg.inv(sigma)
+        cache["ml_products"] = [cache["sinv"] @ d for d in derivs]
+    sinv = cache["sinv"]
     logdet = np.linalg.slogdet(sigma)[1]
     if p:
         gram = f.T @ sinv @ f
@@ -67,7 +81,7 @@ def dense_truth(sigma, derivs, y, f, reml):
                      + (n - p) * np.log(2 * np.pi))
     else:
         ll = -0.5 * (quad + logdet + n * np.log(2 * np.pi))
-    ps = [proj @ d for d in derivs]
+    ps = [proj @ d for d in derivs] if (reml and p) else cache["ml_products"]
     traces = np.array([np.trace(m) for m in ps])
     score = np.array([0.5 * a @ d @ a for d in derivs]) - 0.5 * traces
     fisher = np.array([[0.5 * np.sum(pi * pj.T) for pj in ps] for pi in ps])
@@ -86,14 +100,14 @@ def grid40x50():
     sigma, derivs = dense_product("matern32", pts, s2, ls, tau2, isotropic=False)
     y = np.linalg.cholesky(sigma) @ rng.standard_normal(2000) + 1.0 + 0.3 * pts[:, 0]
     kernel = SeparableKernel(Matern32(variance=s2, lengthscale=ls, nugget=tau2))
-    return pts, kernel, sigma, derivs, y
+    return pts, kernel, sigma, derivs, y, {}
 
 
 @pytest.mark.parametrize("mean,reml", [("zero", False), ("linear", False), ("linear", True)])
 def test_matches_dense_on_40x50_grid(grid40x50, mean, reml):
-    pts, kernel, sigma, derivs, y = grid40x50
+    pts, kernel, sigma, derivs, y, cache = grid40x50
     f = linear_design(pts) if mean == "linear" else np.empty((2000, 0))
-    truth = dense_truth(sigma, derivs, y, f, reml)
+    truth = dense_truth(sigma, derivs, y, f, reml, cache)
     ref = KroneckerReference(pts, kernel)
     ev = ref.evaluate(y, mean=mean, reml=reml, fisher=True)
     assert ev.reference == "kronecker"
@@ -110,7 +124,7 @@ def test_matches_dense_on_40x50_grid(grid40x50, mean, reml):
 
 
 def test_whiten_matvec_and_derivative_products(grid40x50):
-    pts, kernel, sigma, derivs, _ = grid40x50
+    pts, kernel, sigma, derivs, _, _ = grid40x50
     ref = KroneckerReference(pts, kernel)
     v = np.random.default_rng(1).standard_normal((2000, 3))
     w = ref.whiten(v)
@@ -122,7 +136,7 @@ def test_whiten_matvec_and_derivative_products(grid40x50):
 
 
 def test_dense_helpers_match_the_product_formula(grid40x50):
-    pts, kernel, sigma, derivs, _ = grid40x50
+    pts, kernel, sigma, derivs, _, _ = grid40x50
     idx = np.arange(0, 2000, 7)
     np.testing.assert_allclose(separable_covariance(pts[:300], kernel), sigma[:300, :300],
                                rtol=1e-14, atol=1e-15)

@@ -8,11 +8,21 @@ REML likelihood written from its definition (Harville 1974, eq. 5) and the analy
 
 import numpy as np
 import pytest
+from scipy.linalg import lapack
+from threadpoolctl import threadpool_limits
 
 from harness.exact.statespace import StateSpaceError, StateSpaceReference
 from harness.kernels import Exponential, Gaussian, Matern, Matern32, Matern52
 
 SQ3, SQ5 = np.sqrt(3.0), np.sqrt(5.0)
+
+
+@pytest.fixture(scope="module", autouse=True)
+def _one_blas_thread():
+    """Dense checks on one BLAS thread: on a shared 2-core machine OpenBLAS threads
+    contend and a 2,000 x 2,000 Cholesky ran 25x slower with two threads."""
+    with threadpool_limits(limits=1):
+        yield
 
 
 def matern_dense(family, r):
@@ -44,11 +54,13 @@ def design(x, mean):
             "linear": np.column_stack([np.ones(n), x])}[mean]
 
 
-def dense_inverse(sigma):
-    """(Sigma^-1, log det Sigma) by a numpy Cholesky."""
-    chol = np.linalg.cholesky(sigma)
-    cinv = np.linalg.inv(chol)
-    return cinv.T @ cinv, 2 * np.sum(np.log(np.diag(chol)))
+def dense_inverse(chol):
+    """(Sigma^-1, log det Sigma) from the lower Cholesky factor (LAPACK dpotri)."""
+    inv, info = lapack.dpotri(chol, lower=True)
+    if info != 0:
+        raise np.linalg.LinAlgError(f"dpotri info {info}")
+    inv = np.tril(inv) + np.tril(inv, -1).T
+    return inv, 2 * np.sum(np.log(np.diag(chol)))
 
 
 def dense_loglik_and_score(dense, derivs, y, f, reml):
@@ -89,8 +101,9 @@ def problem():
         s2, ls, tau2 = 1.7, 0.3, 0.05
         sigma, derivs = dense_model(fam, x, s2, ls, tau2)
         # data drawn from the model plus a linear trend
-        y = np.linalg.cholesky(sigma) @ rng.standard_normal(n) + 0.4 + 0.2 * x
-        out[fam] = (KERNELS[fam](variance=s2, lengthscale=ls, nugget=tau2), dense_inverse(sigma),
+        chol = np.linalg.cholesky(sigma)
+        y = chol @ rng.standard_normal(n) + 0.4 + 0.2 * x
+        out[fam] = (KERNELS[fam](variance=s2, lengthscale=ls, nugget=tau2), dense_inverse(chol),
                     derivs, y)
     return x, out
 
@@ -197,3 +210,19 @@ def test_wrong_data_shape_is_refused():
     ref = StateSpaceReference(np.arange(5.0), Exponential(lengthscale=1.0))
     with pytest.raises(StateSpaceError, match=r"expected shape \(5,\)"):
         ref.evaluate(np.zeros(4))
+
+
+@pytest.mark.parametrize("lam", [0.3, 50.0])
+def test_process_noise_integrals_match_scipy_incomplete_gamma(lam):
+    # J_k(dt) = k! / (2 lam)^(k+1) P(k+1, 2 lam dt), P = scipy.special.gammainc
+    from math import factorial
+
+    from scipy import special
+
+    from harness.exact.statespace import _lower_gamma_integrals
+    out = np.empty(5)
+    for dt in (0.0, 1e-9, 1e-3, 0.019, 0.021, 0.05, 1.0, 30.0):
+        _lower_gamma_integrals(lam, dt, out)
+        want = [factorial(k) / (2 * lam) ** (k + 1) * special.gammainc(k + 1, 2 * lam * dt)
+                for k in range(5)]
+        np.testing.assert_allclose(out, want, rtol=1e-13, atol=0)

@@ -176,3 +176,35 @@ def scaling_frame(rows: Sequence[ScalingRow]) -> pd.DataFrame:
                         "predict_high": e.high, "extrapolated": e.extrapolated})
         records.append(rec)
     return pd.DataFrame.from_records(records)
+
+
+def display_table(rows: Sequence[ScalingRow]) -> pd.DataFrame:
+    """The fitted rows as text columns (slope, intervals, crossover) for reports and
+    exports."""
+    frame = scaling_frame([r for r in rows if r.fit is not None])
+    if frame.empty:
+        return frame
+
+    def interval(lo: float, hi: float) -> str:
+        return "\u2013" if math.isnan(lo) else f"[{lo:.2f}, {hi:.2f}]"
+
+    def cross(row: pd.Series) -> str:
+        if math.isnan(row["crossover_n"]):
+            return "\u2013"
+        text = f"{row['crossover_n']:.3g}"
+        if not math.isnan(row["crossover_low"]):
+            text += f" [{row['crossover_low']:.3g}, {row['crossover_high']:.3g}]"
+        return text
+
+    return pd.DataFrame({
+        "solver": frame["solver"], "kernel": frame["kernel"], "geometry": frame["geometry"],
+        "metric": frame["metric"], "sizes (k)": frame["sizes"],
+        "slope b": frame["slope"].map(lambda v: f"{v:.3f}"),
+        "CI": [interval(lo, hi) for lo, hi in zip(frame["ci_low"], frame["ci_high"],
+                                                  strict=True)],
+        "bootstrap": [interval(lo, hi) for lo, hi in zip(frame["boot_low"],
+                                                         frame["boot_high"], strict=True)],
+        "R\u00b2": frame["r_squared"].map(lambda v: f"{v:.4f}"),
+        "local slopes": frame["local_slopes"], "in CI": frame["refs_in_ci"],
+        "crossover n": [cross(r) for _, r in frame.iterrows()],
+    })

@@ -21,7 +21,8 @@ The layout (all tables optional except ``pointsets``, ``kernels`` and ``solvers`
     separable = false              # the product model (Kronecker reference on grids)
 
     [mean]    models = ["zero"], reml = false
-    [[solvers]]  name = "hodlr", tolerances = [1e-4, 1e-8], options = { leaf_size = 64 }
+    [[solvers]]  name = "hodlr", tolerances = [1e-4, 1e-8], options = { leaf_size = 64 },
+                 max_n = 32768 (sizes above it are left out of the grid for this solver)
     [trace]   method = "hutchpp", probes = 32
     [metrics] compute = [...], holdout = 64, perturbation = 0.05, power_iterations = 20
     [timing]  enabled = true, repeats = 3, warmup = 1, threads = 1, exclusive = true
@@ -58,7 +59,7 @@ TOP_KEYS = ("name", "description", "seeds", "pointsets", "kernels", "mean", "sol
             "trace", "metrics", "timing", "reference", "budget")
 POINTSET_KEYS = ("name", "generator", "options", "sizes", "dims", "file", "columns", "values")
 KERNEL_KEYS = ("family", "variance", "lengthscale", "nugget", "nu", "alpha", "separable")
-SOLVER_KEYS = ("name", "tolerances", "options")
+SOLVER_KEYS = ("name", "tolerances", "options", "max_n")
 TRACE_METHODS = ("exact", "hutchinson", "hutchpp")
 GENERATOR_NAMES = (*GENERATORS, "tensor_grid")
 
@@ -297,6 +298,10 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
     check.finish_table(table, path, SOLVER_KEYS)
     name = check.take_str(table, "name", path, required=True)
     tolerances = check.take_list(table, "tolerances", path, item=check.positive_number)
+    max_n = table.get("max_n")
+    if max_n is not None:
+        max_n = check.positive_int(max_n, f"{path}.max_n")
+        max_n = max_n if isinstance(max_n, int) else None
     options = table.get("options", {})
     if check.table(options, f"{path}.options") is None:
         options = {}
@@ -309,4 +314,4 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
         return None
     return SolverEntry(name=resolved, version=version,
                        tolerances=tuple(tolerances) if tolerances else (None,),
-                       options=dict(options))
+                       options=dict(options), max_n=max_n)

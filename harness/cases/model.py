@@ -42,9 +42,10 @@ class SolverEntry:
     version: str
     tolerances: tuple[float | None, ...]
     options: Mapping[str, Any] = field(default_factory=dict)
+    max_n: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "version": self.version,
+        return {"name": self.name, "version": self.version, "max_n": self.max_n,
                 "tolerances": list(self.tolerances), "options": dict(self.options)}
 
 
@@ -53,7 +54,7 @@ class Case:
     """A validated case grid; ``tasks()`` is the cross product.
 
     The product runs over point sets x sizes x dimensions x kernels x mean models x
-    solvers x tolerances x seeds. A tensor-grid point set takes only the sizes that are
+    solvers x tolerances x seeds; sizes above a solver's ``max_n`` are left out for it. A tensor-grid point set takes only the sizes that are
     perfect d-th powers (validation rejects the others).
     """
 
@@ -102,6 +103,8 @@ class Case:
             for n, d in itertools.product(entry.sizes, entry.dims):
                 for kern, mean, solver in itertools.product(self.kernels, self.means,
                                                             self.solvers):
+                    if solver.max_n is not None and n > solver.max_n:
+                        continue
                     for tol, seed in itertools.product(solver.tolerances, self.seeds):
                         task = Task(
                             case=self.name, pointset=entry.spec, n=n, d=d,

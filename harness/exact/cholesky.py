@@ -81,7 +81,7 @@ class DenseCholesky:
         factor = assemble_lower(kernel, self.points)
         self.seconds["assemble"] = time.perf_counter() - start
         start = time.perf_counter()
-        factor, info = lapack.dpotrf(factor, lower=1, overwrite_a=1, clean=0)
+        factor, info = lapack.dpotrf(factor, lower=1, overwrite_a=1, clean=1)
         self.seconds["factor"] = time.perf_counter() - start
         if info > 0:
             raise SingularCovarianceError(self._singular_message(info))

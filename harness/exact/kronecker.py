@@ -166,7 +166,18 @@ class SeparableKernel:
                                ) -> tuple[np.ndarray, np.ndarray]:
         return separable_block_with_derivatives(points, rows, cols, self)
 
+    def derivative_block(self, points: np.ndarray, rows: np.ndarray, cols: np.ndarray,
+                         i: int) -> np.ndarray:
+        """dSigma/dtheta_i[rows, cols] for one parameter index i."""
+        if not 0 <= i < self.n_params:
+            raise IndexError(f"parameter index {i} out of range for {self.param_names}")
+        return self.block_with_derivatives(points, rows, cols)[1][i]
+
+    def check_dimension(self, d: int) -> None:
+        self.factor.check_dimension(d)
+
     def covariance(self, points: np.ndarray) -> np.ndarray:
+        """The whole separable Sigma at ``points`` (small n only)."""
         idx = np.arange(_as_points(points).shape[0])
         return self.block(points, idx, idx)
 

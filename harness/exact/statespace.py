@@ -26,8 +26,9 @@ Discretization, in closed form (no matrix exponential per step):
   = exp(-lam s) sum_k c_k s^k, c_k = N^k L / k!; hence
   Q = q_c sum_{a,b} c_a c_b' J_{a+b}(dt), J_k(dt) = int_0^dt s^k e^{-2 lam s} ds
   = k! / (2 lam)^(k+1) * P(k+1, 2 lam dt) with P the regularized lower incomplete gamma
-  function. Unlike Q = P_inf - A P_inf A', this has no cancellation at small dt, so the
-  zero-nugget likelihood of densely sampled smooth kernels keeps its digits.
+  function (evaluated by its series at small argument). Unlike Q = P_inf - A P_inf A',
+  this has no cancellation at small dt, so the zero-nugget likelihood of densely sampled
+  smooth kernels keeps its digits.
 
 The filter works on the points sorted in increasing order: unsorted input is sorted
 internally (stable sort) and the data are permuted with it. ``whiten`` returns the
@@ -45,7 +46,7 @@ from dataclasses import dataclass
 
 import numba
 import numpy as np
-from scipy import linalg, special
+from scipy import linalg
 
 from harness.exact.evaluation import ReferenceEvaluation
 from harness.exact.gls import gls_loglik
@@ -131,21 +132,77 @@ def matern_state_space(kernel: Kernel) -> StateSpaceModel:
 
 def discretize(model: StateSpaceModel, dt: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Transitions A(dt) and process noises Q(dt), shapes (len(dt), m, m), in closed form."""
-    dt = np.asarray(dt, dtype=float)
-    m, lam = model.m, model.lam
+    dt = np.ascontiguousarray(dt, dtype=float)
+    m = model.m
     nil_pow = np.empty((m, m, m))
     nil_pow[0] = np.eye(m)
     for k in range(1, m):
         nil_pow[k] = nil_pow[k - 1] @ model.nilpotent / k  # N^k / k!
-    taylor = dt[:, None] ** np.arange(m)[None, :]
-    trans = (taylor @ nil_pow.reshape(m, m * m)) * np.exp(-lam * dt)[:, None]
+    trans = np.empty((dt.size, m, m))
+    noise = np.empty((dt.size, m, m))
+    _discretize(dt, model.lam, nil_pow, np.ascontiguousarray(model.noise_coefficients),
+                trans, noise)
+    return trans, noise
+
+
+@numba.njit(cache=True)
+def _lower_gamma_integrals(lam, dt, out):  # pragma: no cover - compiled
+    """J_k(dt) = int_0^dt s^k e^{-2 lam s} ds = k! / (2 lam)^(k+1) P(k + 1, 2 lam dt), k < len(out).
+
+    P(k+1, x) for integer k: the series e^-x x^(k+1) / (k+1)! sum_j x^j / ((k+2)..(k+1+j))
+    for x < 2 (no cancellation at small x; Abramowitz and Stegun 1964, eq. 6.5.29), and
+    1 - e^-x sum_{j<=k} x^j / j! otherwise (A&S eq. 6.5.13), where P >= P(5, 2) > 0.05.
+    """
     x = 2.0 * lam * dt
-    orders = model.noise_coefficients.shape[0]
-    integrals = np.empty((dt.size, orders))
-    for k in range(orders):
-        integrals[:, k] = (math.factorial(k) / (2.0 * lam) ** (k + 1)) * special.gammainc(k + 1, x)
-    noise = integrals @ model.noise_coefficients.reshape(orders, m * m)
-    return trans.reshape(-1, m, m), noise.reshape(-1, m, m)
+    ex = math.exp(-x)
+    first = 1.0  # x^(k+1) / (k+1)!, or the partial exponential sum
+    scale = 1.0 / (2.0 * lam)  # k! / (2 lam)^(k+1)
+    for k in range(out.size):
+        if x < 2.0:
+            first *= x / (k + 1)
+            term = 1.0
+            total = 1.0
+            j = 1
+            while term > 1e-17 * total:
+                term *= x / (k + 1 + j)
+                total += term
+                j += 1
+            p = ex * first * total
+        else:
+            total = 1.0
+            term = 1.0
+            for j in range(1, k + 1):
+                term *= x / j
+                total += term
+            p = 1.0 - ex * total
+        out[k] = scale * p
+        scale *= (k + 1) / (2.0 * lam)
+
+
+@numba.njit(cache=True)
+def _discretize(dt, lam, nil_pow, noise_coefficients, trans, noise):  # pragma: no cover
+    """Fill A(dt_i) = e^{-lam dt} sum_k dt^k N^k / k! and Q(dt_i) = sum_k J_k C_k."""
+    m = nil_pow.shape[0]
+    orders = noise_coefficients.shape[0]
+    jk = np.empty(orders)
+    for i in range(dt.size):
+        h = dt[i]
+        decay = math.exp(-lam * h)
+        for r in range(m):
+            for c in range(m):
+                acc = 0.0
+                power = 1.0
+                for k in range(m):
+                    acc += power * nil_pow[k, r, c]
+                    power *= h
+                trans[i, r, c] = decay * acc
+        _lower_gamma_integrals(lam, h, jk)
+        for r in range(m):
+            for c in range(m):
+                acc = 0.0
+                for k in range(orders):
+                    acc += jk[k] * noise_coefficients[k, r, c]
+                noise[i, r, c] = acc
 
 
 @numba.njit(cache=True)

@@ -4,8 +4,8 @@ Each node's points are split at the median of their projection on the node's pri
 axis (the leading eigenvector of the node's coordinate covariance), the first
 floor(m / 2) points going to the left child. Every level is therefore a partition of all
 points into 2^level contiguous ranges of the permuted order whose sizes differ by at most
-one, whatever the geometry (clustered points, duplicates); no node is empty as long as
-the leaf level has no more nodes than points. The depth is the smallest L with
+one, whatever the geometry (clustered points, duplicates); no node is empty, since
+leaf_size >= 2 keeps 2^L < 2 n / leaf_size <= n. The depth is the smallest L with
 ceil(n / 2^L) <= leaf_size, i.e. L = ceil(log2(n / leaf_size)) for n > leaf_size.
 
 This is the cluster tree of a hierarchical off-diagonal low-rank (HODLR) matrix
@@ -99,7 +99,7 @@ def build_tree(points: np.ndarray, *, leaf_size: int = 128) -> ClusterTree:
     points : ndarray, shape (n, d) or (n,)
         Coordinates, d = 1, 2 or 3 (any d works).
     leaf_size : int
-        Maximum number of points in a leaf (>= 1).
+        Maximum number of points in a leaf (>= 2).
 
     Returns
     -------
@@ -112,8 +112,8 @@ def build_tree(points: np.ndarray, *, leaf_size: int = 128) -> ClusterTree:
         raise TreeError(f"points: expected an (n, d) array with n >= 1, got shape {x.shape}")
     if not np.all(np.isfinite(x)):
         raise TreeError("points: all coordinates must be finite")
-    if int(leaf_size) != leaf_size or leaf_size < 1:
-        raise TreeError(f"leaf_size must be a positive integer, got {leaf_size!r}")
+    if int(leaf_size) != leaf_size or leaf_size < 2:
+        raise TreeError(f"leaf_size must be an integer >= 2, got {leaf_size!r}")
     n = x.shape[0]
     depth = tree_depth(n, int(leaf_size))
     perm = np.arange(n, dtype=np.intp)

@@ -50,14 +50,15 @@ def assemble_lower(kernel: Kernel, points: np.ndarray, *, out: np.ndarray | None
         ``out``, with entries above the diagonal left as they were (zero when
         allocated here).
     """
-    xs = kernel.scale_points(points)
-    n = xs.shape[0]
+    points = np.asarray(points, dtype=float)
+    points = points[:, None] if points.ndim == 1 else points
+    n = points.shape[0]
     if out is None:
         out = allocate_fortran(n)
     elif out.shape != (n, n) or not out.flags.f_contiguous or out.dtype != np.float64:
         raise ValueError(f"out must be a Fortran-ordered float64 array of shape {(n, n)}")
-    if kernel.compiled:
-        fill_lower_symmetric(FAMILY_FUNCTIONS[kernel.family][0], xs, kernel.shape_value,
+    if getattr(kernel, "compiled", False):
+        fill_lower_symmetric(FAMILY_FUNCTIONS[kernel.family][0], kernel.scale_points(points), kernel.shape_value,
                              kernel.variance, kernel.nugget, out)
         return out
     idx = np.arange(n)

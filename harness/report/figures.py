@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
+from matplotlib.ticker import NullFormatter
 
 from harness.analysis.scaling_table import ScalingRow, solver_label
 from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
@@ -40,8 +41,24 @@ def _positive(frame: pd.DataFrame, column: str) -> pd.DataFrame:
 
 def _threshold(ax: Axes, value: float, label: str) -> None:
     ax.axhline(value, **THRESHOLD_STYLE)
-    ax.annotate(plain(label), xy=(0.99, value), xycoords=("axes fraction", "data"),
-                ha="right", va="bottom", fontsize=7, color=THRESHOLD_STYLE["color"])
+    ax.annotate(plain(label), xy=(0.01, value), xycoords=("axes fraction", "data"),
+                ha="left", va="bottom", fontsize=7, color=THRESHOLD_STYLE["color"])
+
+
+def _log_axes(ax: Axes, *, y: bool = True) -> None:
+    """Log scales; no minor x labels (the measured values are labelled instead), y keeps
+    matplotlib's default, which labels minor ticks only when the range is under a decade."""
+    ax.set_xscale("log")
+    ax.xaxis.set_minor_formatter(NullFormatter())
+    if y:
+        ax.set_yscale("log")
+
+
+def _value_ticks(ax: Axes, values: object) -> None:
+    """Label the x axis at the measured values (n or probes) in plain numbers."""
+    ticks = sorted({float(v) for v in np.asarray(values, dtype=float) if v > 0})
+    if 0 < len(ticks) <= 8:
+        ax.set_xticks(ticks, [f"{v:g}" for v in ticks])
 
 
 def _grid(n_panels: int, *, width: float = 7.2, height: float = 2.8) -> tuple[Figure,
@@ -69,18 +86,35 @@ def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> F
         fig, axes = _grid(len(panels))
         for ax, (metric, limit, label) in zip(axes, panels, strict=True):
             data = _positive(ok, metric)
-            worst = data.groupby(["solver", "n", "tol"])[metric].max().reset_index()
-            for i, ((solver, n), g) in enumerate(worst.groupby(["solver", "n"], sort=True)):
-                g = g.sort_values("tol")
-                ax.plot(g["tol"], g[metric], label=plain(f"{solver} n={int(n)}"),
-                        markersize=4, **series_style(i).kwargs())
+            if metric == "trace_z_max":
+                _z_strip(ax, data)
+            else:
+                worst = data.groupby(["solver", "n", "tol"])[metric].max().reset_index()
+                for i, ((solver, n), g) in enumerate(worst.groupby(["solver", "n"])):
+                    g = g.sort_values("tol")
+                    ax.plot(g["tol"], g[metric], label=plain(f"{solver} n={int(n)}"),
+                            markersize=4, **series_style(i).kwargs())
+                ax.set_yscale("log")
+                ax.yaxis.set_minor_formatter(NullFormatter())
             _threshold(ax, limit, label)
             ax.set_xscale("log")
-            ax.set_yscale("log")
+            ax.xaxis.set_minor_formatter(NullFormatter())
             ax.set_xlabel("compression tolerance")
             ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
         axes[0].legend(loc="best")
     return fig
+
+
+def _z_strip(ax: Axes, data: pd.DataFrame) -> None:
+    """Every task's |z| against tolerance (one marker per task, offset by probe count)."""
+    for i, (probes, g) in enumerate(data.groupby("probes", sort=True)):
+        style = series_style(i)
+        offset = 1.15 ** (i - 1)
+        ax.plot(g["tol"] * offset, g["trace_z_max"], linestyle="none", marker=style.marker,
+                color=style.color, markersize=3, alpha=0.8,
+                label=plain(f"{int(probes)} probes"))
+    ax.set_ylim(bottom=0)
+    ax.legend(loc="upper right", fontsize=6)
 
 
 def error_vs_n(results: pd.DataFrame, *, thresholds: Thresholds) -> Figure | None:
@@ -103,8 +137,8 @@ def error_vs_n(results: pd.DataFrame, *, thresholds: Thresholds) -> Figure | Non
                 ax.plot(g["n"], g[metric], label=plain(solver_label(solver, tol)),
                         markersize=4, **series_style(i).kwargs())
             _threshold(ax, limit, "safe limit")
-            ax.set_xscale("log")
-            ax.set_yscale("log")
+            _log_axes(ax)
+            _value_ticks(ax, worst["n"])
             ax.set_xlabel("n")
             ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
         axes[0].legend(loc="best")
@@ -140,11 +174,11 @@ def cost_vs_n(results: pd.DataFrame, rows: Sequence[ScalingRow], *,
                     grid = np.geomspace(min(fit.sizes), max(fit.sizes), 20)
                     ax.plot(grid, fit.predict(grid), color=style.color,
                             linestyle=style.linestyle, linewidth=1.0)
-            ax.set_xscale("log")
-            ax.set_yscale("log")
+            _log_axes(ax)
+            _value_ticks(ax, med["n"])
             ax.set_xlabel("n")
             ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
-            ax.legend(loc="upper left")
+            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), frameon=False)
     return fig
 
 
@@ -173,8 +207,8 @@ def trace_vs_probes(results: pd.DataFrame) -> Figure | None:
         for rate, style in ((0.5, (0, (1, 2))), (1.0, (0, (4, 2, 1, 2)))):
             ax.plot(p, first * (p / p[0]) ** -rate, color="#444444", linestyle=style,
                     linewidth=1.0, label=f"rate p^-{rate:g}")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
+        _log_axes(ax)
+        _value_ticks(ax, worst["probes"])
         ax.set_xlabel("probes p")
         ax.set_title(METRIC_TITLES["trace_rel_err_max"], fontsize=9)
         ax.legend(loc="best", ncols=2)

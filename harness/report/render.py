@@ -8,7 +8,7 @@ through ``DataFrame.to_html(escape=True)``; only those escaped tables are marked
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
 
@@ -21,8 +21,7 @@ from harness import __version__
 from harness.analysis.load import RunData, load_run
 from harness.analysis.scaling_table import (
     MEMORY_METRICS,
-    ScalingRow,
-    scaling_frame,
+    display_table,
     scaling_rows,
     solver_label,
 )
@@ -121,36 +120,6 @@ def _trace_table(vs: VerdictSet) -> pd.DataFrame:
         "flag": "\u2718 SE too small" if t.flagged else "\u2714 ok"} for t in vs.trace])
 
 
-def _scaling_table(rows: Sequence[ScalingRow]) -> pd.DataFrame:
-    frame = scaling_frame([r for r in rows if r.fit is not None])
-    if frame.empty:
-        return frame
-
-    def interval(lo: float, hi: float) -> str:
-        return "\u2013" if math.isnan(lo) else f"[{lo:.2f}, {hi:.2f}]"
-
-    def cross(row: pd.Series) -> str:
-        if math.isnan(row["crossover_n"]):
-            return "\u2013"
-        text = f"{row['crossover_n']:.3g}"
-        if not math.isnan(row["crossover_low"]):
-            text += f" [{row['crossover_low']:.3g}, {row['crossover_high']:.3g}]"
-        return text
-
-    return pd.DataFrame({
-        "solver": frame["solver"], "kernel": frame["kernel"], "geometry": frame["geometry"],
-        "metric": frame["metric"], "sizes (k)": frame["sizes"],
-        "slope b": frame["slope"].map(lambda v: f"{v:.3f}"),
-        "CI": [interval(lo, hi) for lo, hi in zip(frame["ci_low"], frame["ci_high"],
-                                                  strict=True)],
-        "bootstrap": [interval(lo, hi) for lo, hi in zip(frame["boot_low"],
-                                                         frame["boot_high"], strict=True)],
-        "R\u00b2": frame["r_squared"].map(lambda v: f"{v:.4f}"),
-        "local slopes": frame["local_slopes"], "in CI": frame["refs_in_ci"],
-        "crossover n": [cross(r) for _, r in frame.iterrows()],
-    })
-
-
 def _failures(results: pd.DataFrame) -> pd.DataFrame:
     bad = results[results["status"] != "ok"]
     cols = ["status", "case", "solver", "tol", "kernel", "geometry", "n", "seed",
@@ -186,14 +155,20 @@ def _case_text(meta: Mapping[str, Any]) -> str:
 
 
 def thresholds_for(run: RunData) -> Thresholds:
-    """The ``[verdict]`` table of the run's case file, or the defaults."""
-    text = _case_text(run.meta)
-    if not text:
-        return Thresholds()
+    """The run's ``[verdict]`` limits: from ``run.json``'s ``case`` table, the case file text,
+    or the case file it names; the defaults when none is found or readable."""
+    case = run.meta.get("case")
     try:
-        return Thresholds.from_case_text(text)
-    except ThresholdError:
+        if isinstance(case, Mapping) and isinstance(case.get("verdict"), Mapping):
+            return Thresholds.from_mapping(case["verdict"], source="run.json case [verdict]")
+        text = _case_text(run.meta)
+        if text and "\n" not in text and Path(text).suffix == ".toml" and Path(text).is_file():
+            return Thresholds.from_case_file(text)
+        if text:
+            return Thresholds.from_case_text(text)
+    except (ThresholdError, OSError):
         return Thresholds()
+    return Thresholds()
 
 
 def _thresholds_table(th: Thresholds) -> pd.DataFrame:
@@ -227,8 +202,8 @@ def _comparison_context(comparison: Comparison) -> dict[str, object]:
 def _results_table(results: pd.DataFrame) -> pd.DataFrame:
     keep = [c for c in results.columns
             if results[c].notna().any() and not (results[c].astype(str) == "").all()]
-    return results[keep].sort_values(["solver", "tol", "n", "seed"], kind="stable",
-                                     na_position="first")
+    order = [c for c in ("solver", "tol", "n", "seed") if c in keep]
+    return results[keep].sort_values(order, kind="stable", na_position="first")
 
 
 def render_report(run: RunData, *, comparison: Comparison | None = None,
@@ -265,7 +240,8 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "n_skipped": int((results["status"] == "skipped").sum()),
         "started": str(meta.get("started", "")), "finished": str(meta.get("finished", "")),
         "toc": toc,
-        "recommendations": html_table(_recommendations(vs)) if vs.recommendations else "",
+        "recommendations": html_table(_recommendations(vs))
+        if any(v.status != "failed" for v in vs.verdicts) else "",
         "per_tolerance": html_table(_per_tolerance(vs)) if vs.verdicts else "",
         "thresholds_note": "All limits below are " + COMMON_PRACTICE + ". The certificate "
                            "limit is the pass ratio of LAPACK's own test suite.",
@@ -273,7 +249,7 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "verdict_detail": html_table(_verdict_detail(vs)) if vs.verdicts else "",
         "figures": {k: (data_uri(f) if f is not None else "") for k, f in figs.items()},
         "level_pct": f"{100 * level:g}",
-        "scaling": html_table(_scaling_table(rows)) if any(r.fit for r in rows) else "",
+        "scaling": html_table(display_table(rows)) if any(r.fit for r in rows) else "",
         "scaling_refused": sorted({f"{r.label}, {r.metric}: {r.refused}" for r in rows
                                    if r.fit is None}),
         "trace": html_table(_trace_table(vs)) if vs.trace else "",

@@ -31,6 +31,7 @@ IDENTITY_COLUMNS: tuple[str, ...] = (
     "trace_method",   # exact | hutchinson | hutchpp
     "probes",
     "reference",      # dense | statespace | kronecker | ladder | none
+    "reference_certificate",  # DPOT01 ratio of the dense reference (NaN for others)
     "status",         # ok | failed | skipped
     "error_type", "error_message", "notes",
 )

@@ -33,6 +33,7 @@ def result_row(record: Mapping[str, Any]) -> dict[str, Any]:
     for phase, stats in (timing.get("phases") or {}).items():
         for stat in ("min", "median", "iqr"):
             row[f"time_{phase}_{stat}"] = stats.get(stat)
+    row.update({f"timing_{k}": v for k, v in (timing.get("memory") or {}).items()})
     row["timing_status"] = record.get("timing_status")
     context = record.get("timing_context") or {}
     row["timed_concurrently"] = context.get("concurrent_tasks", 1) > 1 if context else None

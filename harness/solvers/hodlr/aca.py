@@ -23,7 +23,8 @@ in two halves of tol / 2 each:
    R_a R_b' = u s v', truncated to the smallest r with
    sqrt(sum_{i > r} s_i^2) <= (tol / 2) ||s||_2 (exact for the ACA approximant).
 
-The result is U = Q_a u_r (orthonormal columns) and V = Q_b v_r diag(s_r).
+The result is U = Q_a u_r (orthonormal columns) and V = Q_b v_r diag(s_r), formed
+without Q (``recompress``).
 """
 
 from __future__ import annotations
@@ -33,64 +34,36 @@ from dataclasses import dataclass
 
 import numba
 import numpy as np
+from scipy.linalg import lapack, solve_triangular
 
-from harness.kernels.rows import entry
+from harness.kernels.rows import eval_row
 from harness.solvers.hodlr.orth import thin_qr
 
-_PAR_MIN = 8192  # vector length from which row/column loops run on all threads
-_CHUNK = 4096
-
+_GRAM_RCOND = 1e-5
 
 @numba.njit(inline="always", fastmath=True, nogil=True, cache=True)
-def _residual_chunk(rho_slope, x, ys, shape, scale, mode, coef, mat, k, out, j0, j1):
-    for j in range(j0, j1):
-        out[j] = entry(rho_slope, x, ys[j], shape, scale, mode)
-    for ell in range(k):
-        c = coef[ell]
-        row = mat[ell]
-        for j in range(j0, j1):
-            out[j] -= c * row[j]
-
-
-@numba.njit(parallel=True, fastmath=True, nogil=True, cache=True)
-def _residual(rho_slope, x, ys, shape, scale, mode, coef, mat, k, out):
+def _residual(family, x, ys, shape, scale, mode, coef, mat, k, out):
     """out[j] = K(x, ys_j) - sum_{l<k} coef[l] mat[l, j]  (a residual row or column)."""
-    n = ys.shape[0]
-    if n < _PAR_MIN:
-        _residual_chunk(rho_slope, x, ys, shape, scale, mode, coef, mat, k, out, 0, n)
-        return
-    chunks = (n + _CHUNK - 1) // _CHUNK
-    for c in numba.prange(chunks):
-        j0 = c * _CHUNK
-        _residual_chunk(rho_slope, x, ys, shape, scale, mode, coef, mat, k, out, j0,
-                        min(n, j0 + _CHUNK))
-
-
-@numba.njit(parallel=True, fastmath=True, nogil=True, cache=True)
-def _dots(mat, k, v, out):
-    """out[l] = mat[l] . v for l < k."""
-    if v.shape[0] < _PAR_MIN:
-        for ell in range(k):
-            out[ell] = np.dot(mat[ell], v)
-        return
-    for ell in numba.prange(k):
-        out[ell] = np.dot(mat[ell], v)
+    eval_row(family, x, ys, shape, scale, mode, out, 0, ys.shape[0])
+    if k > 0:
+        out -= np.dot(coef[:k], mat[:k])  # BLAS gemv: the memory-bound part of ACA
 
 
 @numba.njit(fastmath=True, nogil=True, cache=True)
-def aca_compiled(rho_slope, xs, ys, shape, scale, mode, tol, max_rank, checks):
+def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks):
     """ACA with partial pivoting on K[i, j] = entry(xs_i, ys_j) (see module docstring).
 
-    Returns (A, B) with K ~ A' B, A of shape (k, m), B of shape (k, n).
+    ``family``, ``mode``: as in ``harness.kernels.rows``; ``checks``: (rounds, rows)
+    random row indices for the residual checks. Returns (A, B) with K ~ A' B, A of
+    shape (k, m), B of shape (k, n). Serial; releases the GIL.
     """
     m = xs.shape[0]
     n = ys.shape[0]
     cap = min(max_rank, 16)
     a_vecs = np.empty((cap, m))
     b_vecs = np.empty((cap, n))
+    coef = np.empty(max_rank)
     used = np.zeros(m, dtype=np.bool_)
-    cross_a = np.empty(max_rank)
-    cross_b = np.empty(max_rank)
     row = np.empty(n)
     col = np.empty(m)
     scratch = np.empty(n)
@@ -100,8 +73,9 @@ def aca_compiled(rho_slope, xs, ys, shape, scale, mode, tol, max_rank, checks):
     piv_row = 0
     rounds = 0
     while k < max_rank:
-        _residual(rho_slope, xs[piv_row], ys, shape, scale, mode, a_vecs[:k, piv_row],
-                  b_vecs, k, row)
+        for ell in range(k):
+            coef[ell] = a_vecs[ell, piv_row]
+        _residual(family, xs[piv_row], ys, shape, scale, mode, coef, b_vecs, k, row)
         used[piv_row] = True
         jp = np.argmax(np.abs(row))
         piv = row[jp]
@@ -109,8 +83,9 @@ def aca_compiled(rho_slope, xs, ys, shape, scale, mode, tol, max_rank, checks):
             candidate = True
         else:
             row /= piv
-            _residual(rho_slope, ys[jp], xs, shape, scale, mode, b_vecs[:k, jp], a_vecs, k,
-                      col)
+            for ell in range(k):
+                coef[ell] = b_vecs[ell, jp]
+            _residual(family, ys[jp], xs, shape, scale, mode, coef, a_vecs, k, col)
             if k == cap:
                 cap = min(max_rank, 2 * cap)
                 grown_a = np.empty((cap, m))
@@ -119,15 +94,13 @@ def aca_compiled(rho_slope, xs, ys, shape, scale, mode, tol, max_rank, checks):
                 grown_b[:k] = b_vecs[:k]
                 a_vecs = grown_a
                 b_vecs = grown_b
-            a_vecs[k] = col
-            b_vecs[k] = row
             an2 = np.dot(col, col)
             bn2 = np.dot(row, row)
-            _dots(a_vecs, k, col, cross_a)
-            _dots(b_vecs, k, row, cross_b)
             cross = 0.0
-            for ell in range(k):
-                cross += cross_a[ell] * cross_b[ell]
+            if k > 0:
+                cross = np.dot(np.dot(a_vecs[:k], col), np.dot(b_vecs[:k], row))
+            a_vecs[k] = col
+            b_vecs[k] = row
             norm2 += an2 * bn2 + 2.0 * cross
             k += 1
             candidate = an2 * bn2 <= tol2 * norm2
@@ -139,8 +112,9 @@ def aca_compiled(rho_slope, xs, ys, shape, scale, mode, tol, max_rank, checks):
             est = 0.0
             for t in range(checks.shape[1]):
                 i = checks[rounds, t]
-                _residual(rho_slope, xs[i], ys, shape, scale, mode, a_vecs[:k, i], b_vecs, k,
-                          scratch)
+                for ell in range(k):
+                    coef[ell] = a_vecs[ell, i]
+                _residual(family, xs[i], ys, shape, scale, mode, coef, b_vecs, k, scratch)
                 e2 = np.dot(scratch, scratch)
                 est += e2
                 if e2 > worst and not used[i]:
@@ -226,7 +200,7 @@ def aca_callable(row: Callable[[int], np.ndarray], col: Callable[[int], np.ndarr
 
 @dataclass(frozen=True)
 class LowRank:
-    """K ~ U V' with U (m x r) orthonormal columns and V (n x r)."""
+    """K ~ U V' with U (m x r) (orthonormal columns up to the Gram rounding) and V (n x r)."""
 
     u: np.ndarray
     v: np.ndarray
@@ -241,23 +215,51 @@ class LowRank:
         return int(self.u.nbytes + self.v.nbytes)
 
 
+def _gram_factor(a: np.ndarray) -> np.ndarray | None:
+    """Upper R with R'R = a a' (rows of a are the factor's vectors), or None when the
+    column-scaled Gram matrix is numerically singular (rcond < 1e-5)."""
+    gram = a @ a.T
+    d = np.sqrt(np.diag(gram))
+    if not np.all(d > 0):
+        return None
+    r1, info = lapack.dpotrf(gram / np.outer(d, d), lower=0, clean=1)
+    if info != 0:
+        return None
+    rcond, info = lapack.dtrcon(r1, norm="1", uplo="U")
+    if info != 0 or rcond < _GRAM_RCOND:
+        return None
+    return r1 * d
+
+
 def recompress(a: np.ndarray, b: np.ndarray, *, tol: float) -> LowRank:
     """Truncated SVD of A' B (A: k x m, B: k x n) to relative Frobenius error ``tol``.
 
-    Returns U = Q_a u_r, V = Q_b v_r s_r with r the smallest rank whose discarded
-    singular values have root-sum-square <= tol * ||s||_2.
+    With A' = Q_a R_a and B' = Q_b R_b, R_a R_b' = u s v', the result is
+    U = A' R_a^-1 u_r = Q_a u_r and V = B' R_b^-1 v_r s_r, r the smallest rank whose
+    discarded singular values have root-sum-square <= tol * ||s||_2. R comes from the
+    column-scaled Gram matrix (one BLAS-3 pass over each factor, no explicit Q); an
+    inexact R only perturbs the truncation estimate, never the kept product. When the
+    Gram matrix is too ill conditioned the Householder-backed ``thin_qr`` is used.
     """
     k, m = a.shape
     n = b.shape[1]
     if k == 0:
         return LowRank(np.zeros((m, 0)), np.zeros((n, 0)), 0)
-    qa, ra = thin_qr(np.ascontiguousarray(a.T))  # k <= min(m, n): ACA's max rank
-    qb, rb = thin_qr(np.ascontiguousarray(b.T))
+    ra, rb = _gram_factor(a), _gram_factor(b)
+    if ra is None or rb is None:
+        qa, ra = thin_qr(np.ascontiguousarray(a.T))
+        qb, rb = thin_qr(np.ascontiguousarray(b.T))
+    else:
+        qa = qb = None
     u, s, vt = np.linalg.svd(ra @ rb.T, full_matrices=False)
     total = float(np.sqrt(np.sum(s * s)))
     tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])  # tail[i] = ||s[i:]||
     keep = np.nonzero(tail > tol * total)[0]
     r = int(keep[-1]) + 1 if keep.size else 0
-    u_r = qa @ u[:, :r]
-    v_r = qb @ (vt[:r].T * s[:r])
+    left, right = u[:, :r], vt[:r].T * s[:r]
+    if qa is None:
+        u_r = a.T @ solve_triangular(ra, left, lower=False)
+        v_r = b.T @ solve_triangular(rb, right, lower=False)
+    else:
+        u_r, v_r = qa @ left, qb @ right
     return LowRank(np.ascontiguousarray(u_r), np.ascontiguousarray(v_r), k)

@@ -22,9 +22,6 @@ from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.aca import LowRank
 from harness.solvers.hodlr.entries import KernelEntries
 
-#: Off-diagonal blocks with at least this many rows + columns are compressed one at a
-#: time with parallel inner loops; smaller ones are spread over the worker threads.
-PARALLEL_BLOCK = 16384
 CHECK_ROUNDS = 8
 CHECK_ROWS = 8
 
@@ -110,13 +107,11 @@ def build_hodlr(entries: KernelEntries, tree: ClusterTree, *, tol: float,
         return entries.off_diagonal(rows, cols, scaled, tol=tol, checks=checks)
 
     leaf_bounds = tree.bounds[tree.depth]
-    big = [job for job in jobs if job[3][1] - job[2][0] >= PARALLEL_BLOCK]
-    small = [job for job in jobs if job[3][1] - job[2][0] < PARALLEL_BLOCK]
     results: dict[tuple[int, int], LowRank] = {}
-    for job in big:
-        results[job[0], job[1]] = compress(job)
+    # jobs go coarse to fine: the workers take the largest blocks first (longest
+    # processing time first), which balances the few big top-level blocks.
     with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-        for job, low in zip(small, pool.map(compress, small), strict=True):
+        for job, low in zip(jobs, pool.map(compress, jobs), strict=True):
             results[job[0], job[1]] = low
         leaves = tuple(pool.map(lambda j: entries.leaf(int(leaf_bounds[j]),
                                                        int(leaf_bounds[j + 1]), scaled),

@@ -13,9 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.kernels.assembly import FAMILY_FUNCTIONS
 from harness.kernels.base import Kernel
-from harness.kernels.rows import fill_block, mode_for
+from harness.kernels.rows import family_code, fill_block, mode_for
 from harness.solvers.hodlr.aca import LowRank, aca_callable, aca_compiled, recompress
 
 
@@ -50,7 +49,7 @@ class KernelEntries:
         if k.compiled:
             out = np.empty((stop - start, stop - start))
             xs = scaled[start:stop]
-            fill_block(FAMILY_FUNCTIONS[k.family][1], xs, xs, k.shape_value, k.variance,
+            fill_block(family_code(k.family), xs, xs, k.shape_value, k.variance,
                        mode_for(k.isotropic, self.which), out)
             if self.which is None:
                 out.flat[:: stop - start + 1] += k.nugget
@@ -70,7 +69,7 @@ class KernelEntries:
         (r0, r1), (c0, c1) = rows, cols
         m, n = r1 - r0, c1 - c0
         if k.compiled:
-            a, b = aca_compiled(FAMILY_FUNCTIONS[k.family][1], scaled[r0:r1], scaled[c0:c1],
+            a, b = aca_compiled(family_code(k.family), scaled[r0:r1], scaled[c0:c1],
                                 k.shape_value, k.variance, mode_for(k.isotropic, self.which),
                                 0.5 * tol, min(m, n), checks)
         else:

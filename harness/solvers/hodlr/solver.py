@@ -109,6 +109,10 @@ class HodlrFactorization:
         """W_o b (b standard normal gives a sample with covariance Sigma~)."""
         return self._apply(b, self._factor.apply)
 
+    def apply_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
+        """W_o' b (so that apply_sqrt(apply_sqrt_transpose(b)) = Sigma~ b)."""
+        return self._apply(b, self._factor.apply_transpose)
+
     def derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray:
         """dSigma/dtheta_i @ b (``derivatives`` module); compresses on first use."""
         role = derivative_role(self.kernel, i)

@@ -1,0 +1,117 @@
+"""Regression comparison: checks, Mann-Whitney significance, CLI exit codes."""
+
+from __future__ import annotations
+
+import argparse
+import json
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from harness.analysis import load_run
+from harness.analysis.synthetic import write_synthetic_run
+from harness.cli import compare as compare_cli
+from harness.compare import (
+    AccuracyCheck,
+    CheckSyntaxError,
+    SpeedCheck,
+    compare_runs,
+    default_checks,
+    load_comparison,
+    parse_check,
+)
+
+SMALL = dict(sizes=(500, 1000, 2000), tolerances=(1e-4, 1e-6), seeds=(0, 1), probes=(16,))
+
+
+def _run(path, *, seed=0, **kw):
+    return write_synthetic_run(path, rng=np.random.default_rng(seed), **{**SMALL, **kw})
+
+
+def _cli(argv):
+    parser = argparse.ArgumentParser()
+    compare_cli.add_parser(parser.add_subparsers())
+    return compare_cli.run(parser.parse_args(["compare", *argv]))
+
+
+def test_accuracy_check_factor_and_floor():
+    check = AccuracyCheck("logdet_abs_err", factor=2.0, floor=1e-6)
+    assert check.fails(3e-3, 1e-3)
+    assert not check.fails(1.9e-3, 1e-3)
+    assert not check.fails(9e-7, 1e-9)   # under the floor
+    assert check.fails(1e-5, 0.0)        # exact baseline, error now above the floor
+    assert not check.fails(np.nan, 1e-3)
+
+
+def test_speed_check_uses_mann_whitney():
+    # p-value source: scipy.stats.mannwhitneyu, one-sided "greater".
+    rng = np.random.default_rng(0)
+    base = rng.lognormal(0, 0.05, 7)
+    slow = 1.6 * rng.lognormal(0, 0.05, 7)
+    check = SpeedCheck("t_factor", ratio=1.25)
+    out = check.assess(slow, base)
+    assert out.p_value == pytest.approx(
+        stats.mannwhitneyu(slow, base, alternative="greater").pvalue)
+    assert out.ratio == pytest.approx(np.median(slow) / np.median(base))
+    assert check.fails(slow, base)
+    assert not check.fails(1.1 * base, base)           # below the ratio
+    assert not check.fails([1.0, 5.0], [1.0, 1.1])     # large ratio, not significant
+
+
+def test_parse_check():
+    assert parse_check("logdet_abs_err:3x") == AccuracyCheck("logdet_abs_err", 3.0, 1e-6)
+    assert parse_check("loglik_abs_err:2x:1e-9").floor == 1e-9
+    assert parse_check("t_factor:1.25x") == SpeedCheck("t_factor", 1.25)
+    for bad in ("logdet_abs_err", "nosuch:2x", "t_factor:0.5x", "t_factor:2x:1"):
+        with pytest.raises(CheckSyntaxError):
+            parse_check(bad)
+
+
+def test_accuracy_only_drops_speed_checks():
+    assert not any(isinstance(c, SpeedCheck) for c in default_checks(accuracy_only=True))
+    override = default_checks(overrides=[parse_check("t_total:2x")])
+    assert SpeedCheck("t_total", 2.0) in override
+
+
+def test_identical_runs_exit_0(tmp_path):
+    _run(tmp_path / "base")
+    _run(tmp_path / "new")
+    assert _cli([str(tmp_path / "base"), str(tmp_path / "new"), "--no-report"]) == 0
+
+
+def test_planted_accuracy_regression_exits_1_and_writes_report(tmp_path):
+    _run(tmp_path / "base")
+    _run(tmp_path / "new", error_scale=5.0)
+    assert _cli([str(tmp_path / "base"), str(tmp_path / "new"), "--accuracy-only"]) == 1
+    comparison = load_comparison(tmp_path / "new" / "comparison.json")
+    assert comparison.regressed
+    assert {f.kind for f in comparison.findings} == {"accuracy"}
+    json.loads((tmp_path / "new" / "comparison.json").read_text())  # strict JSON (no NaN)
+    html = (tmp_path / "new" / "report.html").read_text()
+    assert "Comparison with a baseline" in html and "regression(s)" in html
+
+
+def test_planted_slowdown_fails_only_with_speed_checks(tmp_path):
+    _run(tmp_path / "base", seed=0)
+    _run(tmp_path / "new", seed=1, slowdown=1.8)
+    args = [str(tmp_path / "base"), str(tmp_path / "new"), "--no-report"]
+    assert _cli([*args, "--accuracy-only"]) == 0
+    comparison = compare_runs(load_run(tmp_path / "base"), load_run(tmp_path / "new"))
+    assert comparison.findings and {f.kind for f in comparison.findings} == {"speed"}
+    assert all(f.p_value <= 0.05 for f in comparison.findings)
+    assert _cli(args) == 1
+
+
+def test_missing_extra_and_failed_tasks(tmp_path):
+    _run(tmp_path / "base", include_failure=False)
+    _run(tmp_path / "new", include_failure=True, sizes=(500, 1000, 4000))
+    comparison = compare_runs(load_run(tmp_path / "base"), load_run(tmp_path / "new"))
+    assert comparison.missing and comparison.extra
+    assert any(f.kind == "status" and "now failed" in f.note for f in comparison.findings)
+
+
+def test_unreadable_input_exits_2(tmp_path):
+    _run(tmp_path / "base")
+    assert _cli([str(tmp_path / "base"), str(tmp_path / "absent")]) == 2
+    assert _cli([str(tmp_path / "base"), str(tmp_path / "base"), "--fail-on", "x:2x"]) == 2

@@ -1,0 +1,256 @@
+"""HODLR solver against dense numpy/scipy references computed here.
+
+References: numpy.linalg.cholesky / scipy.linalg.cho_solve of the dense Sigma from
+``Kernel.covariance`` (log det = 2 sum log diag L; Sigma^-1 y; y' Sigma^-1 y), the dense
+derivative from ``Kernel.block_with_derivatives`` and numpy's SVD for block ranks.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import scipy.linalg as sl
+
+from harness.geometry.pointsets import clustered, uniform
+from harness.geometry.tree import build_tree
+from harness.kernels import Exponential, Gaussian, Kernel, Matern, Matern32, Matern52
+from harness.solvers.hodlr import CompressionBreakdownError, HodlrFactorization, factorize
+from harness.solvers.hodlr.aca import aca_compiled, recompress
+from harness.solvers.hodlr.orth import thin_qr
+from harness.solvers.protocol import SymmetricFactorization
+
+TOLS = (1e-4, 1e-6, 1e-8, 1e-10)
+
+
+class Reference:
+    """Dense exact quantities of one problem (numpy Cholesky)."""
+
+    def __init__(self, points: np.ndarray, kernel: Kernel, rng: np.random.Generator) -> None:
+        self.points, self.kernel = points, kernel
+        self.sigma = kernel.covariance(points)
+        self.chol = np.linalg.cholesky(self.sigma)
+        self.logdet = 2.0 * float(np.sum(np.log(np.diag(self.chol))))
+        self.y = self.chol @ rng.standard_normal(points.shape[0])  # a draw from the model
+        self.alpha = sl.cho_solve((self.chol, True), self.y)
+        self.quad = float(self.y @ self.alpha)
+
+    def loglik(self, logdet: float, quad: float) -> float:
+        n = self.points.shape[0]
+        return -0.5 * quad - 0.5 * logdet - 0.5 * n * np.log(2 * np.pi)
+
+
+def _errors(ref: Reference, f: HodlrFactorization) -> tuple[float, float, float]:
+    x = f.solve(ref.y)
+    return (abs(f.logdet() - ref.logdet) / abs(ref.logdet),
+            float(np.linalg.norm(x - ref.alpha) / np.linalg.norm(ref.alpha)),
+            abs(float(ref.y @ x) - ref.quad) / ref.quad)
+
+
+KERNELS = {
+    "matern32": lambda ls: Matern32(variance=1.0, lengthscale=ls, nugget=1e-2),
+    "exponential": lambda ls: Exponential(variance=1.0, lengthscale=ls, nugget=1e-2),
+    "gaussian": lambda ls: Gaussian(variance=1.0, lengthscale=ls, nugget=1e-2),
+}
+
+
+@pytest.fixture(scope="module")
+def points_1500() -> np.ndarray:
+    return uniform(1500, 2, rng=np.random.default_rng(11))
+
+
+@pytest.mark.parametrize("family", sorted(KERNELS))
+@pytest.mark.parametrize("lengthscale", [0.05, 0.2])
+def test_errors_shrink_with_tolerance(points_1500: np.ndarray, family: str,
+                                      lengthscale: float) -> None:
+    ref = Reference(points_1500, KERNELS[family](lengthscale), np.random.default_rng(1))
+    errs = np.array([_errors(ref, factorize(points_1500, ref.kernel, None, tol=t, rng=0))
+                     for t in TOLS])  # rows: tol; cols: logdet, solve, quadratic form
+    floor = 1e-10  # round-off level of the dense reference itself (n = 1500)
+    for col, name in enumerate(("logdet", "solve", "quadratic form")):
+        e = np.maximum(errs[:, col], floor)
+        assert np.all(np.diff(e) <= 0), f"{name} error not shrinking with tol: {e}"
+        assert e[-1] <= max(1e-4 * e[0], floor), f"{name}: {e}"
+    # log det relative error of the order of the tolerance or below
+    assert np.all(errs[:, 0] <= 10 * np.array(TOLS)), errs[:, 0]
+
+
+def _check_1e8(n: int) -> None:
+    points = uniform(n, 2, rng=np.random.default_rng(5))
+    ref = Reference(points, Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2),
+                    np.random.default_rng(2))
+    f = factorize(points, ref.kernel, None, tol=1e-8, rng=0)
+    x = f.solve(ref.y)
+    rel_logdet = abs(f.logdet() - ref.logdet) / abs(ref.logdet)
+    dl = abs(ref.loglik(f.logdet(), float(ref.y @ x)) - ref.loglik(ref.logdet, ref.quad))
+    assert rel_logdet < 1e-8, rel_logdet
+    assert dl < 1e-2, dl
+
+
+def test_accuracy_tol_1e8_n4000() -> None:
+    _check_1e8(4000)
+
+
+@pytest.mark.slow
+def test_accuracy_tol_1e8_n8000() -> None:
+    _check_1e8(8000)
+
+
+def _power_norm(apply, n: int, rng: np.random.Generator, iters: int = 30) -> float:
+    """||A||_2 of a symmetric operator by power iteration."""
+    v = rng.standard_normal(n)
+    v /= np.linalg.norm(v)
+    lam = 0.0
+    for _ in range(iters):
+        w = apply(v)
+        lam = float(np.linalg.norm(w))
+        if lam == 0.0:
+            return 0.0
+        v = w / lam
+    return lam
+
+
+@pytest.fixture(scope="module")
+def problem_3000() -> tuple[Reference, HodlrFactorization]:
+    rng = np.random.default_rng(9)
+    points = clustered(3000, 2, rng=rng)
+    ref = Reference(points, Matern32(variance=2.0, lengthscale=(0.08, 0.15), nugget=1e-2), rng)
+    return ref, factorize(points, ref.kernel, None, tol=1e-6, rng=3)
+
+
+def test_factorization_error_of_order_tol(problem_3000) -> None:
+    ref, f = problem_3000
+    rng = np.random.default_rng(0)
+    n = ref.points.shape[0]
+    norm = _power_norm(lambda v: ref.sigma @ v, n, rng)
+    err_ww = _power_norm(lambda v: ref.sigma @ v - f.apply_sqrt(f.apply_sqrt_transpose(v)),
+                         n, rng) / norm
+    err_mv = _power_norm(lambda v: ref.sigma @ v - f.matvec(v), n, rng) / norm
+    assert err_ww < 10 * f.tol, err_ww
+    assert err_mv < 10 * f.tol, err_mv
+
+
+def test_square_root_consistency(problem_3000) -> None:
+    ref, f = problem_3000
+    b = np.random.default_rng(4).standard_normal((ref.points.shape[0], 3))
+    mv = f.matvec(b)
+    # W W' b = Sigma~ b (factor vs compressed blocks: independent code paths)
+    np.testing.assert_allclose(f.apply_sqrt(f.apply_sqrt_transpose(b)), mv,
+                               rtol=0, atol=1e-10 * np.abs(mv).max())
+    # W^-1 W b = b and Sigma~ Sigma~^-1 b = b
+    np.testing.assert_allclose(f.solve_sqrt(f.apply_sqrt(b)), b, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(f.matvec(f.solve(b)), b, rtol=0, atol=1e-9)
+    # b' Sigma~^-1 b = ||W^-1 b||^2
+    np.testing.assert_allclose(np.sum(b * f.solve(b), axis=0),
+                               np.sum(f.solve_sqrt(b) ** 2, axis=0), rtol=1e-10)
+    # vector and block inputs agree, shapes preserved
+    assert f.solve(b[:, 0]).shape == (ref.points.shape[0],)
+    np.testing.assert_allclose(f.solve(b[:, 0]), f.solve(b)[:, 0], rtol=1e-10, atol=0)
+
+
+def test_derivative_matvec_matches_dense(problem_3000) -> None:
+    ref, f = problem_3000
+    idx = np.arange(ref.points.shape[0])
+    _, derivs = ref.kernel.block_with_derivatives(ref.points, idx, idx)
+    b = np.random.default_rng(6).standard_normal((idx.size, 2))
+    assert f.kernel.n_params == 4  # log s2, log l_1, log l_2, log tau2
+    for i in range(f.kernel.n_params):
+        exact = derivs[i] @ b
+        got = f.derivative_matvec(i, b)
+        rel = np.linalg.norm(got - exact) / np.linalg.norm(exact)
+        assert rel < 10 * f.tol, (f.kernel.param_names[i], rel)
+    with pytest.raises(IndexError, match="out of range"):
+        f.derivative_matvec(4, b)
+
+
+def test_protocol_and_metadata(problem_3000) -> None:
+    ref, f = problem_3000
+    n = ref.points.shape[0]
+    assert isinstance(f, SymmetricFactorization)
+    assert f.n == n
+    assert 0 < f.nbytes < 8 * n * n
+    ranks = f.ranks
+    assert len(ranks) == f.tree.depth
+    assert all(r.max >= r.mean > 0 and r.blocks == 2 ** r.level for r in ranks)
+    # same seed, same factorization
+    g = factorize(ref.points, ref.kernel, None, tol=1e-6, rng=3)
+    assert g.logdet() == f.logdet()
+
+
+@pytest.mark.parametrize("kernel, d", [
+    (Matern(nu=0.8, lengthscale=0.2, nugget=1e-3), 2),   # numpy path (no compiled form)
+    (Matern52(lengthscale=0.3, nugget=1e-4), 1),
+    (Exponential(lengthscale=0.3, nugget=1e-3), 3),
+])
+def test_other_kernels_and_dimensions(kernel: Kernel, d: int) -> None:
+    points = uniform(700, d, rng=np.random.default_rng(8))
+    ref = Reference(points, kernel, np.random.default_rng(1))
+    f = factorize(points, kernel, None, tol=1e-8, leaf_size=64, rng=0)
+    rel_logdet, rel_solve, _ = _errors(ref, f)
+    assert rel_logdet < 1e-8
+    assert rel_solve < 1e-4
+
+
+def test_theta_overrides_kernel(points_1500: np.ndarray) -> None:
+    base = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
+    theta = np.log([2.0, 0.05, 1e-3])
+    ref = Reference(points_1500, base.with_theta(theta), np.random.default_rng(0))
+    f = factorize(points_1500, base, theta, tol=1e-8, rng=0)
+    assert f.kernel.variance == pytest.approx(2.0)
+    assert abs(f.logdet() - ref.logdet) / abs(ref.logdet) < 1e-8
+
+
+def test_breakdown_raises_named_error() -> None:
+    # smooth Gaussian kernel, tiny nugget: Sigma is numerically singular, and a loose
+    # tolerance leaves an indefinite compressed matrix
+    points = uniform(1500, 2, rng=np.random.default_rng(0))
+    with pytest.raises(CompressionBreakdownError, match=r"tree level \d+ of \d+") as info:
+        factorize(points, Gaussian(lengthscale=0.5, nugget=1e-8), None, tol=1e-1, rng=0)
+    assert isinstance(info.value, np.linalg.LinAlgError)
+    assert "tighter tol" in str(info.value) and "larger nugget" in str(info.value)
+    assert 0 <= info.value.level <= info.value.depth
+
+
+@pytest.mark.parametrize("tol", [0.0, 1.0, -1e-6, float("nan")])
+def test_bad_tolerance(tol: float) -> None:
+    with pytest.raises(ValueError, match="tol"):
+        factorize(np.zeros((10, 2)), Matern32(), None, tol=tol)
+
+
+def test_bad_vector_shape(problem_3000) -> None:
+    _, f = problem_3000
+    with pytest.raises(ValueError, match=r"expected an array of shape \(3000,\)"):
+        f.solve(np.zeros(10))
+
+
+# -- building blocks ---------------------------------------------------------------
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-7, 1e-10])
+def test_aca_touching_block_meets_tolerance(tol: float) -> None:
+    # the two halves of the root of a 2D tree touch along a line: the hard case for ACA
+    kernel = Matern32(lengthscale=0.1)
+    points = uniform(2400, 2, rng=np.random.default_rng(2))
+    tree = build_tree(points, leaf_size=128)
+    xs = kernel.scale_points(points[tree.perm])
+    mid = int(tree.bounds[1][1])
+    block = kernel.cross_covariance(points[tree.perm[:mid]], points[tree.perm[mid:]])
+    checks = np.random.default_rng(0).integers(0, mid, size=(8, 8))
+    a, b = aca_compiled(1, xs[:mid], xs[mid:], 0.0, 1.0, 0, 0.5 * tol, mid, checks)
+    low = recompress(a, b, tol=0.5 * tol)
+    err = np.linalg.norm(block - low.u @ low.v.T) / np.linalg.norm(block)
+    assert err <= 3 * tol, err  # the ACA half of the bound is an estimate (random rows)
+    s = np.linalg.svd(block, compute_uv=False)  # optimal rank for the same Frobenius error
+    tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])
+    optimal = int(np.count_nonzero(tail > tol * np.linalg.norm(s)))
+    assert low.rank <= 1.5 * optimal + 5, (low.rank, optimal)
+
+
+@pytest.mark.parametrize("decay", [0.0, 4.0, 12.0])
+def test_thin_qr(decay: float) -> None:
+    # well conditioned, badly scaled columns, and numerically rank-deficient inputs
+    rng = np.random.default_rng(1)
+    x = rng.standard_normal((500, 40)) @ np.diag(np.logspace(0, -decay, 40))
+    x[:, 5] = x[:, 3] * (1 + 1e-15) if decay > 10 else x[:, 5]
+    q, r = thin_qr(x)
+    np.testing.assert_allclose(q.T @ q, np.eye(40), atol=1e-12)
+    np.testing.assert_allclose(q @ r, x, atol=1e-13 * np.abs(x).max())
+    assert np.allclose(np.tril(r, -1), 0.0)

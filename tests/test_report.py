@@ -1,0 +1,157 @@
+"""The HTML report: self-contained, escaped, deterministic, robust; the run loader."""
+
+from __future__ import annotations
+
+import base64
+import json
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harness.analysis import RunDirError, load_run
+from harness.analysis.synthetic import write_synthetic_run
+from harness.report import render_report, write_report
+
+HOSTILE = "<script>alert(1)</script>"
+SMALL = dict(sizes=(500, 1000, 2000, 4000), tolerances=(1e-2, 1e-4, 1e-6), seeds=(0, 1),
+             probes=(16, 64), dense_max_n=2000)
+CHROMIUM = Path("/usr/bin/chromium")
+
+
+class _Collector(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.tags: list[str] = []
+        self.urls: list[tuple[str, str]] = []
+        self.images: list[str] = []
+
+    def handle_starttag(self, tag, attrs):
+        self.tags.append(tag)
+        for name, value in attrs:
+            if name in ("src", "href") and value is not None:
+                self.urls.append((name, value))
+                if tag == "img" and name == "src":
+                    self.images.append(value)
+
+
+@pytest.fixture(scope="module")
+def run_dir(tmp_path_factory):
+    return write_synthetic_run(tmp_path_factory.mktemp("report") / "run",
+                               rng=np.random.default_rng(4), case=HOSTILE, **SMALL)
+
+
+@pytest.fixture(scope="module")
+def report(run_dir):
+    path = write_report(run_dir)
+    return path, path.read_text(encoding="utf-8")
+
+
+def _parse(html: str) -> _Collector:
+    parser = _Collector()
+    parser.feed(html)
+    parser.close()
+    return parser
+
+
+def test_self_contained_without_scripts_or_external_urls(report):
+    _, html = report
+    parsed = _parse(html)
+    assert "script" not in parsed.tags
+    for name, value in parsed.urls:
+        assert not value.lower().startswith(("http://", "https://", "//")), (name, value)
+        assert value.startswith(("#", "data:")), (name, value)
+
+
+def test_user_strings_are_escaped(report):
+    _, html = report
+    assert HOSTILE not in html
+    assert "&lt;script&gt;alert(1)&lt;/script&gt;" in html
+
+
+def test_figures_are_embedded_and_non_empty(report):
+    _, html = report
+    images = _parse(html).images
+    assert len(images) >= 4
+    for uri in images:
+        header, payload = uri.split(",", 1)
+        assert header == "data:image/svg+xml;base64"
+        svg = base64.b64decode(payload)
+        assert b"<svg" in svg and len(svg) > 5000
+
+
+def test_sections_cautions_and_common_practice_note(report):
+    _, html = report
+    text = re.sub(r"\s+", " ", html)
+    for needle in ("Which tolerance is safe?", "loosest safe tolerance", "Fitted exponents",
+                   "Stochastic trace estimates", "licensed professional practice",
+                   "nothing about whether that model suits", "common practice", "Synthetic CPU",
+                   "LinAlgError", "beyond dense limit", "@media print"):
+        assert needle in text, needle
+
+
+def test_render_is_deterministic(run_dir, report):
+    _, first = report
+    assert render_report(load_run(run_dir)) == first
+
+
+def test_run_with_only_failures_renders_and_lists_them(tmp_path):
+    src = write_synthetic_run(tmp_path / "src", rng=np.random.default_rng(0), **SMALL)
+    frame = pd.read_csv(src / "results.csv")
+    frame["status"] = "failed"
+    frame["error_type"] = "MemoryError"
+    frame["error_message"] = "out of memory at n=" + frame["n"].astype(int).astype(str)
+    frame.to_csv(src / "results.csv", index=False)
+    (src / "timings.csv").unlink()
+    html = write_report(src, out=tmp_path / "only_failures.html").read_text()
+    _parse(html)
+    assert "MemoryError" in html and "out of memory at n=4000" in html
+    assert "No compressed-solver task finished" in html
+    assert "timings.csv not found" in html
+
+
+def test_missing_columns_still_render(tmp_path):
+    run = tmp_path / "thin"
+    run.mkdir()
+    pd.DataFrame({"key": ["a", "b", "c"], "solver": ["s"] * 3, "n": [100, 200, 400],
+                  "tol": [1e-6] * 3, "status": ["ok"] * 3, "t_total": [1.0, 2.1, 4.3]}
+                 ).to_csv(run / "results.csv", index=False)
+    (run / "run.json").write_text(json.dumps({"schema_version": 1}))
+    html = write_report(run).read_text()
+    assert "lacks" in html and "Fitted exponents" in html
+
+
+def test_loader_names_the_bad_file(tmp_path):
+    run = tmp_path / "bad"
+    run.mkdir()
+    with pytest.raises(RunDirError, match="results.csv"):
+        load_run(run)
+    (run / "results.csv").write_text("key,status\na,ok\n")
+    with pytest.raises(RunDirError, match="run.json"):
+        load_run(run)
+    (run / "run.json").write_text("{not json")
+    with pytest.raises(RunDirError, match=r"run\.json: not valid JSON"):
+        load_run(run)
+    (run / "run.json").write_text(json.dumps({"schema_version": 99}))
+    with pytest.raises(RunDirError, match="newer"):
+        load_run(run)
+
+
+@pytest.mark.skipif(not CHROMIUM.exists() or shutil.which("chromium") is None,
+                    reason="headless screenshot needs /usr/bin/chromium "
+                           "(Debian: apt-get install chromium)")
+def test_headless_chromium_screenshot(report, tmp_path):
+    path, _ = report
+    png = tmp_path / "report.png"
+    cmd = [str(CHROMIUM), "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+           "--no-first-run", "--disable-background-networking", "--disable-component-update",
+           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}",
+           f"--screenshot={png}", "--window-size=1280,2000", path.resolve().as_uri()]
+    subprocess.run(cmd, check=True, capture_output=True, timeout=120)
+    data = png.read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 20_000
