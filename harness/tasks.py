@@ -209,7 +209,8 @@ class Task:
     def label(self) -> str:
         """A readable name: ``pointset-n-d/kernel/solver@tol/mean/seed``."""
         tol = "exact" if self.tol is None else f"{self.tol:.0e}"
-        return (f"{self.pointset.name}-n{self.n}-d{self.d}/{self.kernel}{'-sep' if self.separable else ''}/"
+        kernel = self.kernel + ("-sep" if self.separable else "")
+        return (f"{self.pointset.name}-n{self.n}-d{self.d}/{kernel}/"
                 f"{self.solver}@{tol}/{self.mean}{'-reml' if self.reml else ''}/s{self.seed}")
 
     def data_identity(self) -> dict[str, Any]:
@@ -223,4 +224,4 @@ class Task:
         data_id = int(_digest(self.data_identity())[:8], 16)
         root = np.random.SeedSequence(self.seed, spawn_key=(data_id,))
         return {name: np.random.default_rng(child)
-                for name, child in zip(STREAMS, root.spawn(len(STREAMS)))}
+                for name, child in zip(STREAMS, root.spawn(len(STREAMS)), strict=True)}

@@ -74,7 +74,7 @@ def default_solver_resolver(name: str) -> tuple[str, str]:
     from harness.solvers.registry import resolve_solver
 
     record = resolve_solver(name)
-    return record.name, str(record.version)
+    return record.name, "unknown" if record.version is None else str(record.version)
 
 
 def parse_toml(text: str, file: str) -> dict[str, Any]:

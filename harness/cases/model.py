@@ -54,8 +54,9 @@ class Case:
     """A validated case grid; ``tasks()`` is the cross product.
 
     The product runs over point sets x sizes x dimensions x kernels x mean models x
-    solvers x tolerances x seeds; sizes above a solver's ``max_n`` are left out for it. A tensor-grid point set takes only the sizes that are
-    perfect d-th powers (validation rejects the others).
+    solvers x tolerances x seeds; sizes above a solver's ``max_n`` are left out for it.
+    A tensor-grid point set takes only sizes that are perfect d-th powers (validation
+    rejects the others).
     """
 
     name: str

@@ -24,8 +24,8 @@ def parse_bytes(value: int | float | str) -> int:
     unit = match.group(2).lower() if match else None
     if match is None or unit not in _UNITS:
         raise ValueError(
-            f"expected a size such as '4 GiB' or '512 MB' (units: {', '.join(k for k in _UNITS if k)}), "
-            f"got {value!r}")
+            f"expected a size such as '4 GiB' or '512 MB' (units: "
+            f"{', '.join(k for k in _UNITS if k)}), got {value!r}")
     size = int(float(match.group(1)) * _UNITS[unit])
     if size <= 0:
         raise ValueError(f"expected a positive size, got {value!r}")

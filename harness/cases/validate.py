@@ -118,7 +118,8 @@ class Checker:
         if not self._check(full, value, "a number", ok):
             return default
         if not math.isfinite(value) or (positive and value <= 0):
-            self.problem(full, f"expected a finite number{' > 0' if positive else ''}, got {value!r}")
+            bound = " > 0" if positive else ""
+            self.problem(full, f"expected a finite number{bound}, got {value!r}")
             return default
         return float(value)
 

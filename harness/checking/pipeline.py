@@ -417,7 +417,7 @@ def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: flo
     """Fisher scoring with the compressed solver at ``tol`` from the reference estimate."""
     engine = CompressedEngine(x, y, template, mean=options.mean, tol=tol, seed=options.seed,
                               leaf_size=options.leaf_size)
-    refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds)
+    refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds, step_tol_se=1e-4)
     delta = refit.theta - fit.theta
     shift = delta / log_se
     micro = None

@@ -1,6 +1,11 @@
 """Accuracy metrics of a solver under test against an exact reference (DESIGN section 4)."""
 
-from harness.metrics.operator import FactorizationError, NormEstimate, factorization_error, power_norm
+from harness.metrics.operator import (
+    FactorizationError,
+    NormEstimate,
+    factorization_error,
+    power_norm,
+)
 from harness.metrics.prediction import KrigingErrors, SolveErrors, kriging_errors, solve_errors
 from harness.metrics.scalar import ScalarError, scalar_error
 from harness.metrics.score import (

@@ -9,9 +9,9 @@ from harness.runner.serial import SerialBackend
 
 def make_backend(*, workers: int | None = None, dask_local: int | None = None,
                  scheduler: str | None = None) -> Backend:
-    """Serial (no option, or ``workers == 1``... see below), processes or Dask.
+    """The backend the command-line options ask for.
 
-    ``workers`` > 1 gives local processes, ``workers`` == 1 or nothing runs serially;
+    ``workers`` > 1 gives local processes; ``workers`` == 1 or nothing runs serially;
     ``dask_local`` starts a LocalCluster with that many single-threaded workers;
     ``scheduler`` joins an existing Dask scheduler. At most one may be given.
     """

@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import errno
 import json
-import os
 import shutil
 import warnings
 from collections.abc import Iterable, Mapping

@@ -22,7 +22,8 @@ so only the b-rows of a vector change under W_p, W_p^-1 and their transposes, an
 
 The bases of all coarser levels are divided by W_l as level l is factored, bottom up
 (the paper's Algorithm 2); they live in one array, ``basis`` (n x sum of max ranks),
-whose level-l columns hold Q_a / Q_b once level l is done. I - G'G fails to be
+whose level-l columns hold U_a / U_b as divided by the finer factors once level l
+is done; Q = U R^-1 is applied through the small triangular R (``NodeFactor``). I - G'G fails to be
 positive definite exactly when the compressed matrix is not: that is reported as
 ``CompressionBreakdownError`` with the level and node.
 """
@@ -56,11 +57,30 @@ class CompressionBreakdownError(np.linalg.LinAlgError):
 
 @dataclass(frozen=True)
 class NodeFactor:
-    """W_p at one internal node: rank r, G = R_a R_b' and L_22 = chol(I - G'G)."""
+    """W_p at one internal node: rank r, G = R_a R_b', L_22 = chol(I - G'G) and the
+    triangular factors R_a, R_b with Q_a = U_a R_a^-1 (the stored basis columns hold
+    U_a, U_b; Q is never formed unless the Gram matrix was too ill conditioned, in
+    which case the columns hold Q and R is the identity)."""
 
     rank: int
     g: np.ndarray
     l22: np.ndarray
+    ra: np.ndarray
+    rb: np.ndarray
+
+    @property
+    def nbytes(self) -> int:
+        return int(self.g.nbytes + self.l22.nbytes + self.ra.nbytes + self.rb.nbytes)
+
+
+def _qt(u: np.ndarray, r: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """Q' x = R^-T (U' x)."""
+    return solve_triangular(r, u.T @ x, trans="T", lower=False, check_finite=False)
+
+
+def _q(u: np.ndarray, r: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """Q t = U (R^-1 t)."""
+    return u @ solve_triangular(r, t, lower=False, check_finite=False)
 
 
 @dataclass(frozen=True)
@@ -77,7 +97,7 @@ class SymmetricFactor:
     @property
     def nbytes(self) -> int:
         return int(self.basis.nbytes + sum(c.nbytes for c in self.leaf_chol)
-                   + sum(f.g.nbytes + f.l22.nbytes for lv in self.nodes for f in lv))
+                   + sum(f.nbytes for lv in self.nodes for f in lv))
 
     def _node_views(self, level: int, j: int) -> tuple[slice, slice, np.ndarray, np.ndarray]:
         b = self.tree.bounds[level + 1]
@@ -97,9 +117,9 @@ class SymmetricFactor:
         for level in range(self.tree.depth):
             for j, f in enumerate(self.nodes[level]):
                 if f.rank:
-                    ia, ib, qa, qb = self._node_views(level, j)
-                    ta, tb = qa.T @ y[ia], qb.T @ y[ib]
-                    y[ib] += qb @ (f.g.T @ ta + f.l22 @ tb - tb)
+                    ia, ib, ua, ub = self._node_views(level, j)
+                    ta, tb = _qt(ua, f.ra, y[ia]), _qt(ub, f.rb, y[ib])
+                    y[ib] += _q(ub, f.rb, f.g.T @ ta + f.l22 @ tb - tb)
         for s, e, c in self._leaves():
             y[s:e] = c @ y[s:e]
         return y
@@ -112,10 +132,10 @@ class SymmetricFactor:
         for level in range(self.tree.depth - 1, -1, -1):
             for j, f in enumerate(self.nodes[level]):
                 if f.rank:
-                    ia, ib, qa, qb = self._node_views(level, j)
-                    tb = qb.T @ y[ib]
-                    y[ia] += qa @ (f.g @ tb)
-                    y[ib] += qb @ (f.l22.T @ tb - tb)
+                    ia, ib, ua, ub = self._node_views(level, j)
+                    tb = _qt(ub, f.rb, y[ib])
+                    y[ia] += _q(ua, f.ra, f.g @ tb)
+                    y[ib] += _q(ub, f.rb, f.l22.T @ tb - tb)
         return y
 
     def solve(self, x: np.ndarray) -> np.ndarray:
@@ -126,8 +146,8 @@ class SymmetricFactor:
         for level in range(self.tree.depth - 1, -1, -1):
             for j, f in enumerate(self.nodes[level]):
                 if f.rank:
-                    ia, ib, qa, qb = self._node_views(level, j)
-                    _inverse_update(f, qa, qb, y[ia], y[ib])
+                    ia, ib, ua, ub = self._node_views(level, j)
+                    _inverse_update(f, ua, ub, y[ia], y[ib])
         return y
 
     def solve_transpose(self, x: np.ndarray) -> np.ndarray:
@@ -136,22 +156,48 @@ class SymmetricFactor:
         for level in range(self.tree.depth):
             for j, f in enumerate(self.nodes[level]):
                 if f.rank:
-                    ia, ib, qa, qb = self._node_views(level, j)
-                    tb = qb.T @ y[ib]
+                    ia, ib, ua, ub = self._node_views(level, j)
+                    tb = _qt(ub, f.rb, y[ib])
                     w = solve_triangular(f.l22, tb, lower=True, trans="T", check_finite=False)
-                    y[ia] -= qa @ (f.g @ w)
-                    y[ib] -= qb @ (tb - w)
+                    y[ia] -= _q(ua, f.ra, f.g @ w)
+                    y[ib] -= _q(ub, f.rb, tb - w)
         for s, e, c in self._leaves():
             y[s:e] = solve_triangular(c, y[s:e], lower=True, trans="T", check_finite=False)
         return y
 
 
-def _inverse_update(f: NodeFactor, qa: np.ndarray, qb: np.ndarray, xa: np.ndarray,
+def _inverse_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,
                     xb: np.ndarray) -> None:
     """x <- W_p^-1 x in place: x_b -= Q_b (t_b - L_22^-1 (t_b - G' t_a)), t = Q' x."""
-    ta, tb = qa.T @ xa, qb.T @ xb
+    ta, tb = _qt(ua, f.ra, xa), _qt(ub, f.rb, xb)
     w = solve_triangular(f.l22, tb - f.g.T @ ta, lower=True, check_finite=False)
-    xb -= qb @ (tb - w)
+    xb -= _q(ub, f.rb, tb - w)
+
+
+def implicit_rcond(tol: float) -> float:
+    """Smallest rcond of the scaled Gram factor for which Q = U R^-1 is kept implicit.
+
+    Q'Q - I ~ eps cond^2 (Cholesky QR) perturbs W_p W_p' by about that much, so it is
+    held to tol / 100: rcond >= sqrt(100 eps / tol), at most 0.1.
+    """
+    return min(0.1, float(np.sqrt(100.0 * np.finfo(float).eps / tol)))
+
+
+def _triangular_factor(u: np.ndarray, min_rcond: float
+                       ) -> tuple[np.ndarray, np.ndarray | None]:
+    """R with U = Q R, Q = U R^-1 (second element None), from the column-scaled Gram
+    matrix; when that is too ill conditioned (rcond < ``min_rcond``) R and the explicit
+    Q of ``thin_qr``."""
+    gram = u.T @ u
+    d = np.sqrt(np.diag(gram))
+    if np.all(d > 0):
+        r1, info = lapack.dpotrf(gram / np.outer(d, d), lower=0, clean=1)
+        if info == 0:
+            rcond, info = lapack.dtrcon(r1, norm="1", uplo="U")
+            if info == 0 and rcond >= min_rcond:
+                return r1 * d, None
+    q, r = thin_qr(u)
+    return r, q
 
 
 def _chol_lower(a: np.ndarray) -> tuple[np.ndarray, int]:
@@ -159,8 +205,11 @@ def _chol_lower(a: np.ndarray) -> tuple[np.ndarray, int]:
     return c, int(info)
 
 
-def factor_symmetric(hodlr: HodlrMatrix, *, threads: int) -> SymmetricFactor:
+def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> SymmetricFactor:
     """W W' = K for the HODLR matrix K (Algorithm 2 of arXiv 1405.0223, bottom up).
+
+    ``tol`` (the compression tolerance) sets how orthonormal the implicit Q factors
+    must be (``implicit_rcond``).
 
     Raises
     ------
@@ -169,6 +218,7 @@ def factor_symmetric(hodlr: HodlrMatrix, *, threads: int) -> SymmetricFactor:
     """
     tree = hodlr.tree
     depth, n = tree.depth, tree.n
+    min_rcond = implicit_rcond(tol)
     max_ranks = [max((p.rank for p in level), default=0) for level in hodlr.pairs]
     offsets = np.concatenate([[0], np.cumsum(max_ranks, dtype=np.int64)]).astype(np.int64)
     basis = np.zeros((n, int(offsets[-1])))
@@ -197,9 +247,10 @@ def factor_symmetric(hodlr: HodlrMatrix, *, threads: int) -> SymmetricFactor:
         s, mid, e = int(b[2 * j]), int(b[2 * j + 1]), int(b[2 * j + 2])
         c0 = int(offsets[level])
         if rank == 0:
-            return NodeFactor(0, np.zeros((0, 0)), np.zeros((0, 0))), 0.0
-        qa, ra = thin_qr(basis[s:mid, c0:c0 + rank])
-        qb, rb = thin_qr(basis[mid:e, c0:c0 + rank])
+            empty = np.zeros((0, 0))
+            return NodeFactor(0, empty, empty, empty, empty), 0.0
+        ua, ub = basis[s:mid, c0:c0 + rank], basis[mid:e, c0:c0 + rank]
+        (ra, qa), (rb, qb) = _triangular_factor(ua, min_rcond), _triangular_factor(ub, min_rcond)
         g = ra @ rb.T
         l22, info = _chol_lower(np.eye(rank) - g.T @ g)
         if info != 0:
@@ -208,11 +259,14 @@ def factor_symmetric(hodlr: HodlrMatrix, *, threads: int) -> SymmetricFactor:
                 level=level, block=j, rows=(s, e), depth=depth,
                 detail=f"the scaled off-diagonal coupling has 2-norm {norm:.6g} >= 1 "
                        f"(I - G'G not positive definite, dpotrf info={info})")
-        basis[s:mid, c0:c0 + rank] = qa
-        basis[mid:e, c0:c0 + rank] = qb
-        f = NodeFactor(rank, g, l22)
+        eye = np.eye(rank)
+        if qa is not None:  # explicit Q stored: the basis columns are Q, R_a acts as I
+            ua[...] = qa
+        if qb is not None:
+            ub[...] = qb
+        f = NodeFactor(rank, g, l22, eye if qa is not None else ra, eye if qb is not None else rb)
         if c0:
-            _inverse_update(f, qa, qb, basis[s:mid, :c0], basis[mid:e, :c0])
+            _inverse_update(f, ua, ub, basis[s:mid, :c0], basis[mid:e, :c0])
         return f, 2.0 * float(np.sum(np.log(np.diag(l22))))
 
     with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:

@@ -195,7 +195,7 @@ def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = Non
         sigma = build_hodlr(KernelEntries(kernel=model, points=points_tree), tree, tol=tol,
                             rng=build_rng, threads=int(threads))
         t2 = time.perf_counter()
-        factor = factor_symmetric(sigma, threads=int(threads))
+        factor = factor_symmetric(sigma, tol=float(tol), threads=int(threads))
     t3 = time.perf_counter()
     out = HodlrFactorization(kernel=model, tol=float(tol), tree=tree, points_tree=points_tree,
                              sigma=sigma, factor=factor, threads=int(threads),
