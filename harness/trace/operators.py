@@ -86,15 +86,15 @@ class ExplicitOperators:
 
     def apply_all(self, z: np.ndarray) -> np.ndarray:
         self.usage.matvecs += self.count * z.shape[1]
-        return np.einsum("pij,jk->pik", self.matrices, z)
+        return self.matrices @ z
 
     def apply_each(self, blocks: np.ndarray) -> np.ndarray:
         self.usage.matvecs += blocks.shape[0] * blocks.shape[2]
-        return np.einsum("pij,pjk->pik", self.matrices, blocks)
+        return self.matrices @ blocks
 
     def apply_all_adjoint(self, z: np.ndarray) -> np.ndarray:
         self.usage.matvecs += self.count * z.shape[1]
-        return np.einsum("pji,jk->pik", self.matrices, z)
+        return self.matrices.transpose(0, 2, 1) @ z
 
 
 class FactorizationOperators:
