@@ -25,9 +25,9 @@ from harness.kernels import make_kernel
 @pytest.fixture(scope="module")
 def problem():
     rng = np.random.default_rng(7)
-    x = rng.uniform(0, 10, (150, 2))
+    x = rng.uniform(0, 10, (120, 2))
     truth = make_kernel("matern32", {"variance": 1.5, "lengthscale": 2.0, "nugget": 0.1})
-    y = DenseCholesky(x, truth).apply_sqrt(rng.standard_normal(150))
+    y = DenseCholesky(x, truth).apply_sqrt(rng.standard_normal(120))
     template = make_kernel("matern32", {"lengthscale": 1.0, "nugget": 1.0})
     scale = data_scale(x, y, mean="zero")
     fit = fit_mle(DenseEngine(x, y, template, mean="zero"), template,
@@ -67,7 +67,7 @@ def test_fisher_scoring_reaches_the_same_maximum(problem):
     polished = fisher_scoring(engine, template, start, bounds=default_bounds(template, scale))
     assert abs(polished.loglik - fit.loglik) < 1e-4
     se = standard_errors(fit.kernel, polished.fisher).log_se
-    assert np.all(np.abs(polished.theta - fit.theta) / se < 1e-2)
+    assert np.all(np.abs(polished.theta - fit.theta) / se < 5e-2)
 
 
 def test_microergodic_se_by_delta_method(problem):

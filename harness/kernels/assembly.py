@@ -102,7 +102,7 @@ FAMILY_FUNCTIONS = {
 }
 
 
-@numba.njit(parallel=True, cache=True, fastmath=True)
+@numba.njit(parallel=True, fastmath=True)
 def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
                      scale: float, out: np.ndarray) -> None:
     """out[i, j] = scale * rho(||xs_i - ys_j||) for pre-scaled coordinates (x / l).
@@ -120,7 +120,7 @@ def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
             out[i, j] = scale * rho(q, shape)
 
 
-@numba.njit(parallel=True, cache=True, fastmath=True)
+@numba.njit(parallel=True, fastmath=True)
 def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget: float,
                          out: np.ndarray) -> None:
     """Lower triangle (i >= j) of scale * R + nugget * I, in place.
@@ -146,7 +146,7 @@ def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget
             out[j, j] += nugget
 
 
-@numba.njit(parallel=True, cache=True, fastmath=True)
+@numba.njit(parallel=True, fastmath=True)
 def fill_with_derivatives(rho_slope, xs: np.ndarray, ys: np.ndarray, shape: float,
                           scale: float, isotropic: bool, out: np.ndarray,
                           derivs: np.ndarray) -> None:

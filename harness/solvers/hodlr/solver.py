@@ -10,7 +10,8 @@ Sigma~ = W_o W_o' in the caller's order.
 
 Threads: BLAS is held to one thread inside every call (the dense updates are small,
 one BLAS thread per worker was 4x faster than multithreaded BLAS here) and the work
-is spread over ``threads`` worker threads and numba's parallel loops.
+(blocks to compress, largest first; leaves; the nodes of a level) is spread over
+``threads`` worker threads; the compiled kernels release the GIL.
 """
 
 from __future__ import annotations
