@@ -254,3 +254,25 @@ def test_thin_qr(decay: float) -> None:
     np.testing.assert_allclose(q.T @ q, np.eye(40), atol=1e-12)
     np.testing.assert_allclose(q @ r, x, atol=1e-13 * np.abs(x).max())
     assert np.allclose(np.tril(r, -1), 0.0)
+
+
+@pytest.mark.parametrize("tol", [1e-5, 1e-8])
+def test_split_and_merge_meets_tolerance(monkeypatch: pytest.MonkeyPatch, tol: float) -> None:
+    # large blocks are compressed by quarters and merged; force two split levels on a
+    # 2400 x 2400 touching block and compare with the dense block (numpy)
+    import harness.solvers.hodlr.entries as entries_module
+
+    monkeypatch.setattr(entries_module, "SPLIT_MIN", 1200)
+    kernel = Matern32(lengthscale=0.1)
+    points = uniform(4800, 2, rng=np.random.default_rng(4))
+    tree = build_tree(points, leaf_size=128)
+    pts = points[tree.perm]
+    entries = entries_module.KernelEntries(kernel=kernel, points=pts)
+    checks = np.random.default_rng(0).integers(0, 2400, size=(8, 8))
+    low = entries.off_diagonal((0, 2400), (2400, 4800), entries.scaled, tol=tol, checks=checks)
+    block = kernel.cross_covariance(pts[:2400], pts[2400:])
+    err = np.linalg.norm(block - low.u @ low.v.T) / np.linalg.norm(block)
+    assert err <= tol, err
+    s = np.linalg.svd(block, compute_uv=False)
+    tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])
+    assert low.rank <= 1.5 * np.count_nonzero(tail > tol * np.linalg.norm(s)) + 5

@@ -183,7 +183,7 @@ def hutchpp(operators: OperatorFamily, *, probes: int = 64,
     q = np.stack([np.linalg.qr(block, mode="reduced")[0] for block in a_s])
     a_q = operators.apply_each(q)
     deterministic = np.einsum("pnk,pnk->p", q, a_q)              # tr(Q' A Q)
-    g_perp = g[None] - q @ (q.transpose(0, 2, 1) @ g[None])      # (I - QQ') G
+    g_perp = np.stack([g - q_i @ (q_i.T @ g) for q_i in q])      # (I - QQ') G
     a_g = operators.apply_each(g_perp)
     samples = np.einsum("pnk,pnk->pk", g_perp, a_g)              # g' R g, R = P A P
     residual, stderr = _mean_and_stderr(samples)

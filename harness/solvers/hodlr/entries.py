@@ -70,11 +70,12 @@ class KernelEntries:
 
         Half the tolerance goes to ACA. The other half goes to the recompression, or,
         for blocks of at least ``SPLIT_MIN`` rows + columns (compiled kernels), to the
-        merges of their quarters: tol / 4 for the last merge, tol / 8 for the merges
-        one split down, and so on, so the truncations total at most tol / 2.
+        merges of their quarters: 0.4 tol for the last merge, 0.05 tol for the merges
+        one split down, half that one further down, and so on, so the truncations
+        total at most tol / 2.
         """
         if self.kernel.compiled and (rows[1] - rows[0]) + (cols[1] - cols[0]) >= SPLIT_MIN:
-            return self._split(rows, cols, scaled, tol=tol, budget=0.25 * tol, checks=checks)
+            return self._split(rows, cols, scaled, tol=tol, budget=0.4 * tol, checks=checks)
         a, b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks)
         return recompress(a, b, tol=0.5 * tol)
 
@@ -88,8 +89,8 @@ class KernelEntries:
             for t, cc in enumerate(col_parts):
                 sub_checks = checks % (rr[1] - rr[0])
                 if (rr[1] - rr[0]) + (cc[1] - cc[0]) >= SPLIT_MIN:
-                    low = self._split(rr, cc, scaled, tol=tol, budget=0.5 * budget,
-                                      checks=sub_checks)
+                    inner = 0.05 * tol if budget > 0.05 * tol else 0.5 * budget
+                    low = self._split(rr, cc, scaled, tol=tol, budget=inner, checks=sub_checks)
                     quarters[s, t] = (low.u, low.v)
                 else:
                     a, b = self._aca(rr, cc, scaled, tol=0.5 * tol, checks=sub_checks)
