@@ -16,7 +16,9 @@ from collections.abc import Sequence
 from harness import __version__
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
-VERBS: tuple[str, ...] = ("check", "demo", "evaluate", "run", "cases", "report", "compare", "export")
+VERBS: tuple[str, ...] = (
+    "check", "demo", "evaluate", "run", "cases", "report", "compare", "export",
+)
 
 EXIT_OK = 0
 EXIT_FINDING = 1

@@ -13,9 +13,9 @@ import numpy as np
 
 from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.datafile import DataFileError, load_observations
+from harness.evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 from harness.exact import MEAN_MODELS
 from harness.kernels import KERNELS, KernelParameterError
-from harness.evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -72,9 +72,11 @@ def _summary(result: dict[str, Any]) -> str:
         lines.append("  score       " + ", ".join(f"{k} = {v:.6g}"
                                                   for k, v in result["score"].items()))
     if result.get("se"):
-        lines.append("  SE (log)    " + ", ".join(f"{k} = {v:.4g}" for k, v in result["se"].items()))
+        lines.append("  SE (log)    " + ", ".join(f"{k} = {v:.4g}"
+                                                  for k, v in result["se"].items()))
     if result.get("certificate") is not None:
-        lines.append(f"  certificate {result['certificate']:.3g} (LAPACK DPOT01 ratio; passes < 30)")
+        lines.append(f"  certificate {result['certificate']:.3g} "
+                     "(LAPACK DPOT01 ratio; passes < 30)")
     phases = ", ".join(f"{k[8:]} {v:.3f}s" for k, v in result.items()
                        if k.startswith("seconds_"))
     lines.append(f"  time        {result['seconds']:.3f}s ({phases})")
@@ -111,11 +113,11 @@ def run(args: argparse.Namespace) -> int:
         "mean": args.mean, "reml": bool(args.reml), "separable": bool(args.separable),
         "loglik": outcome.loglik, "logdet": outcome.logdet, "quadratic": outcome.quadratic,
         "beta": [float(b) for b in outcome.beta],
-        "score": ({name: float(v) for name, v in zip(kernel.param_names, outcome.score)}
+        "score": (dict(zip(kernel.param_names, map(float, outcome.score), strict=True))
                   if outcome.score is not None else None),
         "fisher": outcome.fisher.tolist() if outcome.fisher is not None else None,
-        "se": ({name: float(v) for name, v in zip(kernel.param_names,
-                                                   np.sqrt(np.diag(np.linalg.inv(outcome.fisher))))}
+        "se": (dict(zip(kernel.param_names,
+                        map(float, np.sqrt(np.diag(np.linalg.inv(outcome.fisher)))), strict=True))
                if outcome.fisher is not None else None),
         "certificate": _finite_or_none(outcome.certificate),
     }

@@ -12,7 +12,8 @@ class ParamSyntaxError(ValueError):
 
 
 def parse_params(items: Sequence[str]) -> dict[str, float | list[float]]:
-    """``["variance=1", "lengthscale=0.1,0.3"]`` -> ``{"variance": 1.0, "lengthscale": [0.1, 0.3]}``."""
+    """Name-value pairs to numbers: ``["variance=1", "lengthscale=0.1,0.3"]`` becomes
+    ``{"variance": 1.0, "lengthscale": [0.1, 0.3]}``."""
     params: dict[str, float | list[float]] = {}
     for item in items:
         name, sep, text = item.partition("=")

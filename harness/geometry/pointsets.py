@@ -86,7 +86,8 @@ def tensor_grid(shape: Sequence[int], *, extent: Sequence[float] | None = None) 
     if not 1 <= len(shape) <= 3 or min(shape) < 1:
         raise ValueError(f"shape must have 1 to 3 positive sizes, got {shape!r}")
     extent = tuple(extent) if extent is not None else (1.0,) * len(shape)
-    axes = [np.linspace(0.0, e, s) if s > 1 else np.zeros(1) for s, e in zip(shape, extent)]
+    axes = [np.linspace(0.0, e, s) if s > 1 else np.zeros(1)
+            for s, e in zip(shape, extent, strict=True)]
     return np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(shape))
 
 

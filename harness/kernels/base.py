@@ -45,7 +45,8 @@ class KernelParameterError(ValueError):
 def _as_lengthscale(value: float | Sequence[float]) -> tuple[float, ...]:
     values = (value,) if np.isscalar(value) else tuple(value)  # type: ignore[arg-type]
     if len(values) == 0:
-        raise KernelParameterError("lengthscale: expected one value or one per coordinate, got none")
+        raise KernelParameterError(
+            "lengthscale: expected one value or one per coordinate, got none")
     return tuple(float(v) for v in values)
 
 
@@ -79,7 +80,8 @@ class Kernel:
         object.__setattr__(self, "variance", float(self.variance))
         object.__setattr__(self, "nugget", float(self.nugget))
         if not (math.isfinite(self.variance) and self.variance > 0):
-            raise KernelParameterError(f"variance must be a finite number > 0, got {self.variance!r}")
+            raise KernelParameterError(
+                f"variance must be a finite number > 0, got {self.variance!r}")
         for k, ls in enumerate(self.lengthscale, start=1):
             if not (math.isfinite(ls) and ls > 0):
                 which = "lengthscale" if self.isotropic else f"lengthscale[{k}]"
@@ -139,7 +141,8 @@ class Kernel:
         theta = np.asarray(theta, dtype=float)
         if theta.shape != (self.n_params,):
             raise KernelParameterError(
-                f"theta: expected {self.n_params} values {self.param_names}, got shape {theta.shape}"
+                f"theta: expected {self.n_params} values {self.param_names}, "
+                f"got shape {theta.shape}"
             )
         values = np.exp(theta)
         k = len(self.lengthscale)
@@ -262,7 +265,8 @@ class Kernel:
         shape = "".join(f", {k}={v:g}" for k, v in self.shape_params.items())
         ls = (f"{self.lengthscale[0]:g}" if self.isotropic
               else "(" + ", ".join(f"{v:g}" for v in self.lengthscale) + ")")
-        return f"{self.family}(variance={self.variance:g}, lengthscale={ls}, nugget={self.nugget:g}{shape})"
+        return (f"{self.family}(variance={self.variance:g}, lengthscale={ls}, "
+                f"nugget={self.nugget:g}{shape})")
 
 
 @dataclass(frozen=True)

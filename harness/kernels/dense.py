@@ -58,8 +58,8 @@ def assemble_lower(kernel: Kernel, points: np.ndarray, *, out: np.ndarray | None
     elif out.shape != (n, n) or not out.flags.f_contiguous or out.dtype != np.float64:
         raise ValueError(f"out must be a Fortran-ordered float64 array of shape {(n, n)}")
     if getattr(kernel, "compiled", False):
-        fill_lower_symmetric(FAMILY_FUNCTIONS[kernel.family][0], kernel.scale_points(points), kernel.shape_value,
-                             kernel.variance, kernel.nugget, out)
+        fill_lower_symmetric(FAMILY_FUNCTIONS[kernel.family][0], kernel.scale_points(points),
+                             kernel.shape_value, kernel.variance, kernel.nugget, out)
         return out
     idx = np.arange(n)
     for j0 in range(0, n, _COLUMN_BLOCK):

@@ -39,7 +39,8 @@ def matern32(r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def matern52(r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Matern 5/2 (R&W eq. 4.17): a = sqrt(5) r, rho = (1 + a + a^2/3) e^-a; s = a^2 (1 + a) e^-a / 3."""
+    """Matern 5/2 (R&W eq. 4.17): a = sqrt(5) r, rho = (1 + a + a^2/3) e^-a;
+    s = a^2 (1 + a) e^-a / 3."""
     a = SQRT5 * r
     e = np.exp(-a)
     return (1.0 + a + a * a / 3.0) * e, a * a * (1.0 + a) * e / 3.0
@@ -53,7 +54,8 @@ def gaussian(r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
 
 
 def rational_quadratic(r: np.ndarray, alpha: float) -> tuple[np.ndarray, np.ndarray]:
-    """Rational quadratic (R&W eq. 4.19): rho = (1 + r^2/(2 alpha))^-alpha; s = r^2 (1 + r^2/(2 alpha))^(-alpha-1)."""
+    """Rational quadratic (R&W eq. 4.19): rho = (1 + r^2/(2 alpha))^-alpha;
+    s = r^2 (1 + r^2/(2 alpha))^(-alpha-1)."""
     base = 1.0 + (r * r) / (2.0 * alpha)
     rho = base ** (-alpha)
     return rho, (r * r) * rho / base
