@@ -13,9 +13,17 @@ import scipy.linalg
 import scipy.stats
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+from threadpoolctl import threadpool_limits
 
 from harness.kernels import Exponential, Matern32, Matern52
 from harness.likelihood import ExactTraceSizeError, evaluate_likelihood, kriging
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    """Small products on a shared 2-core machine: multithreaded BLAS only adds overhead."""
+    with threadpool_limits(1):
+        yield
 
 
 class NumpyCholesky:

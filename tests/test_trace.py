@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import scipy.linalg
+from threadpoolctl import threadpool_limits
 
 from harness.trace import (
     ExplicitOperators,
@@ -19,6 +20,13 @@ from harness.trace import (
     hutchpp,
     rademacher_probes,
 )
+
+
+@pytest.fixture(autouse=True)
+def _one_blas_thread():
+    """Small products on a shared 2-core machine: multithreaded BLAS only adds overhead."""
+    with threadpool_limits(1):
+        yield
 
 
 class DenseFactor:

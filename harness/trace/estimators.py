@@ -44,6 +44,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+from threadpoolctl import threadpool_limits
 
 from harness.trace.operators import OperatorFamily
 from harness.trace.probes import rademacher_probes
@@ -180,7 +181,10 @@ def hutchpp(operators: OperatorFamily, *, probes: int = 64,
     s = rademacher_probes(operators.n, k, gen)
     g = rademacher_probes(operators.n, k, gen)
     a_s = operators.apply_all(s)                                 # (p, n, k)
-    q = np.stack([np.linalg.qr(block, mode="reduced")[0] for block in a_s])
+    # tall-skinny QR gains nothing from BLAS threads; on a loaded 2-core machine two
+    # threads made it 10x slower (measured at n = 1,500, k = 20)
+    with threadpool_limits(limits=1, user_api="blas"):
+        q = np.stack([np.linalg.qr(block, mode="reduced")[0] for block in a_s])
     a_q = operators.apply_each(q)
     deterministic = np.einsum("pnk,pnk->p", q, a_q)              # tr(Q' A Q)
     g_perp = np.stack([g - q_i @ (q_i.T @ g) for q_i in q])      # (I - QQ') G
