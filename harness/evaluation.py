@@ -7,6 +7,7 @@ trace estimator. Both end in the same ``SolverOutcome``.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
@@ -21,6 +22,11 @@ from harness.exact import (
     dense_evaluate,
 )
 from harness.kernels import Kernel
+from harness.likelihood import TRACE_CHOICES, evaluate_likelihood
+from harness.likelihood.traces import ExactTraceSizeError
+from harness.solvers.fallback import SolverOutputError, SolverProtocolError
+from harness.solvers.plugins import SolverLoadError
+from harness.solvers.registry import SolverRuntimeError, resolve_solver
 
 EXACT_REFERENCES = ("dense", "statespace", "kronecker")
 
@@ -99,4 +105,42 @@ def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel:
 
 def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
                 reml: bool, score: bool, fisher: bool, options: SolverOptions) -> SolverOutcome:
-    raise EvaluationError(f"solver {solver!r} is not available yet")
+    """The built-in HODLR solver or a plugin, through the generic likelihood code."""
+    try:
+        resolved = resolve_solver(solver)
+    except SolverLoadError as exc:
+        raise EvaluationError(str(exc)) from exc
+    trace = options.trace or "hutchpp"
+    if trace not in TRACE_CHOICES:
+        raise EvaluationError(f"--trace {trace!r}: choose one of {', '.join(TRACE_CHOICES)}")
+    streams = np.random.default_rng(options.seed).spawn(2)
+    factor_options: dict[str, Any] = {}
+    if resolved.name == "hodlr":
+        factor_options = {"leaf_size": options.leaf_size, "rng": streams[0]}
+    start = time.perf_counter()
+    try:
+        factorization = resolved.factorize(points, kernel, kernel.theta, tol=options.tol,
+                                           **factor_options)
+        seconds_factor = time.perf_counter() - start
+        ev = evaluate_likelihood(factorization, points, y, kernel, mean=mean, reml=reml,
+                                 score=score, trace=trace, probes=options.probes,
+                                 rng=streams[1], fisher=fisher)
+    except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
+            ExactTraceSizeError) as exc:
+        raise EvaluationError(str(exc)) from exc
+    seconds = {"factor": seconds_factor, **ev.seconds}
+    trace_info: dict[str, Any] | None = None
+    if ev.score is not None:
+        trace_info = {
+            "method": ev.trace_method, "probes": ev.probes, "solves": ev.solves,
+            "matvecs": ev.matvecs,
+            "estimate": dict(zip(kernel.param_names, map(float, ev.trace_estimate),
+                                 strict=True)),
+            "stderr": dict(zip(kernel.param_names, map(float, ev.trace_stderr), strict=True)),
+        }
+    extra = {"tol": options.tol, "trace": trace_info, "nbytes": int(factorization.nbytes),
+             "ranks": factorization.ranks, "solver_info": resolved.to_dict()}
+    return SolverOutcome(solver=resolved.name, reference="none", loglik=ev.loglik,
+                         logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta,
+                         score=ev.score, fisher=ev.fisher, certificate=None, seconds=seconds,
+                         notes=ev.notes, extra=extra)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -162,3 +163,29 @@ def test_kronecker_needs_a_grid_and_separable(datafile, capsys):
     assert code == 2 and "do not form a tensor grid" in err
     code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "statespace"])
     assert code == 2 and "1-dimensional" in err
+
+
+def test_hodlr_and_plugin_through_the_cli(datafile, capsys, monkeypatch):
+    # The compressed solver at a tight tolerance reproduces the certified dense value
+    # (tolerance-to-error relation: DESIGN section 5, common practice 1e-10 -> ~1e-8 rel).
+    path, _ = datafile
+    assert main(["evaluate", str(path), *BASE, "--json"]) == 0
+    dense = json.loads(capsys.readouterr().out)
+    assert main(["evaluate", str(path), *BASE, "--json", "--solver", "hodlr", "--tol", "1e-10",
+                 "--leaf-size", "32", "--trace", "hutchinson", "--probes", "16"]) == 0
+    hodlr = json.loads(capsys.readouterr().out)
+    assert hodlr["loglik"] == pytest.approx(dense["loglik"], rel=1e-8)
+    for key in ("tol", "trace", "nbytes", "ranks", "seconds_factor", "seconds_logdet",
+                "seconds_solve", "seconds_score"):
+        assert key in hodlr
+    assert hodlr["trace"]["method"] == "hutchinson" and hodlr["trace"]["probes"] == 16
+    assert set(hodlr["trace"]["stderr"]) == set(dense["score"])
+    examples = Path(__file__).resolve().parents[1] / "examples" / "jittered_solver"
+    monkeypatch.syspath_prepend(str(examples))
+    assert main(["evaluate", str(path), *BASE, "--json", "--solver",
+                 "jittered_solver:factorize", "--tol", "1e-12", "--trace", "exact"]) == 0
+    plugin = json.loads(capsys.readouterr().out)
+    assert plugin["loglik"] == pytest.approx(dense["loglik"], rel=1e-6)
+    assert any("supplied generically" in note for note in plugin["notes"])
+    code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "nosuch"])
+    assert code == 2 and "known solvers" in err

@@ -16,6 +16,7 @@ from harness.datafile import DataFileError, load_observations
 from harness.evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 from harness.exact import MEAN_MODELS
 from harness.kernels import KERNELS, KernelParameterError
+from harness.store.records import to_jsonable
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -127,7 +128,7 @@ def run(args: argparse.Namespace) -> int:
         result[f"seconds_{phase}"] = float(seconds)
     result["notes"] = list(outcome.notes)
     if args.json:
-        print(json.dumps(result, indent=2, allow_nan=False, default=_finite_or_none))
+        print(json.dumps(to_jsonable(result), indent=2, allow_nan=False))
     else:
         print(_summary(result))
     return 0
