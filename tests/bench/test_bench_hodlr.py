@@ -62,9 +62,8 @@ def test_bench_speedup_vs_dense_16k(benchmark) -> None:
 
 
 def test_bench_scaling_exponent(benchmark) -> None:
-    # fitted exponent of factorization time over 16k..64k (the 16k..256k fit is in
-    # benchmarks/hodlr_scaling.py; target <= 1.35)
-    ns = [16000, 32000, 64000]
+    # fitted exponent of factorization time over 16k..256k (target <= 1.35)
+    ns = [16000, 32000, 64000, 128000, 256000]
     factorize(_points(2000), KERNEL, None, tol=1e-6, rng=0)
 
     def fit() -> float:

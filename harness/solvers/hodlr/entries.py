@@ -20,7 +20,10 @@ from harness.solvers.hodlr.merge import merge_quarters
 
 #: Blocks with at least this many rows + columns are compressed quarter by quarter and
 #: merged (``merge`` module); each quarter may split again.
-SPLIT_MIN = 32768
+SPLIT_MIN = 6144  # measured best of 2500..32768 at n = 16k and 64k (2D Matern 3/2)
+#: At most this many nested splits: each merge level costs a Gram product of the
+#: stacked bases, which outgrows the ACA savings on the largest blocks.
+SPLIT_DEPTH = 3
 
 
 @dataclass(frozen=True)
@@ -75,12 +78,13 @@ class KernelEntries:
         total at most tol / 2.
         """
         if self.kernel.compiled and (rows[1] - rows[0]) + (cols[1] - cols[0]) >= SPLIT_MIN:
-            return self._split(rows, cols, scaled, tol=tol, budget=0.4 * tol, checks=checks)
+            return self._split(rows, cols, scaled, tol=tol, budget=0.4 * tol, checks=checks,
+                               depth=1)
         a, b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks)
         return recompress(a, b, tol=0.5 * tol)
 
     def _split(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray, *,
-               tol: float, budget: float, checks: np.ndarray) -> LowRank:
+               tol: float, budget: float, checks: np.ndarray, depth: int) -> LowRank:
         (r0, r1), (c0, c1) = rows, cols
         rmid, cmid = (r0 + r1) // 2, (c0 + c1) // 2  # the tree's split: floor(m / 2) first
         row_parts, col_parts = ((r0, rmid), (rmid, r1)), ((c0, cmid), (cmid, c1))
@@ -88,9 +92,10 @@ class KernelEntries:
         for s, rr in enumerate(row_parts):
             for t, cc in enumerate(col_parts):
                 sub_checks = checks % (rr[1] - rr[0])
-                if (rr[1] - rr[0]) + (cc[1] - cc[0]) >= SPLIT_MIN:
+                if depth < SPLIT_DEPTH and (rr[1] - rr[0]) + (cc[1] - cc[0]) >= SPLIT_MIN:
                     inner = 0.05 * tol if budget > 0.05 * tol else 0.5 * budget
-                    low = self._split(rr, cc, scaled, tol=tol, budget=inner, checks=sub_checks)
+                    low = self._split(rr, cc, scaled, tol=tol, budget=inner, checks=sub_checks,
+                                      depth=depth + 1)
                     quarters[s, t] = (low.u, low.v)
                 else:
                     a, b = self._aca(rr, cc, scaled, tol=0.5 * tol, checks=sub_checks)
