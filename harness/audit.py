@@ -434,8 +434,10 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
         if shift is not None and nu is not None and "log_lengthscale" in names:
             metrics.update(microergodic_shift(shift, ref0.fisher, names, nu).to_dict())
     if "trace" in task.metrics and sol0.trace_estimate is not None:
-        if ref0.trace_terms is not None:
-            metrics.update(trace_errors(sol0.trace_estimate, ref0.trace_terms,
+        # A ladder reference is a LikelihoodEvaluation with estimated traces only.
+        exact_traces = getattr(ref0, "trace_terms", None)
+        if exact_traces is not None:
+            metrics.update(trace_errors(sol0.trace_estimate, exact_traces,
                                         sol0.trace_stderr, names).to_dict())
         else:
             notes.append(f"trace metrics unavailable: the {reference.kind} reference gives "
