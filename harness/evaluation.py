@@ -28,8 +28,6 @@ from harness.solvers.fallback import SolverOutputError, SolverProtocolError
 from harness.solvers.plugins import SolverLoadError
 from harness.solvers.registry import SolverRuntimeError, resolve_solver
 
-EXACT_REFERENCES = ("dense", "statespace", "kronecker")
-
 
 class EvaluationError(ValueError):
     """The requested solver cannot evaluate this model (wrong geometry, kernel, option)."""

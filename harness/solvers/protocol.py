@@ -18,6 +18,7 @@ import numpy as np
 OPTIONAL_METHODS: dict[str, str] = {
     "solve_sqrt": "W^-1 B for the symmetric factor Sigma~ = W W'",
     "apply_sqrt": "W B (sampling from the model)",
+    "solve_sqrt_transpose": "W^-T B (saves a product and a solve per trace probe block)",
     "derivative_matvec": "dSigma/dtheta_i @ B",
     "ranks": "off-diagonal ranks per tree level",
 }
