@@ -45,9 +45,10 @@ held out), {{ r.d }}D, coordinates {{ r.coord_system }}. <b>Model:</b> {{ r.kern
 <h2>Verdict per tolerance</h2>
 <table><tr><th>tol</th><th class="l">verdict</th>{% for m in metric_names %}<th>{{ m }}{% if limits.get(m) is not none %}<br><span class="info">&le; {{ fmt(limits[m]) }}</span>{% endif %}</th>{% endfor %}<th>seconds</th><th>speed-up</th></tr>
 {% for t in r.tolerances %}<tr class="{{ 'ok' if t.safe else 'bad' }}"><td>{{ fmt(t.tol) }}</td>
-<td class="l">{{ 'safe' if t.safe else 'unsafe' }}{% if t.error %}: {{ t.error }}{% endif %}</td>
-{% for m in metric_names %}{% set v = t.metric(m) %}<td>{% if v %}{{ fmt(v.value) }}{% if v.uncertainty %} &plusmn; {{ fmt(v.uncertainty) }}{% endif %}{% endif %}</td>{% endfor %}
-<td>{{ fmt(t.seconds) }}</td><td>{{ fmt(t.speedup) }}</td></tr>{% endfor %}</table>
+<td class="l">{{ 'safe' if t.safe else 'unsafe' }}</td>
+{% if t.error %}<td class="l" colspan="{{ metric_names | length + 2 }}">{{ t.error }}</td>
+{% else %}{% for m in metric_names %}{% set v = t.metric(m) %}<td>{% if v %}{{ fmt(v.value) }}{% if v.uncertainty %} &plusmn; {{ fmt(v.uncertainty) }}{% endif %}{% endif %}</td>{% endfor %}
+<td>{{ fmt(t.seconds) }}</td><td>{{ fmt(t.speedup) }}</td>{% endif %}</tr>{% endfor %}</table>
 {% if r.refit %}<h2>End-to-end refit at tol {{ fmt(r.refit.tol) }}</h2>
 <p>Largest parameter shift {{ fmt(r.refit.max_shift_se) }} SE; change of the maximized
 log-likelihood {{ fmt(r.refit.loglik_change) }} nat ({{ r.refit.evaluations }} evaluations).</p>{% endif %}

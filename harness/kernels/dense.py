@@ -24,11 +24,14 @@ def allocate_fortran(n: int) -> np.ndarray:
 
     numpy asks the kernel for transparent huge pages on large allocations; on the
     machines measured here the compaction that triggers made first touch of a
-    512 MB array cost 0.5-1 s, four times the whole assembly. An anonymous ``mmap``
-    gets ordinary pages, zero-filled on first touch by whichever thread writes them.
+    512 MB array cost 0.5-1 s, four times the whole assembly. A private anonymous
+    ``mmap`` gets ordinary pages, zero-filled on first touch by whichever thread writes
+    them.
     The array keeps the mapping alive through its ``base``.
     """
-    buffer = mmap.mmap(-1, max(1, n * n * 8))
+    # Private, not the module's default shared mapping: shared anonymous pages count as
+    # shmem, which is capped on some machines (a 5 GB fill died of SIGBUS here).
+    buffer = mmap.mmap(-1, max(1, n * n * 8), flags=mmap.MAP_PRIVATE | mmap.MAP_ANONYMOUS)
     return np.frombuffer(buffer, dtype=np.float64, count=n * n).reshape((n, n), order="F")
 
 
