@@ -182,3 +182,17 @@ def test_memory_budget_refuses_before_assembly():
 def test_mismatched_lengths_are_refused():
     with pytest.raises(ValueError, match="3 rows but values have 2"):
         dense_evaluate(np.zeros((3, 2)), np.zeros(2), Matern32(1.0, 0.3, 0.1))
+
+
+def test_blocked_cholesky_equals_numpy_across_panels():
+    # numpy.linalg.cholesky as the outside check; panel 64 forces many panels and a
+    # ragged last one (n = 300).
+    from harness.exact.cholesky import blocked_cholesky
+
+    pts = np.random.default_rng(9).random((300, 2))
+    sigma = Matern32(1.0, 0.2, 0.05).covariance(pts)
+    a = np.asfortranarray(np.tril(sigma) + np.triu(np.full_like(sigma, 7.0), k=1))
+    assert blocked_cholesky(a, panel=64) == 0
+    np.testing.assert_allclose(a, np.linalg.cholesky(sigma), rtol=1e-10, atol=1e-12)
+    bad = np.asfortranarray(-np.eye(200))
+    assert blocked_cholesky(bad, panel=64) == 1
