@@ -111,7 +111,8 @@ def run(args: argparse.Namespace) -> int:
     progress = _Progress()
     try:
         summary = run_grid(tasks, store, backend, redo_failed=args.redo_failed,
-                           progress=progress, case_file=str(Path(args.casefile).resolve()),
+                           progress=progress, case_file=args.casefile,
+                           case_text=Path(args.casefile).read_text(encoding="utf-8"),
                            case_info=case.to_dict())
     except KeyboardInterrupt:
         progress.close()

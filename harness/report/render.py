@@ -34,7 +34,7 @@ TEMPLATE = "report.html.j2"
 REPORT_FILE = "report.html"
 STATUS_TEXT = {"safe": "\u2714 safe", "unsafe": "\u2718 unsafe",
                "incomplete": "? incomplete", "failed": "\u2718 no task finished"}
-CASE_TEXT_KEYS = ("case_file", "case_text", "case_file_text")
+CASE_TEXT_KEYS = ("case_text", "case_file_text", "case_file")
 TOC = (("summary", "Verdicts"), ("accuracy", "Accuracy"), ("cost", "Time and memory"),
        ("trace", "Trace estimates"), ("failures", "Failures"),
        ("environment", "Environment"), ("cautions", "Cautions"), ("results", "All results"))

@@ -204,8 +204,8 @@ def plan(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
 
 def run_grid(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
              redo_failed: bool = False, progress: ProgressCallback | None = None,
-             case_file: str | None = None, case_info: Mapping[str, Any] | None = None
-             ) -> RunSummary:
+             case_file: str | None = None, case_text: str | None = None,
+             case_info: Mapping[str, Any] | None = None) -> RunSummary:
     """Run every task not yet complete in ``store`` (module docstring)."""
     start = time.perf_counter()
     store.prepare()
@@ -217,7 +217,8 @@ def run_grid(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
     if progress is not None:
         progress(GridEvent(kind="planned", total=len(accuracy) + len(timing)))
     run_info: dict[str, Any] = {
-        "case_file": case_file, "case": dict(case_info or {}), "backend": backend.describe(),
+        "case_file": case_file, "case_text": case_text, "case": dict(case_info or {}),
+        "backend": backend.describe(),
         "started": now(), "status": "running", "tasks": len(tasks),
         "environment": environment(case_file),
     }
