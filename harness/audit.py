@@ -35,6 +35,7 @@ from typing import Any
 import numpy as np
 
 from harness.cases.cost import estimate_cost
+from harness.exact.evaluation import fisher_standard_errors
 from harness.geometry.pointsets import generate, tensor_grid
 from harness.kernels import Kernel, make_kernel, smoothness
 from harness.metrics import (
@@ -516,7 +517,7 @@ def _standard_errors(fisher: np.ndarray | None) -> np.ndarray | None:
     if fisher is None:
         return None
     try:
-        return np.sqrt(np.diag(np.linalg.inv(fisher)))
+        return fisher_standard_errors(fisher)
     except np.linalg.LinAlgError:
         return None
 

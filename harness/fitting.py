@@ -39,6 +39,7 @@ import numpy as np
 from scipy import optimize
 
 from harness.exact import dense_evaluate, design_matrix
+from harness.exact.evaluation import fisher_standard_errors
 from harness.kernels import Kernel, smoothness
 
 log = logging.getLogger(__name__)
@@ -349,7 +350,7 @@ def fisher_scoring(engine: Engine, kernel: Kernel, theta0: np.ndarray, *,
     for _ in range(max_steps):
         fisher = np.asarray(current.fisher)
         step = np.linalg.solve(fisher, current.score)
-        se = np.sqrt(np.diag(np.linalg.inv(fisher)))
+        se = fisher_standard_errors(fisher)
         if np.max(np.abs(step) / se) < step_tol_se:
             break
         t = 1.0

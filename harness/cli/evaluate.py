@@ -15,6 +15,7 @@ from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.datafile import DataFileError, load_observations
 from harness.evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 from harness.exact import MEAN_MODELS
+from harness.exact.evaluation import fisher_standard_errors
 from harness.kernels import KERNELS, KernelParameterError
 from harness.store.records import to_jsonable
 
@@ -118,7 +119,7 @@ def run(args: argparse.Namespace) -> int:
                   if outcome.score is not None else None),
         "fisher": outcome.fisher.tolist() if outcome.fisher is not None else None,
         "se": (dict(zip(kernel.param_names,
-                        map(float, np.sqrt(np.diag(np.linalg.inv(outcome.fisher)))), strict=True))
+                        map(float, fisher_standard_errors(outcome.fisher)), strict=True))
                if outcome.fisher is not None else None),
         "certificate": _finite_or_none(outcome.certificate),
     }

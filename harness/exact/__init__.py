@@ -21,7 +21,7 @@ from harness.exact.closed_forms import (
     exponential_trace_terms,
 )
 from harness.exact.dense import KrigingPrediction, dense_evaluate, dense_kriging
-from harness.exact.evaluation import ReferenceEvaluation
+from harness.exact.evaluation import ReferenceEvaluation, fisher_standard_errors
 from harness.exact.gls import GlsFit, gls_loglik
 from harness.exact.gridcheck import GridLayout, NotAGridError, detect_grid
 from harness.exact.kronecker import (
@@ -46,6 +46,7 @@ __all__ = [
     "StateSpaceReference",
     "detect_grid",
     "exponential_fisher",
+    "fisher_standard_errors",
     "exponential_logdet",
     "exponential_loglik",
     "exponential_quadratic",

@@ -8,6 +8,12 @@ from dataclasses import dataclass, field
 import numpy as np
 
 
+def fisher_standard_errors(fisher: np.ndarray) -> np.ndarray:
+    """SE_i = sqrt((F^-1)_ii): asymptotic standard errors from the Fisher information
+    (Cox and Hinkley 1974, *Theoretical Statistics*, section 9.2)."""
+    return np.sqrt(np.diag(np.linalg.inv(np.asarray(fisher, dtype=float))))
+
+
 @dataclass(frozen=True)
 class ReferenceEvaluation:
     """Exact log-likelihood, score and Fisher information at one parameter vector.
@@ -56,7 +62,7 @@ class ReferenceEvaluation:
         """SE_i = sqrt((F^-1)_ii) of the log-scale parameters, when F is known."""
         if self.fisher is None:
             return None
-        return np.sqrt(np.diag(np.linalg.inv(self.fisher)))
+        return fisher_standard_errors(self.fisher)
 
     def to_dict(self) -> dict[str, object]:
         def arr(a: np.ndarray | None) -> object:

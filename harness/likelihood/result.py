@@ -7,6 +7,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from harness.exact.evaluation import fisher_standard_errors
+
 
 def _arr(a: np.ndarray | None) -> object:
     return None if a is None else np.asarray(a).tolist()
@@ -67,7 +69,7 @@ class LikelihoodEvaluation:
         """SE_i = sqrt((F^-1)_ii) of the log-scale parameters, when F is known."""
         if self.fisher is None:
             return None
-        return np.sqrt(np.diag(np.linalg.inv(self.fisher)))
+        return fisher_standard_errors(self.fisher)
 
     def to_dict(self) -> dict[str, object]:
         return {

@@ -31,6 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harness.exact.evaluation import fisher_standard_errors
+
 
 class FisherError(ValueError):
     """The Fisher information is not a symmetric positive-definite p x p matrix."""
@@ -101,7 +103,7 @@ def score_errors(score_approx: np.ndarray, score_exact: np.ndarray, fisher: np.n
     ga, ge, f = _check(score_approx, score_exact, fisher)
     e = ga - ge
     shift = np.linalg.solve(f, e)
-    se = np.sqrt(np.diag(np.linalg.inv(f)))
+    se = fisher_standard_errors(f)
     norm = float(np.linalg.norm(ge))
     return ScoreErrors(
         param_names=tuple(param_names), error=e, fisher_units=e / np.sqrt(np.diag(f)),
