@@ -19,10 +19,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
 from opendata import fetch_rda  # noqa: E402
 
-from harness.checking import CheckOptions, run_check, validate  # noqa: E402
-from harness.cli.check import summary  # noqa: E402
+from harness.check import CheckOptions, run_check, validate  # noqa: E402
+from harness.check.datafile import observations_from_arrays  # noqa: E402
+from harness.cli.check_command import summary  # noqa: E402
 from harness.cli.params import parse_params  # noqa: E402
-from harness.datafile import observations_from_arrays  # noqa: E402
 
 
 def main() -> int:

@@ -24,7 +24,7 @@ import numpy as np
 _CHILD = r"""
 import json, resource, sys, time
 import numpy as np
-from harness.kernels import Matern32, assemble_lower
+from harness.model.kernels import Matern32, assemble_lower
 from harness.solvers.hodlr import factorize
 n, tol, dense = int(sys.argv[1]), float(sys.argv[2]), sys.argv[3] == "dense"
 kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)

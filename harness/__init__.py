@@ -5,9 +5,9 @@ The few names most scripts need; everything else lives in its own module.
 
 __version__ = "0.1.0"
 
-from harness.exact import DenseCholesky, dense_evaluate, dense_kriging  # noqa: E402
-from harness.kernels import KERNELS, make_kernel  # noqa: E402
 from harness.likelihood import evaluate_likelihood, kriging  # noqa: E402
+from harness.model.kernels import KERNELS, make_kernel  # noqa: E402
+from harness.references import DenseCholesky, dense_evaluate, dense_kriging  # noqa: E402
 from harness.solvers import resolve_solver  # noqa: E402
 
 __all__ = [

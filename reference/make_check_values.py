@@ -16,7 +16,7 @@ section 8.7, with the one-step predictors of section 5.2) gives:
     fisher_ll       (n - 1) rho^2 c^2 (1 + rho^2) / (1 - rho^2)^2
 
 (the Fisher entries sum the conditional informations of y_i | y_{i-1}; derivation in
-``harness/exact/closed_forms.py``). Plain ``math`` only, independent of the package.
+``harness/references/closed_forms.py``). Plain ``math`` only, independent of the package.
 Run: ``python reference/make_check_values.py`` (rewrites the CSV next to this file).
 """
 

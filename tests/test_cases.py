@@ -7,7 +7,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.cases import CaseFileError, case_from_text, load_case, parse_bytes
+from harness.grid.cases import CaseFileError, case_from_text, load_case, parse_bytes
+from harness.grid.cases.shipped import shipped_case_files, shipped_case_text
 
 REPO = Path(__file__).resolve().parents[1]
 
@@ -133,11 +134,19 @@ def test_budget_units():
 
 
 @pytest.mark.parametrize("path", sorted((REPO / "cases").glob("*.toml")), ids=lambda p: p.name)
-def test_shipped_case_files_validate_and_match_package_data(path):
+def test_shipped_case_files_validate_and_are_the_package_copy(path):
     case = load_case(path)
     assert case.tasks()
-    packaged = REPO / "harness" / "data" / path.name
-    assert packaged.read_text() == path.read_text()
+    # One copy: the repository's cases/ is the package's casefiles/ folder.
+    assert shipped_case_text(path.stem) == path.read_text()
+
+
+def test_shipped_case_files_are_listed_through_resources():
+    names = set(shipped_case_files())
+    assert {"smoke", "scaling-2d", "kernels"} <= names
+    assert names == {p.stem for p in (REPO / "cases").glob("*.toml")}
+    with pytest.raises(KeyError, match="shipped: "):
+        shipped_case_text("no-such-case")
 
 
 def test_from_text_without_file(tmp_path):

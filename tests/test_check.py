@@ -11,11 +11,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from harness.checking.efficiency import prediction_efficiency
-from harness.cli import check as check_cli
-from harness.exact import DenseCholesky
-from harness.geodesy import EARTH_RADIUS_KM, chordal_distance, lonlat_to_chordal
-from harness.kernels import make_kernel
+from harness.audit.metrics.efficiency import prediction_efficiency
+from harness.cli import check_command as check_cli
+from harness.geometry.geodesy import EARTH_RADIUS_KM, chordal_distance, lonlat_to_chordal
+from harness.model.kernels import make_kernel
+from harness.references import DenseCholesky
 
 
 def _run(argv: list[str]) -> int:

@@ -11,7 +11,7 @@ import pytest
 import scipy.stats
 
 from harness.cli import main
-from harness.kernels import Matern32
+from harness.model.kernels import Matern32
 
 
 @pytest.fixture

@@ -13,15 +13,15 @@ from pathlib import Path
 
 import pandas as pd
 
-from harness.cli import cases as cases_verb
-from harness.cli import run as run_verb
-from harness.store import RunStore, is_complete
+from harness.cli import cases_command as cases_verb
+from harness.cli import run_command as run_verb
+from harness.grid.store import RunStore, is_complete
 
 REPO = Path(__file__).resolve().parents[1]
 
 SLOW_PLUGIN = '''
 import time
-from harness.solvers.dense import factorize as dense_factorize
+from harness.solvers.dense_solver import factorize as dense_factorize
 
 
 def factorize(points, kernel, theta, *, tol=None, delay=0.0):
@@ -101,7 +101,7 @@ def test_sigkill_mid_grid_then_resume(tmp_path):
     case.write_text(GRID)
     out = tmp_path / "out"
     env = dict(os.environ, PYTHONPATH=os.pathsep.join([str(plugin), *sys.path]))
-    proc = subprocess.Popen([sys.executable, "-m", "harness.cli.run", str(case), "--out",
+    proc = subprocess.Popen([sys.executable, "-m", "harness.cli.run_command", str(case), "--out",
                              str(out), "--workers", "2"], env=env, start_new_session=True,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     deadline = time.monotonic() + 90

@@ -14,7 +14,8 @@ import numpy as np
 import pytest
 from threadpoolctl import threadpool_limits
 
-from harness.exact.closed_forms import (
+from harness.model.kernels import Exponential
+from harness.references.closed_forms import (
     ClosedFormError,
     exponential_chain,
     exponential_fisher,
@@ -24,8 +25,7 @@ from harness.exact.closed_forms import (
     exponential_quadratic,
     exponential_trace_terms,
 )
-from harness.exact.statespace import StateSpaceReference
-from harness.kernels import Exponential
+from harness.references.statespace import StateSpaceReference
 
 TABLE = Path(__file__).resolve().parents[1] / "reference" / "check_values.csv"
 

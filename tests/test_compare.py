@@ -8,11 +8,10 @@ import json
 import numpy as np
 import pytest
 from scipy import stats
+from synthetic import write_synthetic_run
 
 from harness.analysis import load_run
-from harness.analysis.synthetic import write_synthetic_run
-from harness.cli import compare as compare_cli
-from harness.compare import (
+from harness.analysis.regression import (
     AccuracyCheck,
     CheckSyntaxError,
     SpeedCheck,
@@ -21,6 +20,7 @@ from harness.compare import (
     load_comparison,
     parse_check,
 )
+from harness.cli import compare_command as compare_cli
 
 SMALL = dict(sizes=(500, 1000, 2000), tolerances=(1e-4, 1e-6), seeds=(0, 1), probes=(16,))
 

@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from harness.datafile import DataFileError, load_observations, observations_from_arrays
+from harness.check.datafile import DataFileError, load_observations, observations_from_arrays
 
 
 def test_length_mismatch_in_arrays():

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.demo import TRUE_MEAN, TRUE_PARAMS, generate_demo
-from harness.exact import dense_evaluate
+from harness.check.demo_data import TRUE_MEAN, TRUE_PARAMS, generate_demo
+from harness.references import dense_evaluate
 
 
 def test_demo_is_deterministic_and_documented():

@@ -8,17 +8,17 @@ import scipy.stats
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process import kernels as sk
 
-from harness.exact import (
+from harness.model import design_matrix
+from harness.model.kernels import Exponential, Gaussian, Matern32, Matern52
+from harness.references import (
     CertificateError,
     DenseBudgetError,
     DenseCholesky,
     SingularCovarianceError,
     dense_evaluate,
     dense_kriging,
-    design_matrix,
 )
-from harness.exact import cholesky as cholesky_module
-from harness.kernels import Exponential, Gaussian, Matern32, Matern52
+from harness.references import cholesky as cholesky_module
 
 
 @pytest.fixture(scope="module")
@@ -187,7 +187,7 @@ def test_mismatched_lengths_are_refused():
 def test_blocked_cholesky_equals_numpy_across_panels():
     # numpy.linalg.cholesky as the outside check; panel 64 forces many panels and a
     # ragged last one (n = 300).
-    from harness.exact.cholesky import blocked_cholesky
+    from harness.references.cholesky import blocked_cholesky
 
     pts = np.random.default_rng(9).random((300, 2))
     sigma = Matern32(1.0, 0.2, 0.05).covariance(pts)

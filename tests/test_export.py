@@ -9,12 +9,12 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pandas as pd
 import pytest
+from synthetic import write_synthetic_run
 
 from harness.analysis import load_run
 from harness.analysis.scaling_table import scaling_rows
-from harness.analysis.synthetic import write_synthetic_run
-from harness.cli import export as export_cli
-from harness.export import latex_escape, methods_paragraph, to_latex, to_markdown
+from harness.cli import export_command as export_cli
+from harness.report.export import latex_escape, methods_paragraph, to_latex, to_markdown
 
 SMALL = dict(sizes=(500, 1000, 2000, 4000), tolerances=(1e-4, 1e-6), seeds=(0,),
              probes=(16, 64))

@@ -9,8 +9,7 @@ import pytest
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
-from harness.exact import DenseCholesky, dense_evaluate
-from harness.fitting import (
+from harness.check.fitting import (
     DenseEngine,
     data_scale,
     default_bounds,
@@ -19,7 +18,8 @@ from harness.fitting import (
     fit_mle,
     standard_errors,
 )
-from harness.kernels import make_kernel
+from harness.model.kernels import make_kernel
+from harness.references import DenseCholesky, dense_evaluate
 
 
 @pytest.fixture(scope="module")

@@ -13,7 +13,7 @@ import scipy.linalg as sl
 
 from harness.geometry.pointsets import clustered, uniform
 from harness.geometry.tree import build_tree
-from harness.kernels import Exponential, Gaussian, Kernel, Matern, Matern32, Matern52
+from harness.model.kernels import Exponential, Gaussian, Kernel, Matern, Matern32, Matern52
 from harness.solvers.hodlr import CompressionBreakdownError, HodlrFactorization, factorize
 from harness.solvers.hodlr.aca import aca_compiled, recompress
 from harness.solvers.hodlr.orth import thin_qr

@@ -10,7 +10,7 @@ import pytest
 from scipy import special
 from sklearn.gaussian_process import kernels as sk
 
-from harness.kernels import (
+from harness.model.kernels import (
     KERNEL_CLASSES,
     Exponential,
     Gaussian,

@@ -10,16 +10,16 @@ import numpy as np
 import pytest
 from threadpoolctl import threadpool_limits
 
-from harness.exact.gridcheck import NotAGridError, detect_grid
-from harness.exact.kronecker import (
+from harness.geometry.pointsets import tensor_grid
+from harness.model.kernels import Exponential, Gaussian, Matern32
+from harness.references.gridcheck import NotAGridError, detect_grid
+from harness.references.kronecker import (
     KroneckerError,
     KroneckerReference,
     SeparableKernel,
     separable_block_with_derivatives,
     separable_covariance,
 )
-from harness.geometry.pointsets import tensor_grid
-from harness.kernels import Exponential, Gaussian, Matern32
 
 SQ3 = np.sqrt(3.0)
 

@@ -15,8 +15,8 @@ from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 from threadpoolctl import threadpool_limits
 
-from harness.kernels import Exponential, Matern32, Matern52
 from harness.likelihood import ExactTraceSizeError, evaluate_likelihood, kriging
+from harness.model.kernels import Exponential, Matern32, Matern52
 
 
 @pytest.fixture(autouse=True)

@@ -7,7 +7,7 @@ import math
 import numpy as np
 import pytest
 
-from harness.metrics import (
+from harness.audit.metrics import (
     FisherError,
     factorization_error,
     kriging_errors,

@@ -25,11 +25,11 @@ from opendata import OpenDataUnavailable, fetch_rda
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
-from harness.checking import CheckOptions, run_check, validate
-from harness.datafile import observations_from_arrays
-from harness.exact import dense_evaluate
-from harness.fitting import DenseEngine, data_scale, default_bounds, default_starts, fit_mle
-from harness.kernels import make_kernel
+from harness.check import CheckOptions, run_check, validate
+from harness.check.datafile import observations_from_arrays
+from harness.check.fitting import DenseEngine, data_scale, default_bounds, default_starts, fit_mle
+from harness.model.kernels import make_kernel
+from harness.references import dense_evaluate
 
 
 def _load(package: str, name: str):

@@ -17,8 +17,8 @@ import scipy.stats
 from threadpoolctl import threadpool_limits
 
 from harness import __version__
-from harness.kernels import Matern32
 from harness.likelihood import evaluate_likelihood
+from harness.model.kernels import Matern32
 from harness.solvers.fallback import (
     AdaptedFactorization,
     SolverOutputError,

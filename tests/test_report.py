@@ -13,9 +13,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from synthetic import write_synthetic_run
 
 from harness.analysis import RunDirError, load_run
-from harness.analysis.synthetic import write_synthetic_run
 from harness.report import render_report, write_report
 
 HOSTILE = "<script>alert(1)</script>"

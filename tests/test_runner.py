@@ -8,9 +8,9 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from harness.cases import load_case
-from harness.runner import ProcessBackend, SerialBackend, run_grid
-from harness.store import RunStore
+from harness.grid.cases import load_case
+from harness.grid.runner import ProcessBackend, SerialBackend, run_grid
+from harness.grid.store import RunStore
 
 PLUGIN = '''
 """A solver plugin that misbehaves on request (test fixture)."""
@@ -19,7 +19,7 @@ import time
 
 import numpy as np
 
-from harness.solvers.dense import factorize as dense_factorize
+from harness.solvers.dense_solver import factorize as dense_factorize
 
 
 class _NaNLogdet:
@@ -122,7 +122,7 @@ def plugin_dir(tmp_path_factory):
 @pytest.fixture(scope="module")
 def dask_backend(plugin_dir):
     pytest.importorskip("distributed")
-    from harness.runner.dask_backend import DaskBackend
+    from harness.grid.runner.dask_backend import DaskBackend
 
     backend = DaskBackend(local_workers=2)
     yield backend

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
+from synthetic import write_synthetic_run
 
 from harness.analysis import load_run
+from harness.analysis.scaling import ScalingError, crossover, extrapolate, fit_power_law
 from harness.analysis.scaling_table import scaling_rows
-from harness.analysis.synthetic import write_synthetic_run
-from harness.scaling import ScalingError, crossover, extrapolate, fit_power_law
 
 SIZES = np.array([500, 1000, 2000, 4000, 8000, 16000], dtype=float)
 

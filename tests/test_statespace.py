@@ -11,8 +11,8 @@ import pytest
 from scipy.linalg import lapack
 from threadpoolctl import threadpool_limits
 
-from harness.exact.statespace import StateSpaceError, StateSpaceReference
-from harness.kernels import Exponential, Gaussian, Matern, Matern32, Matern52
+from harness.model.kernels import Exponential, Gaussian, Matern, Matern32, Matern52
+from harness.references.statespace import StateSpaceError, StateSpaceReference
 
 SQ3, SQ5 = np.sqrt(3.0), np.sqrt(5.0)
 
@@ -219,7 +219,7 @@ def test_process_noise_integrals_match_scipy_incomplete_gamma(lam):
 
     from scipy import special
 
-    from harness.exact.statespace import _lower_gamma_integrals
+    from harness.references.statespace import _lower_gamma_integrals
     out = np.empty(5)
     for dt in (0.0, 1e-9, 1e-3, 0.019, 0.021, 0.05, 1.0, 30.0):
         _lower_gamma_integrals(lam, dt, out)

@@ -9,7 +9,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from harness.store import (
+from harness.grid.store import (
     SCHEMA_VERSION,
     CorruptRecordWarning,
     OutputDirectoryError,
@@ -17,7 +17,7 @@ from harness.store import (
     is_complete,
     new_record,
 )
-from harness.store.atomic import TEMP_PREFIX
+from harness.grid.store.atomic import TEMP_PREFIX
 
 
 def _record(key: str, status: str = "ok", **extra) -> dict:

@@ -13,7 +13,7 @@ import pytest
 import scipy.linalg
 from threadpoolctl import threadpool_limits
 
-from harness.trace import (
+from harness.likelihood.trace import (
     ExplicitOperators,
     FactorizationOperators,
     hutchinson,

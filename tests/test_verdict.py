@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 from scipy import stats
 
-from harness.store.columns import RESULT_COLUMNS
-from harness.verdict import ThresholdError, Thresholds, judge, trace_calibration
+from harness.audit.verdict import ThresholdError, Thresholds, judge, trace_calibration
+from harness.grid.store.columns import RESULT_COLUMNS
 
 
 def _rows(specs: list[dict]) -> pd.DataFrame:

@@ -19,7 +19,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from harness.store.columns import RESULT_COLUMNS, SCHEMA_VERSION, TIMING_COLUMNS
+from harness.grid.store.columns import RESULT_COLUMNS, SCHEMA_VERSION, TIMING_COLUMNS
 
 logger = logging.getLogger(__name__)
 
@@ -87,7 +87,7 @@ def _read_csv(path: Path, *, dtype: dict[str, Any] | None = None) -> pd.DataFram
 def _coerce_results(frame: pd.DataFrame, path: Path, notes: list[str]) -> pd.DataFrame:
     if "key" not in frame.columns:
         raise RunDirError(f"{path}: no 'key' column; expected the columns of "
-                          "harness.store.columns.RESULT_COLUMNS")
+                          "harness.grid.store.columns.RESULT_COLUMNS")
     missing = [c for c in RESULT_COLUMNS if c not in frame.columns]
     if missing:
         notes.append(f"{RESULTS_FILE} lacks {len(missing)} contract column(s): "

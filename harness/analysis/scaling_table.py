@@ -1,7 +1,7 @@
 """Scaling fits for every (solver, tolerance, kernel, geometry) group of a run.
 
 Each group's per-size medians of a cost column are fitted with
-``harness.scaling.fit_power_law``; the bootstrap resamples the per-repeat timings of
+``harness.analysis.scaling.fit_power_law``; the bootstrap resamples the per-repeat timings of
 ``timings.csv`` pooled over the group's tasks at each size; compressed-solver time fits are
 paired with the dense fit of the same kernel and geometry for the crossover size.
 """
@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 
 from harness.analysis.load import RunData
-from harness.scaling import (
+from harness.analysis.scaling import (
     Crossover,
     Extrapolation,
     PowerLawFit,

@@ -35,7 +35,7 @@ def build_parser() -> argparse.ArgumentParser:
                         help="more log output (repeat for debug)")
     subparsers = parser.add_subparsers(dest="verb", metavar="VERB", required=True)
     for verb in VERBS:
-        importlib.import_module(f"harness.cli.{verb}").add_parser(subparsers)
+        importlib.import_module(f"harness.cli.{verb}_command").add_parser(subparsers)
     return parser
 
 
@@ -44,7 +44,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     logging.basicConfig(level=logging.WARNING - 10 * min(args.verbose, 2),
                         format="%(levelname)s %(name)s: %(message)s")
-    module = importlib.import_module(f"harness.cli.{args.verb.replace('-', '_')}")
+    module = importlib.import_module(f"harness.cli.{args.verb.replace('-', '_')}_command")
     try:
         return int(module.run(args))
     except KeyboardInterrupt:

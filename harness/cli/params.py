@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from harness.kernels import Kernel, KernelParameterError, make_kernel
+from harness.model.kernels import Kernel, KernelParameterError, make_kernel
 
 
 class ParamSyntaxError(ValueError):

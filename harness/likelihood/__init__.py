@@ -2,8 +2,8 @@
 Factorization (dense or compressed), with exact or stochastic trace terms."""
 
 from harness.likelihood.kriging import kriging
+from harness.likelihood.likelihood_records import KrigingPrediction, LikelihoodEvaluation
 from harness.likelihood.loglik import TRACE_CHOICES, evaluate_likelihood
-from harness.likelihood.result import KrigingPrediction, LikelihoodEvaluation
 from harness.likelihood.traces import EXACT_TRACE_MAX_N, ExactTraceSizeError, TraceTerms
 
 __all__ = [

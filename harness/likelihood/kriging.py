@@ -19,11 +19,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.exact.mean import design_matrix
-from harness.kernels import Kernel
+from harness.likelihood.likelihood_records import KrigingPrediction
 from harness.likelihood.loglik import check_data
-from harness.likelihood.result import KrigingPrediction
 from harness.likelihood.whitening import fit_mean, supports_sqrt
+from harness.model.kernels import Kernel
+from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt
 
 _COLUMNS = 1024  # new points per block of solves

@@ -7,7 +7,7 @@ One code path serves the dense reference and every compressed solver:
 
 (Rasmussen and Williams 2006, eqs. 2.30 and 5.9; the GLS estimate beta is profiled out,
 which leaves the score's form unchanged because dL/dbeta = 0 at beta). L and beta come
-from ``harness.exact.gls.gls_loglik`` on whitened data when the factorization offers
+from ``harness.model.gls.gls_loglik`` on whitened data when the factorization offers
 ``solve_sqrt`` and from Gram products through solves otherwise (``whitening``). The
 trace terms are exact at small n or estimated (``traces``); the quadratic terms use the
 factorization's derivative products, supplied generically when it has none
@@ -20,11 +20,11 @@ import time
 
 import numpy as np
 
-from harness.exact.mean import design_matrix
-from harness.kernels import Kernel
-from harness.likelihood.result import LikelihoodEvaluation
+from harness.likelihood.likelihood_records import LikelihoodEvaluation
 from harness.likelihood.traces import EXACT_TRACE_MAX_N, trace_terms
 from harness.likelihood.whitening import fit_mean
+from harness.model.kernels import Kernel
+from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt
 
 TRACE_CHOICES = ("exact", "hutchinson", "hutchpp")

@@ -29,7 +29,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.trace import FactorizationOperators, estimate_traces
+from harness.likelihood.trace import FactorizationOperators, estimate_traces
 
 #: Largest n for exact traces (p + 1 dense n x n arrays: 240 MiB at n = 2,500, p = 4).
 EXACT_TRACE_MAX_N = 2500

@@ -1,6 +1,6 @@
 """The GLS mean fit and profile log-likelihood through any Factorization.
 
-``harness.exact.gls.gls_loglik`` needs whitened data u = W^-1 y and G = W^-1 F.
+``harness.model.gls.gls_loglik`` needs whitened data u = W^-1 y and G = W^-1 F.
 With ``solve_sqrt`` they come from the factor directly. Without it, the function only
 ever uses the Gram products u'u, G'u and G'G, i.e. the (p+1) x (p+1) matrix
 
@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.exact.gls import GlsFit, gls_loglik
+from harness.model.gls import GlsFit, gls_loglik
 
 
 def supports_sqrt(factorization: object) -> bool:

@@ -16,8 +16,8 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import NullFormatter
 
 from harness.analysis.scaling_table import ScalingRow, solver_label
+from harness.audit.verdict import Thresholds
 from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
-from harness.verdict import Thresholds
 
 METRIC_TITLES: dict[str, str] = {
     "loglik_abs_err": "|log-likelihood error| (nats)",

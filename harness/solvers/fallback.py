@@ -23,7 +23,7 @@ import math
 
 import numpy as np
 
-from harness.kernels import Kernel
+from harness.model.kernels import Kernel
 from harness.solvers.protocol import OPTIONAL_METHODS
 
 #: Required Factorization members (``harness.solvers.protocol.Factorization``).

@@ -1,7 +1,7 @@
 """The solver protocol: what a solver under test must offer the harness.
 
 A solver is a factory ``factorize(points, kernel, theta, *, tol, **options)`` returning a
-``Factorization`` of Sigma(theta) at ``points``. ``kernel`` is a ``harness.kernels.Kernel``;
+``Factorization`` of Sigma(theta) at ``points``. ``kernel`` is a ``harness.model.kernels.Kernel``;
 ``theta`` (log scale, ``kernel.param_names`` order) overrides its parameters, i.e. the
 model is ``kernel.with_theta(theta)``. Required members are in ``Factorization``; the
 optional ones are listed in ``OPTIONAL_METHODS`` and supplied generically by

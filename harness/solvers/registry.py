@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness import __version__
-from harness.kernels import Kernel
+from harness.model.kernels import Kernel
 from harness.solvers.fallback import AdaptedFactorization, adapt
 from harness.solvers.plugins import (
     ENTRY_POINT_GROUP,
@@ -36,7 +36,7 @@ from harness.solvers.plugins import (
 
 #: Built-in solver name -> (module, factory attribute, description).
 BUILTIN_SOLVERS: dict[str, tuple[str, str, str]] = {
-    "dense": ("harness.solvers.dense", "factorize",
+    "dense": ("harness.solvers.dense_solver", "factorize",
               "dense Cholesky in float64, certified (tol ignored)"),
     "hodlr": ("harness.solvers.hodlr", "factorize",
               "hierarchical off-diagonal low-rank factorization (built-in)"),

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from scipy.linalg import lapack
 
-from harness.kernels import Gaussian, Matern, Matern32, assemble_lower
+from harness.model.kernels import Gaussian, Matern, Matern32, assemble_lower
 
 N = 8_000
 

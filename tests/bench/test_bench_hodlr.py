@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from scipy.linalg import lapack
 
-from harness.kernels import Matern32, assemble_lower
+from harness.model.kernels import Matern32, assemble_lower
 from harness.solvers.hodlr import factorize
 
 KERNEL = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)

@@ -13,8 +13,8 @@ import time
 import numpy as np
 import pytest
 
-from harness.kernels import Matern32
 from harness.likelihood import evaluate_likelihood
+from harness.model.kernels import Matern32
 from harness.solvers.registry import resolve_solver
 
 KERNEL = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)

@@ -7,10 +7,10 @@ family; Kronecker log-likelihood + analytic score on a 1000 x 1000 grid under 60
 import numpy as np
 import pytest
 
-from harness.exact.kronecker import KroneckerReference, SeparableKernel
-from harness.exact.statespace import StateSpaceReference
 from harness.geometry.pointsets import tensor_grid
-from harness.kernels import Exponential, Matern32, Matern52
+from harness.model.kernels import Exponential, Matern32, Matern52
+from harness.references.kronecker import KroneckerReference, SeparableKernel
+from harness.references.statespace import StateSpaceReference
 
 N = 1_000_000
 

@@ -44,7 +44,7 @@ import numba
 import numpy as np
 from scipy.linalg import lapack, solve_triangular
 
-from harness.kernels.rows import eval_row
+from harness.model.kernels.rows import eval_row
 from harness.solvers.hodlr.orth import thin_qr
 
 _GRAM_RCOND = 1e-5
@@ -61,7 +61,7 @@ def _residual(family, x, ys, shape, scale, mode, coef, mat, k, out):
 def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks):
     """ACA with partial pivoting on K[i, j] = entry(xs_i, ys_j) (see module docstring).
 
-    ``family``, ``mode``: as in ``harness.kernels.rows``; ``checks``: (rounds, rows)
+    ``family``, ``mode``: as in ``harness.model.kernels.rows``; ``checks``: (rounds, rows)
     random row indices for the residual checks. Returns (A, B) with K ~ A' B, A of
     shape (k, m), B of shape (k, n). Serial; releases the GIL.
     """

@@ -1,7 +1,7 @@
 """Products with dSigma/dtheta_i for the HODLR solver (tree order).
 
 With Sigma = s2 R + tau2 I and theta = (log s2, log l_1 .. log l_k, log tau2)
-(``harness.kernels.base``):
+(``harness.model.kernels.classes``):
 
 * dSigma/dlog s2 = s2 R = Sigma - tau2 I: the compressed Sigma~ minus tau2 I, no new
   compression;
@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness.geometry.tree import ClusterTree
-from harness.kernels.base import Kernel
+from harness.model.kernels.classes import Kernel
 from harness.solvers.hodlr.compressed import HodlrMatrix, build_hodlr
 from harness.solvers.hodlr.entries import KernelEntries
 

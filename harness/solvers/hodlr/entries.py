@@ -2,7 +2,7 @@
 
 ``KernelEntries`` hands the HODLR builder the two things it needs: dense diagonal leaf
 blocks and low-rank approximations of off-diagonal blocks. Kernels with a compiled
-closed form go through ``harness.kernels.rows`` (leaf fills and ACA rows/columns in
+closed form go through ``harness.model.kernels.rows`` (leaf fills and ACA rows/columns in
 numba, GIL released); the general Matern family goes through the kernel's numpy path
 one row or column at a time.
 """
@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.kernels.base import Kernel
-from harness.kernels.rows import family_code, fill_block, mode_for
+from harness.model.kernels.classes import Kernel
+from harness.model.kernels.rows import family_code, fill_block, mode_for
 from harness.solvers.hodlr.aca import LowRank, aca_callable, aca_compiled, recompress
 from harness.solvers.hodlr.merge import merge_quarters
 

@@ -24,7 +24,7 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from harness.geometry.tree import ClusterTree, build_tree
-from harness.kernels.base import Kernel
+from harness.model.kernels.classes import Kernel
 from harness.solvers.hodlr.compressed import HodlrMatrix, LevelRanks, build_hodlr
 from harness.solvers.hodlr.derivatives import (
     compress_lengthscale_derivative,

@@ -1,0 +1,333 @@
+"""Regression comparison of a new run against a baseline run, task by task.
+
+Tasks are paired by ``key``. Two kinds of check, each a small frozen object with
+``fails(current, baseline)``:
+
+- ``AccuracyCheck``: an error metric regresses when current > factor * baseline and
+  current > floor (the floor keeps round-off-level noise from failing a build);
+- ``SpeedCheck``: a time (or memory) regresses when median(current) / median(baseline)
+  exceeds ``ratio`` and, when both sides have at least two repeats, the one-sided
+  Mann-Whitney U test (scipy.stats.mannwhitneyu, alternative "greater") rejects equality
+  at level ``alpha`` (Mann & Whitney, Ann. Math. Statist. 18, 1947). With a single
+  measurement the ratio alone decides, and the finding says so.
+
+A task that finished in the baseline and failed in the new run is a regression as well.
+Default factors and floors are common practice chosen for covaudit, not a published
+standard; override them per metric (``parse_check("logdet_abs_err:2x")``).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from collections.abc import Iterable, Mapping, Sequence
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from harness.analysis.load import RunData
+from harness.grid.store.columns import ACCURACY_COLUMNS, PHASES
+
+COMPARISON_FILE = "comparison.json"
+
+#: Absolute floors under which an error metric never counts as a regression
+#: (common practice chosen here: round-off-level for float64 quantities, a small
+#: fraction of the verdict limits for statistical ones).
+ACCURACY_FLOORS: dict[str, float] = {
+    "logdet_abs_err": 1e-6, "logdet_rel_err": 1e-10,
+    "quad_abs_err": 1e-6, "quad_rel_err": 1e-10,
+    "loglik_abs_err": 1e-6,
+    "solve_fwd_err": 1e-10, "solve_residual": 1e-12,
+    "factor_err": 1e-12,
+    "score_err_fisher_max": 1e-4, "param_shift_se_max": 1e-4,
+    "shift_nats": 1e-8, "microergodic_shift_se": 1e-4,
+    "trace_rel_err_max": 1e-6, "trace_z_max": 3.0,
+    "kriging_mean_err_sd_max": 1e-5, "kriging_var_rel_err_max": 1e-8,
+    "mle_shift_se_max": 1e-3,
+}
+DEFAULT_ACCURACY_FACTOR = 2.0
+DEFAULT_SPEED_RATIO = 1.25
+DEFAULT_SPEED_METRICS: tuple[str, ...] = ("t_factor", "t_total")
+COST_METRICS: frozenset[str] = frozenset(
+    {f"t_{p}" for p in PHASES} | {"peak_rss_bytes", "peak_traced_bytes", "nbytes"})
+
+
+class CheckSyntaxError(ValueError):
+    """A ``--fail-on`` specification cannot be parsed."""
+
+
+@dataclass(frozen=True)
+class AccuracyCheck:
+    """Error metric regression: current > factor * baseline and current > floor."""
+
+    metric: str
+    factor: float = DEFAULT_ACCURACY_FACTOR
+    floor: float = 0.0
+
+    def fails(self, current: float, baseline: float) -> bool:
+        """True when ``current`` is a regression of ``baseline`` (NaN never fails)."""
+        if not (math.isfinite(current) and math.isfinite(baseline)):
+            return False
+        return current > self.floor and current > self.factor * baseline
+
+    def to_dict(self) -> dict[str, object]:
+        return {"kind": "accuracy", **asdict(self)}
+
+
+@dataclass(frozen=True)
+class SpeedOutcome:
+    """Ratio of medians and, where repeats allow, the Mann-Whitney p-value."""
+
+    ratio: float
+    p_value: float  # NaN when not tested
+    tested: bool
+    regressed: bool
+
+    def to_dict(self) -> dict[str, object]:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class SpeedCheck:
+    """Time/memory regression: median ratio > ``ratio`` and significant at ``alpha``."""
+
+    metric: str
+    ratio: float = DEFAULT_SPEED_RATIO
+    alpha: float = 0.05
+
+    def assess(self, current: Sequence[float], baseline: Sequence[float]) -> SpeedOutcome:
+        cur = np.asarray([v for v in current if math.isfinite(v)], dtype=float)
+        base = np.asarray([v for v in baseline if math.isfinite(v)], dtype=float)
+        if cur.size == 0 or base.size == 0 or np.median(base) <= 0:
+            return SpeedOutcome(float("nan"), float("nan"), False, False)
+        ratio = float(np.median(cur) / np.median(base))
+        if cur.size >= 2 and base.size >= 2:
+            p = float(stats.mannwhitneyu(cur, base, alternative="greater").pvalue)
+            return SpeedOutcome(ratio, p, True, bool(ratio > self.ratio and p <= self.alpha))
+        return SpeedOutcome(ratio, float("nan"), False, bool(ratio > self.ratio))
+
+    def fails(self, current: Sequence[float], baseline: Sequence[float]) -> bool:
+        """True when the per-repeat measurements ``current`` regress from ``baseline``."""
+        return self.assess(current, baseline).regressed
+
+    def to_dict(self) -> dict[str, object]:
+        return {"kind": "speed", **asdict(self)}
+
+
+Check = AccuracyCheck | SpeedCheck
+
+
+def parse_check(spec: str) -> Check:
+    """Parse ``METRIC:FACTORx[:FLOOR]`` (FLOOR only for error metrics).
+
+    >>> parse_check("logdet_abs_err:2x")
+    AccuracyCheck(metric='logdet_abs_err', factor=2.0, floor=1e-06)
+    """
+    parts = spec.split(":")
+    if len(parts) not in (2, 3) or not parts[1].lower().endswith("x"):
+        raise CheckSyntaxError(f"--fail-on {spec!r}: expected METRIC:FACTORx[:FLOOR], "
+                               "e.g. logdet_abs_err:2x or t_factor:1.25x")
+    metric = parts[0].strip()
+    try:
+        factor = float(parts[1][:-1])
+        floor = float(parts[2]) if len(parts) == 3 else None
+    except ValueError as exc:
+        raise CheckSyntaxError(f"--fail-on {spec!r}: factor and floor must be numbers") \
+            from exc
+    if not (math.isfinite(factor) and factor >= 1):
+        raise CheckSyntaxError(f"--fail-on {spec!r}: the factor must be >= 1, got {factor}")
+    if metric in ACCURACY_COLUMNS:
+        return AccuracyCheck(metric, factor,
+                             ACCURACY_FLOORS.get(metric, 0.0) if floor is None else floor)
+    if metric in COST_METRICS:
+        if floor is not None:
+            raise CheckSyntaxError(f"--fail-on {spec!r}: a floor applies to error metrics "
+                                   "only")
+        return SpeedCheck(metric, factor)
+    known = ", ".join(sorted(ACCURACY_COLUMNS) + sorted(COST_METRICS))
+    raise CheckSyntaxError(f"--fail-on {spec!r}: unknown metric {metric!r}; known: {known}")
+
+
+def default_checks(*, accuracy_only: bool = False,
+                   overrides: Iterable[Check] = ()) -> tuple[Check, ...]:
+    """Every error metric at 2x over its floor, t_factor and t_total at 1.25x; overrides
+    replace the default for their metric (and add metrics not checked by default)."""
+    checks: dict[str, Check] = {m: AccuracyCheck(m, DEFAULT_ACCURACY_FACTOR, f)
+                                for m, f in ACCURACY_FLOORS.items()}
+    for m in DEFAULT_SPEED_METRICS:
+        checks[m] = SpeedCheck(m)
+    for c in overrides:
+        checks[c.metric] = c
+    return tuple(c for c in checks.values()
+                 if not (accuracy_only and isinstance(c, SpeedCheck)))
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One regression of one task."""
+
+    key: str
+    task: str
+    metric: str
+    kind: str  # accuracy | speed | status
+    baseline: float
+    current: float
+    ratio: float
+    threshold: float
+    p_value: float = float("nan")
+    note: str = ""
+
+    def to_dict(self) -> dict[str, object]:
+        return asdict(self)
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """The outcome of comparing ``new`` against ``baseline``."""
+
+    baseline: str
+    new: str
+    checks: tuple[dict[str, object], ...]
+    paired: int
+    findings: tuple[Finding, ...]
+    missing: tuple[str, ...]  # keys in the baseline, absent from the new run
+    extra: tuple[str, ...]    # keys only in the new run
+    notes: tuple[str, ...] = field(default=())
+
+    @property
+    def regressed(self) -> bool:
+        return bool(self.findings)
+
+    def to_dict(self) -> dict[str, object]:
+        return {"baseline": self.baseline, "new": self.new, "checks": list(self.checks),
+                "paired": self.paired, "regressed": self.regressed,
+                "findings": [f.to_dict() for f in self.findings],
+                "missing": list(self.missing), "extra": list(self.extra),
+                "notes": list(self.notes)}
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Comparison:
+        return cls(baseline=str(data["baseline"]), new=str(data["new"]),
+                   checks=tuple(data.get("checks", ())), paired=int(data.get("paired", 0)),
+                   findings=tuple(_finding(f) for f in data.get("findings", ())),
+                   missing=tuple(data.get("missing", ())), extra=tuple(data.get("extra", ())),
+                   notes=tuple(data.get("notes", ())))
+
+
+def _task_label(row: pd.Series) -> str:
+    tol = row.get("tol")
+    tol_text = "" if tol is None or (isinstance(tol, float) and math.isnan(tol)) \
+        else f" tol={tol:g}"
+    n = row.get("n")
+    n_text = "" if n is None or (isinstance(n, float) and math.isnan(n)) else f" n={int(n)}"
+    seed = row.get("seed")
+    seed_text = "" if seed is None or (isinstance(seed, float) and math.isnan(seed)) \
+        else f" seed={int(seed)}"
+    return f"{row.get('case', '')}: {row.get('solver', '')}{tol_text}{n_text}{seed_text}"
+
+
+def _repeats(run: RunData, key: str, metric: str, row: pd.Series) -> list[float]:
+    if metric.startswith("t_") and not run.timings.empty:
+        t = run.timings
+        values = t.loc[(t["key"] == key) & (t["phase"] == metric[2:]), "seconds"]
+        if len(values):
+            return [float(v) for v in values]
+    value = row.get(metric, float("nan"))
+    return [float(value)] if pd.notna(value) else []
+
+
+def compare_runs(baseline: RunData, new: RunData, *,
+                 checks: Sequence[Check] | None = None) -> Comparison:
+    """Compare every task of ``new`` with the task of the same key in ``baseline``."""
+    checks = tuple(default_checks() if checks is None else checks)
+    base = baseline.results.drop_duplicates("key", keep="last").set_index("key")
+    cur = new.results.drop_duplicates("key", keep="last").set_index("key")
+    common = sorted(set(base.index) & set(cur.index))
+    findings: list[Finding] = []
+    untested = 0
+    for key in common:
+        b, c = base.loc[key], cur.loc[key]
+        label = _task_label(c)
+        if b["status"] == "ok" and c["status"] == "failed":
+            findings.append(Finding(key, label, "status", "status", float("nan"),
+                                    float("nan"), float("nan"), float("nan"),
+                                    note=f"was ok, now failed: {c['error_type']} "
+                                         f"{c['error_message']}".strip()))
+            continue
+        if not (b["status"] == "ok" and c["status"] == "ok"):
+            continue
+        for check in checks:
+            if isinstance(check, AccuracyCheck):
+                bv, cv = float(b.get(check.metric, np.nan)), float(c.get(check.metric, np.nan))
+                if check.fails(cv, bv):
+                    ratio = cv / bv if bv > 0 else float("inf")
+                    findings.append(Finding(key, label, check.metric, "accuracy", bv, cv,
+                                            ratio, check.factor,
+                                            note=f"floor {check.floor:g}"))
+            else:
+                outcome = check.assess(_repeats(new, key, check.metric, c),
+                                       _repeats(baseline, key, check.metric, b))
+                if outcome.regressed:
+                    untested += not outcome.tested
+                    findings.append(Finding(
+                        key, label, check.metric, "speed",
+                        float(b.get(check.metric, np.nan)), float(c.get(check.metric, np.nan)),
+                        outcome.ratio, check.ratio, outcome.p_value,
+                        note="" if outcome.tested
+                        else "single measurement: significance not tested"))
+    notes = []
+    if untested:
+        notes.append(f"{untested} speed finding(s) rest on single measurements")
+    notes.extend(f"baseline: {n}" for n in baseline.notes)
+    notes.extend(f"new: {n}" for n in new.notes)
+    return Comparison(baseline=str(baseline.path), new=str(new.path),
+                      checks=tuple(ch.to_dict() for ch in checks), paired=len(common),
+                      findings=tuple(findings),
+                      missing=tuple(sorted(set(base.index) - set(cur.index))),
+                      extra=tuple(sorted(set(cur.index) - set(base.index))),
+                      notes=tuple(notes))
+
+
+def write_comparison(comparison: Comparison, path: str | Path) -> Path:
+    """Write ``comparison.json`` (sorted keys, so reruns give the same bytes)."""
+    p = Path(path)
+    if p.is_dir():
+        p = p / COMPARISON_FILE
+    tmp = p.with_suffix(".json.tmp")
+    tmp.write_text(json.dumps(_json_safe(comparison.to_dict()), indent=2, sort_keys=True)
+                   + "\n", encoding="utf-8")
+    tmp.replace(p)
+    return p
+
+
+def _json_safe(value: object) -> object:
+    """NaN and infinities become null (strict JSON); containers are walked."""
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    if isinstance(value, dict):
+        return {str(k): _json_safe(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_json_safe(v) for v in value]
+    if isinstance(value, np.generic):
+        return _json_safe(value.item())
+    return value
+
+
+def _finding(data: Mapping[str, Any]) -> Finding:
+    values = dict(data)
+    for name in ("baseline", "current", "ratio", "threshold", "p_value"):
+        values[name] = float("nan") if values.get(name) is None else float(values[name])
+    return Finding(**values)
+
+
+def load_comparison(path: str | Path) -> Comparison:
+    """Read a ``comparison.json`` written by ``write_comparison``."""
+    p = Path(path)
+    try:
+        return Comparison.from_dict(json.loads(p.read_text(encoding="utf-8")))
+    except (OSError, json.JSONDecodeError, KeyError, TypeError) as exc:
+        raise ValueError(f"{p}: not a readable comparison file ({exc})") from exc

@@ -1,0 +1,144 @@
+"""One model evaluation by a named reference or solver, as the CLI's ``evaluate`` needs it.
+
+Exact references (``dense``, ``statespace``, ``kronecker``) return their own exact
+record; compressed solvers and plugins go through the generic likelihood code with a
+trace estimator. Both end in the same ``SolverOutcome``.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from harness.likelihood import TRACE_CHOICES, evaluate_likelihood
+from harness.likelihood.traces import ExactTraceSizeError
+from harness.model import ReferenceEvaluation
+from harness.model.kernels import Kernel
+from harness.references import (
+    KroneckerReference,
+    SeparableKernel,
+    StateSpaceReference,
+    dense_evaluate,
+)
+from harness.solvers.fallback import SolverOutputError, SolverProtocolError
+from harness.solvers.plugins import SolverLoadError
+from harness.solvers.registry import SolverRuntimeError, resolve_solver
+
+
+class EvaluationError(ValueError):
+    """The requested solver cannot evaluate this model (wrong geometry, kernel, option)."""
+
+
+@dataclass(frozen=True)
+class SolverOptions:
+    """Options of ``covaudit evaluate`` that reach the solver."""
+
+    tol: float = 1e-8
+    leaf_size: int = 128
+    trace: str | None = None
+    probes: int = 64
+    seed: int = 0
+    separable: bool = False
+    memory_budget: int | None = None
+
+
+@dataclass(frozen=True)
+class SolverOutcome:
+    """What one evaluation produced, whichever path produced it."""
+
+    solver: str
+    reference: str
+    loglik: float
+    logdet: float
+    quadratic: float
+    beta: np.ndarray
+    score: np.ndarray | None
+    fisher: np.ndarray | None
+    certificate: float | None
+    seconds: Mapping[str, float]
+    notes: tuple[str, ...] = ()
+    extra: Mapping[str, Any] = field(default_factory=dict)
+
+
+def _from_reference(solver: str, ev: ReferenceEvaluation) -> SolverOutcome:
+    return SolverOutcome(solver=solver, reference=ev.reference, loglik=ev.loglik,
+                         logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta, score=ev.score,
+                         fisher=ev.fisher, certificate=ev.certificate, seconds=ev.seconds,
+                         notes=ev.notes)
+
+
+def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
+                         mean: str, reml: bool, score: bool, fisher: bool,
+                         options: SolverOptions) -> SolverOutcome:
+    """Evaluate L (and score, Fisher) at the kernel's parameters with ``solver``."""
+    if options.separable and solver not in ("kronecker", "dense"):
+        raise EvaluationError(
+            f"--separable is supported with --solver kronecker or dense, not {solver!r}")
+    if solver == "dense":
+        model = SeparableKernel(kernel) if options.separable else kernel
+        ev = dense_evaluate(points, y, model, mean=mean, reml=reml, score=score,
+                            fisher=fisher, memory_budget=options.memory_budget)
+        return _from_reference(solver, ev)
+    if solver == "statespace":
+        reference = StateSpaceReference(points, kernel)
+        if fisher:
+            raise EvaluationError("--fisher is not available with --solver statespace; "
+                                  "use --solver dense at moderate n")
+        return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score))
+    if solver == "kronecker":
+        if not options.separable:
+            raise EvaluationError(
+                "--solver kronecker evaluates separable (product) kernels only; add --separable "
+                "(a product of 1D kernels is a different model from the isotropic kernel)")
+        reference = KroneckerReference(points, SeparableKernel(kernel))
+        return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score,
+                                                          fisher=fisher))
+    return _compressed(solver, points, y, kernel, mean=mean, reml=reml, score=score,
+                       fisher=fisher, options=options)
+
+
+def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
+                reml: bool, score: bool, fisher: bool, options: SolverOptions) -> SolverOutcome:
+    """The built-in HODLR solver or a plugin, through the generic likelihood code."""
+    try:
+        resolved = resolve_solver(solver)
+    except SolverLoadError as exc:
+        raise EvaluationError(str(exc)) from exc
+    trace = options.trace or "hutchpp"
+    if trace not in TRACE_CHOICES:
+        raise EvaluationError(f"--trace {trace!r}: choose one of {', '.join(TRACE_CHOICES)}")
+    streams = np.random.default_rng(options.seed).spawn(2)
+    factor_options: dict[str, Any] = {}
+    if resolved.name == "hodlr":
+        factor_options = {"leaf_size": options.leaf_size, "rng": streams[0]}
+    start = time.perf_counter()
+    try:
+        factorization = resolved.factorize(points, kernel, kernel.theta, tol=options.tol,
+                                           **factor_options)
+        seconds_factor = time.perf_counter() - start
+        ev = evaluate_likelihood(factorization, points, y, kernel, mean=mean, reml=reml,
+                                 score=score, trace=trace, probes=options.probes,
+                                 rng=streams[1], fisher=fisher)
+    except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
+            ExactTraceSizeError) as exc:
+        raise EvaluationError(str(exc)) from exc
+    seconds = {"factor": seconds_factor, **ev.seconds}
+    trace_info: dict[str, Any] | None = None
+    if ev.score is not None:
+        trace_info = {
+            "method": ev.trace_method, "probes": ev.probes, "solves": ev.solves,
+            "matvecs": ev.matvecs,
+            "estimate": dict(zip(kernel.param_names, map(float, ev.trace_estimate),
+                                 strict=True)),
+            "stderr": dict(zip(kernel.param_names, map(float, ev.trace_stderr), strict=True)),
+        }
+    extra = {"tol": options.tol, "trace": trace_info, "nbytes": int(factorization.nbytes),
+             "ranks": factorization.ranks, "solver_info": resolved.to_dict()}
+    return SolverOutcome(solver=resolved.name, reference="none", loglik=ev.loglik,
+                         logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta,
+                         score=ev.score, fisher=ev.fisher, certificate=None, seconds=seconds,
+                         notes=ev.notes, extra=extra)

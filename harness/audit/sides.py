@@ -1,0 +1,127 @@
+"""What one factorization (exact or compressed) says at the fitted parameters.
+
+For the audit both the reference and the solver under test are reduced to the same
+quantities at the same theta, the same data and the same probe vectors Z:
+
+* L, beta, a = Sigma^-1 r (GLS, ``harness.likelihood.whitening.fit_mean``);
+* q_i = a' Sigma_i a, the quadratic part of the score (R&W 2006, eq. 5.9);
+* S_i Z = Sigma^-1 Sigma_i Z for Rademacher probes Z, so that the *difference* of the
+  trace terms tr(S~_i - S_i) is estimated by Hutchinson's estimator on the difference
+  operator (common random numbers). Its variance 2 ||S~_i - S_i||_F^2 / k (Hutchinson
+  1990, Commun. Statist. Simul. 19) is that of the small difference, not of the whole
+  trace, so the compression error of the score is resolved far below the estimator
+  noise of a trace estimate made on its own;
+* kriging at the held-out points (mean, latent variance) and the universal-kriging
+  weights needed by the loss-of-efficiency criteria (``efficiency``).
+
+For the dense reference the derivative products Sigma_i [a, Z] come from one pass over
+row blocks of the kernel's derivative blocks (all parameters at once).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from harness.likelihood import kriging
+from harness.likelihood.whitening import fit_mean
+from harness.model import design_matrix
+from harness.model.kernels import Kernel
+from harness.references import DenseCholesky
+
+_ROWS = 1024
+
+
+@dataclass(frozen=True)
+class Side:
+    """Quantities of one factorization at the fitted parameters (module docstring).
+
+    ``seconds`` holds ``factor`` (building the factorization), ``loglik`` (log det and
+    the GLS fit) and ``extras`` (score pieces, kriging).
+    """
+
+    name: str
+    loglik: float
+    beta: np.ndarray
+    quad: np.ndarray
+    sinv_deriv_probes: np.ndarray      # (p, n, k)
+    krige_mean: np.ndarray
+    krige_var: np.ndarray
+    weights: np.ndarray                # (n, m) kriging weights at the held-out points
+    seconds: dict[str, float]
+    nbytes: int
+
+    @property
+    def loglik_seconds(self) -> float:
+        """Time for one log-likelihood: factorization plus log det and GLS fit."""
+        return self.seconds["factor"] + self.seconds["loglik"]
+
+
+def rademacher(n: int, k: int, rng: np.random.Generator) -> np.ndarray:
+    """n x k matrix of independent +-1 entries."""
+    return rng.choice(np.array([-1.0, 1.0]), size=(n, k))
+
+
+def _dense_derivative_products(points: np.ndarray, kernel: Kernel, vectors: np.ndarray
+                               ) -> np.ndarray:
+    """Sigma_i @ vectors for every parameter i, shape (p, n, c), by row blocks."""
+    n = points.shape[0]
+    idx = np.arange(n)
+    out = np.empty((kernel.n_params, n, vectors.shape[1]))
+    for r0 in range(0, n, _ROWS):
+        r1 = min(n, r0 + _ROWS)
+        _, derivs = kernel.block_with_derivatives(points, idx[r0:r1], idx)
+        out[:, r0:r1] = derivs @ vectors
+    return out
+
+
+def kriging_weights(fac: object, points: np.ndarray, kernel: Kernel, new_points: np.ndarray,
+                    *, mean: str) -> np.ndarray:
+    """Universal-kriging weights lambda (n x m) of the factorization's model.
+
+    lambda = Sigma^-1 k* + Sigma^-1 F (F' Sigma^-1 F)^-1 (f* - F' Sigma^-1 k*)
+    (Cressie 1993, eq. 3.4.59; the second term vanishes for the zero mean).
+    """
+    cross = kernel.cross_covariance(points, new_points)
+    lam = np.asarray(fac.solve(cross))  # type: ignore[attr-defined]
+    design = design_matrix(points, mean)
+    if design.shape[1]:
+        sf = np.asarray(fac.solve(design))  # type: ignore[attr-defined]
+        gram = design.T @ sf
+        u = design_matrix(new_points, mean).T - design.T @ lam
+        lam = lam + sf @ np.linalg.solve(gram, u)
+    return lam
+
+
+def evaluate_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
+                  *, mean: str, probes: np.ndarray, new_points: np.ndarray,
+                  factor_seconds: float) -> Side:
+    """Reduce ``fac`` (of Sigma at ``kernel``'s parameters) to a ``Side``."""
+    seconds = {"factor": factor_seconds}
+    t0 = time.perf_counter()
+    logdet = float(fac.logdet())  # type: ignore[attr-defined]
+    design = design_matrix(points, mean)
+    fit, _ = fit_mean(fac, y, design, logdet)
+    seconds["loglik"] = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    a = np.asarray(fac.solve(y - design @ fit.beta))  # type: ignore[attr-defined]
+    stacked = np.column_stack([a, probes])
+    if isinstance(fac, DenseCholesky):
+        prods = _dense_derivative_products(points, kernel, stacked)
+    else:
+        prods = np.stack([np.asarray(fac.derivative_matvec(i, stacked))  # type: ignore[attr-defined]
+                          for i in range(kernel.n_params)])
+    quad = prods[:, :, 0] @ a
+    p, n, k = kernel.n_params, points.shape[0], probes.shape[1]
+    solved = np.asarray(fac.solve(  # type: ignore[attr-defined]
+        np.moveaxis(prods[:, :, 1:], 0, 1).reshape(n, p * k)))
+    sinv = np.moveaxis(solved.reshape(n, p, k), 1, 0)
+    pred = kriging(fac, points, y, kernel, new_points, mean=mean)
+    weights = kriging_weights(fac, points, kernel, new_points, mean=mean)
+    seconds["extras"] = time.perf_counter() - t0
+    return Side(name=name, loglik=fit.loglik, beta=fit.beta, quad=np.asarray(quad),
+                sinv_deriv_probes=sinv, krige_mean=pred.mean, krige_var=pred.variance,
+                weights=weights, seconds=seconds,
+                nbytes=int(getattr(fac, "nbytes", 0)))

@@ -1,0 +1,222 @@
+"""``covaudit check``: is a compression tolerance safe for my data?
+
+Reads a CSV/Parquet file, validates it, fits the covariance model by maximum
+likelihood (or takes ``--params``), audits every tolerance against the exact reference
+(``harness.check``), prints the verdict table and writes ``check.json`` and
+``check.html`` into ``--out``. Outputs are written to a temporary folder beside
+``--out`` and moved into place only when everything succeeded.
+Exit codes: 0 a safe tolerance was found, 1 none is safe, 2 bad input or an error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import os
+import shutil
+import sys
+import tempfile
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from harness.audit.verdict import Thresholds
+from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
+from harness.check.check_records import CheckResult
+from harness.check.datafile import DataFileError, load_observations
+from harness.check.fitting import FitError
+from harness.cli.params import ParamSyntaxError, parse_params
+from harness.model import MEAN_MODELS
+from harness.model.kernels import KERNELS, KernelParameterError
+from harness.report.check_report import render_check_report
+
+SHAPE_NAMES = ("nu", "alpha")
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> None:
+    p = subparsers.add_parser(
+        "check", help="is a compression tolerance safe for my dataset?",
+        description="Fit a Gaussian-process model to a dataset and audit a ladder of "
+                    "compression tolerances against the exact reference.")
+    p.add_argument("datafile", help="CSV or Parquet file with coordinates and values")
+    p.add_argument("--coords", required=True,
+                   help="comma-separated coordinate columns (lonlat: longitude,latitude)")
+    p.add_argument("--value", required=True, help="column of observed values")
+    p.add_argument("--kernel", default="matern32", help=f"one of: {', '.join(KERNELS)}")
+    p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
+                   help="shape parameter (nu, alpha) or an extra starting value "
+                        "(variance, lengthscale, nugget) for the fit")
+    p.add_argument("--params", nargs="+", default=None, metavar="NAME=VALUE",
+                   help="use these parameters and skip the fit (same syntax as "
+                        "evaluate --param)")
+    p.add_argument("--anisotropic", action="store_true",
+                   help="fit one length scale per coordinate")
+    p.add_argument("--no-nugget", action="store_true", help="fit without a nugget")
+    p.add_argument("--mean", choices=MEAN_MODELS, default="constant", help="mean model (GLS)")
+    p.add_argument("--tolerances", default="1e-2,1e-4,1e-6,1e-8,1e-10",
+                   help="comma-separated compression tolerances")
+    p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
+                   help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
+    p.add_argument("--holdout", type=float, default=0.1,
+                   help="fraction held out for kriging (default 0.1)")
+    p.add_argument("--drop-missing", action="store_true", help="drop rows with NaN/inf")
+    p.add_argument("--average-duplicates", action="store_true",
+                   help="average values at repeated locations")
+    p.add_argument("--probes", type=int, default=16,
+                   help="probe vectors of the score-difference estimate")
+    p.add_argument("--dense-fit-max-n", type=int, default=2000,
+                   help="largest n fitted with the dense reference (beyond: pilot fit + "
+                        "compressed polish)")
+    p.add_argument("--memory-budget", type=float, default=None, metavar="GIB",
+                   help="memory the dense reference may use, in GiB")
+    p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
+    p.add_argument("--out", default="reports/check", help="folder for check.json and "
+                                                          "check.html (default reports/check)")
+    p.add_argument("--json", action="store_true", help="one JSON object on standard output")
+    p.add_argument("--seed", type=int, default=0, help="seed of holdout, pilot and probes")
+
+
+def _tolerances(text: str) -> tuple[float, ...]:
+    try:
+        values = tuple(float(v) for v in text.split(",") if v.strip())
+    except ValueError:
+        raise CheckError(f"--tolerances {text!r}: expected comma-separated numbers, "
+                         "e.g. 1e-2,1e-4,1e-6") from None
+    if not values or any(not (math.isfinite(v) and 0 < v < 1) for v in values):
+        raise CheckError(f"--tolerances {text!r}: every tolerance must lie in (0, 1)")
+    return values
+
+
+def options_from_args(args: argparse.Namespace) -> CheckOptions:
+    """CheckOptions from the parsed command line."""
+    extra = parse_params(args.param)
+    shape = {k: float(v) for k, v in extra.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
+    start = {k: v for k, v in extra.items() if k not in SHAPE_NAMES}
+    if start and "lengthscale" not in start:
+        raise ParamSyntaxError("--param: a starting point needs lengthscale=... "
+                               "(variance and nugget are optional)")
+    fixed = parse_params(args.params) if args.params else None
+    if fixed is not None:
+        shape = shape | {k: float(v) for k, v in fixed.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
+        fixed = {k: v for k, v in fixed.items() if k not in SHAPE_NAMES}
+    budget = None if args.memory_budget is None else int(args.memory_budget * 2**30)
+    return CheckOptions(
+        kernel=args.kernel, shape=shape, anisotropic=args.anisotropic,
+        nugget=not args.no_nugget, mean=args.mean, tolerances=_tolerances(args.tolerances),
+        holdout=args.holdout, seed=args.seed, probes=args.probes, fixed_params=fixed,
+        start_params=start or None, thresholds=Thresholds(),
+        dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
+        refit=not args.no_refit)
+
+
+def _clean(value: Any) -> Any:
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(k): _clean(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [_clean(v) for v in value]
+    if isinstance(value, np.generic):
+        return _clean(value.item())
+    return value
+
+
+def json_text(result: CheckResult) -> str:
+    """The JSON output (non-finite numbers as null)."""
+    return json.dumps(_clean(result.to_dict()), indent=2, allow_nan=False)
+
+
+def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "check.html",
+                  json_name: str = "check.json", extra: dict[str, str] | None = None
+                  ) -> Path:
+    """Write the JSON, the HTML report and ``extra`` files (name -> text) into ``out``
+    atomically: everything goes to a temporary folder first and is renamed at the end."""
+    out = Path(out)
+    out.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}-", dir=out.parent))
+    try:
+        (tmp / json_name).write_text(json_text(result), encoding="utf-8")
+        for name, text in (extra or {}).items():
+            (tmp / name).parent.mkdir(parents=True, exist_ok=True)
+            (tmp / name).write_text(text, encoding="utf-8")
+        (tmp / html_name).write_text(render_check_report(result), encoding="utf-8")
+        out.mkdir(exist_ok=True)
+        for item in sorted(tmp.rglob("*")):
+            if item.is_file():
+                target = out / item.relative_to(tmp)
+                target.parent.mkdir(parents=True, exist_ok=True)
+                os.replace(item, target)
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+    return out
+
+
+def summary(result: CheckResult) -> str:
+    """The verdict table for the terminal."""
+    lines = [f"covaudit check: {result.source}: {result.n:,} points ({result.n_fit:,} fitted, "
+             f"{result.n_holdout:,} held out), kernel {result.kernel}, mean {result.mean}, "
+             f"reference {result.reference}",
+             "  parameters  " + ", ".join(f"{k} = {_short(v)}" for k, v in result.params.items()),
+             "  SE          " + ", ".join(f"{k} = {_short(v)}"
+                                          for k, v in result.se["natural"].items()),
+             f"  loglik      {result.loglik:.10g}"]
+    if result.se.get("microergodic") is not None:
+        lines.append(f"  s2/l^(2nu)  {result.se['microergodic']:.6g} "
+                     f"(SE {result.se['microergodic_se']:.3g})")
+    header = (f"  {'tol':>8} {'verdict':>8} {'dL (nat)':>11} {'shift/SE':>10} "
+              f"{'krig/SD':>10} {'MLOE':>10} {'MMOM':>10} {'speed-up':>9}")
+    lines += ["", header]
+    for row in result.tolerances:
+        if row.error:
+            lines.append(f"  {row.tol:>8.0e} {'unsafe':>8}  {row.error[:80]}")
+            continue
+        vals = [row.metric(n) for n in ("loglik_error", "param_shift_se", "kriging_mean_sd",
+                                        "mloe", "mmom")]
+        cells = " ".join(f"{(v.value if v else float('nan')):>10.3g}" for v in vals[1:])
+        lines.append(f"  {row.tol:>8.0e} {'safe' if row.safe else 'unsafe':>8} "
+                     f"{vals[0].value if vals[0] else float('nan'):>11.3g} {cells} "
+                     f"{row.speedup or float('nan'):>9.3g}")
+    lines.append("")
+    if result.recommended_tolerance is None:
+        lines.append("  recommendation: no tolerance in the list is safe")
+    else:
+        lines.append(f"  recommendation: tol {result.recommended_tolerance:g} "
+                     f"({result.speedup:.3g}x faster than {result.speedup_over})")
+    if result.refit:
+        lines.append(f"  refit at tol {result.refit.tol:g}: largest shift "
+                     f"{result.refit.max_shift_se:.3g} SE, loglik change "
+                     f"{result.refit.loglik_change:.3g} nat")
+    lines.append("  thresholds are common practice chosen for covaudit, not a published "
+                 "standard")
+    return "\n".join(lines)
+
+
+def _short(value: Any) -> str:
+    if isinstance(value, list):
+        return "(" + ", ".join(f"{v:.4g}" for v in value) + ")"
+    return f"{value:.4g}" if isinstance(value, float) else str(value)
+
+
+def run(args: argparse.Namespace) -> int:
+    def progress(message: str) -> None:
+        if not args.json:
+            print(f"  .. {message}", file=sys.stderr)
+
+    try:
+        options = options_from_args(args)
+        coords = [c.strip() for c in args.coords.split(",") if c.strip()]
+        obs = load_observations(args.datafile, coords=coords, value=args.value,
+                                drop_missing=args.drop_missing)
+        data = validate(obs, coord_system=args.coord_system,
+                        average_duplicates=args.average_duplicates)
+        result = run_check(data, options, source=str(args.datafile), progress=progress)
+        write_outputs(result, args.out)
+    except (DataFileError, CheckDataError, CheckError, KernelParameterError,
+            ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
+            OSError) as exc:
+        print(f"covaudit check: error: {exc}", file=sys.stderr)
+        return 2
+    print(json_text(result) if args.json else summary(result))
+    return 0 if result.recommended_tolerance is not None else 1

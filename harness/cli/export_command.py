@@ -1,0 +1,39 @@
+"""``covaudit export RUNDIR --to DIR``: methods-section table, figures and paragraph."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from harness.analysis.load import RunDirError
+from harness.report.export import export_methods
+
+EXIT_OK, EXIT_ERROR = 0, 2
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "export", help="write the scaling table, figures and a methods paragraph",
+        description="Write scaling.tex (booktabs), scaling.md, methods.txt and every figure "
+                    "as PDF and SVG into DIR.")
+    parser.add_argument("run_dir", metavar="RUNDIR", help="run directory")
+    parser.add_argument("--to", required=True, metavar="DIR", help="output directory")
+    parser.add_argument("--seed", type=int, default=0,
+                        help="seed of the bootstrap intervals (default 0)")
+    parser.add_argument("--level", type=float, default=0.95,
+                        help="confidence level of the intervals (default 0.95)")
+    return parser
+
+
+def run(args: argparse.Namespace) -> int:
+    if not 0 < args.level < 1:
+        print(f"covaudit export: --level must lie in (0, 1), got {args.level}", file=sys.stderr)
+        return EXIT_ERROR
+    try:
+        result = export_methods(args.run_dir, to=args.to, seed=args.seed, level=args.level)
+    except (RunDirError, OSError) as exc:
+        print(f"covaudit export: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    for path in result.files:
+        print(path)
+    return EXIT_OK

@@ -1,0 +1,60 @@
+"""``covaudit report RUNDIR``: write the self-contained HTML report of a run."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+
+from harness.analysis.load import RunDirError, load_run
+from harness.audit.verdict import ThresholdError, Thresholds
+from harness.report import write_report
+from harness.report.run_report import thresholds_for
+
+EXIT_OK, EXIT_FINDING, EXIT_ERROR = 0, 1, 2
+
+
+def add_threshold_options(parser: argparse.ArgumentParser) -> None:
+    """Options overriding the verdict limits (defaults: the case file's ``[verdict]``)."""
+    group = parser.add_argument_group("verdict limits (common practice, not a standard)")
+    group.add_argument("--verdict-from", metavar="CASE.toml",
+                       help="read the limits from this case file's [verdict] table "
+                            "(default: the run's own case file)")
+    group.add_argument("--loglik-nats", type=float, metavar="X",
+                       help="largest |log-likelihood error| in nats (default 0.1)")
+    group.add_argument("--param-shift-se", type=float, metavar="X",
+                       help="largest implied parameter shift in SE (default 0.1)")
+    group.add_argument("--kriging-mean-sd", type=float, metavar="X",
+                       help="largest kriging mean error in predictive SD (default 0.05)")
+    group.add_argument("--trace-min-fraction", type=float, metavar="X",
+                       help="smallest share of trace z-scores within +-2 (default 0.8)")
+
+
+def thresholds_from_args(args: argparse.Namespace, base: Thresholds) -> Thresholds:
+    """``base`` (or ``--verdict-from``) with the command-line overrides applied."""
+    th = Thresholds.from_case_file(args.verdict_from) if args.verdict_from else base
+    return th.with_overrides(loglik_nats=args.loglik_nats, param_shift_se=args.param_shift_se,
+                             kriging_mean_sd=args.kriging_mean_sd,
+                             trace_min_fraction=args.trace_min_fraction)
+
+
+def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "report", help="write the HTML report of a run directory",
+        description="Write one self-contained HTML file (figures embedded, no scripts) "
+                    "with verdicts, accuracy, scaling fits, failures and environment.")
+    parser.add_argument("run_dir", metavar="RUNDIR", help="run directory")
+    parser.add_argument("--out", metavar="FILE",
+                        help="output file (default RUNDIR/report.html)")
+    add_threshold_options(parser)
+    return parser
+
+
+def run(args: argparse.Namespace) -> int:
+    try:
+        thresholds = thresholds_from_args(args, thresholds_for(load_run(args.run_dir)))
+        path = write_report(args.run_dir, out=args.out, thresholds=thresholds)
+    except (RunDirError, ThresholdError, ValueError, OSError) as exc:
+        print(f"covaudit report: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    print(path)
+    return EXIT_OK

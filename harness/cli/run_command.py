@@ -1,0 +1,158 @@
+"""``covaudit run CASEFILE``: run a case grid into a resumable run directory."""
+
+from __future__ import annotations
+
+import argparse
+import importlib.util
+import logging
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+logger = logging.getLogger(__name__)
+
+EXIT_OK, EXIT_FINDING, EXIT_ERROR, EXIT_INTERRUPTED = 0, 1, 2, 130
+
+
+def add_parser(subparsers: Any) -> argparse.ArgumentParser:
+    parser = subparsers.add_parser(
+        "run", help="run a case grid (resumable)",
+        description="Run every task of a case file and store the results in a run directory. "
+                    "Rerunning with the same --out skips finished tasks. Exit 0 when every "
+                    "task finished or was skipped, 1 when some failed, 2 on bad input.")
+    add_arguments(parser)
+    return parser
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("casefile", metavar="CASEFILE", help="case grid (TOML)")
+    parser.add_argument("--out", metavar="DIR", default=None,
+                        help="run directory (default: reports/<case name>)")
+    where = parser.add_mutually_exclusive_group()
+    where.add_argument("--workers", type=int, metavar="N", default=None,
+                       help="local worker processes (default: run serially)")
+    where.add_argument("--dask-local", type=int, metavar="N", default=None,
+                       help="start a Dask LocalCluster with N single-threaded workers")
+    where.add_argument("--scheduler", metavar="ADDR", default=None,
+                       help="join the Dask scheduler at ADDR (e.g. tcp://host:8786)")
+    parser.add_argument("--redo-failed", action="store_true",
+                        help="redo tasks (and timings) that failed in an earlier run")
+    parser.add_argument("--only", metavar="KEY-PATTERN", action="append", default=None,
+                        help="run only tasks whose key or label matches (shell pattern or "
+                             "substring; repeatable)")
+
+
+class _Progress:
+    """tqdm bar of jobs done, failed and the time left; silent when not a terminal."""
+
+    def __init__(self) -> None:
+        from tqdm import tqdm
+
+        self.bar = tqdm(total=0, unit="job", disable=not sys.stderr.isatty(),
+                        dynamic_ncols=True, file=sys.stderr)
+        self.failed = 0
+        self.skipped = 0
+
+    def __call__(self, event: Any) -> None:
+        if event.kind == "planned":
+            self.bar.reset(total=event.total)
+        elif event.kind == "stage":
+            self.bar.set_description(event.stage)
+        elif event.kind == "done":
+            self.failed += event.status == "failed"
+            self.skipped += event.status == "skipped"
+            self.bar.set_postfix(failed=self.failed, skipped=self.skipped, refresh=False)
+            self.bar.update(1)
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+def _write_report(out: Path) -> Path | None:
+    """Call ``harness.report.write_report(run_dir)`` when that package exists."""
+    if importlib.util.find_spec("harness.report") is None:
+        return None
+    module = importlib.import_module("harness.report")
+    writer = getattr(module, "write_report", None)
+    if writer is None:
+        return None
+    return writer(out)
+
+
+def run(args: argparse.Namespace) -> int:
+    from harness.grid.cases import CaseFileError, load_case
+    from harness.grid.runner import make_backend, run_grid, select_tasks
+    from harness.grid.store import OutputDirectoryError, RunStore
+
+    try:
+        case = load_case(args.casefile)
+    except CaseFileError as exc:
+        print(f"covaudit run: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    tasks = select_tasks(case.tasks(), args.only)
+    if not tasks:
+        print(f"covaudit run: no task of {args.casefile} matches --only {args.only}",
+              file=sys.stderr)
+        return EXIT_ERROR
+    out = Path(args.out) if args.out else Path("reports") / case.name
+    store = RunStore(out)
+    try:
+        store.prepare()
+    except OutputDirectoryError as exc:
+        print(f"covaudit run: {exc.strerror}", file=sys.stderr)
+        return EXIT_ERROR
+    try:
+        backend = make_backend(workers=args.workers, dask_local=args.dask_local,
+                               scheduler=args.scheduler)
+    except (ValueError, OSError) as exc:
+        print(f"covaudit run: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    progress = _Progress()
+    try:
+        summary = run_grid(tasks, store, backend, redo_failed=args.redo_failed,
+                           progress=progress, case_file=args.casefile,
+                           case_text=Path(args.casefile).read_text(encoding="utf-8"),
+                           case_info=case.to_dict())
+    except KeyboardInterrupt:
+        progress.close()
+        print(f"covaudit run: interrupted; finished tasks are kept in {out}; run the same "
+              "command again to resume", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except OutputDirectoryError as exc:
+        progress.close()
+        print(f"covaudit run: {exc.strerror}", file=sys.stderr)
+        return EXIT_ERROR
+    finally:
+        backend.close()
+    progress.close()
+    print(f"{case.name}: {summary.tasks} tasks; {summary.already_done} already done, "
+          f"{summary.ran} run ({summary.ok} ok, {summary.failed} failed, {summary.skipped} "
+          f"skipped), {summary.timed} timed, {summary.kept_failed} earlier failures kept; "
+          f"{summary.seconds:.1f} s -> {out}")
+    for line in summary.failures:
+        print(f"  failed: {line}")
+    try:
+        report = _write_report(out)
+    except Exception as exc:  # noqa: BLE001 - the results are stored; a report error is reported
+        print(f"covaudit run: the report could not be written: {type(exc).__name__}: {exc}",
+              file=sys.stderr)
+        report = None
+    if report is not None:
+        print(f"report: {report}")
+    return EXIT_FINDING if summary.failed or summary.timing_failed else EXIT_OK
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """``python -m harness.cli.run_command CASEFILE ...``: this verb alone."""
+    parser = argparse.ArgumentParser(prog="covaudit run")
+    add_arguments(parser)
+    logging.basicConfig(level=logging.WARNING, format="%(levelname)s %(name)s: %(message)s")
+    try:
+        return run(parser.parse_args(argv))
+    except KeyboardInterrupt:
+        return EXIT_INTERRUPTED
+
+
+if __name__ == "__main__":
+    sys.exit(main())

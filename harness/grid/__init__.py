@@ -1,0 +1,1 @@
+"""Audit grids: case files, tasks, execution backends and the result store."""

@@ -1,0 +1,1 @@
+"""Shipped case files (TOML); read them with ``harness.grid.cases.shipped``."""

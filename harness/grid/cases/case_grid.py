@@ -1,0 +1,143 @@
+"""The validated content of a case file: a grid of audit settings, expanded into tasks."""
+
+from __future__ import annotations
+
+import itertools
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+from harness.grid.tasks import METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec, Task
+
+
+@dataclass(frozen=True)
+class PointSetEntry:
+    """One ``[[pointsets]]`` table: where points come from, and the sizes and dimensions."""
+
+    spec: PointSetSpec
+    sizes: tuple[int, ...]
+    dims: tuple[int, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"spec": self.spec.to_dict(), "sizes": list(self.sizes), "dims": list(self.dims)}
+
+
+@dataclass(frozen=True)
+class KernelEntry:
+    """One ``[[kernels]]`` table: a family, its natural-scale parameters, separability."""
+
+    family: str
+    params: Mapping[str, Any]
+    separable: bool = False
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"family": self.family, "params": dict(self.params), "separable": self.separable}
+
+
+@dataclass(frozen=True)
+class SolverEntry:
+    """One ``[[solvers]]`` table, resolved: name, version, tolerances, factory options."""
+
+    name: str
+    version: str
+    tolerances: tuple[float | None, ...]
+    options: Mapping[str, Any] = field(default_factory=dict)
+    max_n: int | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "version": self.version, "max_n": self.max_n,
+                "tolerances": list(self.tolerances), "options": dict(self.options)}
+
+
+@dataclass(frozen=True)
+class Case:
+    """A validated case grid; ``tasks()`` is the cross product.
+
+    The product runs over point sets x sizes x dimensions x kernels x mean models x
+    solvers x tolerances x seeds; sizes above a solver's ``max_n`` are left out for it.
+    A tensor-grid point set takes only sizes that are perfect d-th powers (validation
+    rejects the others).
+    """
+
+    name: str
+    description: str
+    source: str
+    pointsets: tuple[PointSetEntry, ...]
+    kernels: tuple[KernelEntry, ...]
+    means: tuple[str, ...]
+    reml: bool
+    solvers: tuple[SolverEntry, ...]
+    seeds: tuple[int, ...]
+    trace_method: str = "hutchpp"
+    probes: int = 32
+    metrics: tuple[str, ...] = METRIC_GROUPS
+    holdout: int = 64
+    perturbation: float = 0.05
+    power_iterations: int = 20
+    references: tuple[str, ...] = REFERENCE_KINDS
+    ladder_factor: float = 100.0
+    sample_tol: float = 1e-10
+    memory_budget: int | None = None
+    time_budget: float | None = None
+    timing: bool = True
+    repeats: int = 3
+    warmup: int = 1
+    timing_threads: int = 1
+    exclusive_timing: bool = True
+
+    def to_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {}
+        for name in self.__dataclass_fields__:
+            value = getattr(self, name)
+            if name in ("pointsets", "kernels", "solvers"):
+                value = [entry.to_dict() for entry in value]
+            elif isinstance(value, tuple):
+                value = list(value)
+            out[name] = value
+        return out
+
+    def tasks(self) -> list[Task]:
+        """Every cell of the grid, in a deterministic order, without duplicates."""
+        out: list[Task] = []
+        seen: set[str] = set()
+        for entry in self.pointsets:
+            for n, d in itertools.product(entry.sizes, entry.dims):
+                for kern, mean, solver in itertools.product(self.kernels, self.means,
+                                                            self.solvers):
+                    if solver.max_n is not None and n > solver.max_n:
+                        continue
+                    for tol, seed in itertools.product(solver.tolerances, self.seeds):
+                        task = Task(
+                            case=self.name, pointset=entry.spec, n=n, d=d,
+                            kernel=kern.family, kernel_params=dict(kern.params),
+                            separable=kern.separable, mean=mean, reml=self.reml,
+                            solver=solver.name, solver_version=solver.version,
+                            solver_options=dict(solver.options), tol=tol, seed=seed,
+                            trace_method=self.trace_method, probes=self.probes,
+                            metrics=self.metrics, holdout=self.holdout,
+                            perturbation=self.perturbation,
+                            power_iterations=self.power_iterations,
+                            references=self.references, ladder_factor=self.ladder_factor,
+                            sample_tol=self.sample_tol, memory_budget=self.memory_budget,
+                            time_budget=self.time_budget, timing=self.timing,
+                            repeats=self.repeats, warmup=self.warmup,
+                            timing_threads=self.timing_threads,
+                            exclusive_timing=self.exclusive_timing,
+                        )
+                        if task.key not in seen:
+                            seen.add(task.key)
+                            out.append(task)
+        return out
+
+
+def is_perfect_power(n: int, d: int) -> bool:
+    side = round(n ** (1.0 / d))
+    return any((side + k) ** d == n for k in (-1, 0, 1) if side + k > 0)
+
+
+def grid_side(n: int, d: int) -> int:
+    side = round(n ** (1.0 / d))
+    for k in (-1, 0, 1):
+        if side + k > 0 and (side + k) ** d == n:
+            return side + k
+    raise ValueError(f"n = {n} is not a perfect {d}-th power; a tensor grid needs one")

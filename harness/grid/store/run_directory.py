@@ -1,0 +1,156 @@
+"""A run directory: one JSON file per task, aggregated tables, and run metadata.
+
+Layout::
+
+    DIR/run.json          case file, backend, environment, counts, schema version
+    DIR/tasks/KEY.json    one record per task (``grid.store.task_records``), written atomically
+    DIR/results.csv       one row per task
+    DIR/timings.csv       one row per timed sample
+
+Unreadable task files (truncated, not JSON, unknown schema) are skipped with a
+``CorruptRecordWarning`` naming the file and why; the task is then redone.
+"""
+
+from __future__ import annotations
+
+import errno
+import json
+import shutil
+import warnings
+from collections.abc import Iterable, Mapping
+from pathlib import Path
+from typing import Any
+
+from harness.grid.store.atomic import TEMP_PREFIX, atomic_write_json, atomic_write_text
+from harness.grid.store.tables import results_frame, timings_frame
+from harness.grid.store.task_records import RecordSchemaError, load_record
+
+RUN_SCHEMA = "covaudit.run"
+RUN_SCHEMA_VERSION = 1
+#: Free bytes an output directory must have before a run starts (records and tables).
+MIN_FREE_BYTES = 16 * 2**20
+
+
+class CorruptRecordWarning(UserWarning):
+    """A task file in a run directory could not be read and was skipped."""
+
+
+class OutputDirectoryError(OSError):
+    """The output directory cannot be created or written, or its disk is full."""
+
+
+class RunStore:
+    """The files of one run directory (see module docstring)."""
+
+    def __init__(self, path: str | Path) -> None:
+        self.path = Path(path)
+        self.tasks_dir = self.path / "tasks"
+
+    # -- checks ------------------------------------------------------------------------
+    def prepare(self, *, required_bytes: int = MIN_FREE_BYTES) -> None:
+        """Create the directory and prove it writable with room to spare, before any work.
+
+        Raises ``OutputDirectoryError`` saying which path failed and what to do.
+        """
+        try:
+            self.tasks_dir.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputDirectoryError(
+                exc.errno, f"cannot create output directory {str(self.path)!r}: "
+                           f"{exc.strerror}; choose another with --out") from None
+        probe = self.tasks_dir / f"{TEMP_PREFIX}probe"
+        try:
+            atomic_write_text(probe, "probe\n")
+            probe.unlink()
+        except OSError as exc:
+            what = ("the disk is full" if exc.errno in (errno.ENOSPC, errno.EDQUOT)
+                    else f"it is not writable ({exc.strerror})")
+            raise OutputDirectoryError(
+                exc.errno, f"output directory {str(self.path)!r}: {what}; free space or "
+                           "choose another with --out") from None
+        free = shutil.disk_usage(self.path).free
+        if free < required_bytes:
+            raise OutputDirectoryError(
+                errno.ENOSPC, f"output directory {str(self.path)!r} has {free:,} bytes free; "
+                              f"a run needs at least {required_bytes:,}; free space or choose "
+                              "another with --out")
+
+    # -- records -----------------------------------------------------------------------
+    def record_path(self, key: str) -> Path:
+        return self.tasks_dir / f"{key}.json"
+
+    def write_record(self, record: Mapping[str, Any]) -> Path:
+        return atomic_write_json(self.record_path(record["key"]), dict(record))
+
+    def read_record(self, key: str) -> dict[str, Any] | None:
+        path = self.record_path(key)
+        if not path.exists():
+            return None
+        return self._read(path)
+
+    def _read(self, path: Path) -> dict[str, Any] | None:
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+            return load_record(data, source=str(path))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as exc:
+            warnings.warn(f"{path}: unreadable task record skipped ({type(exc).__name__}: "
+                          f"{exc}); the task will be redone", CorruptRecordWarning,
+                          stacklevel=3)
+        except RecordSchemaError as exc:
+            warnings.warn(f"{exc}; skipped", CorruptRecordWarning, stacklevel=3)
+        return None
+
+    def records(self) -> dict[str, dict[str, Any]]:
+        """Every readable record by key (temporary files ignored, corrupt ones warned about)."""
+        out: dict[str, dict[str, Any]] = {}
+        if not self.tasks_dir.is_dir():
+            return out
+        for path in sorted(self.tasks_dir.glob("*.json")):
+            if path.name.startswith(TEMP_PREFIX):
+                continue
+            record = self._read(path)
+            if record is not None:
+                out[record["key"]] = record
+        return out
+
+    def remove_stale_temporaries(self) -> int:
+        """Delete temporary files left by a killed writer; returns how many."""
+        count = 0
+        if self.tasks_dir.is_dir():
+            for path in self.tasks_dir.glob(f"{TEMP_PREFIX}*"):
+                try:
+                    path.unlink()
+                    count += 1
+                except FileNotFoundError:
+                    pass
+        return count
+
+    # -- run-level files ---------------------------------------------------------------
+    def write_run(self, info: Mapping[str, Any]) -> Path:
+        body = {"schema": RUN_SCHEMA, "schema_version": RUN_SCHEMA_VERSION, **info}
+        return atomic_write_json(self.path / "run.json", body)
+
+    def read_run(self) -> dict[str, Any] | None:
+        path = self.path / "run.json"
+        if not path.exists():
+            return None
+        try:
+            data = json.loads(path.read_text(encoding="utf-8"))
+        except (OSError, json.JSONDecodeError) as exc:
+            warnings.warn(f"{path}: unreadable ({exc}); ignored", CorruptRecordWarning,
+                          stacklevel=2)
+            return None
+        if data.get("schema_version", 0) > RUN_SCHEMA_VERSION:
+            warnings.warn(f"{path}: written by a newer covaudit (run schema "
+                          f"{data.get('schema_version')}); ignored", CorruptRecordWarning,
+                          stacklevel=2)
+            return None
+        return data
+
+    def write_tables(self, records: Iterable[Mapping[str, Any]] | None = None) -> None:
+        """Rewrite results.csv and timings.csv from the records (atomically)."""
+        records = list(self.records().values() if records is None else records)
+        atomic_write_text(self.path / "results.csv", results_frame(records).to_csv(index=False))
+        atomic_write_text(self.path / "timings.csv", timings_frame(records).to_csv(index=False))
+
+

@@ -1,0 +1,227 @@
+"""Audit tasks: one cell of a case grid, with a stable key and its own random streams.
+
+A task holds only small, JSON-able parameters (never arrays); the worker rebuilds the
+points, kernel and data from them. Its key is a hash of the canonical parameters together
+with the solver's name and version, so the same cell gets the same key in every run and
+on every machine, and a changed solver version gets a new one.
+
+Random streams follow numpy's ``SeedSequence`` spawning (numpy's "Parallel random number
+generation" guide): the task's data stream is ``SeedSequence(seed, spawn_key=(data_id,))``
+with ``data_id`` a hash of the parameters that define the data (point set, size, kernel,
+mean model, hold-out size), and its children feed the points, the draw of y, the hold-out
+points, the trace probes and the power iteration. Every solver and tolerance of one
+cell therefore sees the same data, and any cell reruns alone with identical streams.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+
+#: Names of the child streams of a task's data SeedSequence, in spawn order.
+STREAMS: tuple[str, ...] = ("points", "sample", "holdout", "probes", "power", "solver")
+
+#: Metrics a case can ask for (see ``harness.audit.metrics``).
+METRIC_GROUPS: tuple[str, ...] = (
+    "loglik", "score", "perturbed", "trace", "factorization", "solve", "kriging",
+)
+
+#: Reference kinds in decreasing trust (DESIGN section 4); ``ladder`` is the stand-in.
+REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
+
+
+def canonical_json(value: Any) -> str:
+    """JSON with sorted keys and no whitespace: the form that is hashed."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
+
+
+def _digest(value: Any) -> str:
+    return hashlib.sha256(canonical_json(value).encode()).hexdigest()
+
+
+@dataclass(frozen=True)
+class PointSetSpec:
+    """Where the points come from: a named generator with options, or a data file.
+
+    Attributes
+    ----------
+    name : str
+        Label used in task labels and reports.
+    generator : str or None
+        A name from ``harness.geometry.pointsets.GENERATORS`` or ``tensor_grid``.
+    options : mapping
+        Keyword options of the generator.
+    file : str or None
+        Absolute path of a CSV file of coordinates (instead of a generator).
+    columns : tuple of str
+        Coordinate column names in ``file``.
+    value_column : str or None
+        Column of observed values in ``file``; when given, y is read, not drawn.
+    """
+
+    name: str
+    generator: str | None = None
+    options: Mapping[str, Any] = field(default_factory=dict)
+    file: str | None = None
+    columns: tuple[str, ...] = ()
+    value_column: str | None = None
+
+    def to_dict(self) -> dict[str, Any]:
+        out = asdict(self)
+        out["options"] = dict(self.options)
+        out["columns"] = list(self.columns)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> PointSetSpec:
+        return cls(name=data["name"], generator=data.get("generator"),
+                   options=dict(data.get("options") or {}), file=data.get("file"),
+                   columns=tuple(data.get("columns") or ()),
+                   value_column=data.get("value_column"))
+
+
+@dataclass(frozen=True)
+class Task:
+    """One audit cell: data, model, solver under test, and what to measure.
+
+    Attributes
+    ----------
+    case : str
+        Name of the case grid (not part of the key).
+    pointset : PointSetSpec
+    n, d : int
+        Number of observations and dimension.
+    kernel : str
+        Kernel family (``harness.model.kernels.KERNELS``).
+    kernel_params : mapping
+        Natural-scale parameters for ``make_kernel``; these are also the data-generating
+        parameters theta_0.
+    separable : bool
+        Use the product (separable) form of the kernel, ``harness.references.kronecker
+        .SeparableKernel``, which the Kronecker reference needs on tensor grids.
+    mean : str
+        ``zero``, ``constant`` or ``linear``.
+    reml : bool
+    solver, solver_version : str
+        Registry name (or ``module:factory``) and version of the solver under test.
+    solver_options : mapping
+        Extra keyword options of the solver factory.
+    tol : float or None
+        Compression tolerance (None for exact solvers such as ``dense``).
+    seed : int
+    trace_method : str
+        ``exact``, ``hutchinson`` or ``hutchpp``.
+    probes : int
+    metrics : tuple of str
+        Subset of ``METRIC_GROUPS``.
+    holdout : int
+        Number of held-out kriging points.
+    perturbation : float
+        Log-scale offset added to every entry of theta_0 for the perturbed-point gradient.
+    power_iterations : int
+        Iterations of the randomized norm estimate of Sigma - Sigma~.
+    references : tuple of str
+        Allowed reference kinds, in the order tried.
+    ladder_factor : float
+        The ladder reference is the solver at tol / ladder_factor.
+    sample_tol : float
+        Tolerance of the solver factorization used to draw y when the reference cannot.
+    memory_budget : int or None
+        Bytes the dense reference may use (None: the dense module's default).
+    time_budget : float or None
+        Seconds a task may be estimated to take; costlier tasks are skipped.
+    timing : bool
+    repeats, warmup : int
+    timing_threads : int
+        BLAS and numba threads while timing (accuracy work always uses one).
+    exclusive_timing : bool
+        Time after the parallel accuracy work, one task at a time.
+    """
+
+    case: str
+    pointset: PointSetSpec
+    n: int
+    d: int
+    kernel: str
+    kernel_params: Mapping[str, Any]
+    separable: bool
+    mean: str
+    reml: bool
+    solver: str
+    solver_version: str
+    solver_options: Mapping[str, Any]
+    tol: float | None
+    seed: int
+    trace_method: str = "hutchpp"
+    probes: int = 32
+    metrics: tuple[str, ...] = METRIC_GROUPS
+    holdout: int = 64
+    perturbation: float = 0.05
+    power_iterations: int = 20
+    references: tuple[str, ...] = REFERENCE_KINDS
+    ladder_factor: float = 100.0
+    sample_tol: float = 1e-10
+    memory_budget: int | None = None
+    time_budget: float | None = None
+    timing: bool = True
+    repeats: int = 3
+    warmup: int = 1
+    timing_threads: int = 1
+    exclusive_timing: bool = True
+
+    # -- identity -------------------------------------------------------------------
+    def to_dict(self) -> dict[str, Any]:
+        out = asdict(self)
+        out["pointset"] = self.pointset.to_dict()
+        out["kernel_params"] = dict(self.kernel_params)
+        out["solver_options"] = dict(self.solver_options)
+        out["metrics"] = list(self.metrics)
+        out["references"] = list(self.references)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> Task:
+        values = dict(data)
+        values["pointset"] = PointSetSpec.from_dict(values["pointset"])
+        values["metrics"] = tuple(values["metrics"])
+        values["references"] = tuple(values["references"])
+        values["kernel_params"] = dict(values["kernel_params"])
+        values["solver_options"] = dict(values["solver_options"])
+        return cls(**values)
+
+    def canonical(self) -> dict[str, Any]:
+        """The parameters that define the task's results (everything but the case name)."""
+        out = self.to_dict()
+        del out["case"]
+        return out
+
+    @property
+    def key(self) -> str:
+        """16 hex digits of sha256 over the canonical parameters (with solver version)."""
+        return _digest(self.canonical())[:16]
+
+    @property
+    def label(self) -> str:
+        """A readable name: ``pointset-n-d/kernel/solver@tol/mean/seed``."""
+        tol = "exact" if self.tol is None else f"{self.tol:.0e}"
+        kernel = self.kernel + ("-sep" if self.separable else "")
+        return (f"{self.pointset.name}-n{self.n}-d{self.d}/{kernel}/"
+                f"{self.solver}@{tol}/{self.mean}{'-reml' if self.reml else ''}/s{self.seed}")
+
+    def data_identity(self) -> dict[str, Any]:
+        """The parameters that define the data (shared by all solvers of one cell)."""
+        return {"pointset": self.pointset.to_dict(), "n": self.n, "d": self.d,
+                "kernel": self.kernel, "kernel_params": dict(self.kernel_params),
+                "separable": self.separable, "mean": self.mean, "holdout": self.holdout}
+
+    def streams(self) -> dict[str, np.random.Generator]:
+        """Independent generators named by ``STREAMS`` (see module docstring)."""
+        data_id = int(_digest(self.data_identity())[:8], 16)
+        root = np.random.SeedSequence(self.seed, spawn_key=(data_id,))
+        return {name: np.random.default_rng(child)
+                for name, child in zip(STREAMS, root.spawn(len(STREAMS)), strict=True)}

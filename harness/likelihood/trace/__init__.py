@@ -1,0 +1,29 @@
+"""Stochastic trace estimation of tr(Sigma^-1 Sigma_i) and the Fisher information."""
+
+from harness.likelihood.trace.estimators import (
+    TRACE_METHODS,
+    TraceEstimate,
+    estimate_traces,
+    hutchinson,
+    hutchpp,
+)
+from harness.likelihood.trace.operators import (
+    ExplicitOperators,
+    FactorizationOperators,
+    OperatorFamily,
+    Usage,
+)
+from harness.likelihood.trace.probes import rademacher_probes
+
+__all__ = [
+    "TRACE_METHODS",
+    "ExplicitOperators",
+    "FactorizationOperators",
+    "OperatorFamily",
+    "TraceEstimate",
+    "Usage",
+    "estimate_traces",
+    "hutchinson",
+    "hutchpp",
+    "rademacher_probes",
+]

@@ -1,0 +1,297 @@
+"""Assemble the report's content from a run directory and render the HTML template.
+
+Every string that comes from the run (case, solver, kernel and column names, error
+messages, run.json values) reaches the HTML either through jinja2 with autoescape on, or
+through ``DataFrame.to_html(escape=True)``; only those escaped tables are marked safe.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import jinja2
+import numpy as np
+import pandas as pd
+from markupsafe import Markup
+
+from harness import __version__
+from harness.analysis.load import RunData, load_run
+from harness.analysis.regression import COMPARISON_FILE, Comparison, load_comparison
+from harness.analysis.scaling_table import (
+    MEMORY_METRICS,
+    display_table,
+    scaling_rows,
+    solver_label,
+)
+from harness.audit.verdict import COMMON_PRACTICE, ThresholdError, Thresholds, VerdictSet, judge
+from harness.report import figures
+from harness.report.style import data_uri
+
+TEMPLATE = "report.html.j2"
+REPORT_FILE = "report.html"
+STATUS_TEXT = {"safe": "\u2714 safe", "unsafe": "\u2718 unsafe",
+               "incomplete": "? incomplete", "failed": "\u2718 no task finished"}
+CASE_TEXT_KEYS = ("case_text", "case_file_text", "case_file")
+TOC = (("summary", "Verdicts"), ("accuracy", "Accuracy"), ("cost", "Time and memory"),
+       ("trace", "Trace estimates"), ("failures", "Failures"),
+       ("environment", "Environment"), ("cautions", "Cautions"), ("results", "All results"))
+
+
+def _environment() -> jinja2.Environment:
+    return jinja2.Environment(loader=jinja2.PackageLoader("harness.report", "templates"),
+                              autoescape=True, undefined=jinja2.StrictUndefined,
+                              keep_trailing_newline=True)
+
+
+def _fmt(value: object) -> str:
+    if isinstance(value, float | np.floating):
+        if math.isnan(value):
+            return "\u2013"
+        if math.isinf(value):
+            return "\u221e" if value > 0 else "-\u221e"
+        return f"{value:.3g}"
+    return str(value)
+
+
+def html_table(frame: pd.DataFrame) -> Markup:
+    """An escaped HTML table (``to_html(escape=True)``), safe to insert verbatim."""
+    if frame.empty:
+        return Markup('<p class="empty">(none)</p>')
+    shown = frame.copy()
+    for column in shown.columns:
+        shown[column] = shown[column].map(_fmt)
+    return Markup(shown.to_html(index=False, escape=True, border=0, na_rep="\u2013"))
+
+
+def _dataset_label(dataset: Mapping[str, object]) -> str:
+    n = dataset.get("n")
+    n_text = f"n={int(n)}" if isinstance(n, int | float) and not math.isnan(n) else ""
+    parts = [str(dataset.get(k, "")) for k in ("case", "kernel", "geometry")]
+    return " / ".join(p for p in parts if p) + (f" / {n_text}" if n_text else "")
+
+
+def _recommendations(vs: VerdictSet) -> pd.DataFrame:
+    return pd.DataFrame([{
+        "dataset": _dataset_label(r.dataset), "solver": r.solver,
+        "recommended tol": r.tol, "speed-up": r.speedup,
+        "speed-up over": r.speedup_over, "reason": r.reason} for r in vs.recommendations])
+
+
+def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
+    records: dict[tuple[str, float], dict[str, object]] = {}
+    for v in vs.verdicts:
+        rec = records.setdefault((v.solver, v.tol), {
+            "solver": v.solver, "tol": v.tol, "\u2714 safe": 0, "\u2718 unsafe": 0,
+            "? incomplete": 0, "\u2718 no task finished": 0})
+        rec[STATUS_TEXT[v.status]] = int(rec[STATUS_TEXT[v.status]]) + 1
+    return pd.DataFrame([records[k] for k in sorted(records)])
+
+
+def _evidence_text(e: Any) -> str:
+    if not e.available:
+        return f"not available ({e.note})" if e.note else "not available"
+    verdict = "pass" if e.passed else "FAIL"
+    if math.isnan(e.value):
+        return f"{verdict} ({e.note})" if e.note else verdict
+    op = "\u2264" if e.passed else ">"
+    return f"{verdict}: {e.value:.3g} {op} {e.threshold:g}"
+
+
+def _verdict_detail(vs: VerdictSet) -> pd.DataFrame:
+    rows = []
+    for v in vs.verdicts:
+        rec: dict[str, object] = {"dataset": _dataset_label(v.dataset), "solver": v.solver,
+                                  "tol": v.tol, "verdict": STATUS_TEXT[v.status],
+                                  "tasks ok": v.tasks_ok, "failed": v.tasks_failed}
+        for e in v.evidence:
+            rec[e.metric] = _evidence_text(e)
+        rows.append(rec)
+    return pd.DataFrame(rows)
+
+
+def _trace_table(vs: VerdictSet) -> pd.DataFrame:
+    return pd.DataFrame([{
+        "solver": solver_label(t.solver, t.tol), "method": t.trace_method,
+        "probes": int(t.probes) if not math.isnan(t.probes) else t.probes,
+        "tasks": t.count, "inside": t.inside, "share": t.fraction, "p-value": t.p_value,
+        "flag": "\u2718 SE too small" if t.flagged else "\u2714 ok"} for t in vs.trace])
+
+
+def _failures(results: pd.DataFrame) -> pd.DataFrame:
+    bad = results[results["status"] != "ok"]
+    cols = ["status", "case", "solver", "tol", "kernel", "geometry", "n", "seed",
+            "error_type", "error_message"]
+    out = bad[cols].copy()
+    out["tol"] = out["tol"].map(lambda v: "exact" if pd.isna(v) else f"{v:g}")
+    out["n"] = out["n"].map(lambda v: "" if pd.isna(v) else str(int(v)))
+    out["seed"] = out["seed"].map(lambda v: "" if pd.isna(v) else str(int(v)))
+    return out.sort_values(["status", "solver", "n", "seed"], kind="stable")
+
+
+def _flatten(meta: Mapping[str, Any], prefix: str = "") -> list[tuple[str, str]]:
+    out: list[tuple[str, str]] = []
+    for key in sorted(meta):
+        if not prefix and key in CASE_TEXT_KEYS:
+            continue
+        value = meta[key]
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            out.extend(_flatten(value, f"{name}."))
+        elif isinstance(value, list):
+            out.append((name, ", ".join(map(str, value))))
+        else:
+            out.append((name, str(value)))
+    return out
+
+
+def _case_text(meta: Mapping[str, Any]) -> str:
+    for key in CASE_TEXT_KEYS:
+        if isinstance(meta.get(key), str):
+            return str(meta[key])
+    return ""
+
+
+def thresholds_for(run: RunData) -> Thresholds:
+    """The run's ``[verdict]`` limits: from ``run.json``'s ``case`` table, the case file text,
+    or the case file it names; the defaults when none is found or readable."""
+    case = run.meta.get("case")
+    try:
+        if isinstance(case, Mapping) and isinstance(case.get("verdict"), Mapping):
+            return Thresholds.from_mapping(case["verdict"], source="run.json case [verdict]")
+        text = _case_text(run.meta)
+        if text and "\n" not in text and Path(text).suffix == ".toml" and Path(text).is_file():
+            return Thresholds.from_case_file(text)
+        if text:
+            return Thresholds.from_case_text(text)
+    except (ThresholdError, OSError):
+        return Thresholds()
+    return Thresholds()
+
+
+def _thresholds_table(th: Thresholds) -> pd.DataFrame:
+    labels = {"loglik_nats": "|log-likelihood error| (nats)",
+              "param_shift_se": "implied parameter shift (SE)",
+              "kriging_mean_sd": "kriging mean error (predictive SD)",
+              "certificate_max": "dense reference certificate (scaled residual, below)",
+              "trace_z_limit": "trace |z| counted as inside",
+              "trace_min_fraction": "minimum share of trace z inside",
+              "trace_alpha": "binomial test level"}
+    return pd.DataFrame([{"limit": labels.get(k, k), "setting": k, "value": v}
+                         for k, v in th.to_dict().items()])
+
+
+def _comparison_context(comparison: Comparison) -> dict[str, object]:
+    findings = pd.DataFrame([{
+        "task": f.task, "metric": f.metric, "kind": f.kind, "baseline": f.baseline,
+        "new": f.current, "ratio": f.ratio, "limit": f.threshold, "p-value": f.p_value,
+        "note": f.note} for f in comparison.findings])
+    checks = pd.DataFrame([{k: v for k, v in c.items()} for c in comparison.checks])
+    n = len(comparison.findings)
+    headline = (f"\u2718 {n} regression(s) against the baseline" if n
+                else "\u2714 no regression against the baseline")
+    return {"regressed": comparison.regressed, "headline": headline,
+            "baseline": Path(comparison.baseline).name, "paired": comparison.paired,
+            "findings": html_table(findings) if n else "", "missing": list(comparison.missing),
+            "extra": list(comparison.extra), "notes": list(comparison.notes),
+            "checks": html_table(checks)}
+
+
+def _results_table(results: pd.DataFrame) -> pd.DataFrame:
+    keep = [c for c in results.columns
+            if results[c].notna().any() and not (results[c].astype(str) == "").all()]
+    order = [c for c in ("solver", "tol", "n", "seed") if c in keep]
+    return results[keep].sort_values(order, kind="stable", na_position="first")
+
+
+def render_report(run: RunData, *, comparison: Comparison | None = None,
+                  thresholds: Thresholds | None = None, level: float = 0.95,
+                  seed: int = 0) -> str:
+    """The report's HTML for ``run`` (same inputs give the same text).
+
+    Parameters
+    ----------
+    seed : int
+        Seed of the bootstrap stream (fixed so reports can be diffed).
+    """
+    th = thresholds or thresholds_for(run)
+    results = run.results
+    vs = judge(results, thresholds=th)
+    rows = scaling_rows(run, level=level, rng=np.random.default_rng(seed))
+    figs = {
+        "accuracy": figures.accuracy_vs_tolerance(results, thresholds=th),
+        "error_n": figures.error_vs_n(results, thresholds=th),
+        "time": figures.cost_vs_n(results, rows, metrics=("t_factor", "t_total")),
+        "memory": figures.cost_vs_n(results, rows, metrics=MEMORY_METRICS),
+        "trace": figures.trace_vs_probes(results),
+    }
+    cases = sorted(set(results["case"].astype(str)) - {""})
+    meta = run.meta
+    toc = list(TOC)
+    if comparison is not None:
+        toc.insert(1, ("comparison", "Comparison"))
+    context = {
+        "version": __version__, "title": ", ".join(cases) or run.path.name,
+        "run_name": run.path.name, "n_tasks": len(results),
+        "n_ok": int((results["status"] == "ok").sum()),
+        "n_failed": int((results["status"] == "failed").sum()),
+        "n_skipped": int((results["status"] == "skipped").sum()),
+        "started": str(meta.get("started", "")), "finished": str(meta.get("finished", "")),
+        "toc": toc,
+        "recommendations": html_table(_recommendations(vs))
+        if any(v.status != "failed" for v in vs.verdicts) else "",
+        "per_tolerance": html_table(_per_tolerance(vs)) if vs.verdicts else "",
+        "thresholds_note": "All limits below are " + COMMON_PRACTICE + ". The certificate "
+                           "limit is the pass ratio of LAPACK's own test suite.",
+        "thresholds_table": html_table(_thresholds_table(th)), "thresholds": th,
+        "verdict_detail": html_table(_verdict_detail(vs)) if vs.verdicts else "",
+        "figures": {k: (data_uri(f) if f is not None else "") for k, f in figs.items()},
+        "level_pct": f"{100 * level:g}",
+        "scaling": html_table(display_table(rows)) if any(r.fit for r in rows) else "",
+        "scaling_refused": sorted({f"{r.label}, {r.metric}: {r.refused}" for r in rows
+                                   if r.fit is None}),
+        "trace": html_table(_trace_table(vs)) if vs.trace else "",
+        "failures": html_table(_failures(results)) if (results["status"] != "ok").any()
+        else "",
+        "environment": html_table(pd.DataFrame(_flatten(meta), columns=["setting", "value"])),
+        "load_notes": list(run.notes), "case_text": _case_text(meta),
+        "comparison": _comparison_context(comparison) if comparison is not None else None,
+        "results": html_table(_results_table(results)),
+    }
+    return _environment().get_template(TEMPLATE).render(**context)
+
+
+def write_report(run_dir: str | Path, *, out: str | Path | None = None,
+                 comparison: Comparison | None = None,
+                 thresholds: Thresholds | None = None) -> Path:
+    """Write the self-contained HTML report of a run directory.
+
+    Parameters
+    ----------
+    run_dir : path
+        The run directory (see ``harness.analysis.load_run``).
+    out : path, optional
+        Output file; defaults to ``<run_dir>/report.html``.
+    comparison : Comparison, optional
+        Adds a comparison section; when omitted, ``<run_dir>/comparison.json`` is used if
+        present.
+    thresholds : Thresholds, optional
+        Defaults to the case file's ``[verdict]`` table, else ``Thresholds()``.
+
+    Returns
+    -------
+    Path
+        The file written.
+    """
+    run = load_run(run_dir)
+    if comparison is None and (run.path / COMPARISON_FILE).is_file():
+        comparison = load_comparison(run.path / COMPARISON_FILE)
+    target = Path(out) if out is not None else run.path / REPORT_FILE
+    html = render_report(run, comparison=comparison, thresholds=thresholds)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    tmp = target.with_name(target.name + ".tmp")
+    tmp.write_text(html, encoding="utf-8")
+    tmp.replace(target)
+    return target
