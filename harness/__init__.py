@@ -3,12 +3,11 @@
 The few names most scripts need; everything else lives in its own module.
 """
 
-__version__ = "0.1.0"
-
-from harness.likelihood import evaluate_likelihood, kriging  # noqa: E402
-from harness.model.kernels import KERNELS, make_kernel  # noqa: E402
-from harness.references import DenseCholesky, dense_evaluate, dense_kriging  # noqa: E402
-from harness.solvers import resolve_solver  # noqa: E402
+from harness._version import __version__
+from harness.likelihood import evaluate_likelihood, kriging
+from harness.model.kernels import KERNELS, make_kernel
+from harness.references import DenseCholesky, dense_evaluate, dense_kriging
+from harness.solvers import resolve_solver
 
 __all__ = [
     "KERNELS",

@@ -16,7 +16,7 @@ import pytest
 import scipy.stats
 from threadpoolctl import threadpool_limits
 
-from harness import __version__
+from harness._version import __version__
 from harness.likelihood import evaluate_likelihood
 from harness.model.kernels import Matern32
 from harness.solvers.fallback import (

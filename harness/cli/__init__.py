@@ -13,7 +13,7 @@ import logging
 import sys
 from collections.abc import Sequence
 
-from harness import __version__
+from harness._version import __version__
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
 VERBS: tuple[str, ...] = (

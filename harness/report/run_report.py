@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 from markupsafe import Markup
 
-from harness import __version__
+from harness._version import __version__
 from harness.analysis.load import RunData, load_run
 from harness.analysis.regression import COMPARISON_FILE, Comparison, load_comparison
 from harness.analysis.scaling_table import (

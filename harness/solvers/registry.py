@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness import __version__
+from harness._version import __version__
 from harness.model.kernels import Kernel
 from harness.solvers.fallback import AdaptedFactorization, adapt
 from harness.solvers.plugins import (
