@@ -1,19 +1,30 @@
 """Regression comparison of a new run against a baseline run, task by task.
 
-Tasks are paired by ``key``. Two kinds of check, each a small frozen object with
+Tasks are paired on ``pair_key``, a version-free hash of what the problem is (case,
+geometry, n, kernel, solver name, tolerance, options, seed; ``harness.grid.tasks
+.pair_key_of``); solver and library versions are recorded beside the result and their
+differences reported as ``version`` findings, which inform and never fail. A baseline
+written before ``pair_key`` existed pairs on ``key`` (which hashes the version) and the
+comparison says so. Two kinds of check, each a small frozen object with
 ``fails(current, baseline)``:
 
 - ``AccuracyCheck``: an error metric regresses when current > factor * baseline and
-  current > floor (the floor keeps round-off-level noise from failing a build);
+  current > floor (the floor keeps round-off-level noise from failing a build), and
+  when it was finite in the baseline and is NaN, infinite or absent now;
 - ``SpeedCheck``: a time (or memory) regresses when median(current) / median(baseline)
   exceeds ``ratio`` and, when both sides have at least two repeats, the one-sided
   Mann-Whitney U test (scipy.stats.mannwhitneyu, alternative "greater") rejects equality
   at level ``alpha`` (Mann & Whitney, Ann. Math. Statist. 18, 1947). With a single
-  measurement the ratio alone decides, and the finding says so.
+  measurement the ratio alone decides, and the finding says so. Speed is compared only
+  between runs whose machine fingerprints (CPU model, architecture, logical CPUs,
+  memory) agree; otherwise the speed checks are skipped with the reason, unless
+  ``speed_across_machines`` asks for them explicitly.
 
-A task that finished in the baseline and failed in the new run is a regression as well.
-Default factors and floors are common practice chosen for covaudit, not a published
-standard; override them per metric (``parse_check("logdet_abs_err:2x")``).
+The gate cannot pass silently: zero paired tasks, baseline tasks missing from the new run
+(unless ``allow_missing``), and a task that was ok in the baseline and is not now are
+regressions (``gate`` and ``status`` findings). Default factors and floors are common
+practice chosen for covaudit, not a published standard; override them per metric
+(``parse_check("logdet_abs_err:2x")``).
 """
 
 from __future__ import annotations
@@ -69,9 +80,15 @@ class AccuracyCheck:
     floor: float = 0.0
 
     def fails(self, current: float, baseline: float) -> bool:
-        """True when ``current`` is a regression of ``baseline`` (NaN never fails)."""
-        if not (math.isfinite(current) and math.isfinite(baseline)):
+        """True when ``current`` is a regression of ``baseline``.
+
+        A baseline that is not finite cannot be regressed from (nothing was measured);
+        a finite baseline whose current value is NaN or infinite is a regression.
+        """
+        if not math.isfinite(baseline):
             return False
+        if not math.isfinite(current):
+            return True
         return current > self.floor and current > self.factor * baseline
 
     def to_dict(self) -> dict[str, object]:
@@ -194,9 +211,13 @@ class Comparison:
     checks: tuple[dict[str, object], ...]
     paired: int
     findings: tuple[Finding, ...]
-    missing: tuple[str, ...]  # keys in the baseline, absent from the new run
-    extra: tuple[str, ...]    # keys only in the new run
+    missing: tuple[str, ...]  # pair keys in the baseline, absent from the new run
+    extra: tuple[str, ...]    # pair keys only in the new run
     notes: tuple[str, ...] = field(default=())
+    baseline_tasks: int = 0
+    pair_column: str = "pair_key"
+    versions: tuple[Finding, ...] = field(default=())  # informational, never a regression
+    speed: str = "compared"  # compared | skipped: <reason> | not requested | across machines
 
     @property
     def regressed(self) -> bool:
@@ -204,8 +225,10 @@ class Comparison:
 
     def to_dict(self) -> dict[str, object]:
         return {"baseline": self.baseline, "new": self.new, "checks": list(self.checks),
-                "paired": self.paired, "regressed": self.regressed,
+                "paired": self.paired, "baseline_tasks": self.baseline_tasks,
+                "pair_column": self.pair_column, "regressed": self.regressed,
                 "findings": [f.to_dict() for f in self.findings],
+                "versions": [f.to_dict() for f in self.versions], "speed": self.speed,
                 "missing": list(self.missing), "extra": list(self.extra),
                 "notes": list(self.notes)}
 
@@ -215,7 +238,11 @@ class Comparison:
                    checks=tuple(data.get("checks", ())), paired=int(data.get("paired", 0)),
                    findings=tuple(_finding(f) for f in data.get("findings", ())),
                    missing=tuple(data.get("missing", ())), extra=tuple(data.get("extra", ())),
-                   notes=tuple(data.get("notes", ())))
+                   notes=tuple(data.get("notes", ())),
+                   baseline_tasks=int(data.get("baseline_tasks", 0)),
+                   pair_column=str(data.get("pair_column", "key")),
+                   versions=tuple(_finding(f) for f in data.get("versions", ())),
+                   speed=str(data.get("speed", "compared")))
 
 
 def _task_label(row: pd.Series) -> str:
@@ -240,56 +267,184 @@ def _repeats(run: RunData, key: str, metric: str, row: pd.Series) -> list[float]
     return [float(value)] if pd.notna(value) else []
 
 
+#: Fields of ``run.json``'s ``environment.cpu`` that make up a machine fingerprint.
+FINGERPRINT_FIELDS: tuple[str, ...] = ("model", "machine", "logical_cpus", "memory_gib")
+
+
+def machine_fingerprint(meta: Mapping[str, Any]) -> dict[str, object]:
+    """CPU model, architecture, logical CPUs and memory (GiB, rounded) from a run.json
+    (``environment.cpu``, or a top-level ``cpu`` of hand-written run files)."""
+    cpu = ((meta.get("environment") or {}).get("cpu") or meta.get("cpu") or {})
+    memory = cpu.get("memory_bytes")
+    return {"model": cpu.get("model"), "machine": cpu.get("machine"),
+            "logical_cpus": cpu.get("logical_cpus"),
+            "memory_gib": None if memory is None else round(float(memory) / 2**30)}
+
+
+def _fingerprint_difference(baseline: RunData, new: RunData) -> str:
+    """'' when the fingerprints match, else what differs (or that one is unknown)."""
+    base, cur = machine_fingerprint(baseline.meta), machine_fingerprint(new.meta)
+    if all(v is None for v in base.values()) or all(v is None for v in cur.values()):
+        return "a run.json holds no machine description (environment.cpu)"
+    diffs = [f"{k} {base[k]!r} vs {cur[k]!r}" for k in FINGERPRINT_FIELDS
+             if base[k] != cur[k]]
+    return "; ".join(diffs)
+
+
+def _pair_column(baseline: RunData, new: RunData) -> str:
+    def has(run: RunData) -> bool:
+        frame = run.results
+        return "pair_key" in frame.columns and bool(
+            len(frame) and frame["pair_key"].notna().all()
+            and (frame["pair_key"].astype(str) != "").all())
+    return "pair_key" if has(baseline) and has(new) else "key"
+
+
+def _paired_frame(run: RunData, column: str) -> pd.DataFrame:
+    frame = run.results.copy()
+    frame[column] = frame[column].astype(str)
+    return frame.drop_duplicates(column, keep="last").set_index(column)
+
+
+def _text(row: pd.Series, name: str) -> str:
+    value = row.get(name)
+    return "" if value is None or (isinstance(value, float) and math.isnan(value)) \
+        else str(value)
+
+
+def _version_findings(baseline: RunData, new: RunData, base: pd.DataFrame,
+                      cur: pd.DataFrame, common: Sequence[str]) -> list[Finding]:
+    """Solver versions of paired tasks and library versions of the runs that differ."""
+    out: list[Finding] = []
+    seen: dict[tuple[str, str, str], int] = {}
+    for key in common:
+        b, c = base.loc[key], cur.loc[key]
+        old, now_ = _text(b, "solver_version"), _text(c, "solver_version")
+        if old != now_:
+            item = (_text(c, "solver"), old, now_)
+            seen[item] = seen.get(item, 0) + 1
+    for (solver, old, now_), count in sorted(seen.items()):
+        out.append(Finding("", f"solver {solver}", "solver_version", "version", float("nan"),
+                           float("nan"), float("nan"), float("nan"),
+                           note=f"{old or '?'} -> {now_ or '?'} ({count} paired task(s))"))
+    old_libs = ((baseline.meta.get("environment") or {}).get("versions") or {})
+    new_libs = ((new.meta.get("environment") or {}).get("versions") or {})
+    for name in sorted(set(old_libs) | set(new_libs)):
+        if old_libs.get(name) != new_libs.get(name):
+            out.append(Finding("", f"library {name}", name, "version", float("nan"),
+                               float("nan"), float("nan"), float("nan"),
+                               note=f"{old_libs.get(name)} -> {new_libs.get(name)}"))
+    return out
+
+
+def _gate(metric: str, note: str) -> Finding:
+    nan = float("nan")
+    return Finding("", "(whole run)", metric, "gate", nan, nan, nan, nan, note=note)
+
+
+def _accuracy_finding(key: str, label: str, check: AccuracyCheck, b: pd.Series,
+                      c: pd.Series, present: bool) -> Finding | None:
+    bv = float(b.get(check.metric, np.nan))
+    cv = float(c.get(check.metric, np.nan)) if present else float("nan")
+    if not check.fails(cv, bv):
+        return None
+    if not math.isfinite(cv):
+        what = "absent from the new results" if not present else f"{cv} now"
+        return Finding(key, label, check.metric, "accuracy", bv, cv, float("nan"),
+                       check.factor, note=f"finite in the baseline, {what}")
+    ratio = cv / bv if bv > 0 else float("inf")
+    return Finding(key, label, check.metric, "accuracy", bv, cv, ratio, check.factor,
+                   note=f"floor {check.floor:g}")
+
+
 def compare_runs(baseline: RunData, new: RunData, *,
-                 checks: Sequence[Check] | None = None) -> Comparison:
-    """Compare every task of ``new`` with the task of the same key in ``baseline``."""
+                 checks: Sequence[Check] | None = None, allow_missing: bool = False,
+                 speed_across_machines: bool = False) -> Comparison:
+    """Compare every task of ``new`` with the task of the same ``pair_key`` in ``baseline``.
+
+    Parameters
+    ----------
+    baseline, new : RunData
+    checks : sequence of Check, optional
+        Default: ``default_checks()``.
+    allow_missing : bool
+        Baseline tasks absent from ``new`` are listed but not a regression.
+    speed_across_machines : bool
+        Apply the speed checks although the machine fingerprints differ.
+    """
     checks = tuple(default_checks() if checks is None else checks)
-    base = baseline.results.drop_duplicates("key", keep="last").set_index("key")
-    cur = new.results.drop_duplicates("key", keep="last").set_index("key")
+    column = _pair_column(baseline, new)
+    base, cur = _paired_frame(baseline, column), _paired_frame(new, column)
     common = sorted(set(base.index) & set(cur.index))
+    missing = tuple(sorted(set(base.index) - set(cur.index)))
+    notes: list[str] = []
+    if column == "key":
+        notes.append("paired on the versioned task key (a results.csv lacks pair_key): "
+                     "a solver version change pairs nothing; regenerate the baseline")
     findings: list[Finding] = []
+    if not common:
+        findings.append(_gate("paired", f"0 of {len(base)} baseline task(s) paired with the "
+                                        f"new run's {len(cur)}: nothing was compared"))
+    if missing and not allow_missing:
+        findings.append(_gate("missing", f"{len(missing)} baseline task(s) missing from the "
+                                         "new run (--allow-missing accepts that)"))
+    speed_checks = [ch for ch in checks if isinstance(ch, SpeedCheck)]
+    speed = "compared" if speed_checks else "not requested"
+    if speed_checks:
+        difference = _fingerprint_difference(baseline, new)
+        if difference and not speed_across_machines:
+            speed = f"skipped: machine fingerprints differ ({difference}); " \
+                    "--speed-across-machines compares anyway"
+            notes.append(f"speed checks {speed}")
+            checks = tuple(ch for ch in checks if not isinstance(ch, SpeedCheck))
+        elif difference:
+            speed = f"across machines ({difference})"
+            notes.append(f"speed compared {speed}, as asked")
+    new_columns = set(new.results.columns)
     untested = 0
     for key in common:
         b, c = base.loc[key], cur.loc[key]
         label = _task_label(c)
-        if b["status"] == "ok" and c["status"] == "failed":
+        if b["status"] == "ok" and c["status"] != "ok":
             findings.append(Finding(key, label, "status", "status", float("nan"),
                                     float("nan"), float("nan"), float("nan"),
-                                    note=f"was ok, now failed: {c['error_type']} "
-                                         f"{c['error_message']}".strip()))
+                                    note=f"was ok, now {c['status'] or 'without status'}: "
+                                         f"{c['error_type']} {c['error_message']}".strip()))
             continue
         if not (b["status"] == "ok" and c["status"] == "ok"):
             continue
         for check in checks:
             if isinstance(check, AccuracyCheck):
-                bv, cv = float(b.get(check.metric, np.nan)), float(c.get(check.metric, np.nan))
-                if check.fails(cv, bv):
-                    ratio = cv / bv if bv > 0 else float("inf")
-                    findings.append(Finding(key, label, check.metric, "accuracy", bv, cv,
-                                            ratio, check.factor,
-                                            note=f"floor {check.floor:g}"))
-            else:
-                outcome = check.assess(_repeats(new, key, check.metric, c),
-                                       _repeats(baseline, key, check.metric, b))
-                if outcome.regressed:
-                    untested += not outcome.tested
-                    findings.append(Finding(
-                        key, label, check.metric, "speed",
-                        float(b.get(check.metric, np.nan)), float(c.get(check.metric, np.nan)),
-                        outcome.ratio, check.ratio, outcome.p_value,
-                        note="" if outcome.tested
-                        else "single measurement: significance not tested"))
-    notes = []
+                found = _accuracy_finding(key, label, check, b, c, check.metric in new_columns
+                                          and check.metric in c.index)
+                if found is not None:
+                    findings.append(found)
+                continue
+            b_key, c_key = str(b.get("key", key)), str(c.get("key", key))
+            outcome = check.assess(_repeats(new, c_key, check.metric, c),
+                                   _repeats(baseline, b_key, check.metric, b))
+            if outcome.regressed:
+                untested += not outcome.tested
+                findings.append(Finding(
+                    key, label, check.metric, "speed",
+                    float(b.get(check.metric, np.nan)), float(c.get(check.metric, np.nan)),
+                    outcome.ratio, check.ratio, outcome.p_value,
+                    note="" if outcome.tested
+                    else "single measurement: significance not tested"))
+    versions = _version_findings(baseline, new, base, cur, common)
+    if versions:
+        notes.append("versions differ (paired regardless): " + "; ".join(
+            f"{v.task} {v.note}" for v in versions))
     if untested:
         notes.append(f"{untested} speed finding(s) rest on single measurements")
     notes.extend(f"baseline: {n}" for n in baseline.notes)
     notes.extend(f"new: {n}" for n in new.notes)
     return Comparison(baseline=str(baseline.path), new=str(new.path),
                       checks=tuple(ch.to_dict() for ch in checks), paired=len(common),
-                      findings=tuple(findings),
-                      missing=tuple(sorted(set(base.index) - set(cur.index))),
+                      findings=tuple(findings), missing=missing,
                       extra=tuple(sorted(set(cur.index) - set(base.index))),
-                      notes=tuple(notes))
+                      notes=tuple(notes), baseline_tasks=len(base), pair_column=column,
+                      versions=tuple(versions), speed=speed)
 
 
 def write_comparison(comparison: Comparison, path: str | Path) -> Path:

@@ -1,9 +1,16 @@
 """Audit tasks: one cell of a case grid, with a stable key and its own random streams.
 
 A task holds only small, JSON-able parameters (never arrays); the worker rebuilds the
-points, kernel and data from them. Its key is a hash of the canonical parameters together
-with the solver's name and version, so the same cell gets the same key in every run and
-on every machine, and a changed solver version gets a new one.
+points, kernel and data from them. Two hashes identify it:
+
+- ``key`` hashes the canonical parameters together with the solver's name and version,
+  so the same cell gets the same key in every run and on every machine, and a changed
+  solver version gets a new one (a resumed run redoes the task);
+- ``pair_key`` hashes what the problem *is* (case, geometry, n, kernel, solver name,
+  tolerance, options, seed, measurement settings) and leaves out the solver version and
+  pure execution settings (timing repeats and threads, budgets, timeouts), so a baseline
+  pairs with a run of a newer version; ``harness.analysis.regression`` reports version
+  differences beside the pairing.
 
 Random streams follow numpy's ``SeedSequence`` spawning (numpy's "Parallel random number
 generation" guide): the task's data stream is ``SeedSequence(seed, spawn_key=(data_id,))``
@@ -31,6 +38,17 @@ METRIC_GROUPS: tuple[str, ...] = (
     "loglik", "score", "perturbed", "trace", "factorization", "solve", "kriging",
 )
 
+#: Task fields left out of ``pair_key``: the version (recorded beside the result) and
+#: settings that change how a task is executed or timed, not what it computes.
+UNPAIRED_FIELDS: tuple[str, ...] = (
+    "solver_version", "time_budget", "timing", "repeats", "warmup", "timing_threads",
+    "exclusive_timing", "timeout",
+)
+
+#: Task fields left out of ``key`` (execution settings added after keys were first
+#: stored; leaving them out keeps earlier run directories resumable).
+UNKEYED_FIELDS: tuple[str, ...] = ("timeout",)
+
 #: Reference kinds in decreasing trust (DESIGN section 4); ``ladder`` is the stand-in.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
 
@@ -42,6 +60,16 @@ def canonical_json(value: Any) -> str:
 
 def _digest(value: Any) -> str:
     return hashlib.sha256(canonical_json(value).encode()).hexdigest()
+
+
+def pair_key_of(task: Mapping[str, Any]) -> str:
+    """The version-free key of a task given as ``Task.to_dict()`` (stored records too).
+
+    16 hex digits of sha256 over the task's fields less ``UNPAIRED_FIELDS``; the case
+    name is included, so runs of different case files never pair.
+    """
+    values = {k: v for k, v in dict(task).items() if k not in UNPAIRED_FIELDS}
+    return _digest(values)[:16]
 
 
 @dataclass(frozen=True)
@@ -141,6 +169,9 @@ class Task:
         BLAS and numba threads while timing (accuracy work always uses one).
     exclusive_timing : bool
         Time after the parallel accuracy work, one task at a time.
+    timeout : float or None
+        Seconds one job of this task may run before its worker is stopped and the task
+        recorded as timed out (None: the runner's default from the cost estimate).
     """
 
     case: str
@@ -173,6 +204,7 @@ class Task:
     warmup: int = 1
     timing_threads: int = 1
     exclusive_timing: bool = True
+    timeout: float | None = None
 
     # -- identity -------------------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -198,12 +230,19 @@ class Task:
         """The parameters that define the task's results (everything but the case name)."""
         out = self.to_dict()
         del out["case"]
+        for name in UNKEYED_FIELDS:
+            out.pop(name, None)
         return out
 
     @property
     def key(self) -> str:
         """16 hex digits of sha256 over the canonical parameters (with solver version)."""
         return _digest(self.canonical())[:16]
+
+    @property
+    def pair_key(self) -> str:
+        """16 hex digits of the version-free problem key (``pair_key_of``)."""
+        return pair_key_of(self.to_dict())
 
     @property
     def label(self) -> str:

@@ -19,6 +19,8 @@ SCHEMA_VERSION = 1
 
 IDENTITY_COLUMNS: tuple[str, ...] = (
     "key",            # stable hash of the canonical task parameters + solver name/version
+    # (``pair_key``, the version-free hash compare pairs on, follows ``key`` in
+    # results.csv; it is read as text beside the contract, see harness.grid.tasks)
     "case",           # case name from the case file
     "solver", "solver_version",
     "kernel",         # family name

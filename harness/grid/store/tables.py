@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from harness.grid.store.columns import PHASES, RESULT_COLUMNS
+from harness.grid.tasks import pair_key_of
 
 #: Contract columns (``harness.grid.store.columns``) taken directly from a detailed metric.
 _CONTRACT_FROM_METRIC = {
@@ -35,8 +36,9 @@ TASK_COLUMNS = ("case", "n", "d", "kernel", "separable", "mean", "reml", "solver
 
 def result_row(record: Mapping[str, Any]) -> dict[str, Any]:
     task = record.get("task") or {}
-    row: dict[str, Any] = {"key": record.get("key"), "label": record.get("label"),
-                           "status": record.get("status")}
+    row: dict[str, Any] = {"key": record.get("key"),
+                           "pair_key": pair_key_of(task) if task else None,
+                           "label": record.get("label"), "status": record.get("status")}
     row["pointset"] = (task.get("pointset") or {}).get("name")
     for column in TASK_COLUMNS:
         row[column] = task.get(column)
@@ -155,6 +157,8 @@ def results_frame(records: Iterable[Mapping[str, Any]]) -> pd.DataFrame:
     rows = [result_row(r) for r in records]
     frame = pd.DataFrame(rows)
     contract = [c for c in RESULT_COLUMNS if c in frame.columns]
+    if "pair_key" in frame.columns:  # the version-free pairing key, beside ``key``
+        contract.insert(1, "pair_key")
     frame = frame[contract + [c for c in frame.columns if c not in contract]]
     if not frame.empty:
         frame = frame.sort_values(["label", "key"], kind="stable").reset_index(drop=True)
