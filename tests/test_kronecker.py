@@ -110,7 +110,7 @@ def test_matches_dense_on_40x50_grid(grid40x50, mean, reml):
     truth = dense_truth(sigma, derivs, y, f, reml, cache)
     ref = KroneckerReference(pts, kernel)
     ev = ref.evaluate(y, mean=mean, reml=reml, fisher=True)
-    assert ev.reference == "kronecker"
+    assert ev.source == "kronecker"
     assert ev.logdet == pytest.approx(truth["logdet"], rel=1e-10)
     assert ev.loglik == pytest.approx(truth["ll"], rel=1e-10)
     np.testing.assert_allclose(ev.trace_terms, truth["traces"], rtol=1e-10)

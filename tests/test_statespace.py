@@ -116,7 +116,7 @@ def test_loglik_matches_dense(problem, family, mean, reml):
     kernel, sigma, derivs, y = models[family]
     ll, logdet, _, _ = dense_loglik_and_score(sigma, derivs, y, design(x, mean), reml)
     ev = StateSpaceReference(x, kernel).evaluate(y, mean=mean, reml=reml, score=False)
-    assert ev.reference == "statespace"
+    assert ev.source == "statespace"
     assert ev.logdet == pytest.approx(logdet, rel=1e-9)
     assert ev.loglik == pytest.approx(ll, rel=1e-9)
 

@@ -16,7 +16,7 @@ import numpy as np
 
 from harness.likelihood import TRACE_CHOICES, evaluate_likelihood
 from harness.likelihood.traces import ExactTraceSizeError
-from harness.model import ReferenceEvaluation
+from harness.model import ModelEvaluation
 from harness.model.kernels import Kernel
 from harness.references import (
     KroneckerReference,
@@ -64,8 +64,8 @@ class SolverOutcome:
     extra: Mapping[str, Any] = field(default_factory=dict)
 
 
-def _from_reference(solver: str, ev: ReferenceEvaluation) -> SolverOutcome:
-    return SolverOutcome(solver=solver, reference=ev.reference, loglik=ev.loglik,
+def _from_reference(solver: str, ev: ModelEvaluation) -> SolverOutcome:
+    return SolverOutcome(solver=solver, reference=ev.source, loglik=ev.loglik,
                          logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta, score=ev.score,
                          fisher=ev.fisher, certificate=ev.certificate, seconds=ev.seconds,
                          notes=ev.notes)
@@ -132,7 +132,7 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
         trace_info = {
             "method": ev.trace_method, "probes": ev.probes, "solves": ev.solves,
             "matvecs": ev.matvecs,
-            "estimate": dict(zip(kernel.param_names, map(float, ev.trace_estimate),
+            "estimate": dict(zip(kernel.param_names, map(float, ev.trace_terms),
                                  strict=True)),
             "stderr": dict(zip(kernel.param_names, map(float, ev.trace_stderr), strict=True)),
         }

@@ -122,7 +122,7 @@ def build_data(task: Task, streams: dict[str, np.random.Generator]) -> TaskData:
 class Reference:
     """The truth a task compares with, behind one interface.
 
-    ``evaluate(kernel, y)`` gives a ``ReferenceEvaluation``-like record with score and
+    ``evaluate(kernel, y)`` gives a ``ModelEvaluation`` record with score and
     Fisher information; ``matvec``, ``solve`` and ``kriging`` are None when the reference
     cannot offer them (the matching metrics are then reported as unavailable).
     """
@@ -434,11 +434,11 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
         nu = smoothness(kernel) if isinstance(kernel, Kernel) else None
         if shift is not None and nu is not None and "log_lengthscale" in names:
             metrics.update(microergodic_shift(shift, ref0.fisher, names, nu).to_dict())
-    if "trace" in task.metrics and sol0.trace_estimate is not None:
-        # A ladder reference is a LikelihoodEvaluation with estimated traces only.
+    if "trace" in task.metrics and sol0.trace_terms is not None:
+        # A ladder reference is a solver's ModelEvaluation: its traces are estimated.
         exact_traces = getattr(ref0, "trace_terms", None)
         if exact_traces is not None:
-            metrics.update(trace_errors(sol0.trace_estimate, exact_traces,
+            metrics.update(trace_errors(sol0.trace_terms, exact_traces,
                                         sol0.trace_stderr, names).to_dict())
         else:
             notes.append(f"trace metrics unavailable: the {reference.kind} reference gives "
@@ -500,7 +500,7 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
                       "notes": list(ref0.notes)},
         "solver": {"name": task.solver, "version": task.solver_version, "tol": task.tol,
                    "loglik": sol0.loglik, "score": _jsonable(sol0.score),
-                   "trace_estimate": _jsonable(sol0.trace_estimate),
+                   "trace_estimate": _jsonable(sol0.trace_terms),
                    "trace_stderr": _jsonable(sol0.trace_stderr),
                    "nbytes": int(fact.nbytes), "ranks": None if callable(ranks) else ranks,
                    "solves": sol0.solves, "matvecs": sol0.matvecs},

@@ -2,7 +2,6 @@
 Factorization (dense or compressed), with exact or stochastic trace terms."""
 
 from harness.likelihood.kriging import kriging
-from harness.likelihood.likelihood_records import KrigingPrediction, LikelihoodEvaluation
 from harness.likelihood.loglik import TRACE_CHOICES, evaluate_likelihood
 from harness.likelihood.traces import EXACT_TRACE_MAX_N, ExactTraceSizeError, TraceTerms
 
@@ -10,8 +9,6 @@ __all__ = [
     "EXACT_TRACE_MAX_N",
     "TRACE_CHOICES",
     "ExactTraceSizeError",
-    "KrigingPrediction",
-    "LikelihoodEvaluation",
     "TraceTerms",
     "evaluate_likelihood",
     "kriging",

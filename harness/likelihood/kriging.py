@@ -19,9 +19,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from harness.likelihood.likelihood_records import KrigingPrediction
 from harness.likelihood.loglik import check_data
 from harness.likelihood.whitening import fit_mean, supports_sqrt
+from harness.model.evaluation import KrigingPrediction
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt

@@ -20,9 +20,9 @@ import time
 
 import numpy as np
 
-from harness.likelihood.likelihood_records import LikelihoodEvaluation
 from harness.likelihood.traces import EXACT_TRACE_MAX_N, trace_terms
 from harness.likelihood.whitening import fit_mean
+from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt
@@ -52,7 +52,7 @@ def evaluate_likelihood(factorization: object, points: np.ndarray, y: np.ndarray
                         kernel: Kernel, *, mean: str = "zero", reml: bool = False,
                         score: bool = True, trace: str = "exact", probes: int = 64,
                         rng: np.random.Generator | int | None = None, fisher: bool = False,
-                        exact_max_n: int = EXACT_TRACE_MAX_N) -> LikelihoodEvaluation:
+                        exact_max_n: int = EXACT_TRACE_MAX_N) -> ModelEvaluation:
     """Log-likelihood, score and Fisher information at the factorization's parameters.
 
     Parameters
@@ -81,7 +81,7 @@ def evaluate_likelihood(factorization: object, points: np.ndarray, y: np.ndarray
 
     Returns
     -------
-    LikelihoodEvaluation
+    ModelEvaluation
     """
     if trace not in TRACE_CHOICES:
         raise ValueError(f"unknown trace method {trace!r}; known: {', '.join(TRACE_CHOICES)}")
@@ -119,9 +119,9 @@ def evaluate_likelihood(factorization: object, points: np.ndarray, y: np.ndarray
         score_vec = 0.5 * quad - 0.5 * traces
         notes.extend(terms.notes)
         seconds["score"] = time.perf_counter() - start
-    return LikelihoodEvaluation(
-        n=fac.n, param_names=kernel.param_names, loglik=fit.loglik, logdet=logdet,
-        quadratic=fit.quadratic, beta=fit.beta, score=score_vec if score else None,
-        trace_estimate=traces, trace_stderr=stderr, fisher=fisher_mat,
+    return ModelEvaluation(
+        source="factorization", n=fac.n, param_names=kernel.param_names, loglik=fit.loglik,
+        logdet=logdet, quadratic=fit.quadratic, beta=fit.beta, score=score_vec if score else None,
+        trace_terms=traces, trace_stderr=stderr, fisher=fisher_mat,
         trace_method=trace if need_score else "none", probes=probes_used, solves=solves,
         matvecs=matvecs, seconds=seconds, notes=tuple(notes))

@@ -20,7 +20,7 @@ from harness.references.closed_forms import (
     exponential_quadratic,
     exponential_trace_terms,
 )
-from harness.references.dense_reference import KrigingPrediction, dense_evaluate, dense_kriging
+from harness.references.dense_reference import dense_evaluate, dense_kriging
 from harness.references.gridcheck import GridLayout, NotAGridError, detect_grid
 from harness.references.kronecker import (
     KroneckerError,
@@ -52,7 +52,6 @@ __all__ = [
     "CertificateError",
     "DenseBudgetError",
     "DenseCholesky",
-    "KrigingPrediction",
     "SingularCovarianceError",
     "default_memory_budget",
     "dense_bytes_needed",

@@ -15,31 +15,16 @@ P = Sigma^-1 - Sigma^-1 F (F' Sigma^-1 F)^-1 F' Sigma^-1, and a = P y = Sigma^-1
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
 
 import numpy as np
 
-from harness.model.evaluation import ReferenceEvaluation
+from harness.model.evaluation import KrigingPrediction, ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.references.cholesky import _BLOCK, DenseCholesky
 
-__all__ = ["DenseCholesky", "KrigingPrediction", "dense_evaluate", "dense_kriging"]
-
-
-@dataclass(frozen=True)
-class KrigingPrediction:
-    """Kriging mean and variance of the latent (noise-free) field at new points.
-
-    The variance of a new noisy observation is ``variance + nugget``.
-    """
-
-    mean: np.ndarray
-    variance: np.ndarray
-
-    def to_dict(self) -> dict[str, list[float]]:
-        return {"mean": self.mean.tolist(), "variance": self.variance.tolist()}
+__all__ = ["DenseCholesky", "dense_evaluate", "dense_kriging"]
 
 
 def _check_data(points: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -56,7 +41,7 @@ def _check_data(points: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarr
 def dense_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str = "zero",
                    reml: bool = False, score: bool = True, fisher: bool = False,
                    memory_budget: int | None = None, certify: bool = True
-                   ) -> ReferenceEvaluation:
+                   ) -> ModelEvaluation:
     """Exact evaluation of the Gaussian likelihood at the kernel's parameters.
 
     Parameters
@@ -75,8 +60,8 @@ def dense_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: s
 
     Returns
     -------
-    ReferenceEvaluation
-        ``reference="dense"`` with the DPOT01 certificate.
+    ModelEvaluation
+        ``source="dense"`` with the DPOT01 certificate.
     """
     points, y = _check_data(points, y)
     p = kernel.n_params
@@ -138,8 +123,8 @@ def dense_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: s
             seconds["fisher"] = time.perf_counter() - start
         del inv
     notes = ("traces exact through Sigma^-1 (dpotri)",) if score or fisher else ()
-    return ReferenceEvaluation(
-        reference="dense", n=chol.n, param_names=kernel.param_names, loglik=fit.loglik,
+    return ModelEvaluation(
+        source="dense", n=chol.n, param_names=kernel.param_names, loglik=fit.loglik,
         logdet=logdet, quadratic=fit.quadratic, beta=fit.beta, score=score_vec,
         trace_terms=trace_terms, fisher=fisher_mat, certificate=chol.certificate,
         seconds=seconds, notes=notes,
@@ -172,4 +157,6 @@ def dense_kriging(points: np.ndarray, y: np.ndarray, kernel: Kernel, new_points:
     if design.shape[1]:
         u = new_design.T - whitened[:, 1:].T @ v                   # f* - G' L^-1 k*
         variance = variance + np.einsum("ij,ij->j", u, fit.beta_cov @ u)
-    return KrigingPrediction(mean=mean_values, variance=np.maximum(variance, 0.0))
+    variance = np.maximum(variance, 0.0)
+    return KrigingPrediction(mean=mean_values, variance=variance,
+                             observation_variance=variance + kernel.nugget, beta=fit.beta)

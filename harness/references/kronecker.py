@@ -55,7 +55,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.model.evaluation import ReferenceEvaluation
+from harness.model.evaluation import ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels.classes import Kernel, KernelParameterError
 from harness.model.mean import design_matrix
@@ -455,7 +455,7 @@ class KroneckerReference:
 
     # -- likelihood -------------------------------------------------------------------
     def evaluate(self, y: np.ndarray, *, mean: str = "zero", reml: bool = False,
-                 score: bool = True, fisher: bool = False) -> ReferenceEvaluation:
+                 score: bool = True, fisher: bool = False) -> ModelEvaluation:
         """Exact log-likelihood, analytic score and traces, optional exact Fisher.
 
         Score g_i = 1/2 a' Sigma_i a - 1/2 tr(P Sigma_i) with a = Sigma^-1 (y - F beta)
@@ -498,8 +498,8 @@ class KroneckerReference:
                 info = info - self._reml_fisher_correction(g_mat, fit.beta_cov)
                 notes.append("fisher: REML, 1/2 tr(P Sigma_i P Sigma_j)")
             seconds["fisher"] = time.perf_counter() - t2
-        return ReferenceEvaluation(
-            reference="kronecker", n=self.n, param_names=self.kernel.param_names,
+        return ModelEvaluation(
+            source="kronecker", n=self.n, param_names=self.kernel.param_names,
             loglik=fit.loglik, logdet=self.logdet(), quadratic=fit.quadratic, beta=fit.beta,
             score=grad, trace_terms=traces, fisher=info, seconds=seconds, notes=tuple(notes),
         )

@@ -48,7 +48,7 @@ import numba
 import numpy as np
 from scipy import linalg
 
-from harness.model.evaluation import ReferenceEvaluation
+from harness.model.evaluation import ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels.classes import Kernel, smoothness
 from harness.model.mean import design_matrix
@@ -381,7 +381,7 @@ class StateSpaceReference:
         return gls_loglik(self.logdet(), wy, wf, design, reml=reml)
 
     def evaluate(self, y: np.ndarray, *, mean: str = "zero", reml: bool = False,
-                 score: bool = True) -> ReferenceEvaluation:
+                 score: bool = True) -> ModelEvaluation:
         """Exact log-likelihood and, optionally, a finite-difference score.
 
         The score is Richardson-extrapolated central differences of the exact
@@ -422,8 +422,8 @@ class StateSpaceReference:
                 f"log-likelihood, log-scale step h = {FD_STEP:g} and 2h; estimated "
                 f"absolute error <= {err:.2e}"
             )
-        return ReferenceEvaluation(
-            reference="statespace", n=self.n, param_names=self.kernel.param_names,
+        return ModelEvaluation(
+            source="statespace", n=self.n, param_names=self.kernel.param_names,
             loglik=fit.loglik, logdet=self.logdet(), quadratic=fit.quadratic, beta=fit.beta,
             score=grad, seconds=seconds, notes=tuple(notes),
         )
