@@ -14,9 +14,9 @@ import numpy as np
 from harness.audit.named_evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 from harness.check.datafile import DataFileError, load_observations
 from harness.cli.params import ParamSyntaxError, kernel_from_options
-from harness.grid.store.task_records import to_jsonable
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
+from harness.model.json_values import to_jsonable
 from harness.model.kernels import KERNELS, KernelParameterError
 
 

@@ -14,7 +14,8 @@ from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from harness.grid.store.task_records import error_summary, now, to_jsonable, worker_identity
+from harness.grid.store.task_records import error_summary, now, worker_identity
+from harness.model.json_values import to_jsonable
 
 STAGES = ("accuracy", "timing", "accuracy+timing")
 
@@ -28,6 +29,7 @@ class Job:
     stage: str
     task: Mapping[str, Any] = field(repr=False)
     concurrency: int = 1
+    timeout: float | None = None  # seconds before the worker is stopped (None: no limit)
 
     def __post_init__(self) -> None:
         if self.stage not in STAGES:
@@ -35,7 +37,8 @@ class Job:
 
     def to_dict(self) -> dict[str, Any]:
         return {"key": self.key, "label": self.label, "stage": self.stage,
-                "task": dict(self.task), "concurrency": self.concurrency}
+                "task": dict(self.task), "concurrency": self.concurrency,
+                "timeout": self.timeout}
 
 
 @contextlib.contextmanager

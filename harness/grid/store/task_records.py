@@ -105,28 +105,3 @@ def load_record(data: Any, *, source: str) -> dict[str, Any]:
         raise RecordSchemaError(f"{source}: status {data['status']!r} is not one of "
                                 f"{STATUSES}")
     return data
-
-
-def to_jsonable(value: Any) -> Any:
-    """A JSON-safe copy: numpy scalars and arrays to Python, non-finite floats to None,
-    objects with ``to_dict`` through it, anything else unknown to its ``repr``."""
-    import math
-
-    import numpy as np
-
-    if value is None or isinstance(value, bool | str | int):
-        return value
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, np.generic):
-        return to_jsonable(value.item())
-    if isinstance(value, np.ndarray):
-        return to_jsonable(value.tolist())
-    if isinstance(value, Mapping):
-        return {str(k): to_jsonable(v) for k, v in value.items()}
-    if isinstance(value, list | tuple | set | frozenset):
-        return [to_jsonable(v) for v in value]
-    to_dict = getattr(value, "to_dict", None)
-    if callable(to_dict):
-        return to_jsonable(to_dict())
-    return repr(value)
