@@ -65,7 +65,7 @@ def test_self_contained_without_scripts_or_external_urls(report):
     assert "script" not in parsed.tags
     for name, value in parsed.urls:
         assert not value.lower().startswith(("http://", "https://", "//")), (name, value)
-        assert value.startswith(("#", "data:")), (name, value)
+        assert value.startswith(("#", "data:")) or value == "results.csv", (name, value)
 
 
 def test_user_strings_are_escaped(report):
@@ -155,3 +155,42 @@ def test_headless_chromium_screenshot(report, tmp_path):
     subprocess.run(cmd, check=True, capture_output=True, timeout=120)
     data = png.read_bytes()
     assert data[:8] == b"\x89PNG\r\n\x1a\n" and len(data) > 20_000
+
+
+def test_repeated_notes_collapse_into_one_line_with_a_count():
+    # expected values written by hand from the inputs (common practice: group equal text)
+    from harness.report.condense import collapse_notes, shorten
+
+    notes = collapse_notes([("dense", "too few sizes"), ("dense", "too few sizes"),
+                            ("hodlr tol=1e-04", "too few sizes"), ("", "other")])
+    assert [n.count for n in notes] == [3, 1]
+    assert notes[0].line() == "too few sizes (3\u00d7: dense, hodlr tol=1e-04)"
+    assert notes[1].line() == "other"
+    assert shorten("compression lost positive definiteness at level 3", 30) == \
+        "compression lost positive\u2026"
+    assert shorten("short", 30) == "short"
+
+
+def test_speedup_below_one_does_not_pay():
+    from harness.report.run_summary import speedup_text
+
+    assert speedup_text(0.2) == "0.2\u00d7: does not pay at this size"
+    assert speedup_text(3.14159) == "3.14\u00d7 faster"
+    assert speedup_text(float("nan")) == "\u2013"
+
+
+def test_shipped_baseline_report_is_trimmed(tmp_path):
+    """The shipped smoke baseline: no internal column warning, one collapsed scaling note,
+    a short environment table with the full record folded, a per-dataset summary."""
+    src = Path(__file__).resolve().parents[1] / "reference" / "baselines" / "smoke"
+    run = tmp_path / "smoke"
+    shutil.copytree(src, run)
+    html = write_report(run).read_text(encoding="utf-8")
+    assert "lacks" not in html and "contract column" not in html
+    notes = re.findall(r'<p class="note">(.*?)</p>', html, re.S)
+    assert len(notes) == len(set(notes))
+    assert sum("a scaling fit needs" in n for n in notes) == 1
+    assert "Full environment record</summary>" in html
+    assert "Results per dataset" in html and 'href="results.csv"' in html
+    assert "does not pay at this size" in html
+    assert "No power law is drawn" in html

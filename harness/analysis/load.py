@@ -19,7 +19,12 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from harness.grid.store.columns import RESULT_COLUMNS, SCHEMA_VERSION, TIMING_COLUMNS
+from harness.grid.store.columns import (
+    OPTIONAL_COLUMNS,
+    RESULT_COLUMNS,
+    SCHEMA_VERSION,
+    TIMING_COLUMNS,
+)
 
 logger = logging.getLogger(__name__)
 
@@ -88,7 +93,8 @@ def _coerce_results(frame: pd.DataFrame, path: Path, notes: list[str]) -> pd.Dat
     if "key" not in frame.columns:
         raise RunDirError(f"{path}: no 'key' column; expected the columns of "
                           "harness.grid.store.columns.RESULT_COLUMNS")
-    missing = [c for c in RESULT_COLUMNS if c not in frame.columns]
+    missing = [c for c in RESULT_COLUMNS if c not in frame.columns
+               and c not in OPTIONAL_COLUMNS]
     if missing:
         notes.append(f"{RESULTS_FILE} lacks {len(missing)} contract column(s): "
                      + ", ".join(missing[:8]) + ("..." if len(missing) > 8 else ""))

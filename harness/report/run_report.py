@@ -8,6 +8,7 @@ through ``DataFrame.to_html(escape=True)``; only those escaped tables are marked
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
@@ -18,7 +19,7 @@ import pandas as pd
 from markupsafe import Markup
 
 from harness._version import __version__
-from harness.analysis.load import RunData, load_run
+from harness.analysis.load import RESULTS_FILE, RunData, load_run
 from harness.analysis.regression import COMPARISON_FILE, Comparison, load_comparison
 from harness.analysis.scaling_table import (
     MEMORY_METRICS,
@@ -28,6 +29,14 @@ from harness.analysis.scaling_table import (
 )
 from harness.audit.verdict import COMMON_PRACTICE, ThresholdError, Thresholds, VerdictSet, judge
 from harness.report import figures
+from harness.report.condense import collapse_notes
+from harness.report.run_summary import (
+    DOES_NOT_PAY,
+    dataset_summary,
+    environment_summary,
+    fitted_any,
+    speedup_text,
+)
 from harness.report.style import data_uri
 
 TEMPLATE = "report.html.j2"
@@ -37,7 +46,8 @@ STATUS_TEXT = {"safe": "\u2714 safe", "unsafe": "\u2718 unsafe",
 CASE_TEXT_KEYS = ("case_text", "case_file_text", "case_file")
 TOC = (("summary", "Verdicts"), ("accuracy", "Accuracy"), ("cost", "Time and memory"),
        ("trace", "Trace estimates"), ("failures", "Failures"),
-       ("environment", "Environment"), ("cautions", "Cautions"), ("results", "All results"))
+       ("environment", "Environment"), ("cautions", "Cautions"),
+       ("results", "Results per dataset"))
 
 
 def _environment() -> jinja2.Environment:
@@ -76,8 +86,14 @@ def _dataset_label(dataset: Mapping[str, object]) -> str:
 def _recommendations(vs: VerdictSet) -> pd.DataFrame:
     return pd.DataFrame([{
         "dataset": _dataset_label(r.dataset), "solver": r.solver,
-        "recommended tol": r.tol, "speed-up": r.speedup,
+        "recommended tol": r.tol, "speed-up": speedup_text(r.speedup),
         "speed-up over": r.speedup_over, "reason": r.reason} for r in vs.recommendations])
+
+
+def _slow_recommendations(vs: VerdictSet) -> int:
+    """How many recommended tolerances are slower than their reference."""
+    return sum(1 for r in vs.recommendations
+               if math.isfinite(r.speedup) and r.speedup < 1 and math.isfinite(r.tol))
 
 
 def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
@@ -208,13 +224,15 @@ def _results_table(results: pd.DataFrame) -> pd.DataFrame:
 
 def render_report(run: RunData, *, comparison: Comparison | None = None,
                   thresholds: Thresholds | None = None, level: float = 0.95,
-                  seed: int = 0) -> str:
+                  seed: int = 0, results_href: str = "results.csv") -> str:
     """The report's HTML for ``run`` (same inputs give the same text).
 
     Parameters
     ----------
     seed : int
         Seed of the bootstrap stream (fixed so reports can be diffed).
+    results_href : str
+        Link to the run's ``results.csv``, relative to where the report is written.
     """
     th = thresholds or thresholds_for(run)
     results = run.results
@@ -250,15 +268,23 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "figures": {k: (data_uri(f) if f is not None else "") for k, f in figs.items()},
         "level_pct": f"{100 * level:g}",
         "scaling": html_table(display_table(rows)) if any(r.fit for r in rows) else "",
-        "scaling_refused": sorted({f"{r.label}, {r.metric}: {r.refused}" for r in rows
-                                   if r.fit is None}),
+        "scaling_refused": [note.line() for note in collapse_notes(
+            (r.label, str(r.refused)) for r in rows if r.fit is None)],
+        "fitted_time": fitted_any(rows, ("t_factor", "t_total")),
+        "fitted_memory": fitted_any(rows, tuple(MEMORY_METRICS)),
+        "slow_recommendations": _slow_recommendations(vs), "does_not_pay": DOES_NOT_PAY,
         "trace": html_table(_trace_table(vs)) if vs.trace else "",
         "failures": html_table(_failures(results)) if (results["status"] != "ok").any()
         else "",
-        "environment": html_table(pd.DataFrame(_flatten(meta), columns=["setting", "value"])),
-        "load_notes": list(run.notes), "case_text": _case_text(meta),
+        "environment": html_table(environment_summary(meta)),
+        "environment_full": html_table(pd.DataFrame(_flatten(meta),
+                                                    columns=["setting", "value"])),
+        "load_notes": [note.line() for note in collapse_notes(run.notes)],
+        "case_text": _case_text(meta),
         "comparison": _comparison_context(comparison) if comparison is not None else None,
-        "results": html_table(_results_table(results)),
+        "dataset_summary": html_table(dataset_summary(results)),
+        "results": html_table(_results_table(results)), "results_href": results_href,
+        "n_columns": int(len(_results_table(results).columns)),
     }
     return _environment().get_template(TEMPLATE).render(**context)
 
@@ -289,7 +315,10 @@ def write_report(run_dir: str | Path, *, out: str | Path | None = None,
     if comparison is None and (run.path / COMPARISON_FILE).is_file():
         comparison = load_comparison(run.path / COMPARISON_FILE)
     target = Path(out) if out is not None else run.path / REPORT_FILE
-    html = render_report(run, comparison=comparison, thresholds=thresholds)
+    href = Path(os.path.relpath((run.path / RESULTS_FILE).resolve(),
+                                target.resolve().parent)).as_posix()
+    html = render_report(run, comparison=comparison, thresholds=thresholds,
+                         results_href=href)
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = target.with_name(target.name + ".tmp")
     tmp.write_text(html, encoding="utf-8")

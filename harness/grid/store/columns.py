@@ -72,4 +72,8 @@ COST_COLUMNS: tuple[str, ...] = (
 
 RESULT_COLUMNS: tuple[str, ...] = IDENTITY_COLUMNS + ACCURACY_COLUMNS + COST_COLUMNS
 
+#: Contract columns older files may lack without anything being wrong (the metric is
+#: optional); readers add them as missing values without a note.
+OPTIONAL_COLUMNS: frozenset[str] = frozenset({"mle_shift_se_max"})
+
 TIMING_COLUMNS: tuple[str, ...] = ("key", "phase", "repeat", "seconds")

@@ -111,6 +111,7 @@ def contract_fields(row: Mapping[str, Any], record: Mapping[str, Any]) -> dict[s
         "threads": task.get("timing_threads"),
         "timing_repeats": task.get("repeats") if timing else float("nan"),
         "notes": "; ".join(result.get("notes") or []),
+        "mle_shift_se_max": row.get("mle_shift_se_max"),
     }
     for column, source in _CONTRACT_FROM_METRIC.items():
         out[column] = row.get(source)
