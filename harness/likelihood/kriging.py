@@ -25,11 +25,12 @@ from harness.model.evaluation import KrigingPrediction
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt
+from harness.solvers.protocol import Factorization
 
 _COLUMNS = 1024  # new points per block of solves
 
 
-def kriging(factorization: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
+def kriging(factorization: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
             new_points: np.ndarray, *, mean: str = "zero") -> KrigingPrediction:
     """Kriging mean and variances at ``new_points`` (module docstring).
 
@@ -46,7 +47,7 @@ def kriging(factorization: object, points: np.ndarray, y: np.ndarray, kernel: Ke
     """
     fac = adapt(factorization, points, kernel)
     points, y = check_data(points, y, fac.n)
-    new_points = np.asarray(new_points, dtype=float)
+    new_points = np.asarray(new_points, dtype=np.float64)
     new_points = new_points[:, None] if new_points.ndim == 1 else new_points
     design = design_matrix(points, mean)
     new_design = design_matrix(new_points, mean)

@@ -26,6 +26,7 @@ from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.solvers.fallback import adapt
+from harness.solvers.protocol import Factorization
 
 TRACE_CHOICES = ("exact", "hutchinson", "hutchpp")
 
@@ -33,9 +34,9 @@ TRACE_CHOICES = ("exact", "hutchinson", "hutchpp")
 def check_data(points: np.ndarray, y: np.ndarray, n: int | None = None
                ) -> tuple[np.ndarray, np.ndarray]:
     """Points as (n, d) float and y as (n,) float, refusing mismatches and non-finite y."""
-    points = np.asarray(points, dtype=float)
+    points = np.asarray(points, dtype=np.float64)
     points = points[:, None] if points.ndim == 1 else points
-    y = np.asarray(y, dtype=float)
+    y = np.asarray(y, dtype=np.float64)
     if y.ndim != 1:
         raise ValueError(f"y must be one value per point, got shape {y.shape}")
     if points.shape[0] != y.size:
@@ -48,7 +49,7 @@ def check_data(points: np.ndarray, y: np.ndarray, n: int | None = None
     return points, y
 
 
-def evaluate_likelihood(factorization: object, points: np.ndarray, y: np.ndarray,
+def evaluate_likelihood(factorization: Factorization, points: np.ndarray, y: np.ndarray,
                         kernel: Kernel, *, mean: str = "zero", reml: bool = False,
                         score: bool = True, trace: str = "exact", probes: int = 64,
                         rng: np.random.Generator | int | None = None, fisher: bool = False,

@@ -30,6 +30,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness.likelihood.trace import FactorizationOperators, estimate_traces
+from harness.solvers.protocol import DifferentiableFactorization
 
 #: Largest n for exact traces (p + 1 dense n x n arrays: 240 MiB at n = 2,500, p = 4).
 EXACT_TRACE_MAX_N = 2500
@@ -58,9 +59,9 @@ class TraceTerms:
                 "notes": list(self.notes)}
 
 
-def _exact_ml_terms(factorization: object, count: int, *, fisher: bool,
+def _exact_ml_terms(factorization: DifferentiableFactorization, count: int, *, fisher: bool,
                     max_n: int) -> tuple[np.ndarray, np.ndarray | None, int, int]:
-    n = int(factorization.n)  # type: ignore[attr-defined]
+    n = int(factorization.n)
     if n > max_n:
         raise ExactTraceSizeError(
             f"exact traces need {count + 1} dense {n:,} x {n:,} arrays; n = {n:,} exceeds "
@@ -70,8 +71,8 @@ def _exact_ml_terms(factorization: object, count: int, *, fisher: bool,
     traces = np.empty(count)
     products = []
     for i in range(count):
-        s_i = np.asarray(factorization.solve(  # type: ignore[attr-defined]
-            factorization.derivative_matvec(i, eye)), dtype=float)  # type: ignore[attr-defined]
+        s_i = np.asarray(factorization.solve(
+            factorization.derivative_matvec(i, eye)), dtype=np.float64)
         traces[i] = float(np.trace(s_i))
         if fisher:
             products.append(s_i)
@@ -86,8 +87,9 @@ def _exact_ml_terms(factorization: object, count: int, *, fisher: bool,
     return traces, fisher_ml, count * n, count * n
 
 
-def trace_terms(factorization: object, count: int, *, method: str, probes: int = 64,
-                rng: np.random.Generator | int | None = None, fisher: bool = False,
+def trace_terms(factorization: DifferentiableFactorization, count: int, *, method: str,
+                probes: int = 64, rng: np.random.Generator | int | None = None,
+                fisher: bool = False,
                 sinv_design: np.ndarray | None = None, beta_cov: np.ndarray | None = None,
                 exact_max_n: int = EXACT_TRACE_MAX_N) -> TraceTerms:
     """Trace terms for the score, ML or (with ``sinv_design`` = B, ``beta_cov`` = C) REML.
@@ -114,7 +116,7 @@ def trace_terms(factorization: object, count: int, *, method: str, probes: int =
         notes.append("traces exact: Sigma^-1 Sigma_i formed from the solver's derivative "
                      "products on the identity")
     else:
-        operators = FactorizationOperators(factorization, factorization.derivative_matvec,  # type: ignore[attr-defined]
+        operators = FactorizationOperators(factorization, factorization.derivative_matvec,
                                            count)
         est = estimate_traces(operators, method=method, probes=probes, rng=rng,
                               fisher=fisher)
@@ -128,13 +130,13 @@ def trace_terms(factorization: object, count: int, *, method: str, probes: int =
                          "1/2 mean of (A_i' z)'(A_j z)")
     if sinv_design is not None and beta_cov is not None and sinv_design.shape[1]:
         b, c = sinv_design, beta_cov
-        e = np.stack([np.asarray(factorization.derivative_matvec(i, b), dtype=float)  # type: ignore[attr-defined]
+        e = np.stack([np.asarray(factorization.derivative_matvec(i, b), dtype=np.float64)
                       for i in range(count)])                     # E_i = Sigma_i B
         m = np.einsum("na,pnb->pab", b, e)                        # M_i = B' E_i
         matvecs += count * b.shape[1]
         traces = traces - np.einsum("ab,pba->p", c, m)            # - tr(C M_i)
         if fisher_ml is not None:
-            h = np.stack([np.asarray(factorization.solve(e_i), dtype=float)  # type: ignore[attr-defined]
+            h = np.stack([np.asarray(factorization.solve(e_i), dtype=np.float64)
                           for e_i in e])                          # Sigma^-1 E_j
             solves += count * b.shape[1]
             cross = np.einsum("ab,pnb,qna->pq", c, e, h)          # tr(C E_i' H_j)
@@ -144,6 +146,6 @@ def trace_terms(factorization: object, count: int, *, method: str, probes: int =
             fisher_ml = fisher_ml - cross + 0.5 * quartic
         notes.append("REML: exact corrections tr(C B' Sigma_i B) (Harville 1977) applied "
                      "to the traces" + (" and the Fisher information" if fisher else ""))
-    return TraceTerms(traces=np.asarray(traces, dtype=float), stderr=np.asarray(stderr),
+    return TraceTerms(traces=np.asarray(traces, dtype=np.float64), stderr=np.asarray(stderr),
                       fisher=fisher_ml, probes=used_probes, solves=solves, matvecs=matvecs,
                       notes=tuple(notes))

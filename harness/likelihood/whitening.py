@@ -16,12 +16,15 @@ meaningless on the solve path (callers recompute a = Sigma^-1 r with ``solve``).
 
 from __future__ import annotations
 
+from typing import TypeGuard
+
 import numpy as np
 
 from harness.model.gls import GlsFit, gls_loglik
+from harness.solvers.protocol import Factorization, SymmetricFactorization
 
 
-def supports_sqrt(factorization: object) -> bool:
+def supports_sqrt(factorization: Factorization) -> TypeGuard[SymmetricFactorization]:
     """Whether the factorization offers W^-1 B (``solve_sqrt``) and W B (``apply_sqrt``)."""
     flag = getattr(factorization, "supports_sqrt", None)
     if isinstance(flag, bool):
@@ -30,16 +33,16 @@ def supports_sqrt(factorization: object) -> bool:
             and callable(getattr(factorization, "apply_sqrt", None)))
 
 
-def fit_mean(factorization: object, y: np.ndarray, design: np.ndarray, logdet: float, *,
+def fit_mean(factorization: Factorization, y: np.ndarray, design: np.ndarray, logdet: float, *,
              reml: bool = False) -> tuple[GlsFit, str]:
     """GLS fit and log-likelihood, and a note saying which path computed them."""
     n = y.size
     stacked = np.column_stack([design, y])
     if supports_sqrt(factorization):
-        white = np.asarray(factorization.solve_sqrt(stacked), dtype=float)  # type: ignore[attr-defined]
+        white = np.asarray(factorization.solve_sqrt(stacked), dtype=np.float64)
         fit = gls_loglik(logdet, white[:, -1], white[:, :-1], design, reml=reml)
         return fit, "GLS fit from whitened data W^-1 [F y] (solve_sqrt)"
-    solved = np.asarray(factorization.solve(stacked), dtype=float)  # type: ignore[attr-defined]
+    solved = np.asarray(factorization.solve(stacked), dtype=np.float64)
     gram = stacked.T @ solved
     gram = 0.5 * (gram + gram.T)
     values, vectors = np.linalg.eigh(gram)

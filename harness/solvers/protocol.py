@@ -61,6 +61,13 @@ class SymmetricFactorization(Factorization, Protocol):
     def apply_sqrt(self, b: np.ndarray) -> np.ndarray: ...
 
 
+@runtime_checkable
+class DifferentiableFactorization(Factorization, Protocol):
+    """A Factorization that also offers products with dSigma/dtheta_i."""
+
+    def derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray: ...
+
+
 class SolverFactory(Protocol):
     """``factorize(points, kernel, theta, *, tol, **options) -> Factorization``."""
 

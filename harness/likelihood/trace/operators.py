@@ -18,9 +18,11 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Protocol
+from typing import Protocol, cast
 
 import numpy as np
+
+from harness.solvers.protocol import Factorization, SymmetricFactorization
 
 DerivativeMatvec = Callable[[int, np.ndarray], np.ndarray]
 
@@ -76,7 +78,7 @@ class ExplicitOperators:
     """
 
     def __init__(self, matrices: np.ndarray | Sequence[np.ndarray]) -> None:
-        mats = np.asarray(matrices, dtype=float)
+        mats = np.asarray(matrices, dtype=np.float64)
         if mats.ndim == 2:
             mats = mats[None]
         if mats.ndim != 3 or mats.shape[1] != mats.shape[2]:
@@ -123,12 +125,12 @@ class FactorizationOperators:
     solved together; the adjoint is A_i' Z = Sigma_i Sigma^-1 Z.
     """
 
-    def __init__(self, factorization: object, derivative_matvec: DerivativeMatvec, count: int,
-                 *, symmetric: bool | None = None) -> None:
+    def __init__(self, factorization: Factorization, derivative_matvec: DerivativeMatvec,
+                 count: int, *, symmetric: bool | None = None) -> None:
         self.factorization = factorization
         self.derivative_matvec = derivative_matvec
         self.count = int(count)
-        self.n = int(factorization.n)  # type: ignore[attr-defined]
+        self.n = int(factorization.n)
         has_sqrt = (callable(getattr(factorization, "solve_sqrt", None))
                     and callable(getattr(factorization, "apply_sqrt", None)))
         supports = getattr(factorization, "supports_sqrt", None)
@@ -149,20 +151,22 @@ class FactorizationOperators:
     # -- factor operations, counted -------------------------------------------------
     def _solve(self, b: np.ndarray) -> np.ndarray:
         self.usage.solves += b.shape[1]
-        return np.asarray(self.factorization.solve(b), dtype=float)  # type: ignore[attr-defined]
+        return np.asarray(self.factorization.solve(b), dtype=np.float64)
 
     def _solve_sqrt(self, b: np.ndarray) -> np.ndarray:
         self.usage.solves += b.shape[1]
-        return np.asarray(self.factorization.solve_sqrt(b), dtype=float)  # type: ignore[attr-defined]
+        return np.asarray(cast(SymmetricFactorization, self.factorization).solve_sqrt(b),
+                          dtype=np.float64)
 
     def _solve_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
         """W^-T B: directly when offered, else Sigma^-1 (W B) (W^-T = Sigma^-1 W)."""
         direct = getattr(self.factorization, "solve_sqrt_transpose", None)
         if callable(direct):
             self.usage.solves += b.shape[1]
-            return np.asarray(direct(b), dtype=float)
+            return np.asarray(direct(b), dtype=np.float64)
         self.usage.solves += b.shape[1]
-        wb = np.asarray(self.factorization.apply_sqrt(b), dtype=float)  # type: ignore[attr-defined]
+        wb = np.asarray(cast(SymmetricFactorization, self.factorization).apply_sqrt(b),
+                        dtype=np.float64)
         return self._solve(wb)
 
     def _derivatives(self, blocks: np.ndarray) -> np.ndarray:
@@ -174,7 +178,7 @@ class FactorizationOperators:
 
     # -- OperatorFamily -------------------------------------------------------------
     def apply_all(self, z: np.ndarray) -> np.ndarray:
-        z = np.asarray(z, dtype=float)
+        z = np.asarray(z, dtype=np.float64)
         if self.symmetric:
             x = self._solve_sqrt_transpose(z)
             stack = self._derivatives(np.broadcast_to(x, (self.count, *x.shape)))
@@ -183,7 +187,7 @@ class FactorizationOperators:
         return _split(self._solve(_join(stack)), self.count)
 
     def apply_each(self, blocks: np.ndarray) -> np.ndarray:
-        blocks = np.asarray(blocks, dtype=float)
+        blocks = np.asarray(blocks, dtype=np.float64)
         parts = blocks.shape[0]
         if self.symmetric:
             x = _split(self._solve_sqrt_transpose(_join(blocks)), parts)
@@ -193,5 +197,5 @@ class FactorizationOperators:
     def apply_all_adjoint(self, z: np.ndarray) -> np.ndarray:
         if self.symmetric:
             return self.apply_all(z)
-        s = self._solve(np.asarray(z, dtype=float))
+        s = self._solve(np.asarray(z, dtype=np.float64))
         return self._derivatives(np.broadcast_to(s, (self.count, *s.shape)))
