@@ -233,6 +233,8 @@ def separable_block_with_derivatives(points: np.ndarray, rows: np.ndarray, cols:
     rows, cols = np.asarray(rows, np.intp), np.asarray(cols, np.intp)
     pts = _as_points(points)
     value, per_axis = _product_block(sep, pts[rows], pts[cols], True)
+    if per_axis is None:
+        raise RuntimeError("per-axis derivatives were asked for and not returned")
     derivs = np.empty((sep.n_params,) + value.shape)
     derivs[0] = value
     if sep.isotropic:
@@ -417,8 +419,10 @@ class KroneckerReference:
         v = self._check_values(values, "values")
         g = self._grid(v)
         col = self._param_map()[:, i]
-        out = sum(self._basic_matvec(b, g) for b in np.flatnonzero(col))
-        out = self.layout.from_grid(out)
+        summed = np.zeros_like(g)
+        for b in np.flatnonzero(col):
+            summed = summed + self._basic_matvec(int(b), g)
+        out = self.layout.from_grid(summed)
         return out[:, 0] if v.ndim == 1 else out
 
     def _basic_diagonals(self) -> list[np.ndarray]:
@@ -474,7 +478,7 @@ class KroneckerReference:
         seconds = {"loglik": time.perf_counter() - t0}
         notes = ["loglik, traces, Fisher: Kronecker eigen-decomposition (exact)"]
         use_reml = reml and p > 0
-        g_mat = self.solve(design) if (use_reml and (score or fisher)) else None
+        g_mat = self.solve(design) if (use_reml and (score or fisher)) else np.empty((0, 0))
         grad = traces = info = None
         if score:
             t1 = time.perf_counter()
