@@ -18,6 +18,7 @@ from harness.model.kernels.kernel_names import (
     make_kernel,
 )
 from harness.model.kernels.lower_fill import assemble_lower
+from harness.model.kernels.parameters import ParameterSpec
 
 __all__ = [
     "KERNELS",
@@ -29,6 +30,7 @@ __all__ = [
     "Matern",
     "Matern32",
     "Matern52",
+    "ParameterSpec",
     "RationalQuadratic",
     "UnknownKernelError",
     "assemble_lower",

@@ -25,7 +25,6 @@ coordinates coincide.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass, field, replace
 from typing import ClassVar
@@ -34,12 +33,15 @@ import numpy as np
 
 from harness.model.kernels import radial
 from harness.model.kernels.assembly import FAMILY_FUNCTIONS, fill_correlation, fill_with_derivatives
+from harness.model.kernels.parameters import (
+    LENGTHSCALE,
+    NUGGET,
+    VARIANCE,
+    KernelParameterError,
+    ParameterSpec,
+)
 
 _NUMPY_CHUNK = 1 << 20  # entries per temporary in the numpy path (8 MiB of float64)
-
-
-class KernelParameterError(ValueError):
-    """A kernel parameter is missing, non-finite, non-positive or of the wrong length."""
 
 
 def _as_lengthscale(value: float | Sequence[float]) -> tuple[float, ...]:
@@ -65,7 +67,9 @@ class Kernel:
 
     Subclasses set ``family`` (the name used on the command line) and implement
     ``radial`` (rho and its slope); those with a compiled closed form set
-    ``compiled = True`` and ``shape_value``.
+    ``compiled = True`` and ``shape_value``. ``PARAMETERS`` declares every parameter
+    once (``harness.model.kernels.parameters``); a subclass with a shape parameter adds
+    its ``ParameterSpec`` and a keyword-only field of the same name.
     """
 
     variance: float = 1.0
@@ -74,25 +78,32 @@ class Kernel:
 
     family: ClassVar[str] = ""
     compiled: ClassVar[bool] = False
+    PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (VARIANCE, LENGTHSCALE, NUGGET)
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "lengthscale", _as_lengthscale(self.lengthscale))
-        object.__setattr__(self, "variance", float(self.variance))
-        object.__setattr__(self, "nugget", float(self.nugget))
-        if not (math.isfinite(self.variance) and self.variance > 0):
-            raise KernelParameterError(
-                f"variance must be a finite number > 0, got {self.variance!r}")
-        for k, ls in enumerate(self.lengthscale, start=1):
-            if not (math.isfinite(ls) and ls > 0):
-                which = "lengthscale" if self.isotropic else f"lengthscale[{k}]"
-                raise KernelParameterError(f"{which} must be a finite number > 0, got {ls!r}")
-        if not (math.isfinite(self.nugget) and self.nugget >= 0):
-            raise KernelParameterError(f"nugget must be a finite number >= 0, got {self.nugget!r}")
+        lengthscale = _as_lengthscale(self.lengthscale)
+        several = len(lengthscale) > 1
+        object.__setattr__(self, "lengthscale", tuple(
+            LENGTHSCALE.check(v, label=f"lengthscale[{k}]" if several else None)
+            for k, v in enumerate(lengthscale, start=1)))
+        for spec in self.PARAMETERS:
+            if spec is not LENGTHSCALE:
+                object.__setattr__(self, spec.name, spec.check(getattr(self, spec.name)))
         self._check_shape()
+
+    @classmethod
+    def parameter(cls, name: str) -> ParameterSpec:
+        """The declaration of parameter ``name`` (``KernelParameterError`` if unknown)."""
+        for spec in cls.PARAMETERS:
+            if spec.name == name:
+                return spec
+        known = ", ".join(spec.name for spec in cls.PARAMETERS)
+        raise KernelParameterError(
+            f"kernel {cls.family!r} has no parameter {name!r}; it takes {known}")
 
     # -- description ---------------------------------------------------------------
     def _check_shape(self) -> None:
-        """Validate shape parameters (subclasses with nu or alpha override)."""
+        """Checks of shape parameters beyond their declared domain (subclasses override)."""
 
     @property
     def shape_value(self) -> float:
@@ -321,10 +332,9 @@ class RationalQuadratic(Kernel):
 
     family: ClassVar[str] = "rational_quadratic"
     compiled: ClassVar[bool] = True
-
-    def _check_shape(self) -> None:
-        if not (math.isfinite(self.alpha) and self.alpha > 0):
-            raise KernelParameterError(f"alpha must be a finite number > 0, got {self.alpha!r}")
+    PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (*Kernel.PARAMETERS, ParameterSpec(
+        "alpha", "rational-quadratic shape alpha (large alpha: the Gaussian kernel)", 0.0,
+        shape=True))
 
     @property
     def shape_value(self) -> float:
@@ -345,10 +355,9 @@ class Matern(Kernel):
     nu: float = field(default=1.5, kw_only=True)
 
     family: ClassVar[str] = "matern"
-
-    def _check_shape(self) -> None:
-        if not (math.isfinite(self.nu) and self.nu > 0):
-            raise KernelParameterError(f"nu must be a finite number > 0, got {self.nu!r}")
+    PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (*Kernel.PARAMETERS, ParameterSpec(
+        "nu", "Matern smoothness nu (1/2: exponential; large nu: the Gaussian kernel)", 0.0,
+        shape=True, required=True))
 
     @property
     def shape_value(self) -> float:

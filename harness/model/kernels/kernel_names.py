@@ -8,12 +8,12 @@ from harness.model.kernels.classes import (
     Exponential,
     Gaussian,
     Kernel,
-    KernelParameterError,
     Matern,
     Matern32,
     Matern52,
     RationalQuadratic,
 )
+from harness.model.kernels.parameters import KernelParameterError
 
 #: Every family, in the order listed to users. Adding a kernel means adding its class
 #: here; the kernel test-suite iterates over this tuple.
@@ -38,31 +38,33 @@ def kernel_class(name: str) -> type[Kernel]:
 def make_kernel(name: str, params: Mapping[str, float | Sequence[float]]) -> Kernel:
     """Build a kernel from its family name and natural-scale parameters.
 
-    ``params`` holds ``variance`` (default 1), ``lengthscale`` (required), ``nugget``
-    (default 0) and the family's shape parameter (``nu`` for ``matern``, ``alpha`` for
-    ``rational_quadratic``). Unknown parameter names are refused with the valid ones.
+    The parameters a family takes, which are required and their domains come from its
+    ``PARAMETERS`` declarations (``harness.model.kernels.parameters``): ``variance``
+    (default 1), ``lengthscale`` (required), ``nugget`` (default 0) and the family's shape
+    parameter (``nu`` for ``matern``, ``alpha`` for ``rational_quadratic``). Unknown names
+    are refused with the valid ones.
     """
     cls = kernel_class(name)
-    allowed = {"variance", "lengthscale", "nugget"}
-    if cls is Matern:
-        allowed.add("nu")
-    if cls is RationalQuadratic:
-        allowed.add("alpha")
-    unknown = sorted(set(params) - allowed)
+    allowed = [spec.name for spec in cls.PARAMETERS]
+    unknown = sorted(set(params) - set(allowed))
     if unknown:
         raise KernelParameterError(
             f"kernel {name!r} does not take parameter(s) {', '.join(unknown)}; "
             f"it takes {', '.join(sorted(allowed))}"
         )
-    if "lengthscale" not in params:
-        raise KernelParameterError(f"kernel {name!r}: parameter 'lengthscale' is required")
-    if cls is Matern and "nu" not in params:
-        raise KernelParameterError("kernel 'matern': parameter 'nu' is required (e.g. nu=1.5)")
-    kwargs = dict(params)
-    for key in ("variance", "nugget", "nu", "alpha"):
-        if key in kwargs:
-            value = kwargs[key]
-            if not isinstance(value, int | float):
-                raise KernelParameterError(f"{key}: expected one number, got {value!r}")
-            kwargs[key] = float(value)
+    kwargs: dict[str, object] = {}
+    for spec in cls.PARAMETERS:
+        if spec.name not in params:
+            if spec.required:
+                example = " (e.g. nu=1.5)" if spec.name == "nu" else ""
+                raise KernelParameterError(
+                    f"kernel {name!r}: parameter {spec.name!r} is required{example}")
+            continue
+        value = params[spec.name]
+        if spec.per_coordinate:
+            kwargs[spec.name] = value
+        elif isinstance(value, int | float) and not isinstance(value, bool):
+            kwargs[spec.name] = float(value)
+        else:
+            raise KernelParameterError(f"{spec.name}: expected one number, got {value!r}")
     return cls(**kwargs)  # type: ignore[arg-type]
