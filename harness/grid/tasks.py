@@ -113,35 +113,15 @@ class PointSetSpec:
                    value_column=data.get("value_column"))
 
 
-@dataclass(frozen=True)
-class Task:
-    """One audit cell: data, model, solver under test, and what to measure.
+@dataclass(frozen=True, kw_only=True)
+class AuditSettings:
+    """What to measure and how: the settings a case file gives every task of its grid.
+
+    ``Case`` (a case file) and ``Task`` (one cell of it) both inherit these fields, so a
+    setting and its default are written once.
 
     Attributes
     ----------
-    case : str
-        Name of the case grid (not part of the key).
-    pointset : PointSetSpec
-    n, d : int
-        Number of observations and dimension.
-    kernel : str
-        Kernel family (``harness.model.kernels.KERNELS``).
-    kernel_params : mapping
-        Natural-scale parameters for ``make_kernel``; these are also the data-generating
-        parameters theta_0.
-    separable : bool
-        Use the product (separable) form of the kernel, ``harness.references.kronecker
-        .SeparableKernel``, which the Kronecker reference needs on tensor grids.
-    mean : str
-        ``zero``, ``constant`` or ``linear``.
-    reml : bool
-    solver, solver_version : str
-        Registry name (or ``module:factory``) and version of the solver under test.
-    solver_options : mapping
-        Extra keyword options of the solver factory.
-    tol : float or None
-        Compression tolerance (None for exact solvers such as ``dense``).
-    seed : int
     trace_method : str
         ``exact``, ``hutchinson`` or ``hutchpp``.
     probes : int
@@ -169,6 +149,56 @@ class Task:
         BLAS and numba threads while timing (accuracy work always uses one).
     exclusive_timing : bool
         Time after the parallel accuracy work, one task at a time.
+    """
+
+    trace_method: str = "hutchpp"
+    probes: int = 32
+    metrics: tuple[str, ...] = METRIC_GROUPS
+    holdout: int = 64
+    perturbation: float = 0.05
+    power_iterations: int = 20
+    references: tuple[str, ...] = REFERENCE_KINDS
+    ladder_factor: float = 100.0
+    sample_tol: float = 1e-10
+    memory_budget: int | None = None
+    time_budget: float | None = None
+    timing: bool = True
+    repeats: int = 3
+    warmup: int = 1
+    timing_threads: int = 1
+    exclusive_timing: bool = True
+
+
+@dataclass(frozen=True, kw_only=True)
+class Task(AuditSettings):
+    """One audit cell: data, model, solver under test, and what to measure.
+
+    Attributes
+    ----------
+    case : str
+        Name of the case grid (not part of the key).
+    pointset : PointSetSpec
+    n, d : int
+        Number of observations and dimension.
+    kernel : str
+        Kernel family (``harness.model.kernels.KERNELS``).
+    kernel_params : mapping
+        Natural-scale parameters for ``make_kernel``; these are also the data-generating
+        parameters theta_0.
+    separable : bool
+        Use the product (separable) form of the kernel, ``harness.references.kronecker
+        .SeparableKernel``, which the Kronecker reference needs on tensor grids.
+    mean : str
+        ``zero``, ``constant`` or ``linear``.
+    reml : bool
+    solver, solver_version : str
+        Registry name (or ``module:factory``) and version of the solver under test.
+    solver_options : mapping
+        Extra keyword options of the solver factory.
+    tol : float or None
+        Compression tolerance (None for exact solvers such as ``dense``).
+    seed : int
+    (the settings of ``AuditSettings``)
     timeout : float or None
         Seconds one job of this task may run before its worker is stopped and the task
         recorded as timed out (None: the runner's default from the cost estimate).
@@ -188,22 +218,6 @@ class Task:
     solver_options: Mapping[str, Any]
     tol: float | None
     seed: int
-    trace_method: str = "hutchpp"
-    probes: int = 32
-    metrics: tuple[str, ...] = METRIC_GROUPS
-    holdout: int = 64
-    perturbation: float = 0.05
-    power_iterations: int = 20
-    references: tuple[str, ...] = REFERENCE_KINDS
-    ladder_factor: float = 100.0
-    sample_tol: float = 1e-10
-    memory_budget: int | None = None
-    time_budget: float | None = None
-    timing: bool = True
-    repeats: int = 3
-    warmup: int = 1
-    timing_threads: int = 1
-    exclusive_timing: bool = True
     timeout: float | None = None
 
     # -- identity -------------------------------------------------------------------

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, fields
 from typing import Any
 
-from harness.grid.tasks import METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec, Task
+from harness.grid.tasks import AuditSettings, PointSetSpec, Task
 
 
 @dataclass(frozen=True)
@@ -49,8 +49,8 @@ class SolverEntry:
                 "tolerances": list(self.tolerances), "options": dict(self.options)}
 
 
-@dataclass(frozen=True)
-class Case:
+@dataclass(frozen=True, kw_only=True)
+class Case(AuditSettings):
     """A validated case grid; ``tasks()`` is the cross product.
 
     The product runs over point sets x sizes x dimensions x kernels x mean models x
@@ -68,22 +68,6 @@ class Case:
     reml: bool
     solvers: tuple[SolverEntry, ...]
     seeds: tuple[int, ...]
-    trace_method: str = "hutchpp"
-    probes: int = 32
-    metrics: tuple[str, ...] = METRIC_GROUPS
-    holdout: int = 64
-    perturbation: float = 0.05
-    power_iterations: int = 20
-    references: tuple[str, ...] = REFERENCE_KINDS
-    ladder_factor: float = 100.0
-    sample_tol: float = 1e-10
-    memory_budget: int | None = None
-    time_budget: float | None = None
-    timing: bool = True
-    repeats: int = 3
-    warmup: int = 1
-    timing_threads: int = 1
-    exclusive_timing: bool = True
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {}
@@ -100,6 +84,7 @@ class Case:
         """Every cell of the grid, in a deterministic order, without duplicates."""
         out: list[Task] = []
         seen: set[str] = set()
+        settings = {f.name: getattr(self, f.name) for f in fields(AuditSettings)}
         for entry in self.pointsets:
             for n, d in itertools.product(entry.sizes, entry.dims):
                 for kern, mean, solver in itertools.product(self.kernels, self.means,
@@ -113,16 +98,7 @@ class Case:
                             separable=kern.separable, mean=mean, reml=self.reml,
                             solver=solver.name, solver_version=solver.version,
                             solver_options=dict(solver.options), tol=tol, seed=seed,
-                            trace_method=self.trace_method, probes=self.probes,
-                            metrics=self.metrics, holdout=self.holdout,
-                            perturbation=self.perturbation,
-                            power_iterations=self.power_iterations,
-                            references=self.references, ladder_factor=self.ladder_factor,
-                            sample_tol=self.sample_tol, memory_budget=self.memory_budget,
-                            time_budget=self.time_budget, timing=self.timing,
-                            repeats=self.repeats, warmup=self.warmup,
-                            timing_threads=self.timing_threads,
-                            exclusive_timing=self.exclusive_timing,
+                            **settings,
                         )
                         if task.key not in seen:
                             seen.add(task.key)
