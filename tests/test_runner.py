@@ -190,7 +190,7 @@ def test_faulty_plugins_are_recorded_on_processes(tmp_path, plugin_dir):
     case = _case(tmp_path, FAULTS)
     store = RunStore(tmp_path / "out")
     summary = run_grid(case.tasks(), store, ProcessBackend(2))
-    assert (summary.ok, summary.failed) == (1, 3)
+    assert (summary.ok, summary.failed) == (1, 3), summary.failures
     _check_faults(store)
 
 

@@ -11,7 +11,13 @@ Two stages:
 Resume: a task whose record is complete (``harness.grid.store.task_records.is_complete``) is not
 redone; a failed one is redone only with ``redo_failed``; one whose timing is pending is
 only timed. Records are written atomically, so a run killed at any moment leaves every
-file either absent or complete.
+file either absent or complete, and results.csv and timings.csv are rewritten (atomically)
+after every task, so a killed run can be reported at once.
+
+A run holds the directory's lock file (``harness.grid.store.run_lock``) from start to
+end: a second run on the same directory is refused with the owner's process id, and a
+lock left by a killed run is taken over. Every job carries a timeout
+(``harness.grid.runner.deadlines``); the backends stop a job past it.
 """
 
 from __future__ import annotations
@@ -24,9 +30,11 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from harness.grid.runner.backend import Backend
+from harness.grid.runner.deadlines import task_timeout as timeout_of
 from harness.grid.runner.jobs import Job
 from harness.grid.store.environment import environment
 from harness.grid.store.run_directory import RunStore
+from harness.grid.store.run_lock import RunLock
 from harness.grid.store.task_records import is_complete, new_record, now
 from harness.grid.tasks import Task
 
@@ -87,11 +95,19 @@ class _Recorder:
     """Turns outcomes into stored records and counts them."""
 
     def __init__(self, store: RunStore, tasks: Mapping[str, Task], backend: Backend,
-                 progress: ProgressCallback | None) -> None:
+                 progress: ProgressCallback | None,
+                 records: Mapping[str, Mapping[str, Any]] | None = None) -> None:
         self.store, self.tasks, self.backend, self.progress = store, tasks, backend, progress
+        self.records: dict[str, Mapping[str, Any]] = dict(records or {})
         self.counts = {"ran": 0, "ok": 0, "failed": 0, "skipped": 0, "timed": 0,
                        "timing_failed": 0}
         self.failures: list[str] = []
+
+    def _store(self, record: Mapping[str, Any]) -> None:
+        """Write the task's record, then the tables of every record so far (atomically)."""
+        self.store.write_record(record)
+        self.records[record["key"]] = record
+        self.store.write_tables(self.records.values())
 
     def _emit(self, label: str, status: str, stage: str) -> None:
         if self.progress is not None:
@@ -129,7 +145,7 @@ class _Recorder:
                 self.counts["timed"] += 1
             else:
                 record["timing_status"] = "pending"
-        self.store.write_record(record)
+        self._store(record)
         self.counts["ran"] += 1
         self.counts[outcome["status"]] += 1
         if outcome["status"] == "failed":
@@ -158,7 +174,7 @@ class _Recorder:
             self.failures.append(f"{job.label} (timing): {err.get('type')}: "
                                  f"{err.get('message')}")
         record["timing_context"] = self._timing_context(job.concurrency)
-        self.store.write_record(record)
+        self._store(record)
         self._emit(job.label, "ok" if outcome["status"] == "ok" else "failed", "timing")
 
 
@@ -168,8 +184,11 @@ def _needs_timing(record: Mapping[str, Any] | None) -> bool:
 
 
 def plan(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
-         redo_failed: bool, workers: int) -> tuple[list[Job], list[Job], int, int]:
-    """Accuracy jobs, timing jobs, and the counts of tasks already done / failures kept."""
+         redo_failed: bool, workers: int, timeout: float | None = None
+         ) -> tuple[list[Job], list[Job], int, int]:
+    """Accuracy jobs, timing jobs, and the counts of tasks already done / failures kept.
+
+    ``timeout`` overrides every task's timeout (``harness.grid.runner.deadlines``)."""
     accuracy: list[Job] = []
     timing: list[Job] = []
     done = kept = 0
@@ -178,9 +197,11 @@ def plan(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
         inline = task.timing and not task.exclusive_timing
         stage = "accuracy+timing" if inline else "accuracy"
         width = workers if inline else 1
+        limit = timeout_of(task, override=timeout)
         acc_job = Job(key=task.key, label=task.label, stage=stage, task=task.to_dict(),
-                      concurrency=width)
-        time_job = Job(key=task.key, label=task.label, stage="timing", task=task.to_dict())
+                      concurrency=width, timeout=limit)
+        time_job = Job(key=task.key, label=task.label, stage="timing", task=task.to_dict(),
+                       timeout=limit)
         if record is None:
             accuracy.append(acc_job)
             if task.timing and not inline:
@@ -205,15 +226,31 @@ def plan(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
 def run_grid(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
              redo_failed: bool = False, progress: ProgressCallback | None = None,
              case_file: str | None = None, case_text: str | None = None,
-             case_info: Mapping[str, Any] | None = None) -> RunSummary:
-    """Run every task not yet complete in ``store`` (module docstring)."""
-    start = time.perf_counter()
+             case_info: Mapping[str, Any] | None = None,
+             task_timeout: float | None = None) -> RunSummary:
+    """Run every task not yet complete in ``store`` (module docstring).
+
+    Raises ``harness.grid.store.RunDirectoryLocked`` when another live run holds the
+    directory. ``task_timeout`` (seconds) overrides every task's own timeout.
+    """
     store.prepare()
+    with RunLock(store.path):
+        return _run_locked(tasks, store, backend, redo_failed=redo_failed,
+                           progress=progress, case_file=case_file, case_text=case_text,
+                           case_info=case_info, task_timeout=task_timeout)
+
+
+def _run_locked(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
+                redo_failed: bool, progress: ProgressCallback | None,
+                case_file: str | None, case_text: str | None,
+                case_info: Mapping[str, Any] | None, task_timeout: float | None
+                ) -> RunSummary:
+    start = time.perf_counter()
     store.remove_stale_temporaries()
     existing = store.records()
     by_key = {t.key: t for t in tasks}
     accuracy, timing, done, kept = plan(tasks, existing, redo_failed=redo_failed,
-                                        workers=backend.workers)
+                                        workers=backend.workers, timeout=task_timeout)
     if progress is not None:
         progress(GridEvent(kind="planned", total=len(accuracy) + len(timing)))
     run_info: dict[str, Any] = {
@@ -228,7 +265,8 @@ def run_grid(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
                                      {k: previous.get(k) for k in ("started", "finished",
                                                                    "status", "backend")}]
     store.write_run(run_info)
-    recorder = _Recorder(store, by_key, backend, progress)
+    recorder = _Recorder(store, by_key, backend, progress, existing)
+    store.write_tables(existing.values())
     interrupted = False
     try:
         if accuracy:

@@ -1,4 +1,4 @@
-"""Run jobs one after another in this process."""
+"""Run jobs one after another, each in a reused child process (not in this process)."""
 
 from __future__ import annotations
 
@@ -6,24 +6,28 @@ from collections.abc import Sequence
 from typing import Any
 
 from harness.grid.runner.backend import OutcomeCallback
-from harness.grid.runner.jobs import Job, execute
+from harness.grid.runner.jobs import Job
+from harness.grid.runner.workers import WorkerPool
 
 
 class SerialBackend:
-    """In-process execution. A job that kills its process (os._exit, a segfault) kills
-    the run too; use the processes or Dask backend to survive such plugins."""
+    """One job at a time on one worker process (``harness.grid.runner.workers``), so a
+    job that aborts, segfaults or hangs is recorded as a failed task and the run goes on."""
 
     name = "serial"
     workers = 1
     shared = False
 
+    def __init__(self) -> None:
+        self._pool = WorkerPool(1)
+
     def run(self, jobs: Sequence[Job], *, concurrency: int, on_outcome: OutcomeCallback
             ) -> None:
-        for job in jobs:
-            on_outcome(job, execute(job.to_dict()))
+        self._pool.run(jobs, concurrency=1, on_outcome=on_outcome)
 
     def close(self) -> None:
-        """Nothing to release."""
+        self._pool.close()
 
     def describe(self) -> dict[str, Any]:
-        return {"name": self.name, "workers": self.workers}
+        return {"name": self.name, "workers": self.workers, "isolation": "child process",
+                "start_method": "spawn"}

@@ -6,6 +6,7 @@ from harness.grid.store.run_directory import (
     OutputDirectoryError,
     RunStore,
 )
+from harness.grid.store.run_lock import LOCK_FILE, RunDirectoryLocked, RunLock
 from harness.grid.store.task_records import (
     SCHEMA_VERSION,
     RecordSchemaError,
@@ -16,6 +17,9 @@ from harness.grid.store.task_records import (
 )
 
 __all__ = [
+    "LOCK_FILE",
+    "RunDirectoryLocked",
+    "RunLock",
     "SCHEMA_VERSION",
     "CorruptRecordWarning",
     "OutputDirectoryError",
