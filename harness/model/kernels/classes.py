@@ -45,8 +45,12 @@ _NUMPY_CHUNK = 1 << 20  # entries per temporary in the numpy path (8 MiB of floa
 
 
 def _as_lengthscale(value: float | Sequence[float]) -> tuple[float, ...]:
-    values = (value,) if np.isscalar(value) else tuple(value)  # type: ignore[arg-type]
-    if len(values) == 0:
+    try:
+        values = np.atleast_1d(np.asarray(value, dtype=np.float64)).ravel()
+    except (TypeError, ValueError):
+        raise KernelParameterError(
+            f"lengthscale: expected one number or one per coordinate, got {value!r}") from None
+    if values.size == 0:
         raise KernelParameterError(
             "lengthscale: expected one value or one per coordinate, got none")
     return tuple(float(v) for v in values)
@@ -78,7 +82,15 @@ class Kernel:
 
     family: ClassVar[str] = ""
     compiled: ClassVar[bool] = False
+    closed_form: ClassVar[str] = ""
     PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (VARIANCE, LENGTHSCALE, NUGGET)
+
+    def __init_subclass__(cls, *, family: str = "", compiled: bool = False,
+                          closed_form: str = "", **kwargs: object) -> None:
+        """``class Name(Kernel, family=..., compiled=..., closed_form=...)``."""
+        super().__init_subclass__(**kwargs)
+        if family:
+            cls.family, cls.compiled, cls.closed_form = family, compiled, closed_form
 
     def __post_init__(self) -> None:
         lengthscale = _as_lengthscale(self.lengthscale)
@@ -178,8 +190,15 @@ class Kernel:
 
     # -- correlation ---------------------------------------------------------------
     def radial(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """rho(r) and s(r) = -r rho'(r) for scaled distances r (subclasses implement)."""
-        raise NotImplementedError
+        """rho(r) and s(r) = -r rho'(r) for scaled distances r.
+
+        Families without shape parameters name their closed form in ``radial``
+        (``closed_form``); those with one (nu, alpha) override this method.
+        """
+        if not self.closed_form:
+            raise NotImplementedError(f"{type(self).__name__} declares no closed form")
+        form = getattr(radial, self.closed_form)
+        return form(r)
 
     def scale_points(self, points: np.ndarray) -> np.ndarray:
         """Coordinates divided by the length scale(s), C-contiguous float64."""
@@ -281,57 +300,31 @@ class Kernel:
 
 
 @dataclass(frozen=True)
-class Exponential(Kernel):
+class Exponential(Kernel, family="exponential", compiled=True, closed_form="exponential"):
     """Exponential kernel, Matern nu = 1/2: rho = exp(-r)."""
 
-    family: ClassVar[str] = "exponential"
-    compiled: ClassVar[bool] = True
-
-    def radial(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return radial.exponential(r)
-
 
 @dataclass(frozen=True)
-class Matern32(Kernel):
+class Matern32(Kernel, family="matern32", compiled=True, closed_form="matern32"):
     """Matern nu = 3/2: rho = (1 + sqrt(3) r) exp(-sqrt(3) r)."""
 
-    family: ClassVar[str] = "matern32"
-    compiled: ClassVar[bool] = True
-
-    def radial(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return radial.matern32(r)
-
 
 @dataclass(frozen=True)
-class Matern52(Kernel):
+class Matern52(Kernel, family="matern52", compiled=True, closed_form="matern52"):
     """Matern nu = 5/2: rho = (1 + sqrt(5) r + 5 r^2 / 3) exp(-sqrt(5) r)."""
 
-    family: ClassVar[str] = "matern52"
-    compiled: ClassVar[bool] = True
-
-    def radial(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return radial.matern52(r)
-
 
 @dataclass(frozen=True)
-class Gaussian(Kernel):
+class Gaussian(Kernel, family="gaussian", compiled=True, closed_form="gaussian"):
     """Squared exponential: rho = exp(-r^2 / 2)."""
 
-    family: ClassVar[str] = "gaussian"
-    compiled: ClassVar[bool] = True
-
-    def radial(self, r: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        return radial.gaussian(r)
-
 
 @dataclass(frozen=True)
-class RationalQuadratic(Kernel):
+class RationalQuadratic(Kernel, family="rational_quadratic", compiled=True):
     """Rational quadratic with fixed alpha: rho = (1 + r^2 / (2 alpha))^-alpha."""
 
     alpha: float = field(default=1.0, kw_only=True)
 
-    family: ClassVar[str] = "rational_quadratic"
-    compiled: ClassVar[bool] = True
     PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (*Kernel.PARAMETERS, ParameterSpec(
         "alpha", "rational-quadratic shape alpha (large alpha: the Gaussian kernel)", 0.0,
         shape=True))

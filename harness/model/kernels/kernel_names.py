@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import difflib
+
 from collections.abc import Mapping, Sequence
 
 from harness.model.kernels.classes import (
@@ -32,7 +34,10 @@ def kernel_class(name: str) -> type[Kernel]:
         return KERNELS[name]
     except KeyError:
         known = ", ".join(KERNELS)
-        raise UnknownKernelError(f"unknown kernel {name!r}; known kernels: {known}") from None
+        close = difflib.get_close_matches(str(name), list(KERNELS), n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        raise UnknownKernelError(f"unknown kernel {name!r}{hint}; known kernels: "
+                                 f"{known}") from None
 
 
 def make_kernel(name: str, params: Mapping[str, float | Sequence[float]]) -> Kernel:
