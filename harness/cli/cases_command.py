@@ -17,12 +17,15 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser.add_argument("--only", metavar="KEY-PATTERN", action="append", default=None,
                         help="list only tasks whose key or label matches (repeatable)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
+    parser.add_argument("--no-probe", action="store_true",
+                        help="do not time the 0.25 s dense probe that calibrates the "
+                             "estimates to this machine (assume 7 Gflop/s)")
     return parser
 
 
 def run(args: argparse.Namespace) -> int:
     from harness.grid.cases import CaseFileError, format_bytes, load_case
-    from harness.grid.cases.cost import estimate_cost
+    from harness.grid.cases.cost import estimate_grid, measure_dense_rate
     from harness.grid.runner import select_tasks
     from harness.references.budget import default_memory_budget
 
@@ -33,12 +36,13 @@ def run(args: argparse.Namespace) -> int:
         return 2
     tasks = select_tasks(case.tasks(), args.only)
     budget = case.memory_budget or default_memory_budget()
-    rows = []
-    for task in tasks:
-        cost = estimate_cost(task, dense_limit_bytes=budget)
-        rows.append({"key": task.key, "label": task.label, **cost.to_dict()})
+    rate = None if args.no_probe else measure_dense_rate(rng=0)
+    grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate)
+    rows = [{"key": task.key, "label": task.label, **cost.to_dict()}
+            for task, cost in zip(tasks, grid.tasks, strict=True)]
     if args.json:
-        print(json.dumps({"case": case.name, "tasks": rows}, indent=1))
+        print(json.dumps({"case": case.name, "tasks": rows, "estimate": grid.to_dict()},
+                         indent=1))
         return 0
     width = max([len(r["label"]) for r in rows] + [5])
     print(f"{case.name}: {len(rows)} tasks ({case.source})")
@@ -47,6 +51,9 @@ def run(args: argparse.Namespace) -> int:
         ref = "dense" if r["dense_reference"] else "structured/ladder"
         print(f"{r['key']:16}  {r['label']:{width}}  {r['estimated_seconds']:>9.3g}s  "
               f"{format_bytes(r['estimated_bytes']):>11}  {ref}")
-    total = sum(r["estimated_seconds"] for r in rows)
-    print(f"estimated total: {total:.3g} s serial (rough model, see harness.grid.cases.cost)")
+    basis = (f"calibrated by a dense probe at {grid.rate / 1e9:.3g} Gflop/s on one thread"
+             if grid.measured else f"assuming {grid.rate / 1e9:.3g} Gflop/s (--no-probe)")
+    print(f"estimated total: {grid.total_seconds:.3g} s serial, start-up (compilation) "
+          f"{grid.startup_seconds:.2g} s included; {basis}. An estimate: on a loaded "
+          "machine expect up to twice as long (see harness.grid.cases.cost)")
     return 0

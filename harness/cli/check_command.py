@@ -72,8 +72,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--memory-budget", type=float, default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
-    p.add_argument("--out", default="reports/check", help="folder for check.json and "
-                                                          "check.html (default reports/check)")
+    p.add_argument("--out", default=None, help="folder for check.json and check.html "
+                                               "(default reports/check-<data file stem>/)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
     p.add_argument("--seed", type=int, default=0, help="seed of holdout, pilot and probes")
 
@@ -199,11 +199,21 @@ def _short(value: Any) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
-def run(args: argparse.Namespace) -> int:
-    def progress(message: str) -> None:
-        if not args.json:
-            print(f"  .. {message}", file=sys.stderr)
+def default_out(datafile: str | Path) -> Path:
+    """``reports/check-<data file stem>``: one folder per data file, so checks of different
+    files do not overwrite each other."""
+    return Path("reports") / f"check-{Path(datafile).stem}"
 
+
+def written_files(out: str | Path, names: list[str]) -> list[Path]:
+    """The files ``write_outputs`` wrote into ``out``, in order."""
+    return [Path(out) / name for name in names if (Path(out) / name).is_file()]
+
+
+def run(args: argparse.Namespace) -> int:
+    from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
+
+    out = Path(args.out) if args.out else default_out(args.datafile)
     try:
         options = options_from_args(args)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
@@ -211,12 +221,19 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        result = run_check(data, options, source=str(args.datafile), progress=progress)
-        write_outputs(result, args.out)
+        progress = CheckProgress(tolerances=len(options.tolerances), refit=options.refit,
+                                 enabled=progress_enabled(json_output=args.json))
+        try:
+            result = run_check(data, options, source=str(args.datafile), progress=progress)
+        finally:
+            progress.close()
+        write_outputs(result, out)
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
             OSError) as exc:
         print(f"covaudit check: error: {exc}", file=sys.stderr)
         return 2
     print(json_text(result) if args.json else summary(result))
+    for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
+        print(line, file=sys.stderr if args.json else sys.stdout)
     return 0 if result.recommended_tolerance is not None else 1

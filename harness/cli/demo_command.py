@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 
@@ -32,8 +33,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from harness.cli.progress import CheckProgress, wrote_lines
+
     start = time.perf_counter()
-    print(f"  .. generating {args.n:,} demo points (seed {DEMO_SEED})", file=sys.stderr)
+    progress = CheckProgress(tolerances=len(DEMO_TOLERANCES), refit=True)
+    progress(f"generating {args.n:,} demo points (seed {DEMO_SEED})")
     demo = generate_demo(n=args.n)
     frame = demo.frame
     obs = observations_from_arrays(frame[["easting_m", "northing_m"]].to_numpy(),
@@ -44,16 +48,20 @@ def run(args: argparse.Namespace) -> int:
                            tolerances=DEMO_TOLERANCES, seed=0, thresholds=Thresholds())
     try:
         result = run_check(data, options, source="demo-data/soil_moisture.csv",
-                           truth=demo.truth(),
-                           progress=lambda m: print(f"  .. {m}", file=sys.stderr))
+                           truth=demo.truth(), progress=progress)
         write_outputs(result, args.out, html_name="demo.html", json_name="demo.json",
                       extra={"demo-data/soil_moisture.csv": frame.to_csv(index=False),
                              "demo-data/soil_moisture.md": demo.dictionary})
     except (ValueError, MemoryError, np.linalg.LinAlgError, OSError) as exc:
         print(f"covaudit demo: error: {exc}", file=sys.stderr)
         return 2
+    finally:
+        progress.close()
     print(summary(result))
     print(f"  truth       {demo.truth()}")
-    print(f"  wrote {args.out}/demo.html, {args.out}/demo.json and "
-          f"{args.out}/demo-data/ in {time.perf_counter() - start:.0f} s")
+    print(f"  finished in {time.perf_counter() - start:.0f} s")
+    for line in wrote_lines([Path(args.out) / name for name in (
+            "demo.html", "demo.json", "demo-data/soil_moisture.csv",
+            "demo-data/soil_moisture.md")]):
+        print(line)
     return 0

@@ -35,5 +35,5 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit export: {exc}", file=sys.stderr)
         return EXIT_ERROR
     for path in result.files:
-        print(path)
+        print(f"wrote {path}")
     return EXIT_OK

@@ -56,5 +56,5 @@ def run(args: argparse.Namespace) -> int:
     except (RunDirError, ThresholdError, ValueError, OSError) as exc:
         print(f"covaudit report: {exc}", file=sys.stderr)
         return EXIT_ERROR
-    print(path)
+    print(f"wrote {path}")
     return EXIT_OK

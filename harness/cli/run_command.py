@@ -43,32 +43,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "substring; repeatable)")
 
 
-class _Progress:
-    """tqdm bar of jobs done, failed and the time left; silent when not a terminal."""
-
-    def __init__(self) -> None:
-        from tqdm import tqdm
-
-        self.bar = tqdm(total=0, unit="job", disable=not sys.stderr.isatty(),
-                        dynamic_ncols=True, file=sys.stderr)
-        self.failed = 0
-        self.skipped = 0
-
-    def __call__(self, event: Any) -> None:
-        if event.kind == "planned":
-            self.bar.reset(total=event.total)
-        elif event.kind == "stage":
-            self.bar.set_description(event.stage)
-        elif event.kind == "done":
-            self.failed += event.status == "failed"
-            self.skipped += event.status == "skipped"
-            self.bar.set_postfix(failed=self.failed, skipped=self.skipped, refresh=False)
-            self.bar.update(1)
-
-    def close(self) -> None:
-        self.bar.close()
-
-
 def _write_report(out: Path) -> Path | None:
     """Call ``harness.report.write_report(run_dir)`` when that package exists."""
     if importlib.util.find_spec("harness.report") is None:
@@ -108,7 +82,9 @@ def run(args: argparse.Namespace) -> int:
     except (ValueError, OSError) as exc:
         print(f"covaudit run: {exc}", file=sys.stderr)
         return EXIT_ERROR
-    progress = _Progress()
+    from harness.cli.progress import GridProgress, wrote_lines
+
+    progress = GridProgress()
     try:
         summary = run_grid(tasks, store, backend, redo_failed=args.redo_failed,
                            progress=progress, case_file=args.casefile,
@@ -138,8 +114,12 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit run: the report could not be written: {type(exc).__name__}: {exc}",
               file=sys.stderr)
         report = None
-    if report is not None:
-        print(f"report: {report}")
+    written = [out / name for name in ("results.csv", "timings.csv", "run.json")
+               if (out / name).is_file()]
+    for line in wrote_lines([*written, *([report] if report is not None else [])]):
+        print(line)
+    print(f"wrote task records under {out / 'tasks'} ({summary.ran} new, "
+          f"{summary.timed} timed)")
     return EXIT_FINDING if summary.failed or summary.timing_failed else EXIT_OK
 
 

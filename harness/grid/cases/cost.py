@@ -1,22 +1,91 @@
-"""Rough cost estimates of a task, for planning (``covaudit cases``) and the time budget.
+"""Cost estimates of tasks, for planning (``covaudit cases``) and the time budget.
 
-These are order-of-magnitude models, not measurements: dense work at an assumed
-``DENSE_FLOPS`` floating-point operations per second on one core, compressed work as
-n log2(n)^2 times a rank that grows with log10(1/tol). Shown as estimates, and used to
-skip tasks whose estimate exceeds a case's time budget.
+The model, per task (seconds):
+
+- dense work (the certified reference, or the dense solver): floating-point operations
+  divided by the machine's dense rate ``rate`` (flop/s): Cholesky n^3/3, inverse 2n^3/3
+  and the Fisher products 2 p n^3 (Golub & Van Loan, *Matrix Computations*, 4th ed.,
+  section 4.2: Cholesky costs n^3/3 flops), twice (at the data-generating parameters and
+  a perturbed point);
+- compressed work: ``COMPRESSED_UNIT_FLOPS`` times n log2(n)^2 times a rank that grows
+  with log10(1/tol) (the usual HODLR factorization cost O(n log^2 n r^2) folded into one
+  constant), plus a fixed ``EVAL_OVERHEAD_FLOPS``, per likelihood-and-gradient
+  evaluation;
+- a fixed cost per job (``JOB_OVERHEAD_FLOPS``: data generation, kernel assembly, record
+  and table writing) and, once per run with a compressed solver, its start-up
+  (``STARTUP_FLOPS``: just-in-time compilation);
+- timing repeats and warm-up runs repeat the solver's evaluation.
+
+Every constant is expressed in flops of dense work, so one measured number, the dense
+rate of this machine (``measure_dense_rate``: a Cholesky factorization of an n = 1,024
+matrix on one thread, median of 5, about 0.25 s), calibrates the whole model. The
+constants were fitted to measured runs of ``cases/smoke.toml`` on a 2-core machine (see
+``benchmarks/results/cost_model.json``); elsewhere they are estimates, shown as such.
+Without a measured rate the model assumes ``DENSE_FLOPS``.
 """
 
 from __future__ import annotations
 
 import math
+import time
+from collections.abc import Sequence
 from dataclasses import dataclass
+
+import numpy as np
 
 from harness.grid.tasks import Task
 
-#: Assumed sustained dense throughput of one core (flop/s).
-DENSE_FLOPS = 2e10
-#: Assumed seconds per (n log2(n)^2 rank) unit of compressed-solver work.
-COMPRESSED_UNIT_SECONDS = 2e-8
+#: Assumed single-thread dense throughput (flop/s) when none was measured.
+DENSE_FLOPS = 7e9
+#: Dense-work flops per (n log2(n)^2 rank) unit of one compressed evaluation with gradient.
+COMPRESSED_UNIT_FLOPS = 400.0
+#: Dense-work flops of the fixed cost of one compressed evaluation (tree, Python loops).
+EVAL_OVERHEAD_FLOPS = 1.4e9
+#: Dense-work flops of the fixed cost of one job (accuracy or timing).
+JOB_OVERHEAD_FLOPS = 3.6e9
+#: Dense-work flops of a run's start-up when it holds a compressed-solver task.
+STARTUP_FLOPS = 8.1e10
+#: Matrix size of the dense-rate probe.
+PROBE_N = 1024
+
+
+@dataclass(frozen=True)
+class DenseRate:
+    """A measured dense rate: ``flops`` per second from a Cholesky of size ``n``."""
+
+    flops: float
+    n: int
+    seconds: float
+
+    def to_dict(self) -> dict[str, float | int]:
+        return {"flops_per_second": self.flops, "n": self.n, "seconds": self.seconds}
+
+
+def measure_dense_rate(*, n: int = PROBE_N, repeats: int = 5,
+                       rng: np.random.Generator | int | None = None) -> DenseRate:
+    """Time ``scipy.linalg.cho_factor`` (LAPACK dpotrf) on an n x n SPD matrix, on one
+    BLAS thread (a multi-threaded probe on a loaded machine varies tenfold from call to
+    call; one thread gets its core).
+
+    Returns the rate n^3/3 / (median seconds) (Golub & Van Loan, section 4.2).
+    """
+    from scipy.linalg import cho_factor
+    from threadpoolctl import threadpool_limits
+
+    if n < 64 or repeats < 1:
+        raise ValueError(f"measure_dense_rate: n must be >= 64 and repeats >= 1, got "
+                         f"n={n}, repeats={repeats}")
+    gen = np.random.default_rng(rng)
+    a = gen.standard_normal((n, n))
+    spd = a @ a.T / n + np.eye(n)
+    times = []
+    with threadpool_limits(limits=1, user_api="blas"):
+        for _ in range(repeats):
+            start = time.perf_counter()
+            cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
+            times.append(time.perf_counter() - start)
+    seconds = float(np.median(times))
+    return DenseRate(flops=n ** 3 / 3 / max(seconds, 1e-9), n=n, seconds=seconds)
 
 
 @dataclass(frozen=True)
@@ -32,6 +101,24 @@ class CostEstimate:
                 "dense_reference": self.dense_reference}
 
 
+@dataclass(frozen=True)
+class GridEstimate:
+    """The tasks' estimates, the run's start-up and their total (seconds, serial)."""
+
+    tasks: tuple[CostEstimate, ...]
+    startup_seconds: float
+    rate: float
+    measured: bool
+
+    @property
+    def total_seconds(self) -> float:
+        return self.startup_seconds + sum(t.seconds for t in self.tasks)
+
+    def to_dict(self) -> dict[str, object]:
+        return {"total_seconds": self.total_seconds, "startup_seconds": self.startup_seconds,
+                "dense_flops_per_second": self.rate, "rate_measured": self.measured}
+
+
 def _params(task: Task) -> int:
     ls = task.kernel_params.get("lengthscale", 1.0)
     k = len(ls) if isinstance(ls, list | tuple) else 1
@@ -42,32 +129,65 @@ def _rank(tol: float | None) -> float:
     return 4.0 + 6.0 * math.log10(1.0 / tol) if tol else 0.0
 
 
-def _dense(n: int, p: int) -> tuple[float, int]:
+def _dense_flops(n: int, p: int) -> tuple[float, int]:
     # Cholesky n^3/3, inverse 2n^3/3, Fisher 2 p n^3, twice (theta_0 and perturbed).
     flops = 2 * (n ** 3 / 3 + 2 * n ** 3 / 3 + 2 * p * n ** 3)
-    return flops / DENSE_FLOPS, int(8 * n * n * (p + 3))
+    return flops, int(8 * n * n * (p + 3))
 
 
-def estimate_cost(task: Task, *, dense_limit_bytes: int | None) -> CostEstimate:
-    """Estimate one task's cost; the dense reference is assumed when it fits the budget."""
+def _jobs(task: Task) -> int:
+    return 2 if task.timing and task.exclusive_timing else 1
+
+
+def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
+                  rate: float | None = None) -> CostEstimate:
+    """Estimate one task's cost (module docstring); the dense reference is assumed when it
+    fits the budget.
+
+    Parameters
+    ----------
+    rate : float, optional
+        Dense flop/s of this machine (``measure_dense_rate``); ``DENSE_FLOPS`` when None.
+    """
+    flops_per_second = DENSE_FLOPS if rate is None else float(rate)
+    if not (math.isfinite(flops_per_second) and flops_per_second > 0):
+        raise ValueError(f"estimate_cost: rate must be a positive flop/s, got {rate!r}")
     n, p = task.n, _params(task)
-    dense_seconds, dense_bytes = _dense(n, p)
+    dense_work, dense_bytes = _dense_flops(n, p)
     use_dense = "dense" in task.references and (dense_limit_bytes is None
                                                 or dense_bytes <= dense_limit_bytes)
     if task.solver == "dense":
-        solver_seconds, solver_bytes = dense_seconds / 2, 8 * n * n
+        solver_work, solver_bytes = dense_work / 2, 8 * n * n
     else:
         rank = _rank(task.tol) or 20.0
         units = n * max(math.log2(max(n, 2)), 1.0) ** 2 * rank
-        solver_seconds = COMPRESSED_UNIT_SECONDS * units * (1 + task.probes * p / 50)
+        probes = 0 if task.trace_method == "exact" else task.probes
+        solver_work = (COMPRESSED_UNIT_FLOPS * units * (1 + probes * p / 50)
+                       + EVAL_OVERHEAD_FLOPS)
         solver_bytes = int(8 * n * rank * max(math.log2(max(n, 2)), 1.0) * 2)
-    seconds = solver_seconds * (2 if "perturbed" in task.metrics else 1)
+    work = solver_work * (2 if "perturbed" in task.metrics else 1)
     if task.timing:
-        seconds += solver_seconds * (task.repeats + task.warmup)
+        work += solver_work * (task.repeats + task.warmup)
     if use_dense:
-        seconds += dense_seconds
+        work += dense_work
         peak = max(dense_bytes, solver_bytes)
     else:
-        seconds += solver_seconds * 3  # structured or ladder reference: the same order
+        work += solver_work * 3  # structured or ladder reference: the same order
         peak = 2 * solver_bytes
-    return CostEstimate(seconds=seconds, bytes=peak, dense_reference=use_dense)
+    work += JOB_OVERHEAD_FLOPS * _jobs(task)
+    return CostEstimate(seconds=work / flops_per_second, bytes=peak,
+                        dense_reference=use_dense)
+
+
+def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
+                  rate: DenseRate | float | None = None) -> GridEstimate:
+    """Every task's estimate plus the run's start-up (compilation), serial seconds."""
+    measured = rate is not None
+    value = rate.flops if isinstance(rate, DenseRate) else rate
+    flops_per_second = DENSE_FLOPS if value is None else float(value)
+    estimates = tuple(estimate_cost(t, dense_limit_bytes=dense_limit_bytes,
+                                    rate=flops_per_second) for t in tasks)
+    startup = STARTUP_FLOPS / flops_per_second if any(t.solver != "dense"
+                                                      for t in tasks) else 0.0
+    return GridEstimate(tasks=estimates, startup_seconds=startup, rate=flops_per_second,
+                        measured=measured)

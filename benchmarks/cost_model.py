@@ -1,0 +1,128 @@
+"""How good is ``covaudit cases``' cost estimate? Estimate a case, run it, compare.
+
+Measures, in one process: the dense-rate probe that calibrates the estimate
+(``harness.grid.cases.cost.measure_dense_rate``), the same-run unit (one
+``scipy.linalg.cho_factor`` at n = 8,192, default threads, median of ``--unit-repeats``),
+the estimate of every task of CASEFILE, and the measured serial run of the grid
+(``run_grid`` seconds, as ``covaudit run`` prints them; median of ``--repeats`` fresh
+runs). Optionally times ``covaudit demo`` in a subprocess (wall seconds, imports
+included). Writes a results JSON with the machine, threads and library versions.
+
+Usage::
+
+    python benchmarks/cost_model.py cases/smoke.toml --demo \
+        --json benchmarks/results/cost_model.json
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import platform
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+
+def _unit(repeats: int) -> dict[str, float]:
+    from scipy.linalg import cho_factor
+
+    n = 8192
+    rng = np.random.default_rng(0)
+    a = rng.standard_normal((n, 512))
+    spd = a @ a.T / 512 + np.eye(n)
+    times = []
+    for _ in range(repeats):
+        start = time.perf_counter()
+        cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
+        times.append(time.perf_counter() - start)
+    return {"n": n, "median_seconds": float(np.median(times)), "repeats": repeats,
+            "what": "scipy.linalg.cho_factor (LAPACK dpotrf), default BLAS threads"}
+
+
+def _run_case(casefile: str) -> float:
+    from harness.grid.cases import load_case
+    from harness.grid.runner import make_backend, run_grid
+    from harness.grid.store import RunStore
+
+    case = load_case(casefile)
+    with tempfile.TemporaryDirectory() as tmp:
+        store = RunStore(Path(tmp) / "run")
+        store.prepare()
+        backend = make_backend(workers=None, dask_local=None, scheduler=None)
+        try:
+            summary = run_grid(case.tasks(), store, backend, case_file=casefile,
+                               case_text=Path(casefile).read_text(encoding="utf-8"),
+                               case_info=case.to_dict())
+        finally:
+            backend.close()
+    return float(summary.seconds)
+
+
+def _demo_seconds() -> float:
+    with tempfile.TemporaryDirectory() as tmp:
+        start = time.perf_counter()
+        subprocess.run([sys.executable, "-c", "import sys; from harness.cli import main; "
+                        "sys.exit(main())", "demo", "--out", tmp],
+                       check=True, capture_output=True, text=True)
+        return time.perf_counter() - start
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("casefile")
+    parser.add_argument("--repeats", type=int, default=2, help="measured runs (median)")
+    parser.add_argument("--unit-repeats", type=int, default=3)
+    parser.add_argument("--demo", action="store_true", help="also time covaudit demo")
+    parser.add_argument("--json", help="write the results to this file")
+    args = parser.parse_args(argv)
+
+    import threadpoolctl
+
+    from harness._version import __version__
+    from harness.grid.cases import load_case
+    from harness.grid.cases.cost import estimate_grid, measure_dense_rate
+    from harness.grid.store.environment import environment
+
+    case = load_case(args.casefile)
+    rate = measure_dense_rate(rng=0)
+    estimate = estimate_grid(case.tasks(), dense_limit_bytes=None, rate=rate)
+    runs = [_run_case(args.casefile) for _ in range(args.repeats)]
+    measured = float(np.median(runs))
+    unit = _unit(args.unit_repeats)
+    ratio = estimate.total_seconds / measured
+    out = {
+        "what": "covaudit cases estimate against a measured serial run of the same grid",
+        "command": "python benchmarks/cost_model.py " + " ".join(argv or sys.argv[1:]),
+        "case": args.casefile, "tasks": len(estimate.tasks),
+        "probe": rate.to_dict(), "estimate": estimate.to_dict(),
+        "measured_run_seconds": runs, "measured_median_seconds": measured,
+        "estimate_over_measured": ratio,
+        "unit": unit, "measured_in_units": measured / unit["median_seconds"],
+        "machine": {"cpu": platform.processor() or platform.machine(),
+                    "environment": environment(None)},
+        "threadpools": threadpoolctl.threadpool_info(),
+        "covaudit": __version__, "numpy": np.__version__,
+        "load_average_at_end": list(__import__("os").getloadavg()),
+    }
+    if args.demo:
+        out["demo_wall_seconds"] = _demo_seconds()
+    print(f"estimate {estimate.total_seconds:.1f} s (start-up {estimate.startup_seconds:.1f} "
+          f"s, probe {rate.flops / 1e9:.2f} Gflop/s), measured {measured:.1f} s "
+          f"(runs {', '.join(f'{r:.1f}' for r in runs)}); estimate/measured {ratio:.2f}; "
+          f"unit (dpotrf n=8192) {unit['median_seconds']:.2f} s"
+          + (f"; demo {out['demo_wall_seconds']:.0f} s" if args.demo else ""))
+    if args.json:
+        Path(args.json).parent.mkdir(parents=True, exist_ok=True)
+        Path(args.json).write_text(json.dumps(out, indent=1, default=str) + "\n",
+                                   encoding="utf-8")
+        print(f"wrote {args.json}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,77 @@
+"""The cost estimate of ``covaudit cases``: calibrated by a measured dense rate.
+
+Flop counts: Cholesky n^3/3 (Golub & Van Loan, *Matrix Computations*, 4th ed., section
+4.2). The factor-2 agreement with a measured smoke run is a slow check (a full run of
+cases/smoke.toml); its committed measurement is benchmarks/results/cost_model.json.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from harness.grid.cases import load_case
+from harness.grid.cases.cost import (
+    DENSE_FLOPS,
+    DenseRate,
+    estimate_cost,
+    estimate_grid,
+    measure_dense_rate,
+)
+
+REPO = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def smoke_tasks():
+    return load_case(REPO / "cases" / "smoke.toml").tasks()
+
+
+def test_probe_measures_a_positive_rate():
+    rate = measure_dense_rate(n=256, repeats=1, rng=0)
+    assert rate.flops > 1e7 and rate.n == 256 and rate.seconds > 0
+    # rate = n^3/3 / seconds (Golub & Van Loan 4.2)
+    assert rate.flops == pytest.approx(256 ** 3 / 3 / rate.seconds)
+    with pytest.raises(ValueError, match="n must be"):
+        measure_dense_rate(n=8)
+
+
+def test_estimates_scale_inversely_with_the_measured_rate(smoke_tasks):
+    slow = estimate_grid(smoke_tasks, dense_limit_bytes=None, rate=DENSE_FLOPS / 2)
+    nominal = estimate_grid(smoke_tasks, dense_limit_bytes=None, rate=None)
+    assert not nominal.measured and slow.measured
+    assert slow.total_seconds == pytest.approx(2 * nominal.total_seconds)
+    assert nominal.startup_seconds > 0 and len(nominal.tasks) == len(smoke_tasks)
+    with pytest.raises(ValueError, match="rate must be"):
+        estimate_cost(smoke_tasks[0], dense_limit_bytes=None, rate=0.0)
+
+
+def test_bigger_and_tighter_tasks_cost_more(smoke_tasks):
+    by = {(t.solver, t.n, t.tol): estimate_cost(t, dense_limit_bytes=None).seconds
+          for t in smoke_tasks}
+    assert by[("hodlr", 600, 1e-8)] > by[("hodlr", 600, 1e-4)] > 0
+    assert by[("hodlr", 600, 1e-8)] > by[("hodlr", 300, 1e-8)]
+    assert by[("dense", 600, None)] > by[("dense", 300, None)]
+
+
+@pytest.mark.slow
+def test_smoke_estimate_within_a_factor_2_of_a_measured_run(tmp_path):
+    from harness.grid.runner import make_backend, run_grid
+    from harness.grid.store import RunStore
+
+    case = load_case(REPO / "cases" / "smoke.toml")
+    before = measure_dense_rate(rng=0)
+    store = RunStore(tmp_path / "run")
+    store.prepare()
+    backend = make_backend(workers=None, dask_local=None, scheduler=None)
+    try:
+        summary = run_grid(case.tasks(), store, backend)
+    finally:
+        backend.close()
+    after = measure_dense_rate(rng=0)
+    # the machine's load may change during the run: the probe before or after must agree
+    ratios = [estimate_grid(case.tasks(), dense_limit_bytes=None, rate=r).total_seconds
+              / summary.seconds for r in (before, after)]
+    assert any(0.5 <= q <= 2.0 for q in ratios), (ratios, summary.seconds)
+    assert isinstance(before, DenseRate)
