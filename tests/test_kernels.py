@@ -181,3 +181,142 @@ def test_unknown_kernel_lists_known_ones():
 def test_anisotropic_dimension_mismatch():
     with pytest.raises(KernelParameterError, match="2 values given for 3-dimensional"):
         Matern32(1.0, (0.1, 0.2)).covariance(np.zeros((4, 3)))
+
+
+# -- issue 12: Matern with large nu is evaluated stably or refused ---------------------
+
+from hypothesis import given, settings  # noqa: E402
+from hypothesis import strategies as st  # noqa: E402
+from scipy import integrate, optimize  # noqa: E402
+
+from harness.model.kernels import radial  # noqa: E402
+
+
+def _log_kv_by_quadrature(v: float, a: float) -> float:
+    """log K_v(a) from the integral K_v(a) = int_0^inf exp(-a cosh t) cosh(v t) dt
+    (NIST DLMF 10.32.9), integrated around the peak of the integrand in log space: an
+    independent reference that neither overflows nor underflows at large order."""
+    v = abs(v)
+
+    def log_f(t):
+        return -a * np.cosh(t) + v * t + np.log1p(np.exp(-2.0 * v * t)) - np.log(2.0)
+
+    def slope(t):
+        return -a * np.sinh(t) + v * np.tanh(v * t)
+
+    tiny = 1e-9 / max(v, 1.0)
+    peak = 0.0
+    if v > 0 and slope(tiny) > 0:
+        hi = 1.0
+        while slope(hi) > 0:
+            hi *= 2.0
+        peak = optimize.brentq(slope, tiny, hi, xtol=1e-15, rtol=1e-15)
+    top = log_f(peak)
+    width = 1.0 / np.sqrt(a * np.cosh(peak))
+    lo, hi = max(0.0, peak - 60 * width), peak + 60 * width
+
+    def f(t):
+        return np.exp(log_f(t) - top)
+
+    inner = integrate.quad(f, lo, hi, points=[peak] if lo < peak < hi else None,
+                           limit=500, epsabs=0, epsrel=1e-13)[0]
+    outer = integrate.quad(f, hi, np.inf, limit=200, epsabs=0, epsrel=1e-10)[0]
+    return top + np.log(inner + outer)
+
+
+def _matern_direct(r, nu):
+    """rho and s from scipy.special.kv in the plain form (R&W eq. 4.14, DLMF 10.29.4)."""
+    a = np.sqrt(2 * nu) * r
+    c = 2.0 ** (1 - nu) / special.gamma(nu)
+    return c * a ** nu * special.kv(nu, a), c * a ** (nu + 1) * special.kv(nu - 1, a)
+
+
+@settings(max_examples=150, deadline=None)
+@given(nu=st.floats(0.05, 45.0), r=st.floats(1e-3, 30.0))
+def test_matern_general_equals_scipy_kv_where_kv_is_finite(nu, r):
+    # Source: scipy.special.kv and gamma in the textbook form (R&W eq. 4.14).
+    with np.errstate(all="ignore"):
+        rho_ref, s_ref = _matern_direct(r, nu)
+    rho, s = radial.matern_general(np.array([r]), nu)
+    for value, ref in ((rho[0], rho_ref), (s[0], s_ref)):
+        if np.isfinite(ref) and ref > 1e-280 and np.isfinite(special.gamma(nu)):
+            assert value == pytest.approx(ref, rel=1e-9, abs=1e-300)
+
+
+@settings(max_examples=40, deadline=None)
+@given(nu=st.floats(0.3, 1e4), r=st.floats(1e-4, 8.0))
+def test_matern_general_equals_the_bessel_integral_at_any_order(nu, r):
+    # Source: DLMF 10.32.9 (integral representation of K_nu) by scipy.integrate.quad;
+    # covers orders where scipy.special.kv overflows (nu = 300 at small r, issue 12).
+    a = np.sqrt(2 * nu) * r
+    log_c = (1 - nu) * np.log(2.0) - special.gammaln(nu)
+    rho_ref = np.exp(log_c + nu * np.log(a) + _log_kv_by_quadrature(nu, a))
+    s_ref = np.exp(log_c + (nu + 1) * np.log(a) + _log_kv_by_quadrature(nu - 1, a))
+    rho, s = radial.matern_general(np.array([r]), nu)
+    # The reference itself cancels about nu * 1e-16 in log space.
+    rel = 1e-9 + 4e-16 * nu
+    assert rho[0] == pytest.approx(rho_ref, rel=rel, abs=1e-300)
+    assert s[0] == pytest.approx(s_ref, rel=rel, abs=1e-300)
+
+
+@settings(max_examples=100, deadline=None)
+@given(nu=st.floats(1e3, radial.MATERN_NU_MAX), r=st.floats(0.0, 6.0),
+       lengthscale=st.floats(0.01, 100.0))
+def test_large_nu_tends_to_the_gaussian_limit(nu, r, lengthscale):
+    # Source: Matern -> squared exponential as nu -> infinity (R&W section 4.2.1, p. 85);
+    # the gap is O(r^4 / nu) (from the large-order expansion, DLMF 10.41.4).
+    kernel = Matern(1.0, (lengthscale,), 0.0, nu=nu)
+    points = np.array([[0.0], [r * lengthscale]])
+    value = kernel.covariance(points)[0, 1]
+    gauss = np.exp(-0.5 * r * r)
+    assert np.isfinite(value) and value > 0 or gauss < 1e-300
+    assert abs(np.log(max(value, 1e-300)) + 0.5 * r * r) <= (r ** 2 + r ** 4) / nu + 1e-12
+
+
+def test_nu_1e6_no_longer_collapses_to_the_identity():
+    # Defect 3: at nu = 1e6 the old kv-based form underflowed to 0 off the diagonal.
+    kernel = Matern(1.0, (0.2,), 1e-3, nu=1e6)
+    sigma = kernel.covariance(np.array([[0.0, 0.0], [0.1, 0.0], [0.0, 0.3]]))
+    gauss = Gaussian(1.0, (0.2,), 1e-3).covariance(np.array([[0.0, 0.0], [0.1, 0.0],
+                                                             [0.0, 0.3]]))
+    np.testing.assert_allclose(sigma, gauss, rtol=1e-5)
+
+
+def test_nu_300_factorizes_without_a_nugget_complaint():
+    # Defect 3: at nu = 300 kv overflowed, the matrix became NaN/0 and the Cholesky error
+    # said "add or increase the nugget", naming the wrong cause. Source of the check:
+    # numpy.linalg.cholesky succeeds on the correct (positive definite) matrix.
+    pts = np.random.default_rng(3).random((80, 2))
+    sigma = Matern(1.0, (0.2,), 1e-3, nu=300.0).covariance(pts)
+    assert np.all(np.isfinite(sigma))
+    np.linalg.cholesky(sigma)
+    np.testing.assert_allclose(sigma, Gaussian(1.0, (0.2,), 1e-3).covariance(pts),
+                               atol=5e-3)
+
+
+def test_order_switch_is_continuous():
+    # Source: continuity of K_nu in nu (DLMF 10.25.2); both sides of LARGE_ORDER agree.
+    r = np.linspace(1e-3, 6.0, 200)
+    below = radial.matern_general(r, radial.LARGE_ORDER * (1 - 1e-12))
+    above = radial.matern_general(r, radial.LARGE_ORDER)
+    for x, y in zip(below, above, strict=True):
+        np.testing.assert_allclose(x, y, rtol=1e-9, atol=1e-300)
+
+
+@pytest.mark.parametrize("nu", [60.0, 3e3, 1e6])
+def test_large_nu_slope_is_minus_r_drho_dr(nu):
+    # Source: s(r) = -r d rho / d r (module definition), central differences.
+    r = np.array([0.2, 0.7, 1.5, 3.0])
+    h = 1e-6
+    up, _ = radial.matern_general(r + h, nu)
+    down, _ = radial.matern_general(r - h, nu)
+    _, s = radial.matern_general(r, nu)
+    np.testing.assert_allclose(s, -r * (up - down) / (2 * h), rtol=1e-6)
+
+
+@pytest.mark.parametrize("nu", [1e9, float("inf"), 0.0, -1.0])
+def test_nu_outside_the_evaluated_range_is_refused(nu):
+    with pytest.raises(KernelParameterError, match="nu"):
+        make_kernel("matern", {"variance": 1.0, "lengthscale": 0.2, "nu": nu})
+    with pytest.raises(ValueError, match="outside the evaluated range|gaussian"):
+        radial.matern_general(np.array([0.5]), nu)

@@ -343,14 +343,17 @@ class RationalQuadratic(Kernel, family="rational_quadratic", compiled=True):
 
 @dataclass(frozen=True)
 class Matern(Kernel):
-    """General Matern with fixed smoothness nu > 0, through scipy.special.kv."""
+    """General Matern with fixed smoothness 0 < nu <= ``radial.MATERN_NU_MAX`` (1e8),
+    evaluated in log space through scipy.special.kve and a large-order Bessel expansion
+    (``radial.matern_general``), so large nu tends to the Gaussian kernel instead of
+    underflowing; larger nu is refused (use the gaussian kernel, its limit)."""
 
     nu: float = field(default=1.5, kw_only=True)
 
     family: ClassVar[str] = "matern"
     PARAMETERS: ClassVar[tuple[ParameterSpec, ...]] = (*Kernel.PARAMETERS, ParameterSpec(
         "nu", "Matern smoothness nu (1/2: exponential; large nu: the Gaussian kernel)", 0.0,
-        shape=True, required=True))
+        radial.MATERN_NU_MAX, shape=True, required=True))
 
     @property
     def shape_value(self) -> float:
