@@ -14,6 +14,7 @@ factorization checked and completed by ``harness.solvers.fallback.adapt``.
 
 from __future__ import annotations
 
+import difflib
 import importlib
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -149,6 +150,8 @@ def resolve_solver(name: str) -> ResolvedSolver:
         return ResolvedSolver(name=name, version=version, factory=factory,
                               origin="module spec")
     known = ", ".join(available_solvers())
+    close = difflib.get_close_matches(name, list(available_solvers()), n=1)
+    hint = f" (did you mean {close[0]!r}?)" if close else ""
     raise SolverLoadError(
-        f"unknown solver {name!r}; known solvers: {known}; or give a plugin as "
+        f"unknown solver {name!r}{hint}; known solvers: {known}; or give a plugin as "
         "'package.module:factory'")

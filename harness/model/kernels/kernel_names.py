@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import difflib
-
 from collections.abc import Mapping, Sequence
 
 from harness.model.kernels.classes import (
