@@ -6,12 +6,15 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import sys
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
 from harness.audit.metrics.efficiency import prediction_efficiency
+from harness.audit.solver_seeds import solver_seed
 from harness.cli import check_command as check_cli
 from harness.geometry.geodesy import EARTH_RADIUS_KM, chordal_distance, lonlat_to_chordal
 from harness.model.kernels import make_kernel
@@ -122,3 +125,149 @@ def test_chordal_geometry():
     assert math.isclose(chordal_distance(10, 20, -170, -20), 2 * EARTH_RADIUS_KM)
     pole = lonlat_to_chordal(np.array([33.0]), np.array([90.0]))[0]
     assert np.allclose(pole, [0, 0, EARTH_RADIUS_KM], atol=1e-9)
+
+
+# -- one engine: any solver, its seeds, the fit's convergence --------------------------
+EXAMPLE = Path(__file__).resolve().parents[1] / "examples" / "jittered_solver"
+TRUE = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+
+
+def _field_file(tmp_path, n=300, seed=3):
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(0, 10, (n, 2))
+    k = make_kernel("matern32", TRUE)
+    v = 5 + DenseCholesky(x, k).apply_sqrt(rng.standard_normal(n))
+    path = tmp_path / "field.csv"
+    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    return path
+
+
+FIXED = ["--params", "variance=1.0", "lengthscale=2.0", "nugget=0.1"]
+
+
+@pytest.fixture()
+def plugin_path(monkeypatch):
+    monkeypatch.syspath_prepend(str(EXAMPLE))
+    yield
+    for name in [m for m in sys.modules if m.startswith("jittered_solver")]:
+        del sys.modules[name]
+
+
+def test_check_a_plugin_solver_end_to_end(tmp_path, capsys, plugin_path):
+    # Source: the plugin's perturbation is exact, Sigma~ = Sigma + tol s2 I, so
+    # L~ - L = -1/2 [log det(Sigma~) - log det(Sigma)] - 1/2 [q~ - q] is known in closed
+    # form; here checked against numpy's slogdet/solve on the same points.
+    path = _field_file(tmp_path)
+    out = tmp_path / "out"
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-2,1e-7",
+                 "--solver", "jittered_solver:factorize", *FIXED, "--mean", "zero",
+                 "--out", str(out), "--json", "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code == 0
+    assert result["solver"]["name"] == "jittered_solver:factorize"
+    assert result["solver"]["origin"] == "module spec"
+    assert len(result["solver_seeds"]) == 1          # no seed option: deterministic
+    rows = {row["tol"]: row for row in result["tolerances"]}
+    assert rows[1e-2]["status"] == "unsafe" and rows[1e-7]["status"] == "safe"
+    assert result["recommended_tolerance"] == 1e-7
+    frame = pd.read_csv(path)
+    x, y = frame[["e", "n"]].to_numpy(), frame["z"].to_numpy()
+    sigma = make_kernel("matern32", TRUE).covariance(x)
+
+    def loglik(s):
+        return -0.5 * (np.linalg.slogdet(s)[1] + y @ np.linalg.solve(s, y)
+                       + y.size * math.log(2 * math.pi))
+
+    expected = loglik(sigma + 1e-2 * np.eye(y.size)) - loglik(sigma)
+    assert rows[1e-2]["loglik_error"]["value"] == pytest.approx(expected, rel=1e-6)
+    html = (out / "check.html").read_text()
+    assert "jittered_solver:factorize" in html
+
+
+def test_seed_spread_in_json_and_report_and_same_numbers_as_evaluate(tmp_path, capsys):
+    from harness.cli import evaluate_command
+
+    path = _field_file(tmp_path)
+    out = tmp_path / "out"
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-3",
+                 *FIXED, "--solver-seeds", "3", "--seed", "5", "--out", str(out), "--json",
+                 "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code in (0, 1)
+    (row,) = result["tolerances"]
+    assert len(row["seeds"]) == 3 and len(set(s["seed"] for s in row["seeds"])) == 3
+    sp = row["spread"]["loglik_error"]
+    assert sp["seeds"] == 3 and sp["min"] <= sp["median"] <= sp["max"]
+    values = sorted(abs(s["metrics"]["loglik_error"]) for s in row["seeds"])
+    assert (sp["min"], sp["median"], sp["max"]) == pytest.approx(tuple(values))
+    html = (out / "check.html").read_text()
+    assert "Spread over the solver" in html and "loglik_error" in html
+    # evaluate at the same seed gives the same log-likelihood as check's seed index 0.
+    parser = argparse.ArgumentParser()
+    sub = parser.add_subparsers(dest="verb")
+    evaluate_command.add_parser(sub)
+    args = parser.parse_args(["evaluate", str(path), "--coords", "e,n", "--value", "z",
+                              "--kernel", "matern32", "--param", "variance=1.0",
+                              "--param", "lengthscale=2.0", "--param", "nugget=0.1",
+                              "--mean", "constant", "--solver", "hodlr", "--tol", "1e-3",
+                              "--seed", "5", "--no-score", "--json"])
+    assert evaluate_command.run(args) == 0
+    ev = json.loads(capsys.readouterr().out)
+    assert ev["loglik"] == pytest.approx(row["seeds"][0]["loglik"], rel=1e-12, abs=1e-9)
+    assert result["solver_seeds"][0] == solver_seed(5, 0)
+
+
+def test_unconverged_fit_is_a_top_level_warning_everywhere(tmp_path):
+    # A fit stopped after one L-BFGS-B iteration and no Fisher-scoring step cannot meet
+    # the score tolerance: the check must say so in the terminal, JSON and report.
+    from harness.check import CheckOptions, run_check, validate
+    from harness.check.datafile import load_observations
+    from harness.report.check_report import render_check_report
+
+    path = _field_file(tmp_path, n=200)
+    obs = load_observations(path, coords=["e", "n"], value="z")
+    options = CheckOptions(tolerances=(1e-8,), fit_max_iter=1, fit_max_steps=0,
+                           solver_seeds=1, refit=False)
+    result = run_check(validate(obs), options, source=str(path))
+    assert result.fit_converged is False
+    assert any("did not converge" in w for w in result.warnings)
+    assert "WARNING: the maximum-likelihood fit did not converge" in check_cli.summary(result)
+    data = json.loads(check_cli.json_text(result))
+    assert data["fit_converged"] is False and data["warnings"]
+    assert data["fit"]["converged"] is False
+    assert all("unconverged estimate" in " ".join(r["reasons"]) for r in data["tolerances"])
+    assert "did not converge" in render_check_report(result)
+
+
+def test_reference_option(tmp_path, capsys):
+    path = _field_file(tmp_path, n=120)
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
+                 *FIXED, "--reference", "ladder", "--solver-seeds", "1", "--json",
+                 "--out", str(tmp_path / "o"), "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    # The ladder is extra evidence only: never safe, so nothing is recommended.
+    assert code == 1 and result["reference"] == "ladder"
+    assert result["tolerances"][0]["status"] == "unresolved"
+    assert any("ladder" in r for r in result["tolerances"][0]["reasons"])
+
+
+def test_operator_reference_agrees_with_dense_within_its_uncertainty(tmp_path):
+    # The exact operator (PCG + Lanczos quadrature) and the dense Cholesky are two
+    # references of the same model: the solver's log-likelihood error against each must
+    # agree within the operator's stated uncertainty (SE plus CG bound).
+    from harness.check import CheckOptions, run_check, validate
+    from harness.check.datafile import load_observations
+
+    path = _field_file(tmp_path, n=150)
+    data = validate(load_observations(path, coords=["e", "n"], value="z"))
+    results = {}
+    for ref in ("dense", "operator"):
+        options = CheckOptions(tolerances=(1e-2, 1e-8), fixed_params=dict(TRUE),
+                               reference=ref, solver_seeds=1, refit=False)
+        results[ref] = run_check(data, options, source=str(path))
+    dense, op = results["dense"], results["operator"]
+    assert op.reference == "operator" and op.reference_detail["certified"] is True
+    for a, b in zip(dense.tolerances, op.tolerances, strict=True):
+        da, db = a.metric("loglik_error"), b.metric("loglik_error")
+        assert abs(da.value - db.value) <= 2 * db.uncertainty + 1e-6
+    assert op.tolerances[0].status == "unsafe"      # 1e-2: kriging error over the limit

@@ -53,24 +53,27 @@ def test_speedup_over_tightest_tolerance_without_dense():
     assert "tol=1e-06" in rec.speedup_over
 
 
-def test_missing_metric_makes_verdict_incomplete():
+def test_missing_metric_makes_verdict_unresolved():
+    # The engine's rule (harness.audit.engine): a metric not measured is never safe.
     vs = judge(_rows([_hodlr(1e-4, 0.01, 2.0, kriging_mean_err_sd_max=np.nan)]))
     (v,) = vs.verdicts
-    assert v.status == "incomplete"
+    assert v.status == "unresolved"
     kriging = next(e for e in v.evidence if e.metric == "kriging_mean_err_sd_max")
     assert kriging.available is False and kriging.passed is None
     assert np.isnan(vs.recommendations[0].tol)
 
 
-def test_uncertified_reference_is_unsafe_and_structured_reference_is_certified():
+def test_uncertified_reference_is_unresolved_and_structured_reference_is_certified():
+    # An uncertified reference cannot decide either way: unresolved (engine rule).
     bad = judge(_rows([_hodlr(1e-4, 0.01, 2.0, reference_certificate=45.0)]))
-    assert bad.verdicts[0].status == "unsafe"
+    assert bad.verdicts[0].status == "unresolved"
     exact = judge(_rows([_hodlr(1e-4, 0.01, 2.0, reference="statespace",
                                 reference_certificate=np.nan)]))
     assert exact.verdicts[0].status == "safe"
     ladder = judge(_rows([_hodlr(1e-4, 0.01, 2.0, reference="ladder",
                                  reference_certificate=np.nan)]))
-    assert ladder.verdicts[0].status == "incomplete"
+    assert ladder.verdicts[0].status == "unresolved"
+    assert any("ladder" in r for r in ladder.verdicts[0].reasons)
 
 
 def test_evidence_states_thresholds_are_common_practice():
@@ -118,3 +121,18 @@ def test_overconfident_estimator_is_flagged_with_binomial_p_value():
     (cal,) = trace_calibration(_trace_rows(z))
     assert cal.flagged and cal.fraction < 0.8
     assert cal.p_value == pytest.approx(stats.binom.cdf(cal.inside, cal.count, 0.8), rel=1e-9)
+
+
+def test_run_verdicts_use_the_engine_rule_worst_seed_and_ladder_order():
+    # Two data seeds of one tolerance: the worse decides (engine rule); an unresolved
+    # tighter tolerance blocks the looser safe one; spread over seeds is reported.
+    rows = _rows([_hodlr(1e-6, 0.2, 3.0, seed=0.0), _hodlr(1e-6, 0.01, 3.0, seed=1.0),
+                  _hodlr(1e-4, 0.01, 2.0, seed=0.0), _hodlr(1e-4, 0.02, 2.0, seed=1.0)])
+    vs = judge(rows)
+    status = {v.tol: v.status for v in vs.verdicts}
+    assert status == {1e-6: "unsafe", 1e-4: "safe"}
+    (rec,) = vs.recommendations
+    assert np.isnan(rec.tol) and "1e-06" in rec.reason
+    tight = next(v for v in vs.verdicts if v.tol == 1e-6)
+    assert tight.spread["loglik_abs_err"]["max"] == 0.2
+    assert tight.spread["loglik_abs_err"]["min"] == 0.01

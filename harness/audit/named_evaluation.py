@@ -14,6 +14,7 @@ from typing import Any
 
 import numpy as np
 
+from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.likelihood import TRACE_CHOICES, evaluate_likelihood
 from harness.likelihood.traces import ExactTraceSizeError
 from harness.model import ModelEvaluation
@@ -114,7 +115,10 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
     streams = np.random.default_rng(options.seed).spawn(2)
     factor_options: dict[str, Any] = {}
     if resolved.name == "hodlr":
-        factor_options = {"leaf_size": options.leaf_size, "rng": streams[0]}
+        factor_options = {"leaf_size": options.leaf_size}
+    # The solver's seed is derived as in check and run (harness.audit.solver_seeds).
+    factor_options = seeded_options(resolved.factory, factor_options,
+                                    solver_seed(options.seed, 0))
     start = time.perf_counter()
     try:
         factorization = resolved.factorize(points, kernel, kernel.theta, tol=options.tol,

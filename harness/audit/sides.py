@@ -11,8 +11,10 @@ quantities at the same theta, the same data and the same probe vectors Z:
   1990, Commun. Statist. Simul. 19) is that of the small difference, not of the whole
   trace, so the compression error of the score is resolved far below the estimator
   noise of a trace estimate made on its own;
-* kriging at the held-out points (mean, latent variance) and the universal-kriging
-  weights needed by the loss-of-efficiency criteria (``efficiency``).
+* kriging (``kriging_side``): a second factorization of the points *other than* the
+  held-out ones, at the same parameters, predicts at the held-out points (mean, latent
+  variance) with the universal-kriging weights needed by the loss-of-efficiency
+  criteria (``efficiency``). The likelihood pieces use all n points.
 
 For the dense reference the derivative products Sigma_i [a, Z] come from one pass over
 row blocks of the kernel's derivative blocks (all parameters at once).
@@ -36,10 +38,10 @@ _ROWS = 1024
 
 @dataclass(frozen=True)
 class Side:
-    """Quantities of one factorization at the fitted parameters (module docstring).
+    """Likelihood quantities of one factorization of all n points (module docstring).
 
     ``seconds`` holds ``factor`` (building the factorization), ``loglik`` (log det and
-    the GLS fit) and ``extras`` (score pieces, kriging).
+    the GLS fit) and ``extras`` (score pieces).
     """
 
     name: str
@@ -47,9 +49,6 @@ class Side:
     beta: np.ndarray
     quad: np.ndarray
     sinv_deriv_probes: np.ndarray      # (p, n, k)
-    krige_mean: np.ndarray
-    krige_var: np.ndarray
-    weights: np.ndarray                # (n, m) kriging weights at the held-out points
     seconds: dict[str, float]
     nbytes: int
 
@@ -57,6 +56,16 @@ class Side:
     def loglik_seconds(self) -> float:
         """Time for one log-likelihood: factorization plus log det and GLS fit."""
         return self.seconds["factor"] + self.seconds["loglik"]
+
+
+@dataclass(frozen=True)
+class KrigingSide:
+    """Kriging at the held-out points from a factorization of the other points."""
+
+    name: str
+    mean: np.ndarray
+    variance: np.ndarray
+    weights: np.ndarray                # (n_train, m)
 
 
 def rademacher(n: int, k: int, rng: np.random.Generator) -> np.ndarray:
@@ -96,9 +105,8 @@ def kriging_weights(fac: object, points: np.ndarray, kernel: Kernel, new_points:
 
 
 def evaluate_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
-                  *, mean: str, probes: np.ndarray, new_points: np.ndarray,
-                  factor_seconds: float) -> Side:
-    """Reduce ``fac`` (of Sigma at ``kernel``'s parameters) to a ``Side``."""
+                  *, mean: str, probes: np.ndarray, factor_seconds: float) -> Side:
+    """Reduce ``fac`` (of Sigma at ``kernel``'s parameters, all points) to a ``Side``."""
     seconds = {"factor": factor_seconds}
     t0 = time.perf_counter()
     logdet = float(fac.logdet())  # type: ignore[attr-defined]
@@ -118,10 +126,16 @@ def evaluate_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, ker
     solved = np.asarray(fac.solve(  # type: ignore[attr-defined]
         np.moveaxis(prods[:, :, 1:], 0, 1).reshape(n, p * k)))
     sinv = np.moveaxis(solved.reshape(n, p, k), 1, 0)
-    pred = kriging(fac, points, y, kernel, new_points, mean=mean)
-    weights = kriging_weights(fac, points, kernel, new_points, mean=mean)
     seconds["extras"] = time.perf_counter() - t0
     return Side(name=name, loglik=fit.loglik, beta=fit.beta, quad=np.asarray(quad),
-                sinv_deriv_probes=sinv, krige_mean=pred.mean, krige_var=pred.variance,
-                weights=weights, seconds=seconds,
+                sinv_deriv_probes=sinv, seconds=seconds,
                 nbytes=int(getattr(fac, "nbytes", 0)))
+
+
+def kriging_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
+                 new_points: np.ndarray, *, mean: str) -> KrigingSide:
+    """Kriging at ``new_points`` by ``fac``, a factorization of Sigma at ``points`` (the
+    points other than the held-out ones)."""
+    pred = kriging(fac, points, y, kernel, new_points, mean=mean)
+    weights = kriging_weights(fac, points, kernel, new_points, mean=mean)
+    return KrigingSide(name=name, mean=pred.mean, variance=pred.variance, weights=weights)

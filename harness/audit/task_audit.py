@@ -45,6 +45,7 @@ from harness.audit.metrics import (
     solve_errors,
     trace_errors,
 )
+from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.audit.timing import measure_memory, peak_rss, thread_settings, time_phase
 from harness.geometry.pointsets import generate, tensor_grid
 from harness.grid.cases.cost import estimate_cost
@@ -302,27 +303,14 @@ def _resolve(task: Task) -> Any:
     return solver
 
 
-def _accepts(factory: Any, name: str) -> bool:
-    import inspect
-
-    try:
-        params = inspect.signature(factory).parameters
-    except (TypeError, ValueError):
-        return False
-    return name in params or any(p.kind is inspect.Parameter.VAR_KEYWORD
-                                 for p in params.values())
-
-
 def solver_options(task: Task, solver: Any, streams: dict[str, np.random.Generator]
                    ) -> dict[str, Any]:
-    """The factory's options, with ``rng`` seeded from the task's ``solver`` stream when the
-    factory takes one and the case does not set it (so randomized solvers are
-    reproducible, and every factorization of the task uses the same seed)."""
-    options = dict(task.solver_options)
-    if "rng" not in options and _accepts(solver.factory, "rng"):
-        options["rng"] = int(np.random.default_rng(streams["solver"].bit_generator.seed_seq)
-                             .integers(2 ** 63))
-    return options
+    """The factory's options, with the solver's seed ``solver_seed(task.seed, 0)``
+    (``harness.audit.solver_seeds``, the same derivation as ``check`` and ``evaluate``)
+    under the option the factory declares (``rng`` or ``seed``) when the case does not
+    set it, so randomized solvers are reproducible across verbs and every factorization
+    of the task uses the same seed."""
+    return seeded_options(solver.factory, task.solver_options, solver_seed(task.seed, 0))
 
 
 def _draw_y(task: Task, data: TaskData, kernel: Kernel, reference: Reference, solver: Any,
@@ -436,7 +424,8 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
             metrics.update(microergodic_shift(shift, ref0.fisher, names, nu).to_dict())
     if "trace" in task.metrics and sol0.trace_terms is not None:
         # A ladder reference is a solver's ModelEvaluation: its traces are estimated.
-        exact_traces = getattr(ref0, "trace_terms", None)
+        exact_traces = (None if reference.kind == "ladder"
+                        else getattr(ref0, "trace_terms", None))
         if exact_traces is not None:
             metrics.update(trace_errors(sol0.trace_terms, exact_traces,
                                         sol0.trace_stderr, names).to_dict())

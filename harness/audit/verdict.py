@@ -10,10 +10,14 @@ dataset and tolerance,
   ratio of the LAPACK test suite; structured exact references are exact by construction).
 
 These limits are common practice chosen for this tool, not a published standard; every one
-is configurable through ``Thresholds`` (case file ``[verdict]`` table or CLI options). A
-metric that was not measured makes the verdict ``incomplete`` rather than safe. The
-recommendation is the loosest safe tolerance with its speed-up in median total time over
-the dense solver (over the tightest tolerance when no dense timing exists).
+is configurable through ``Thresholds`` (case file ``[verdict]`` table or CLI options).
+The rule is the audit engine's (``harness.audit.engine``), the same as ``check``'s: every
+finished task of a tolerance is one seed and the worst decides; a metric that was not
+measured, an uncertified reference or a ladder-only reference makes the verdict
+``unresolved`` rather than safe. The recommendation is the loosest safe tolerance with no
+unsafe or unresolved tighter one (a non-monotone ladder is reported as such), with its
+speed-up in median total time over the dense solver (over the tightest tolerance when no
+dense timing exists).
 
 Stochastic trace estimators are checked separately: the fraction of tasks whose z-score
 |estimate - exact| / reported SE lies within +-2 is tested against a minimum fraction with
@@ -26,13 +30,25 @@ from __future__ import annotations
 import math
 import tomllib
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy import stats
+
+from harness.audit.engine import (
+    EXACT_REFERENCES,
+    SAFE,
+    UNRESOLVED,
+    UNSAFE,
+    MetricJudgement,
+    ReferenceInfo,
+    judge_metric,
+    tolerance_verdict,
+)
+from harness.audit.engine import recommend as engine_recommend
 
 #: Columns that identify a dataset (the problem the solver is asked to solve).
 DATASET_COLUMNS: tuple[str, ...] = ("case", "kernel", "shape", "n", "d", "geometry", "mean",
@@ -156,8 +172,8 @@ class Evidence:
 @dataclass(frozen=True)
 class Verdict:
     """Whether one (dataset, solver, tolerance) is safe: ``safe``, ``unsafe``,
-    ``incomplete`` (nothing failed but something was not measured) or ``failed`` (no task
-    finished)."""
+    ``unresolved`` (not measured, uncertainty too large, reference not certified or the
+    ladder only; ``harness.audit.engine``) or ``failed`` (no task finished)."""
 
     dataset: Mapping[str, object]
     solver: str
@@ -167,6 +183,8 @@ class Verdict:
     tasks_ok: int
     tasks_failed: int
     t_total: float
+    reasons: tuple[str, ...] = ()
+    spread: Mapping[str, object] = field(default_factory=dict)
 
     @property
     def safe(self) -> bool:
@@ -176,7 +194,8 @@ class Verdict:
         return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
                 "status": self.status, "evidence": [e.to_dict() for e in self.evidence],
                 "tasks_ok": self.tasks_ok, "tasks_failed": self.tasks_failed,
-                "t_total": self.t_total}
+                "t_total": self.t_total, "reasons": list(self.reasons),
+                "spread": dict(self.spread)}
 
 
 @dataclass(frozen=True)
@@ -189,11 +208,12 @@ class Recommendation:
     speedup: float
     speedup_over: str
     reason: str
+    monotone: bool = True
 
     def to_dict(self) -> dict[str, object]:
         return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
                 "speedup": self.speedup, "speedup_over": self.speedup_over,
-                "reason": self.reason}
+                "reason": self.reason, "monotone": self.monotone}
 
 
 @dataclass(frozen=True)
@@ -245,12 +265,6 @@ def _max_metric(frame: pd.DataFrame, column: str) -> float:
     return float(values.max()) if len(values) else float("nan")
 
 
-def _threshold_evidence(metric: str, value: float, threshold: float) -> Evidence:
-    if math.isnan(value):
-        return Evidence(metric, value, threshold, None, False, note="not measured")
-    return Evidence(metric, value, threshold, bool(value <= threshold), True)
-
-
 def _certificate_evidence(frame: pd.DataFrame, limit: float) -> Evidence:
     metric = "reference_certified"
     refs = sorted(set(frame["reference"].astype(str)) - {""})
@@ -266,12 +280,50 @@ def _certificate_evidence(frame: pd.DataFrame, limit: float) -> Evidence:
                     note=f"reference: {', '.join(refs) or 'unknown'}")
 
 
-def _status(evidence: Sequence[Evidence]) -> str:
-    if any(e.passed is False for e in evidence):
-        return "unsafe"
-    if any(not e.available for e in evidence):
-        return "incomplete"
-    return "safe"
+#: (results column, Thresholds attribute) of the limited metrics of a run's verdicts.
+LIMITED_COLUMNS: tuple[tuple[str, str], ...] = (
+    ("loglik_abs_err", "loglik_nats"), ("param_shift_se_max", "param_shift_se"),
+    ("kriging_mean_err_sd_max", "kriging_mean_sd"))
+
+
+def _reference_info(ok: pd.DataFrame, certificate: Evidence) -> ReferenceInfo:
+    """The least trusted reference of the tasks, certified as ``certificate`` says."""
+    refs = set(ok["reference"].astype(str)) - {""} if "reference" in ok else set()
+    kind = ("ladder" if "ladder" in refs or not refs or not refs <= EXACT_REFERENCES
+            else sorted(refs)[0])
+    return ReferenceInfo(kind, certificate.passed is True, certificate.note)
+
+
+def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
+                       ok: pd.DataFrame, failed: int, th: Thresholds) -> Verdict:
+    """One (dataset, solver, tolerance) by the engine's rule (``harness.audit.engine``):
+    each finished task is one seed, the worst decides; failed tasks keep it from safe."""
+    per_task = []
+    for _, row in ok.iterrows():
+        per_task.append([judge_metric(col, float(pd.to_numeric(row.get(col), errors="coerce")),
+                                      getattr(th, attr)) for col, attr in LIMITED_COLUMNS])
+    cert = _certificate_evidence(ok, th.certificate_max)
+    tv = tolerance_verdict(tol, per_task, reference=_reference_info(ok, cert),
+                           required=[c for c, _ in LIMITED_COLUMNS])
+    status, reasons = tv.status, list(tv.reasons)
+    if failed and status == SAFE:
+        status = UNRESOLVED
+    if failed:
+        reasons.append(f"{failed} task(s) of this tolerance failed")
+    order = [c for c, _ in LIMITED_COLUMNS]
+    evidence = tuple(_evidence(j) for j in sorted(tv.metrics,
+                                                  key=lambda j: order.index(j.metric)))
+    evidence += (cert,)
+    return Verdict(dataset, solver, tol, status, evidence, len(ok), failed,
+                   _median(ok, "t_total"), reasons=tuple(reasons),
+                   spread={k: v.to_dict() for k, v in tv.spread.items()})
+
+
+def _evidence(j: MetricJudgement) -> Evidence:
+    available = math.isfinite(j.value)
+    passed = {SAFE: True, UNSAFE: False}.get(j.status) if available else None
+    return Evidence(j.metric, j.value, j.limit, passed, available,
+                    note="" if j.status == SAFE else j.reason)
 
 
 def _median(frame: pd.DataFrame, column: str) -> float:
@@ -312,21 +364,11 @@ def judge(results: pd.DataFrame, *, thresholds: Thresholds | None = None) -> Ver
                 failed = int((tframe["status"] == "failed").sum())
                 if ok.empty:
                     per_tol.append(Verdict(dataset, str(solver), float(tol), "failed", (),
-                                           0, failed, float("nan")))
+                                           0, failed, float("nan"),
+                                           reasons=("no task finished",)))
                     continue
-                evidence = (
-                    _threshold_evidence("loglik_abs_err", _max_metric(ok, "loglik_abs_err"),
-                                        th.loglik_nats),
-                    _threshold_evidence("param_shift_se_max",
-                                        _max_metric(ok, "param_shift_se_max"),
-                                        th.param_shift_se),
-                    _threshold_evidence("kriging_mean_err_sd_max",
-                                        _max_metric(ok, "kriging_mean_err_sd_max"),
-                                        th.kriging_mean_sd),
-                    _certificate_evidence(ok, th.certificate_max),
-                )
-                per_tol.append(Verdict(dataset, str(solver), float(tol), _status(evidence),
-                                       evidence, len(ok), failed, _median(ok, "t_total")))
+                per_tol.append(_tolerance_verdict(dataset, str(solver), float(tol), ok,
+                                                  failed, th))
             verdicts.extend(per_tol)
             recommendations.append(_recommend(dataset, str(solver), per_tol, exact, dkey))
     return VerdictSet(th, tuple(verdicts), tuple(recommendations),
@@ -335,12 +377,12 @@ def judge(results: pd.DataFrame, *, thresholds: Thresholds | None = None) -> Ver
 
 def _recommend(dataset: dict[str, object], solver: str, per_tol: Sequence[Verdict],
                exact: pd.DataFrame, dkey: tuple[object, ...]) -> Recommendation:
-    safe = [v for v in per_tol if v.safe]
-    if not safe:
+    rule = engine_recommend({v.tol: v.status for v in per_tol})
+    if rule.tol is None:
         statuses = ", ".join(f"{v.tol:g}: {v.status}" for v in per_tol)
         return Recommendation(dataset, solver, float("nan"), float("nan"), "",
-                              f"no tolerance is safe ({statuses})")
-    best = max(safe, key=lambda v: v.tol)
+                              f"{rule.reason} ({statuses})", monotone=rule.monotone)
+    best = next(v for v in per_tol if v.tol == rule.tol)
     mask = np.ones(len(exact), dtype=bool)
     for c, v in zip(DATASET_COLUMNS, dkey, strict=True):
         col = exact[c]
@@ -352,12 +394,13 @@ def _recommend(dataset: dict[str, object], solver: str, per_tol: Sequence[Verdic
     t_dense = _median(dense, "t_total")
     if not math.isnan(t_dense):
         return Recommendation(dataset, solver, best.tol, t_dense / best.t_total,
-                              str(dense["solver"].iloc[0]), "loosest safe tolerance")
+                              str(dense["solver"].iloc[0]), rule.reason,
+                              monotone=rule.monotone)
     tightest = min(per_tol, key=lambda v: v.tol)
     return Recommendation(dataset, solver, best.tol, tightest.t_total / best.t_total,
                           f"{solver} tol={tightest.tol:g}",
-                          "loosest safe tolerance (no dense timing: speed-up over the "
-                          "tightest tolerance)")
+                          rule.reason + " (no dense timing: speed-up over the tightest "
+                          "tolerance)", monotone=rule.monotone)
 
 
 def trace_calibration(results: pd.DataFrame, *, thresholds: Thresholds | None = None

@@ -3,46 +3,23 @@ and the whole check."""
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from harness.audit.metric_values import MetricValue, _num
 
-def _num(value: float | None) -> float | None:
-    if value is None or not math.isfinite(value):
-        return None
-    return float(value)
-
-
-@dataclass(frozen=True)
-class MetricValue:
-    """One metric at one tolerance; ``threshold`` None for information-only metrics."""
-
-    name: str
-    value: float
-    threshold: float | None = None
-    uncertainty: float | None = None
-    note: str = ""
-
-    @property
-    def passed(self) -> bool | None:
-        if self.threshold is None:
-            return None
-        return bool(math.isfinite(self.value) and abs(self.value) <= self.threshold)
-
-    def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "value": _num(self.value), "threshold": self.threshold,
-                "passed": self.passed, "uncertainty": _num(self.uncertainty),
-                "note": self.note}
+__all__ = ["CheckResult", "MetricValue", "RefitResult", "ToleranceResult"]
 
 
 @dataclass(frozen=True)
 class ToleranceResult:
     """The verdict for one tolerance.
 
-    ``safe`` is True when every metric with a threshold passed and the reference was
-    certified; ``error`` holds the reason when the solver failed (e.g. compression
-    breakdown), which makes the tolerance unsafe.
+    ``status`` is the engine's verdict (``harness.audit.engine``: ``safe``, ``unsafe`` or
+    ``unresolved``, with ``reasons``); ``safe`` is ``status == "safe"``. ``metrics`` hold
+    the value of the seed that decides each limited metric; ``seeds`` every seed's values
+    and ``spread`` their min / median / max. ``error`` holds the reason when the solver
+    failed (e.g. compression breakdown), which makes the tolerance unsafe.
     """
 
     tol: float
@@ -53,6 +30,10 @@ class ToleranceResult:
     speedup: float | None
     nbytes: int
     error: str = ""
+    status: str = ""
+    reasons: tuple[str, ...] = ()
+    seeds: tuple[dict[str, Any], ...] = ()
+    spread: dict[str, Any] = field(default_factory=dict)
 
     def metric(self, name: str) -> MetricValue | None:
         return next((m for m in self.metrics if m.name == name), None)
@@ -60,7 +41,10 @@ class ToleranceResult:
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {"tol": self.tol, "safe": self.safe, "reference": self.reference,
                                "seconds": _num(self.seconds), "speedup": _num(self.speedup),
-                               "nbytes": self.nbytes, "error": self.error or None}
+                               "nbytes": self.nbytes, "error": self.error or None,
+                               "status": self.status or ("safe" if self.safe else "unsafe"),
+                               "reasons": list(self.reasons), "seeds": list(self.seeds),
+                               "spread": self.spread}
         for m in self.metrics:
             out[m.name] = m.to_dict()
         return out
@@ -78,9 +62,14 @@ class RefitResult:
     microergodic_shift_se: float | None
     evaluations: int
     seconds: float
+    accepted_steps: int = 0
+    converged: bool = True
+    note: str = ""
 
     def to_dict(self) -> dict[str, Any]:
-        return {"tol": self.tol, "params": self.params, "shift_se": self.shift_se,
+        return {"tol": self.tol, "accepted_steps": self.accepted_steps,
+                "converged": self.converged, "note": self.note,
+                "params": self.params, "shift_se": self.shift_se,
                 "max_shift_se": self.max_shift_se, "loglik_change": self.loglik_change,
                 "microergodic_shift_se": _num(self.microergodic_shift_se)
                 if self.microergodic_shift_se is not None else None,
@@ -115,6 +104,12 @@ class CheckResult:
     truth: dict[str, Any] | None = None
     seconds: float = 0.0
     notes: tuple[str, ...] = ()
+    solver: dict[str, Any] = field(default_factory=dict)
+    solver_seeds: tuple[int, ...] = ()
+    warnings: tuple[str, ...] = ()
+    recommendation: dict[str, Any] = field(default_factory=dict)
+    fit_converged: bool = True
+    reference_detail: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -129,4 +124,7 @@ class CheckResult:
             "refit": self.refit.to_dict() if self.refit else None,
             "thresholds": self.thresholds, "growth": self.growth, "holdout": self.holdout,
             "truth": self.truth, "seconds": self.seconds, "notes": list(self.notes),
+            "solver": self.solver, "solver_seeds": list(self.solver_seeds),
+            "warnings": list(self.warnings), "recommendation": self.recommendation,
+            "fit_converged": self.fit_converged, "reference_detail": self.reference_detail,
         }

@@ -32,8 +32,8 @@ from __future__ import annotations
 import logging
 import math
 import time
-from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, replace
 
 import numpy as np
 from scipy import optimize
@@ -61,6 +61,7 @@ class EngineEvaluation:
     score: np.ndarray
     fisher: np.ndarray | None
     seconds: float
+    score_se: np.ndarray | None = None   # SE of a stochastic score (None: exact)
 
     def to_dict(self) -> dict[str, object]:
         return {"loglik": self.loglik, "score": self.score.tolist(),
@@ -88,34 +89,51 @@ class DenseEngine:
 
 
 class CompressedEngine:
-    """L, g and F through the built-in HODLR solver, traces by Hutch++.
+    """L, g and F through a compressed solver (default: the built-in HODLR), traces by
+    Hutch++.
 
-    The probes come from the same seed at every theta (common random numbers), so the
-    estimated score is a smooth function of theta for the optimizer.
+    The solver's seed and the probes are the same at every theta (common random numbers),
+    so the estimated score is a smooth function of theta for the optimizer. ``seed`` is
+    the solver's seed (``harness.audit.solver_seeds.solver_seed``); the probes use
+    ``seed + 1``.
     """
 
     name = "hodlr"
 
     def __init__(self, points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
                  reml: bool = False, tol: float, probes: int = 32, seed: int = 0,
-                 leaf_size: int = 128) -> None:
+                 leaf_size: int = 128, solver: object | None = None,
+                 options: Mapping[str, object] | None = None) -> None:
+        from harness.solvers.registry import resolve_solver
+
         self.points, self.y, self.kernel = points, y, kernel
         self.mean, self.reml, self.tol = mean, reml, tol
         self.probes, self.seed, self.leaf_size = probes, seed, leaf_size
+        self.solver = solver if solver is not None else resolve_solver("hodlr")
+        name = str(getattr(self.solver, "name", "hodlr"))
+        self.name = name
+        base = dict(options) if options is not None else (
+            {"leaf_size": leaf_size} if name == "hodlr" else {})
+        from harness.audit.solver_seeds import seeded_options
+
+        self.options = seeded_options(self.solver.factory, base, seed)  # type: ignore[attr-defined]
 
     def __call__(self, theta: np.ndarray, *, fisher: bool = False) -> EngineEvaluation:
         from harness.likelihood import evaluate_likelihood
-        from harness.solvers.hodlr import factorize
 
         start = time.perf_counter()
         model = self.kernel.with_theta(theta)
-        fac = factorize(self.points, model, tol=self.tol, leaf_size=self.leaf_size,
-                        rng=self.seed)
+        fac = self.solver.factorize(self.points, self.kernel, np.asarray(theta),  # type: ignore[attr-defined]
+                                    tol=self.tol, **self.options)
         ev = evaluate_likelihood(fac, self.points, self.y, model, mean=self.mean,
                                  reml=self.reml, trace="hutchpp", probes=self.probes,
                                  rng=self.seed + 1, fisher=fisher)
+        # g_i = 1/2 q_i - 1/2 tr_i, so SE(g_i) = SE(tr_i) / 2.
+        score_se = (None if ev.trace_stderr is None
+                    else 0.5 * np.asarray(ev.trace_stderr, dtype=float))
         return EngineEvaluation(loglik=ev.loglik, score=np.asarray(ev.score),
-                                fisher=ev.fisher, seconds=time.perf_counter() - start)
+                                fisher=ev.fisher, seconds=time.perf_counter() - start,
+                                score_se=score_se)
 
 
 Engine = Callable[..., EngineEvaluation]
@@ -226,6 +244,16 @@ class MleFit:
     notes : tuple of str
     fisher : ndarray or None
         Fisher information at the estimate when the method computed it.
+    converged : bool
+        The stopping rule was met (Fisher scoring: ``step_se <= score_tol_se``; L-BFGS-B:
+        scipy's success flag).
+    step_se : float
+        max_i |(F^-1 g)_i| / SE_i at the estimate over the free parameters: the score in
+        SE units (NaN when no Fisher information was computed).
+    score_tol_se : float
+        The stated tolerance on ``step_se``.
+    accepted_steps : int
+        Fisher-scoring steps that were accepted by the line search.
     """
 
     kernel: Kernel
@@ -241,9 +269,18 @@ class MleFit:
     seconds: float
     notes: tuple[str, ...] = ()
     fisher: np.ndarray | None = None
+    converged: bool = True
+    step_se: float = math.nan
+    score_tol_se: float = math.nan
+    accepted_steps: int = 0
 
     def to_dict(self) -> dict[str, object]:
         return {"params": self.kernel.natural_params(), "theta": self.theta.tolist(),
+                "converged": self.converged,
+                "step_se": self.step_se if math.isfinite(self.step_se) else None,
+                "score_tol_se": (self.score_tol_se if math.isfinite(self.score_tol_se)
+                                 else None),
+                "accepted_steps": self.accepted_steps,
                 "param_names": list(self.kernel.param_names), "loglik": self.loglik,
                 "score": self.score.tolist(), "engine": self.engine, "method": self.method,
                 "starts": [s.to_dict() for s in self.starts],
@@ -323,22 +360,71 @@ def fit_mle(engine: Engine, kernel: Kernel, *, starts: Sequence[np.ndarray],
     best = max(finite, key=lambda r: r.loglik)
     final = engine(best.theta)
     total += 1
+    success = best.message.upper().startswith("CONVERGENCE")
     return MleFit(kernel=kernel.with_theta(best.theta), theta=best.theta,
                   loglik=final.loglik, score=np.asarray(final.score),
                   engine=getattr(engine, "name", "custom"), method="L-BFGS-B",
                   starts=tuple(results), bounds=bounds,
                   bounds_hit=bounds_hit(best.theta, bounds, kernel.param_names),
-                  evaluations=total, seconds=time.perf_counter() - t0)
+                  evaluations=total, seconds=time.perf_counter() - t0,
+                  converged=success,
+                  notes=() if success else (f"L-BFGS-B did not converge: {best.message}",))
+
+
+def _free_step(theta: np.ndarray, score: np.ndarray, fisher: np.ndarray, lo: np.ndarray,
+               hi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Fisher-scoring step F^-1 g over the free parameters, and the free mask.
+
+    A parameter within ``BOUND_HIT_LOG`` of a bound whose full step points out of the box
+    is held fixed (projected Newton step, Bertsekas 1982, SIAM J. Control Optim. 20);
+    the step of the others solves the reduced system F_ff s_f = g_f.
+    """
+    full = np.linalg.solve(fisher, score)
+    at_lo = (theta - lo < BOUND_HIT_LOG) & (full < 0)
+    at_hi = (hi - theta < BOUND_HIT_LOG) & (full > 0)
+    free = ~(at_lo | at_hi)
+    step = np.zeros_like(theta)
+    if np.any(free):
+        step[free] = np.linalg.solve(fisher[np.ix_(free, free)], score[free])
+    return step, free
+
+
+def _step_in_se(step: np.ndarray, fisher: np.ndarray, free: np.ndarray) -> float:
+    if not np.any(free):
+        return 0.0
+    se = fisher_standard_errors(fisher)
+    return float(np.max(np.abs(step[free]) / se[free]))
+
+
+def _noise_in_se(score_se: np.ndarray | None, fisher: np.ndarray) -> float:
+    """max_i SD((F^-1 g)_i) / SE_i of a stochastic score with independent component
+    errors score_se (linear propagation; 0 for an exact score)."""
+    if score_se is None:
+        return 0.0
+    f_inv = np.linalg.inv(0.5 * (fisher + fisher.T))
+    sd = np.sqrt(np.diag(f_inv @ np.diag(np.asarray(score_se) ** 2) @ f_inv))
+    return float(np.max(sd / np.sqrt(np.diag(f_inv))))
 
 
 def fisher_scoring(engine: Engine, kernel: Kernel, theta0: np.ndarray, *,
-                   bounds: Sequence[tuple[float, float]], max_steps: int = 6,
+                   bounds: Sequence[tuple[float, float]], max_steps: int = 20,
                    step_tol_se: float = 0.01) -> MleFit:
-    """Maximize L from theta0 by Fisher scoring with step halving.
+    """Maximize L from theta0 by Fisher scoring with a backtracking line search.
 
     theta <- theta + t F^-1 g (F the expected Fisher information at the current theta,
-    from the engine), t = 1, 1/2, 1/4.. until L does not decrease by more than 1e-8
-    nat; stops when every step component is below ``step_tol_se`` standard errors.
+    from the engine; Longford 1987), t = 1, 1/2, .., 1/64, the first t whose L is not
+    below the current one by more than 1e-8 nat (Armijo-type backtracking, Nocedal and
+    Wright 2006, Algorithm 3.1, with a zero sufficient-decrease constant).
+
+    Stopping rule (the score tolerance in SE units): converged when
+    max_i |(F^-1 g)_i| / SE_i <= tol over the free parameters (``_free_step``), with
+    tol = max(``step_tol_se``, 2 x the estimated score's own noise in the same units)
+    when the engine's score is stochastic (``EngineEvaluation.score_se``): a stochastic
+    score cannot be driven below its noise, and the tolerance reached is stated in
+    ``MleFit.score_tol_se``.
+    The search cannot stall silently: when no step length is accepted, or ``max_steps``
+    is reached first, the fit is returned with ``converged = False`` and a note saying so
+    (with the number of accepted steps).
     """
     t0 = time.perf_counter()
     bounds = tuple((float(lo), float(hi)) for lo, hi in bounds)
@@ -348,34 +434,55 @@ def fisher_scoring(engine: Engine, kernel: Kernel, theta0: np.ndarray, *,
     current = engine(theta, fisher=True)
     calls = 1
     notes: list[str] = []
-    for _ in range(max_steps):
+    accepted_steps = 0
+    converged = False
+    step_se = tol_se = math.nan
+    for _ in range(max_steps + 1):
         fisher = np.asarray(current.fisher)
-        step = np.linalg.solve(fisher, current.score)
-        se = fisher_standard_errors(fisher)
-        if np.max(np.abs(step) / se) < step_tol_se:
+        step, free = _free_step(theta, np.asarray(current.score), fisher, lo, hi)
+        step_se = _step_in_se(step, fisher, free)
+        tol_se = max(step_tol_se, 2.0 * _noise_in_se(current.score_se, fisher))
+        if step_se <= tol_se:
+            converged = True
+            break
+        if accepted_steps >= max_steps:
+            notes.append(f"Fisher scoring stopped after {max_steps} steps with the score "
+                         f"at {step_se:.3g} SE (tolerance {tol_se:.3g} SE): not converged")
             break
         t = 1.0
         accepted = False
-        while t > 1.0 / 64:
+        while t >= 1.0 / 64:
             trial_theta = np.clip(theta + t * step, lo, hi)
-            trial = engine(trial_theta, fisher=True)
             calls += 1
-            if trial.loglik >= current.loglik - 1e-8:
+            try:
+                trial = engine(trial_theta, fisher=True)
+            except (np.linalg.LinAlgError, FloatingPointError, ValueError,
+                    RuntimeError) as exc:
+                log.debug("Fisher scoring: evaluation failed at %s: %s", trial_theta, exc)
+                t /= 2
+                continue
+            if math.isfinite(trial.loglik) and trial.loglik >= current.loglik - 1e-8:
                 theta, current, accepted = trial_theta, trial, True
+                accepted_steps += 1
                 break
             t /= 2
         if not accepted:
-            notes.append("Fisher scoring stopped: no step increased the log-likelihood")
+            notes.append(f"Fisher scoring stopped: no step length in 1 .. 1/64 increased the "
+                         f"log-likelihood ({accepted_steps} step(s) accepted, score at "
+                         f"{step_se:.3g} SE, tolerance {tol_se:.3g} SE): not converged")
             break
+    message = "; ".join(notes) or (f"converged: score {step_se:.2g} SE <= {tol_se:.3g} SE "
+                                   f"after {accepted_steps} accepted step(s)")
     return MleFit(kernel=kernel.with_theta(theta), theta=theta, loglik=current.loglik,
                   score=np.asarray(current.score), engine=getattr(engine, "name", "custom"),
                   method="Fisher scoring",
                   starts=(StartResult(start=np.asarray(theta0, dtype=float), theta=theta,
                                       loglik=current.loglik, evaluations=calls,
-                                      message="; ".join(notes) or "converged"),),
+                                      message=message),),
                   bounds=bounds, bounds_hit=bounds_hit(theta, bounds, kernel.param_names),
                   evaluations=calls, seconds=time.perf_counter() - t0, notes=tuple(notes),
-                  fisher=current.fisher)
+                  fisher=current.fisher, converged=converged, step_se=step_se,
+                  score_tol_se=tol_se, accepted_steps=accepted_steps)
 
 
 @dataclass(frozen=True)
@@ -420,3 +527,128 @@ def standard_errors(kernel: Kernel, fisher: np.ndarray) -> StandardErrors:
         micro_se = micro * math.sqrt(float(a @ cov @ a))
     return StandardErrors(param_names=kernel.param_names, log_se=log_se, natural_se=natural,
                           microergodic=micro, microergodic_se=micro_se, nu=nu)
+
+
+# -- the fit of a check: dense where it fits the budgets, compressed beyond -------------
+#: Dense evaluations with the score a dense fit is estimated to need: the screened
+#: starts, then L-BFGS-B from the best ``DENSE_FIT_STARTS`` of them (about 40 each).
+LBFGS_EVALUATIONS = 40
+#: Fisher-scoring polish steps estimated (each an evaluation with the Fisher information).
+POLISH_EVALUATIONS = 4
+#: L-BFGS-B runs from this many of the best screened starts.
+DENSE_FIT_STARTS = 2
+#: Default stopping tolerances of the score in SE units (``fisher_scoring``).
+DENSE_SCORE_TOL_SE = 1e-3
+COMPRESSED_SCORE_TOL_SE = 1e-2
+#: Size of the subset timed to estimate the dense fit's cost.
+_TIMING_N = 768
+
+
+@dataclass(frozen=True)
+class FitPlan:
+    """Which engine fits the check's model, and why."""
+
+    engine: str                    # "dense" or "compressed"
+    estimated_seconds: float       # of the dense fit (NaN when over the memory budget)
+    time_budget: float
+    reason: str
+
+    def to_dict(self) -> dict[str, object]:
+        return {"engine": self.engine,
+                "estimated_dense_seconds": (self.estimated_seconds
+                                            if math.isfinite(self.estimated_seconds) else None),
+                "time_budget": self.time_budget, "reason": self.reason}
+
+
+def estimate_dense_fit_seconds(points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
+                               mean: str, n_starts: int) -> float:
+    """Seconds a dense fit at all n points is estimated to take.
+
+    One evaluation with the score and one with the Fisher information are timed on
+    m = min(n, 768) of the points and scaled by (n / m)^3 (the Cholesky factor and the
+    inverse dominate: O(n^3), Golub and Van Loan 2013, section 4.2); the count of
+    evaluations is ``n_starts + DENSE_FIT_STARTS * LBFGS_EVALUATIONS`` with the score
+    and ``POLISH_EVALUATIONS`` with the Fisher information (covaudit's estimate).
+    """
+    n = y.size
+    m = min(n, _TIMING_N)
+    engine = DenseEngine(points[:m], y[:m], kernel, mean=mean)
+    t0 = time.perf_counter()
+    engine(kernel.theta)
+    t_score = time.perf_counter() - t0
+    t0 = time.perf_counter()
+    engine(kernel.theta, fisher=True)
+    t_fisher = time.perf_counter() - t0
+    scale = (n / m) ** 3
+    return scale * (t_score * (n_starts + DENSE_FIT_STARTS * LBFGS_EVALUATIONS)
+                    + t_fisher * POLISH_EVALUATIONS)
+
+
+def plan_fit(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
+             n_starts: int, memory_budget: int | None, time_budget: float) -> FitPlan:
+    """Dense when the dense likelihood, score and Fisher information fit the memory
+    budget and the estimated dense fit fits ``time_budget`` seconds; compressed else."""
+    from harness.references.budget import DenseBudgetError, check_dense_budget
+
+    n = y.size
+    try:
+        check_dense_budget(n, budget=memory_budget, score=True, fisher=True,
+                           n_params=kernel.n_params)
+    except DenseBudgetError as exc:
+        return FitPlan("compressed", math.nan, time_budget, f"dense fit over the memory "
+                                                             f"budget: {exc}")
+    seconds = estimate_dense_fit_seconds(points, y, kernel, mean=mean, n_starts=n_starts)
+    if seconds > time_budget:
+        return FitPlan("compressed", seconds, time_budget,
+                       f"dense fit estimated at {seconds:.3g} s, over --fit-time-budget "
+                       f"{time_budget:g} s")
+    return FitPlan("dense", seconds, time_budget,
+                   f"dense fit estimated at {seconds:.3g} s, within --fit-time-budget "
+                   f"{time_budget:g} s and the memory budget")
+
+
+def _screen(points: np.ndarray, y: np.ndarray, kernel: Kernel, starts: Sequence[np.ndarray],
+            bounds: Sequence[tuple[float, float]], *, mean: str, keep: int,
+            memory_budget: int | None) -> list[np.ndarray]:
+    """The ``keep`` starts with the highest dense log-likelihood (values only)."""
+    lo = np.array([b[0] for b in bounds])
+    hi = np.array([b[1] for b in bounds])
+    scored: list[tuple[float, int]] = []
+    clipped = [np.clip(np.asarray(s, dtype=float), lo, hi) for s in starts]
+    for i, theta in enumerate(clipped):
+        try:
+            value = dense_evaluate(points, y, kernel.with_theta(theta), mean=mean,
+                                   score=False, memory_budget=memory_budget,
+                                   certify=False).loglik
+        except (np.linalg.LinAlgError, FloatingPointError, ValueError):
+            value = -math.inf
+        scored.append((value if math.isfinite(value) else -math.inf, i))
+    scored.sort(reverse=True)
+    return [clipped[i] for _, i in scored[:keep]]
+
+
+def fit_dense(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
+              starts: Sequence[np.ndarray], bounds: Sequence[tuple[float, float]],
+              memory_budget: int | None = None, max_iter: int = 200, max_steps: int = 20,
+              score_tol_se: float = DENSE_SCORE_TOL_SE) -> MleFit:
+    """The dense exact MLE of all points: starts screened by their log-likelihood,
+    L-BFGS-B (``fit_mle``) from the best ``DENSE_FIT_STARTS``, polished by Fisher scoring
+    with the exact score and Fisher information to ``score_tol_se`` SE."""
+    engine = DenseEngine(points, y, template, mean=mean, memory_budget=memory_budget)
+    best = _screen(points, y, template, starts, bounds, mean=mean, keep=DENSE_FIT_STARTS,
+                   memory_budget=memory_budget)
+    first = fit_mle(engine, template, starts=best, bounds=bounds, max_iter=max_iter,
+                    gtol=1e-8)
+    polish = fisher_scoring(engine, template, first.theta, bounds=bounds,
+                            max_steps=max_steps, step_tol_se=score_tol_se)
+    final = polish if polish.loglik >= first.loglik - 1e-8 else first
+    notes = [*first.notes, *polish.notes]
+    if not polish.converged:
+        notes.append("dense fit not converged: " + polish.starts[0].message)
+    return replace(final, method="L-BFGS-B + Fisher scoring", engine="dense",
+                   starts=(*first.starts, *polish.starts),
+                   evaluations=first.evaluations + polish.evaluations + len(starts),
+                   seconds=first.seconds + polish.seconds, notes=tuple(notes),
+                   fisher=polish.fisher, converged=polish.converged,
+                   step_se=polish.step_se, score_tol_se=polish.score_tol_se,
+                   accepted_steps=polish.accepted_steps)

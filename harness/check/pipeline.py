@@ -1,64 +1,84 @@
 """The check of a tolerance ladder on a user's dataset, end to end.
 
-1. Split off a seeded random holdout (default 10%) for kriging; fit on the rest.
-2. Fit the covariance parameters by maximum likelihood (``harness.check.fitting``): dense
-   multi-start L-BFGS-B when the fit set has at most ``dense_fit_max_n`` points;
-   otherwise a dense multi-start pilot fit on a random subset of ``pilot_n`` points,
-   polished at full n by Fisher scoring with the compressed solver at the tightest
-   tolerance. Or take the parameters as given (``fixed_params``).
-3. Fisher information at the estimate (dense exact when n <= ``dense_fit_max_n``, else
-   Hutch++ estimate at the tightest tolerance: used as the unit of the shift metrics
-   and for standard errors).
-4. Reference: the certified dense Cholesky when the fit set fits the memory budget
-   (``reference = "dense"``); otherwise a tolerance ladder, each tolerance against the
-   compressed solver at a tolerance 100x tighter (``"ladder"``), plus dense audits of
-   the log-likelihood error on nested random subsamples with a power-law fit of the
-   error against n, extrapolated to the full n with a 95% prediction interval
-   (``"subsample"`` evidence in ``growth``).
-5. Metrics per tolerance (``compare``), the recommendation (loosest safe tolerance and
-   its speed-up in log-likelihood time over the reference), and an end-to-end refit with
-   the recommended tolerance by Fisher scoring from the reference estimate.
+1. Fit the covariance parameters by maximum likelihood on ALL the user's points
+   (``harness.check.fitting``): the dense exact fit (screened starts, L-BFGS-B, Fisher
+   scoring polish to ``score_tol_se`` SE) wherever the dense likelihood, score and
+   Fisher information fit the memory budget and the estimated dense fit fits
+   ``fit_time_budget`` seconds; beyond that a dense pilot fit on a random subset,
+   then Fisher scoring at all n points with the compressed solver at the tightest
+   tolerance, to a stated score tolerance in SE units. Or take the parameters as given
+   (``fixed_params``). A fit that does not converge is a top-level warning and every
+   verdict says so.
+2. Fisher information at the estimate (the unit of the shift metrics, and the SEs).
+3. Reference (``reference``): ``dense`` (certified dense Cholesky), ``ladder`` (the
+   solver at tol / ``ladder_factor``: extra evidence only, verdicts at best unresolved)
+   or ``operator`` (``harness.references.operator``, when installed); ``auto`` is dense
+   within the memory budget, the operator reference beyond (the ladder, with a warning,
+   while the operator reference is not installed).
+4. The audit engine (``harness.audit.engine.audit_tolerances``): every tolerance of the
+   solver under test (``solver``: a registry name or ``package.module:factory``, through
+   the same registry and plugin adapter as ``run``) on ``solver_seeds`` seeds of its
+   randomness (``harness.audit.solver_seeds``); likelihood and score metrics on all n
+   points, kriging at a seeded random holdout (default 10%) conditioned on the other
+   points (evaluation only); the worst seed decides; the recommendation is the engine's
+   rule. Then an end-to-end refit at the recommended tolerance.
 """
 
 from __future__ import annotations
 
 import math
 import time
-from collections.abc import Callable, Mapping, Sequence
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 from scipy import stats
 
-from harness.audit.sides import Side, evaluate_side, rademacher
-from harness.audit.tolerance_metrics import compare, failed
+from harness.audit import engine as audit_engine
+from harness.audit.audit_references import (
+    DenseReference,
+    LadderReference,
+    OperatorReference,
+    operator_available,
+)
+from harness.audit.engine import AuditData, EngineResult, ToleranceAudit
+from harness.audit.sides import rademacher
+from harness.audit.solver_seeds import (
+    DEFAULT_SOLVER_SEEDS,
+    seed_option,
+    solver_seed,
+    solver_seeds,
+)
 from harness.audit.verdict import Thresholds
 from harness.check.check_records import CheckResult, MetricValue, RefitResult, ToleranceResult
 from harness.check.data_checks import ValidatedData
 from harness.check.fitting import (
+    COMPRESSED_SCORE_TOL_SE,
+    DENSE_SCORE_TOL_SE,
     CompressedEngine,
     DenseEngine,
+    FitPlan,
     MleFit,
     data_scale,
     default_bounds,
     default_starts,
     fisher_scoring,
+    fit_dense,
     fit_mle,
+    plan_fit,
     standard_errors,
 )
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
-from harness.references import (
-    CERTIFICATE_THRESHOLD,
-    DenseBudgetError,
-    DenseCholesky,
-    dense_evaluate,
-)
+from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
 from harness.references.budget import check_dense_budget
-from harness.solvers.hodlr import CompressionBreakdownError, factorize
+from harness.solvers.plugins import SolverLoadError
+from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver
 
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
+REFERENCE_CHOICES = ("auto", "dense", "operator", "ladder")
+DEFAULT_FIT_TIME_BUDGET = 600.0
 Progress = Callable[[str], None]
 
 
@@ -79,8 +99,9 @@ class CheckOptions:
     mean : str
     tolerances : tuple of float
     holdout : float
-        Fraction of points held out for kriging, in (0, 0.5].
+        Fraction of points held out for the kriging evaluation, in (0, 0.5].
     seed : int
+        Base seed of the holdout, probes, pilot subset and the solver's seeds.
     probes : int
         Rademacher probes of the difference-trace estimate.
     fixed_params : mapping or None
@@ -88,14 +109,32 @@ class CheckOptions:
     start_params : mapping or None
         An extra starting point for the fit (natural scale).
     thresholds : Thresholds
-    dense_fit_max_n, pilot_n : int
-        Largest fit set for a dense fit; pilot subset size beyond it.
+    dense_fit_max_n : int or None
+        Optional cap on n for the dense fit (None: the memory and time budgets decide).
+    pilot_n : int
+        Pilot subset size of the compressed fit.
     memory_budget : int or None
-        Bytes for the dense reference.
+        Bytes for the dense reference and the dense fit.
+    fit_time_budget : float
+        Seconds the dense fit may be estimated to take.
+    fit_max_iter, fit_max_steps : int
+        L-BFGS-B iterations and Fisher-scoring steps of the fit.
+    score_tol_se : float or None
+        Stopping tolerance of the fit's score in SE units (None: 1e-3 dense, 1e-2
+        compressed).
     subsample_sizes : tuple of int
-        Subsample sizes of the growth audit (ladder mode); capped by the budget.
+        Subsample sizes of the growth audit (ladder reference); capped by the budget.
     refit : bool
     leaf_size : int
+        Leaf size of the built-in solver.
+    solver : str
+        Solver under test: registry name or ``package.module:factory``.
+    solver_seeds : int
+        Seeds of the solver's randomness per tolerance.
+    reference : str
+        ``auto``, ``dense``, ``operator`` or ``ladder``.
+    ladder_factor : float
+        The ladder reference is the solver at tol / ladder_factor.
     """
 
     kernel: str = "matern32"
@@ -110,12 +149,20 @@ class CheckOptions:
     fixed_params: Mapping[str, Any] | None = None
     start_params: Mapping[str, Any] | None = None
     thresholds: Thresholds = field(default_factory=Thresholds)
-    dense_fit_max_n: int = 2000
+    dense_fit_max_n: int | None = None
     pilot_n: int = 1000
     memory_budget: int | None = None
+    fit_time_budget: float = DEFAULT_FIT_TIME_BUDGET
+    fit_max_iter: int = 200
+    fit_max_steps: int = 20
+    score_tol_se: float | None = None
     subsample_sizes: tuple[int, ...] = (500, 1000, 2000, 4000)
     refit: bool = True
     leaf_size: int = 128
+    solver: str = "hodlr"
+    solver_seeds: int = DEFAULT_SOLVER_SEEDS
+    reference: str = "auto"
+    ladder_factor: float = audit_engine.LADDER_FACTOR
 
 
 class CheckError(ValueError):
@@ -131,7 +178,8 @@ def _template(options: CheckOptions, d: int) -> Kernel:
 
 def split_holdout(n: int, fraction: float, rng: np.random.Generator
                   ) -> tuple[np.ndarray, np.ndarray]:
-    """Random (train, holdout) index arrays, holdout of round(fraction n) >= 5 points."""
+    """Random (conditioning, holdout) index arrays, holdout of round(fraction n) >= 5
+    points (the kriging evaluation; the fit and every other metric use all points)."""
     if not 0.0 < fraction <= 0.5:
         raise CheckError(f"--holdout: expected a fraction in (0, 0.5], got {fraction!r}")
     m = max(5, int(round(fraction * n)))
@@ -139,17 +187,39 @@ def split_holdout(n: int, fraction: float, rng: np.random.Generator
     return np.sort(perm[m:]), np.sort(perm[:m])
 
 
-def _dense_fits(n: int, budget: int | None) -> bool:
+def _dense_fits(n: int, budget: int | None, *, fisher: bool = False, n_params: int = 0
+                ) -> bool:
     try:
-        check_dense_budget(n, budget=budget, score=True)
+        check_dense_budget(n, budget=budget, score=True, fisher=fisher, n_params=n_params)
     except DenseBudgetError:
         return False
     return True
 
 
+def _solver_options(options: CheckOptions, solver: ResolvedSolver) -> dict[str, Any]:
+    return {"leaf_size": options.leaf_size} if solver.name == "hodlr" else {}
+
+
+def _resolve(options: CheckOptions) -> ResolvedSolver:
+    try:
+        return resolve_solver(options.solver)
+    except SolverLoadError as exc:
+        raise CheckError(f"--solver {options.solver!r}: {exc}") from exc
+
+
+@dataclass(frozen=True)
+class _Fit:
+    fit: MleFit | None
+    kernel: Kernel
+    fisher: np.ndarray
+    info: dict[str, Any]
+    notes: list[str]
+    converged: bool
+
+
 def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
-         rng: np.random.Generator, say: Progress) -> tuple[MleFit, np.ndarray, list[str]]:
-    """The MLE and the Fisher information at it (module docstring, steps 2-3)."""
+         rng: np.random.Generator, say: Progress) -> _Fit:
+    """The MLE of all points and the Fisher information at it (module docstring 1-2)."""
     notes: list[str] = []
     scale = data_scale(x, y, mean=options.mean)
     bounds = default_bounds(template, scale)
@@ -157,49 +227,226 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
     if options.start_params:
         extra = dict(options.shape) | dict(options.start_params)
         starts.append(make_kernel(options.kernel, extra).theta)
-    tightest = min(options.tolerances)
     n = y.size
-    if n <= options.dense_fit_max_n and _dense_fits(n, options.memory_budget):
-        say(f"fitting by dense L-BFGS-B from {len(starts)} starts at n = {n:,}")
-        fit = fit_mle(DenseEngine(x, y, template, mean=options.mean,
-                                  memory_budget=options.memory_budget),
-                      template, starts=starts, bounds=bounds)
-        ev = dense_evaluate(x, y, fit.kernel, mean=options.mean, score=False, fisher=True,
-                            memory_budget=options.memory_budget, certify=False)
-        return fit, np.asarray(ev.fisher), notes
-    pilot = np.sort(rng.choice(n, size=min(options.pilot_n, n), replace=False))
-    say(f"pilot fit by dense L-BFGS-B on {pilot.size:,} random points")
-    pilot_fit = fit_mle(DenseEngine(x[pilot], y[pilot], template, mean=options.mean),
-                        template, starts=starts, bounds=bounds)
-    say(f"polishing at n = {n:,} by Fisher scoring with hodlr tol {tightest:g}")
-    engine = CompressedEngine(x, y, template, mean=options.mean, tol=tightest,
-                              seed=options.seed, leaf_size=options.leaf_size)
-    fit = fisher_scoring(engine, template, pilot_fit.theta, bounds=bounds)
-    notes.append(f"fit: dense pilot on {pilot.size:,} random points (loglik "
-                 f"{pilot_fit.loglik:.6g}), then Fisher scoring at n = {n:,} with the "
-                 f"compressed solver at tol {tightest:g} (Hutch++ traces, 32 probes)")
-    notes.append("Fisher information (SE units of the shift metrics) estimated by Hutch++ "
-                 f"at tol {tightest:g}, not exact")
-    return fit, np.asarray(fit.fisher), notes
+    plan = plan_fit(x, y, template, mean=options.mean, n_starts=len(starts),
+                    memory_budget=options.memory_budget, time_budget=options.fit_time_budget)
+    if options.dense_fit_max_n is not None and n > options.dense_fit_max_n \
+            and plan.engine == "dense":
+        plan = FitPlan("compressed", plan.estimated_seconds, plan.time_budget,
+                       f"n = {n:,} above --dense-fit-max-n {options.dense_fit_max_n:,}")
+    notes.append(f"fit plan: {plan.engine} ({plan.reason})")
+    if plan.engine == "dense":
+        tol_se = options.score_tol_se or DENSE_SCORE_TOL_SE
+        say(f"fitting by dense L-BFGS-B + Fisher scoring at n = {n:,} "
+            f"({plan.estimated_seconds:.3g} s estimated)")
+        fit = fit_dense(x, y, template, mean=options.mean, starts=starts, bounds=bounds,
+                        memory_budget=options.memory_budget, max_iter=options.fit_max_iter,
+                        max_steps=options.fit_max_steps, score_tol_se=tol_se)
+        fisher = np.asarray(fit.fisher)
+    else:
+        tol_se = options.score_tol_se or COMPRESSED_SCORE_TOL_SE
+        tightest = min(options.tolerances)
+        pilot = np.sort(rng.choice(n, size=min(options.pilot_n, n), replace=False))
+        say(f"pilot fit by dense L-BFGS-B on {pilot.size:,} random points")
+        pilot_fit = fit_mle(DenseEngine(x[pilot], y[pilot], template, mean=options.mean),
+                            template, starts=starts, bounds=bounds,
+                            max_iter=options.fit_max_iter)
+        say(f"Fisher scoring at n = {n:,} with hodlr tol {tightest:g}")
+        engine = CompressedEngine(x, y, template, mean=options.mean, tol=tightest,
+                                  seed=solver_seed(options.seed, 0),
+                                  leaf_size=options.leaf_size)
+        fit = fisher_scoring(engine, template, pilot_fit.theta, bounds=bounds,
+                             max_steps=options.fit_max_steps, step_tol_se=tol_se)
+        fisher = np.asarray(fit.fisher)
+        notes.append(f"fit: dense pilot on {pilot.size:,} random points (loglik "
+                     f"{pilot_fit.loglik:.6g}), then Fisher scoring at all n = {n:,} with "
+                     f"the compressed solver at tol {tightest:g} (Hutch++ traces, 32 "
+                     f"probes) to {tol_se:g} SE")
+        notes.append("Fisher information (SE units of the shift metrics) estimated by "
+                     f"Hutch++ at tol {tightest:g}, not exact")
+    info = fit.to_dict() | {"plan": plan.to_dict()}
+    if fit.bounds_hit:
+        notes.append("bounds hit: " + "; ".join(fit.bounds_hit))
+    return _Fit(fit, fit.kernel, fisher, info, notes, fit.converged)
 
 
-def _side_for(name: str, fac: object, factor_seconds: float, x: np.ndarray, y: np.ndarray,
-              kernel: Kernel, options: CheckOptions, probes: np.ndarray,
-              x_new: np.ndarray) -> Side:
-    return evaluate_side(name, fac, x, y, kernel, mean=options.mean, probes=probes,
-                         new_points=x_new, factor_seconds=factor_seconds)
+def _fixed(x: np.ndarray, y: np.ndarray, options: CheckOptions, d: int) -> _Fit:
+    params = dict(options.fixed_params or {})
+    kernel = make_kernel(options.kernel, dict(options.shape) | params)
+    kernel.check_dimension(d)
+    notes: list[str] = []
+    if _dense_fits(y.size, options.memory_budget, fisher=True, n_params=kernel.n_params):
+        fisher = np.asarray(dense_evaluate(x, y, kernel, mean=options.mean, score=False,
+                                           fisher=True, certify=False,
+                                           memory_budget=options.memory_budget).fisher)
+    else:
+        fisher = np.asarray(CompressedEngine(x, y, kernel, mean=options.mean,
+                                             tol=min(options.tolerances),
+                                             seed=solver_seed(options.seed, 0))(
+            kernel.theta, fisher=True).fisher)
+        notes.append("Fisher information estimated by Hutch++ at the tightest tolerance")
+    return _Fit(None, kernel, fisher, {"method": "fixed (--params)", "engine": None,
+                                       "converged": None}, notes, True)
 
 
-def _hodlr(x: np.ndarray, kernel: Kernel, tol: float, options: CheckOptions
-           ) -> tuple[object, float]:
-    t0 = time.perf_counter()
-    fac = factorize(x, kernel, tol=tol, leaf_size=options.leaf_size, rng=options.seed)
-    return fac, time.perf_counter() - t0
+def _reference_kind(options: CheckOptions, n: int, n_params: int) -> tuple[str, list[str]]:
+    """The reference kind to use and warnings about the choice."""
+    if options.reference not in REFERENCE_CHOICES:
+        raise CheckError(f"--reference {options.reference!r}: choose one of "
+                         f"{', '.join(REFERENCE_CHOICES)}")
+    dense_ok = _dense_fits(n, options.memory_budget)
+    if options.reference == "dense":
+        if not dense_ok:
+            raise CheckError(f"--reference dense: n = {n:,} is beyond the dense memory "
+                             "budget; use --reference auto, operator or ladder, or raise "
+                             "--memory-budget")
+        return "dense", []
+    if options.reference == "operator" or (options.reference == "auto" and not dense_ok):
+        if not operator_available():
+            if options.reference == "operator":
+                raise CheckError("--reference operator: the exact operator reference "
+                                 "(harness.references.operator) is not available in this "
+                                 "installation yet; use --reference dense (within the "
+                                 "memory budget) or ladder")
+            return "ladder", [f"n = {n:,} is beyond the dense memory budget and the exact "
+                              "operator reference is not installed: the tolerance ladder "
+                              "is the only reference, so no verdict can be better than "
+                              "unresolved"]
+        return "operator", []
+    if options.reference == "ladder":
+        return "ladder", ["--reference ladder: the ladder is extra evidence only, so no "
+                          "verdict can be better than unresolved"]
+    return "dense", []
+
+
+def _row(audit: ToleranceAudit, reference: str) -> ToleranceResult:
+    v = audit.verdict
+    return ToleranceResult(
+        tol=v.tol, safe=v.safe, reference=reference,
+        metrics=audit.worst_metrics(), seconds=audit.seconds, speedup=audit.speedup,
+        nbytes=audit.nbytes, error="; ".join(v.failures), status=v.status,
+        reasons=v.reasons, seeds=tuple(s.to_dict() for s in audit.seeds),
+        spread={k: s.to_dict() for k, s in v.spread.items()})
+
+
+def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
+              truth: Mapping[str, Any] | None = None,
+              progress: Progress | None = None) -> CheckResult:
+    """Run the whole check (module docstring) on validated data."""
+    say: Progress = progress or (lambda _msg: None)
+    start = time.perf_counter()
+    tols = tuple(sorted({float(t) for t in options.tolerances}, reverse=True))
+    if not tols or any(not 0 < t < 1 for t in tols):
+        raise CheckError(f"--tolerances: expected numbers in (0, 1), got {options.tolerances}")
+    if isinstance(options.solver_seeds, bool) or not isinstance(options.solver_seeds, int) \
+            or not 1 <= options.solver_seeds <= 100:
+        raise CheckError(f"--solver-seeds: expected an integer in 1..100, got "
+                         f"{options.solver_seeds!r}")
+    if not (math.isfinite(options.fit_time_budget) and options.fit_time_budget > 0):
+        raise CheckError(f"--fit-time-budget: expected a positive number of seconds, got "
+                         f"{options.fit_time_budget!r}")
+    solver = _resolve(options)
+    gen = np.random.default_rng(options.seed)
+    split_rng, fit_rng, probe_rng, growth_rng = gen.spawn(4)
+    train, hold = split_holdout(data.n, options.holdout, split_rng)
+    x, y = data.points, data.values
+    d = x.shape[1]
+    template = _template(options, d)
+    notes: list[str] = list(data.notes)
+    warnings: list[str] = []
+    if options.fixed_params is not None:
+        fitted = _fixed(x, y, options, d)
+    else:
+        fitted = _fit(x, y, template, options, fit_rng, say)
+        if not fitted.converged:
+            reason = "; ".join(fitted.fit.notes) if fitted.fit else ""
+            warnings.append("the maximum-likelihood fit did not converge"
+                            + (f" ({reason})" if reason else "")
+                            + ": every verdict was measured at an unconverged estimate")
+    kernel, fisher = fitted.kernel, fitted.fisher
+    notes.extend(fitted.notes)
+    se = standard_errors(kernel, fisher)
+    kind, ref_warnings = _reference_kind(options, y.size, kernel.n_params)
+    warnings.extend(ref_warnings)
+    audit_data = AuditData(points=x, y=y, kernel=kernel, mean=options.mean, holdout=hold,
+                           fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng))
+    solver_options = _solver_options(options, solver)
+    seeds = solver_seeds(options.seed, options.solver_seeds)
+    if seed_option(solver.factory) is None:
+        notes.append(f"solver {solver.name!r} declares no rng or seed option: treated as "
+                     "deterministic, audited on one seed (more would repeat it)")
+        seeds = seeds[:1]
+    growth: dict[str, Any] = {}
+    reference: DenseReference | LadderReference | OperatorReference
+    if kind == "dense":
+        say(f"dense reference at n = {y.size:,}")
+        reference = DenseReference(audit_data, memory_budget=options.memory_budget)
+        speedup_over = "dense"
+    elif kind == "operator":
+        say(f"exact operator reference at n = {y.size:,}")
+        reference = OperatorReference(audit_data, base_seed=options.seed,
+                                      probes=max(64, options.probes),
+                                      leaf_size=options.leaf_size,
+                                      memory_budget=options.memory_budget)
+        speedup_over = "the exact operator"
+        if not reference.info.certified:
+            warnings.append("the exact operator reference is not certified (" +
+                            "; ".join(reference.messages) + "): no verdict can be safe")
+    else:
+        reference = LadderReference(audit_data, solver, factor=options.ladder_factor,
+                                    base_seed=options.seed, options=solver_options)
+        speedup_over = f"{solver.name} at tol / {options.ladder_factor:g}"
+        growth = _growth(x, y, kernel, options, solver, growth_rng, say)
+    notes.append(f"reference: {reference.info.description}")
+    result: EngineResult = audit_engine.audit_tolerances(
+        audit_data, solver, tols, reference, seeds=seeds, solver_options=solver_options,
+        thresholds=options.thresholds, fit_converged=fitted.converged, progress=say)
+    rows = [_row(a, kind) for a in result.tolerances]
+    rows = [_with_growth(r, growth.get("per_tolerance", {}).get(repr(r.tol))) for r in rows]
+    rec = result.recommendation
+    if not rec.monotone:
+        warnings.append("non-monotone tolerance ladder: " + rec.reason)
+    ref_k = (reference.kriging if isinstance(reference, OperatorReference)
+             else reference.sides(tols[-1]).kriging)
+    resid = y[hold] - ref_k.mean
+    obs_var = ref_k.variance + kernel.nugget
+    holdout_info = {"points": int(hold.size), "rmse": float(np.sqrt(np.mean(resid ** 2))),
+                    "mean_z2": float(np.mean(resid ** 2 / obs_var)),
+                    "coverage95": float(np.mean(np.abs(resid) <= 1.96 * np.sqrt(obs_var))),
+                    "reference": kind, "conditioned_on": int(train.size)}
+    best = next((r for r in rows if r.tol == rec.tol), None)
+    refit = None
+    if best is not None and options.refit and fitted.fit is not None:
+        say(f"end-to-end refit with {solver.name} tol {best.tol:g}")
+        refit = _refit(x, y, template, fitted.fit, best.tol, options, solver,
+                       se.log_se, fisher)
+    loglik = (reference.values().loglik.value if isinstance(reference, OperatorReference)
+              else reference.sides(tols[-1]).full.loglik)
+    if fitted.fit is not None and fitted.fit.engine == "dense":
+        loglik = fitted.fit.loglik
+    return CheckResult(
+        source=source, n=data.n, n_fit=int(y.size), n_holdout=int(hold.size), d=d,
+        coord_system=data.coord_system, kernel=kernel.family, mean=options.mean,
+        params=kernel.natural_params(),
+        se={"log": dict(zip(kernel.param_names, se.log_se.tolist(), strict=True)),
+            "natural": se.natural_se, "microergodic": se.microergodic,
+            "microergodic_se": se.microergodic_se, "nu": se.nu},
+        loglik=float(loglik), reference=kind, fit=fitted.info, tolerances=tuple(rows),
+        recommended_tolerance=rec.tol,
+        speedup=None if best is None else best.speedup, speedup_over=speedup_over,
+        refit=refit, thresholds=options.thresholds.to_dict(), growth=growth,
+        holdout=holdout_info, truth=dict(truth) if truth else None,
+        seconds=time.perf_counter() - start, notes=tuple(notes),
+        solver=solver.to_dict() | {"options": dict(solver_options)},
+        solver_seeds=seeds, warnings=tuple(warnings), recommendation=rec.to_dict(),
+        fit_converged=fitted.converged, reference_detail=reference.info.to_dict())
 
 
 def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,
-            rng: np.random.Generator, say: Progress) -> dict[str, Any]:
-    """Dense audits of |L~ - L| on nested random subsamples, power law fitted in n."""
+            solver: ResolvedSolver, rng: np.random.Generator, say: Progress
+            ) -> dict[str, Any]:
+    """Dense audits of |L~ - L| on nested random subsamples, power law fitted in n
+    (extra evidence of the ladder reference, information only)."""
     n = y.size
     sizes = [m for m in options.subsample_sizes
              if m < n and _dense_fits(m, options.memory_budget)]
@@ -208,6 +455,10 @@ def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,
                                         "no growth fit"}
     perm = rng.permutation(n)
     errors: dict[float, list[float]] = {tol: [] for tol in options.tolerances}
+    opts = _solver_options(options, solver)
+    from harness.audit.solver_seeds import seeded_options
+
+    opts = seeded_options(solver.factory, opts, solver_seed(options.seed, 0))
     for m in sizes:
         idx = np.sort(perm[:m])
         say(f"subsample audit at m = {m:,}")
@@ -216,9 +467,9 @@ def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,
         ref = evaluate_loglik(chol, y[idx], design)
         for tol in options.tolerances:
             try:
-                fac, _ = _hodlr(x[idx], kernel, tol, options)
+                fac = solver.factorize(x[idx], kernel, kernel.theta, tol=tol, **opts)
                 errors[tol].append(abs(evaluate_loglik(fac, y[idx], design) - ref))
-            except CompressionBreakdownError:
+            except (SolverRuntimeError, np.linalg.LinAlgError):
                 errors[tol].append(math.inf)
     out: dict[str, Any] = {"sizes": sizes, "n_target": n, "per_tolerance": {}}
     logm = np.log(np.asarray(sizes, dtype=float))
@@ -248,176 +499,37 @@ def evaluate_loglik(fac: object, y: np.ndarray, design: np.ndarray) -> float:
     return float(fit_mean(fac, y, design, float(fac.logdet()))[0].loglik)  # type: ignore[attr-defined]
 
 
-def _with_growth(row: ToleranceResult, entry: Mapping[str, Any] | None,
-                 thresholds: Thresholds) -> ToleranceResult:
+def _with_growth(row: ToleranceResult, entry: Mapping[str, Any] | None) -> ToleranceResult:
+    """Add the extrapolated log-likelihood error (information: the ladder is never the
+    sole basis of safe)."""
     if not entry or "upper95" not in entry:
         return row
     metric = MetricValue("loglik_error_extrapolated", float(entry["upper95"]),
-                         thresholds.loglik_nats,
                          note=f"upper 95% bound of |L~ - L| extrapolated to full n "
-                              f"(fitted slope {entry['slope']:.2f} in log n)")
-    metrics = (*row.metrics, metric)
-    safe = row.safe and bool(metric.passed)
-    return ToleranceResult(tol=row.tol, safe=safe, reference=row.reference, metrics=metrics,
-                           seconds=row.seconds, speedup=row.speedup, nbytes=row.nbytes,
-                           error=row.error)
+                              f"(fitted slope {entry['slope']:.2f} in log n; information)")
+    from dataclasses import replace
+
+    return replace(row, metrics=(*row.metrics, metric))
 
 
-def recommend(rows: Sequence[ToleranceResult]) -> ToleranceResult | None:
-    """The loosest tolerance that is safe, and all tighter ones safe too."""
-    best = None
-    for row in sorted(rows, key=lambda r: r.tol):
-        if not row.safe:
-            break
-        best = row
-    return best
-
-
-def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
-              truth: Mapping[str, Any] | None = None,
-              progress: Progress | None = None) -> CheckResult:
-    """Run the whole check (module docstring) on validated data."""
-    say: Progress = progress or (lambda _msg: None)
-    start = time.perf_counter()
-    tols = tuple(sorted({float(t) for t in options.tolerances}, reverse=True))
-    if not tols or any(not 0 < t < 1 for t in tols):
-        raise CheckError(f"--tolerances: expected numbers in (0, 1), got {options.tolerances}")
-    gen = np.random.default_rng(options.seed)
-    split_rng, fit_rng, probe_rng, growth_rng = gen.spawn(4)
-    train, hold = split_holdout(data.n, options.holdout, split_rng)
-    x, y = data.points[train], data.values[train]
-    x_new, y_new = data.points[hold], data.values[hold]
-    d = data.points.shape[1]
-    template = _template(options, d)
-    notes: list[str] = list(data.notes)
-    if options.fixed_params is not None:
-        params = dict(options.fixed_params)
-        kernel = make_kernel(options.kernel, dict(options.shape) | params)
-        kernel.check_dimension(d)
-        fit_info: dict[str, Any] = {"method": "fixed (--params)", "engine": None}
-        fit = None
-        if y.size <= options.dense_fit_max_n and _dense_fits(y.size, options.memory_budget):
-            fisher = np.asarray(dense_evaluate(x, y, kernel, mean=options.mean, score=False,
-                                               fisher=True, certify=False).fisher)
-        else:
-            fisher = np.asarray(CompressedEngine(x, y, kernel, mean=options.mean,
-                                                 tol=min(tols), seed=options.seed)(
-                kernel.theta, fisher=True).fisher)
-            notes.append("Fisher information estimated by Hutch++ at the tightest tolerance")
-    else:
-        fit, fisher, fit_notes = _fit(x, y, template, options, fit_rng, say)
-        kernel = fit.kernel
-        fit_info = fit.to_dict()
-        notes.extend(fit_notes)
-        if fit.bounds_hit:
-            notes.append("bounds hit: " + "; ".join(fit.bounds_hit))
-    se = standard_errors(kernel, fisher)
-    probes = rademacher(y.size, options.probes, probe_rng)
-    cross = kernel.cross_covariance(x, x_new)
-    dense_ok = _dense_fits(y.size, options.memory_budget)
-    rows: list[ToleranceResult] = []
-    growth: dict[str, Any] = {}
-    holdout_info: dict[str, Any] = {}
-    if dense_ok:
-        reference = "dense"
-        say(f"dense reference at n = {y.size:,}")
-        chol = DenseCholesky(x, kernel, memory_budget=options.memory_budget)
-        certified = bool(chol.certificate is not None
-                         and chol.certificate < CERTIFICATE_THRESHOLD)
-        ref = _side_for("dense", chol, chol.seconds["assemble"] + chol.seconds["factor"],
-                        x, y, kernel, options, probes, x_new)
-        ref_loglik = ref.loglik
-        notes.append(f"dense reference certified: DPOT01 ratio {chol.certificate:.3g} "
-                     f"(passes below {CERTIFICATE_THRESHOLD:g})")
-        for tol in tols:
-            say(f"tolerance {tol:g}")
-            try:
-                fac, secs = _hodlr(x, kernel, tol, options)
-                side = _side_for(f"hodlr {tol:g}", fac, secs, x, y, kernel, options, probes,
-                                 x_new)
-            except CompressionBreakdownError as exc:
-                rows.append(failed(tol, str(exc), reference))
-                continue
-            rows.append(compare(side, ref, tol=tol, kernel=kernel, fisher=fisher,
-                                probes=probes, cross=cross,
-                                sigma_times_weights=np.asarray(chol.matvec(side.weights)),
-                                thresholds=options.thresholds, reference="dense",
-                                certified=certified, reference_seconds=ref.loglik_seconds))
-        exact_side = ref
-        speedup_over = "dense"
-    else:
-        reference = "ladder"
-        sides: dict[float, tuple[object, Side]] = {}
-        for tol in sorted(set(tols) | {t / 100 for t in tols}, reverse=True):
-            say(f"tolerance {tol:g} (ladder)")
-            try:
-                fac, secs = _hodlr(x, kernel, tol, options)
-                sides[tol] = (fac, _side_for(f"hodlr {tol:g}", fac, secs, x, y, kernel,
-                                             options, probes, x_new))
-            except CompressionBreakdownError:
-                continue
-        growth = _growth(x, y, kernel, options, growth_rng, say)
-        for tol in tols:
-            if tol not in sides:
-                rows.append(failed(tol, "compression lost positive definiteness", reference))
-                continue
-            tighter = tol / 100
-            if tighter not in sides:
-                rows.append(failed(tol, f"the ladder reference at tol {tighter:g} failed",
-                                   reference))
-                continue
-            ref_fac, ref_side = sides[tighter]
-            row = compare(sides[tol][1], ref_side, tol=tol, kernel=kernel, fisher=fisher,
-                          probes=probes, cross=cross,
-                          sigma_times_weights=np.asarray(ref_fac.matvec(sides[tol][1].weights)),  # type: ignore[attr-defined]
-                          thresholds=options.thresholds, reference=f"hodlr {tighter:g}",
-                          certified=True, reference_seconds=sides[min(sides)][1].loglik_seconds)
-            rows.append(_with_growth(row, growth.get("per_tolerance", {}).get(repr(tol)),
-                                     options.thresholds))
-        tightest = min(sides) if sides else None
-        if tightest is None:
-            raise CheckError("the compressed solver failed at every tolerance")
-        exact_side = sides[tightest][1]
-        ref_loglik = exact_side.loglik
-        speedup_over = f"hodlr tol {tightest:g}"
-        notes.append(f"n = {y.size:,} is beyond the dense memory budget: each tolerance is "
-                     "compared with one 100x tighter; the log-likelihood error is "
-                     "extrapolated from dense subsample audits")
-    resid = y_new - exact_side.krige_mean
-    obs_var = exact_side.krige_var + kernel.nugget
-    holdout_info = {"points": int(hold.size), "rmse": float(np.sqrt(np.mean(resid ** 2))),
-                    "mean_z2": float(np.mean(resid ** 2 / obs_var)),
-                    "coverage95": float(np.mean(np.abs(resid) <= 1.96 * np.sqrt(obs_var))),
-                    "reference": reference}
-    best = recommend(rows)
-    refit = None
-    if best is not None and options.refit and fit is not None:
-        say(f"end-to-end refit with tol {best.tol:g}")
-        refit = _refit(x, y, template, fit, best.tol, options, se.log_se, ref_loglik,
-                       fisher)
-    loglik = fit.loglik if fit is not None and fit.engine == "dense" else ref_loglik
-    return CheckResult(
-        source=source, n=data.n, n_fit=int(y.size), n_holdout=int(hold.size), d=d,
-        coord_system=data.coord_system, kernel=kernel.family, mean=options.mean,
-        params=kernel.natural_params(),
-        se={"log": dict(zip(kernel.param_names, se.log_se.tolist(), strict=True)),
-            "natural": se.natural_se, "microergodic": se.microergodic,
-            "microergodic_se": se.microergodic_se, "nu": se.nu},
-        loglik=float(loglik), reference=reference, fit=fit_info, tolerances=tuple(rows),
-        recommended_tolerance=None if best is None else best.tol,
-        speedup=None if best is None else best.speedup, speedup_over=speedup_over,
-        refit=refit, thresholds=options.thresholds.to_dict(), growth=growth,
-        holdout=holdout_info, truth=dict(truth) if truth else None,
-        seconds=time.perf_counter() - start, notes=tuple(notes))
+def recommend(rows: list[ToleranceResult]) -> ToleranceResult | None:
+    """The engine's rule on check rows: the loosest safe tolerance with no unsafe or
+    unresolved tighter one (``harness.audit.engine.recommend``)."""
+    rec = audit_engine.recommend({r.tol: r.status or ("safe" if r.safe else "unsafe")
+                                  for r in rows})
+    return next((r for r in rows if r.tol == rec.tol), None)
 
 
 def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: float,
-           options: CheckOptions, log_se: np.ndarray, ref_loglik: float,
+           options: CheckOptions, solver: ResolvedSolver, log_se: np.ndarray,
            fisher: np.ndarray) -> RefitResult:
-    """Fisher scoring with the compressed solver at ``tol`` from the reference estimate."""
-    engine = CompressedEngine(x, y, template, mean=options.mean, tol=tol, seed=options.seed,
-                              leaf_size=options.leaf_size)
-    refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds, step_tol_se=1e-4)
+    """Fisher scoring with the solver under test at ``tol`` from the reference estimate."""
+    engine = CompressedEngine(x, y, template, mean=options.mean, tol=tol,
+                              seed=solver_seed(options.seed, 0), leaf_size=options.leaf_size,
+                              solver=solver, options=_solver_options(options, solver))
+    start_ll = engine(fit.theta).loglik
+    refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds, step_tol_se=1e-3,
+                           max_steps=options.fit_max_steps)
     delta = refit.theta - fit.theta
     shift = delta / log_se
     micro = None
@@ -428,9 +540,19 @@ def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: flo
         a = np.zeros(template.n_params)
         a[0], a[1] = 1.0, -2.0 * nu
         micro = float(a @ delta) / math.sqrt(float(a @ np.linalg.solve(fisher, a)))
+    if refit.accepted_steps == 0:
+        note = ("the refit accepted no step: " + (refit.starts[0].message if refit.notes
+                                                  else "the start already met the score "
+                                                       "tolerance")
+                + "; the shift is 0 by construction, not a measurement of compression")
+    elif not refit.converged:
+        note = "the refit did not converge: " + refit.starts[0].message
+    else:
+        note = refit.starts[0].message
     return RefitResult(tol=tol, params=refit.kernel.natural_params(),
                        shift_se=dict(zip(template.param_names, shift.tolist(), strict=True)),
                        max_shift_se=float(np.max(np.abs(shift))),
-                       loglik_change=float(refit.loglik - ref_loglik),
+                       loglik_change=float(refit.loglik - start_ll),
                        microergodic_shift_se=micro, evaluations=refit.evaluations,
-                       seconds=refit.seconds)
+                       seconds=refit.seconds, accepted_steps=refit.accepted_steps,
+                       converged=refit.converged, note=note)

@@ -22,15 +22,19 @@ from typing import Any
 
 import numpy as np
 
+from harness.audit.engine import LADDER_FACTOR
+from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.audit.verdict import Thresholds
 from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
 from harness.check.check_records import CheckResult
 from harness.check.datafile import DataFileError, load_observations
 from harness.check.fitting import FitError
+from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.model import MEAN_MODELS
 from harness.model.kernels import KERNELS, KernelParameterError
 from harness.report.check_report import render_check_report
+from harness.solvers.registry import SolverRuntimeError
 
 SHAPE_NAMES = ("nu", "alpha")
 
@@ -66,14 +70,30 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="average values at repeated locations")
     p.add_argument("--probes", type=int, default=16,
                    help="probe vectors of the score-difference estimate")
-    p.add_argument("--dense-fit-max-n", type=int, default=2000,
-                   help="largest n fitted with the dense reference (beyond: pilot fit + "
-                        "compressed polish)")
+    p.add_argument("--dense-fit-max-n", type=int, default=None,
+                   help="optional cap on n for the dense fit (default: the memory budget "
+                        "and --fit-time-budget decide)")
+    p.add_argument("--fit-time-budget", type=float, default=DEFAULT_FIT_TIME_BUDGET,
+                   metavar="SECONDS",
+                   help="seconds the dense exact fit may be estimated to take (default "
+                        f"{DEFAULT_FIT_TIME_BUDGET:g}); beyond it the compressed fit is used")
+    p.add_argument("--solver", default="hodlr",
+                   help="solver under test: hodlr, an entry-point name, or "
+                        "package.module:factory (same registry as run)")
+    p.add_argument("--solver-seeds", type=int, default=DEFAULT_SOLVER_SEEDS, metavar="K",
+                   help="seeds of the solver's randomness per tolerance; the worst decides "
+                        f"(default {DEFAULT_SOLVER_SEEDS})")
+    p.add_argument("--reference", choices=REFERENCE_CHOICES, default="auto",
+                   help="auto (dense within the memory budget, operator beyond), dense, "
+                        "operator, or ladder (extra evidence only)")
+    p.add_argument("--ladder-factor", type=float, default=LADDER_FACTOR,
+                   help=f"ladder reference: the solver at tol / factor (default "
+                        f"{LADDER_FACTOR:g})")
     p.add_argument("--memory-budget", type=float, default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
-    p.add_argument("--out", default=None, help="folder for check.json and check.html "
-                                               "(default reports/check-<data file stem>/)")
+    p.add_argument("--out", default="reports/check", help="folder for check.json and "
+                                                          "check.html (default reports/check)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
     p.add_argument("--seed", type=int, default=0, help="seed of holdout, pilot and probes")
 
@@ -108,7 +128,9 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         holdout=args.holdout, seed=args.seed, probes=args.probes, fixed_params=fixed,
         start_params=start or None, thresholds=Thresholds(),
         dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
-        refit=not args.no_refit)
+        refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=args.solver,
+        solver_seeds=args.solver_seeds, reference=args.reference,
+        ladder_factor=args.ladder_factor)
 
 
 def _clean(value: Any) -> Any:
@@ -155,9 +177,14 @@ def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "che
 
 def summary(result: CheckResult) -> str:
     """The verdict table for the terminal."""
-    lines = [f"covaudit check: {result.source}: {result.n:,} points ({result.n_fit:,} fitted, "
-             f"{result.n_holdout:,} held out), kernel {result.kernel}, mean {result.mean}, "
-             f"reference {result.reference}",
+    solver = result.solver.get("name", "?")
+    version = result.solver.get("version")
+    lines = [f"WARNING: {w}" for w in result.warnings]
+    lines += [f"covaudit check: {result.source}: {result.n:,} points (all fitted; "
+             f"{result.n_holdout:,} held out for the kriging evaluation), kernel "
+             f"{result.kernel}, mean {result.mean}, reference {result.reference}",
+             f"  solver      {solver}{f' {version}' if version else ''}, "
+             f"{len(result.solver_seeds)} seed(s) per tolerance (the worst decides)",
              "  parameters  " + ", ".join(f"{k} = {_short(v)}" for k, v in result.params.items()),
              "  SE          " + ", ".join(f"{k} = {_short(v)}"
                                           for k, v in result.se["natural"].items()),
@@ -165,29 +192,37 @@ def summary(result: CheckResult) -> str:
     if result.se.get("microergodic") is not None:
         lines.append(f"  s2/l^(2nu)  {result.se['microergodic']:.6g} "
                      f"(SE {result.se['microergodic_se']:.3g})")
-    header = (f"  {'tol':>8} {'verdict':>8} {'dL (nat)':>11} {'shift/SE':>10} "
+    header = (f"  {'tol':>8} {'verdict':>10} {'dL (nat)':>11} {'shift/SE':>10} "
               f"{'krig/SD':>10} {'MLOE':>10} {'MMOM':>10} {'speed-up':>9}")
     lines += ["", header]
     for row in result.tolerances:
-        if row.error:
-            lines.append(f"  {row.tol:>8.0e} {'unsafe':>8}  {row.error[:80]}")
+        status = row.status or ("safe" if row.safe else "unsafe")
+        if row.error and not row.metrics:
+            lines.append(f"  {row.tol:>8.0e} {status:>10}  {row.error[:80]}")
             continue
         vals = [row.metric(n) for n in ("loglik_error", "param_shift_se", "kriging_mean_sd",
                                         "mloe", "mmom")]
         cells = " ".join(f"{(v.value if v else float('nan')):>10.3g}" for v in vals[1:])
-        lines.append(f"  {row.tol:>8.0e} {'safe' if row.safe else 'unsafe':>8} "
+        lines.append(f"  {row.tol:>8.0e} {status:>10} "
                      f"{vals[0].value if vals[0] else float('nan'):>11.3g} {cells} "
                      f"{row.speedup or float('nan'):>9.3g}")
     lines.append("")
+    if not result.fit_converged:
+        lines.append("  every verdict was measured at an unconverged estimate")
     if result.recommended_tolerance is None:
-        lines.append("  recommendation: no tolerance in the list is safe")
+        lines.append("  recommendation: no tolerance in the list qualifies ("
+                     + str(result.recommendation.get("reason", "none is safe")) + ")")
     else:
         lines.append(f"  recommendation: tol {result.recommended_tolerance:g} "
                      f"({result.speedup:.3g}x faster than {result.speedup_over})")
     if result.refit:
         lines.append(f"  refit at tol {result.refit.tol:g}: largest shift "
                      f"{result.refit.max_shift_se:.3g} SE, loglik change "
-                     f"{result.refit.loglik_change:.3g} nat")
+                     f"{result.refit.loglik_change:.3g} nat, "
+                     f"{result.refit.accepted_steps} step(s) accepted")
+        if result.refit.accepted_steps == 0 or not result.refit.converged:
+            lines.append(f"  refit: {result.refit.note}")
+    lines += [f"WARNING: {w}" for w in result.warnings]
     lines.append("  thresholds are common practice chosen for covaudit, not a published "
                  "standard")
     return "\n".join(lines)
@@ -199,21 +234,11 @@ def _short(value: Any) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
-def default_out(datafile: str | Path) -> Path:
-    """``reports/check-<data file stem>``: one folder per data file, so checks of different
-    files do not overwrite each other."""
-    return Path("reports") / f"check-{Path(datafile).stem}"
-
-
-def written_files(out: str | Path, names: list[str]) -> list[Path]:
-    """The files ``write_outputs`` wrote into ``out``, in order."""
-    return [Path(out) / name for name in names if (Path(out) / name).is_file()]
-
-
 def run(args: argparse.Namespace) -> int:
-    from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
+    def progress(message: str) -> None:
+        if not args.json:
+            print(f"  .. {message}", file=sys.stderr)
 
-    out = Path(args.out) if args.out else default_out(args.datafile)
     try:
         options = options_from_args(args)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
@@ -221,19 +246,14 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        progress = CheckProgress(tolerances=len(options.tolerances), refit=options.refit,
-                                 enabled=progress_enabled(json_output=args.json))
-        try:
-            result = run_check(data, options, source=str(args.datafile), progress=progress)
-        finally:
-            progress.close()
-        write_outputs(result, out)
+        result = run_check(data, options, source=str(args.datafile), progress=progress)
+        write_outputs(result, args.out)
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
-            OSError) as exc:
+            OSError, SolverRuntimeError) as exc:
         print(f"covaudit check: error: {exc}", file=sys.stderr)
         return 2
     print(json_text(result) if args.json else summary(result))
-    for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
-        print(line, file=sys.stderr if args.json else sys.stdout)
+    for warning in result.warnings if args.json else ():
+        print(f"covaudit check: warning: {warning}", file=sys.stderr)
     return 0 if result.recommended_tolerance is not None else 1

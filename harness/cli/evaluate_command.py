@@ -43,7 +43,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="trace estimator for the score (default: exact for dense, "
                         "hutchpp for compressed solvers)")
     p.add_argument("--probes", type=int, default=64, help="probe vectors for trace estimates")
-    p.add_argument("--seed", type=int, default=0, help="seed of the probe vectors")
+    p.add_argument("--seed", type=int, default=0,
+                   help="seed of the probe vectors and of the solver's randomness (seed "
+                        "index 0, derived as in check and run)")
     p.add_argument("--fisher", action="store_true",
                    help="also the expected Fisher information (O(p n^3) dense)")
     p.add_argument("--no-score", action="store_true", help="skip the score")

@@ -30,6 +30,8 @@ text-align:right}th{background:#eee}td.l,th.l{text-align:left}.ok{background:#df
 <p><b>Data:</b> {{ r.source }} &mdash; {{ r.n }} points ({{ r.n_fit }} fitted, {{ r.n_holdout }}
 held out), {{ r.d }}D, coordinates {{ r.coord_system }}. <b>Model:</b> {{ r.kernel }} kernel,
 {{ r.mean }} mean. <b>Reference:</b> {{ r.reference }}.</p>
+<p><b>Solver under test:</b> {{ r.solver.get("name", "") }}{% if r.solver.get("version") %} {{ r.solver.get("version") }}{% endif %}{% if r.solver.get("origin") %} ({{ r.solver.get("origin") }}){% endif %}, {{ r.solver_seeds | length }} seed(s) of its randomness per tolerance; the worst seed decides.</p>
+{% for w in r.warnings %}<div class="box bad"><b>Warning:</b> {{ w }}</div>{% endfor %}
 <div class="box"><b>Recommendation:</b>
 {% if r.recommended_tolerance is not none %}tolerance {{ fmt(r.recommended_tolerance) }}
 (loosest safe tolerance; log-likelihood {{ fmt(r.speedup) }}x faster than {{ r.speedup_over }}).
@@ -45,13 +47,17 @@ held out), {{ r.d }}D, coordinates {{ r.coord_system }}. <b>Model:</b> {{ r.kern
 <h2>Verdict per tolerance</h2>
 <table><tr><th>tol</th><th class="l">verdict</th>{% for m in metric_names %}<th>{{ m }}{% if limits.get(m) is not none %}<br><span class="info">&le; {{ fmt(limits[m]) }}</span>{% endif %}</th>{% endfor %}<th>seconds</th><th>speed-up</th></tr>
 {% for t in r.tolerances %}<tr class="{{ 'ok' if t.safe else 'bad' }}"><td>{{ fmt(t.tol) }}</td>
-<td class="l">{{ 'safe' if t.safe else 'unsafe' }}</td>
+<td class="l">{{ t.status or ('safe' if t.safe else 'unsafe') }}</td>
 {% if t.error %}<td class="l" colspan="{{ metric_names | length + 2 }}">{{ t.error }}</td>
 {% else %}{% for m in metric_names %}{% set v = t.metric(m) %}<td>{% if v %}{{ fmt(v.value) }}{% if v.uncertainty %} &plusmn; {{ fmt(v.uncertainty) }}{% endif %}{% endif %}</td>{% endfor %}
 <td>{{ fmt(t.seconds) }}</td><td>{{ fmt(t.speedup) }}</td>{% endif %}</tr>{% endfor %}</table>
+<h2>Spread over the solver's seeds</h2>
+<table><tr><th>tol</th><th class="l">metric</th><th>min</th><th>median</th><th>max</th><th>seeds</th></tr>
+{% for t in r.tolerances %}{% for name, sp in t.spread.items() %}<tr><td>{{ fmt(t.tol) }}</td><td class="l">{{ name }}</td><td>{{ fmt(sp.get("min")) }}</td><td>{{ fmt(sp.get("median")) }}</td><td>{{ fmt(sp.get("max")) }}</td><td>{{ sp.get("seeds") }}</td></tr>{% endfor %}{% endfor %}</table>
+<h3>Reasons</h3><ul>{% for t in r.tolerances %}<li>{{ fmt(t.tol) }}: {{ t.status }} &mdash; {{ t.reasons | join("; ") }}</li>{% endfor %}</ul>
 {% if r.refit %}<h2>End-to-end refit at tol {{ fmt(r.refit.tol) }}</h2>
 <p>Largest parameter shift {{ fmt(r.refit.max_shift_se) }} SE; change of the maximized
-log-likelihood {{ fmt(r.refit.loglik_change) }} nat ({{ r.refit.evaluations }} evaluations).</p>{% endif %}
+log-likelihood {{ fmt(r.refit.loglik_change) }} nat ({{ r.refit.evaluations }} evaluations, {{ r.refit.accepted_steps }} step(s) accepted). {{ r.refit.note }}</p>{% endif %}
 <h2>Held-out kriging (reference model)</h2>
 <p>{{ r.holdout.get("points") }} points: RMSE {{ fmt(r.holdout.get("rmse")) }}, mean squared
 z-score {{ fmt(r.holdout.get("mean_z2")) }}, 95% interval coverage {{ fmt(r.holdout.get("coverage95")) }}.</p>

@@ -42,7 +42,8 @@ from harness.report.style import data_uri
 TEMPLATE = "report.html.j2"
 REPORT_FILE = "report.html"
 STATUS_TEXT = {"safe": "\u2714 safe", "unsafe": "\u2718 unsafe",
-               "incomplete": "? incomplete", "failed": "\u2718 no task finished"}
+               "incomplete": "? incomplete", "unresolved": "? unresolved",
+               "failed": "\u2718 no task finished"}
 CASE_TEXT_KEYS = ("case_text", "case_file_text", "case_file")
 TOC = (("summary", "Verdicts"), ("accuracy", "Accuracy"), ("cost", "Time and memory"),
        ("trace", "Trace estimates"), ("failures", "Failures"),
@@ -101,7 +102,7 @@ def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
     for v in vs.verdicts:
         rec = records.setdefault((v.solver, v.tol), {
             "solver": v.solver, "tol": v.tol, "\u2714 safe": 0, "\u2718 unsafe": 0,
-            "? incomplete": 0, "\u2718 no task finished": 0})
+            "? incomplete": 0, "? unresolved": 0, "\u2718 no task finished": 0})
         rec[STATUS_TEXT[v.status]] = int(rec[STATUS_TEXT[v.status]]) + 1
     return pd.DataFrame([records[k] for k in sorted(records)])
 
@@ -109,6 +110,8 @@ def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
 def _evidence_text(e: Any) -> str:
     if not e.available:
         return f"not available ({e.note})" if e.note else "not available"
+    if e.passed is None:
+        return f"unresolved ({e.note})" if e.note else "unresolved"
     verdict = "pass" if e.passed else "FAIL"
     if math.isnan(e.value):
         return f"{verdict} ({e.note})" if e.note else verdict
