@@ -10,9 +10,13 @@ from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
+from harness.cli.flag_types import float_range, int_range
+
 logger = logging.getLogger(__name__)
 
 EXIT_OK, EXIT_FINDING, EXIT_ERROR, EXIT_INTERRUPTED = 0, 1, 2, 130
+#: Most local workers accepted (a typo guard, far above any machine's cores).
+MAX_WORKERS = 4096
 
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
@@ -28,11 +32,14 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("casefile", metavar="CASEFILE", help="case grid (TOML)")
     parser.add_argument("--out", metavar="DIR", default=None,
-                        help="run directory (default: reports/<case name>)")
+                        help="run directory (default: reports/<case name>, the name made "
+                             "one safe folder name; --out is the only way elsewhere)")
     where = parser.add_mutually_exclusive_group()
-    where.add_argument("--workers", type=int, metavar="N", default=None,
-                       help="local worker processes (default: run serially)")
-    where.add_argument("--dask-local", type=int, metavar="N", default=None,
+    where.add_argument("--workers", type=int_range("--workers", 1, MAX_WORKERS), metavar="N",
+                       default=None, help="local worker processes (default: run serially, "
+                                          "one task at a time in a child process)")
+    where.add_argument("--dask-local", type=int_range("--dask-local", 1, MAX_WORKERS),
+                       metavar="N", default=None,
                        help="start a Dask LocalCluster with N single-threaded workers")
     where.add_argument("--scheduler", metavar="ADDR", default=None,
                        help="join the Dask scheduler at ADDR (e.g. tcp://host:8786)")
@@ -41,6 +48,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--only", metavar="KEY-PATTERN", action="append", default=None,
                         help="run only tasks whose key or label matches (shell pattern or "
                              "substring; repeatable)")
+    parser.add_argument("--task-timeout", type=float_range("--task-timeout", 0.0, 7 * 86400.0,
+                                                           low_open=True),
+                        metavar="SECONDS", default=None,
+                        help="stop a task (and record it as timed out) after this many "
+                             "seconds (default: the case file's [timing] timeout, else "
+                             "the cost estimate times a safety factor, at least 300 s)")
 
 
 def _write_report(out: Path) -> Path | None:
@@ -57,7 +70,7 @@ def _write_report(out: Path) -> Path | None:
 def run(args: argparse.Namespace) -> int:
     from harness.grid.cases import CaseFileError, load_case
     from harness.grid.runner import make_backend, run_grid, select_tasks
-    from harness.grid.store import OutputDirectoryError, RunStore
+    from harness.grid.store import OutputDirectoryError, RunStore, safe_path_component
 
     try:
         case = load_case(args.casefile)
@@ -69,7 +82,14 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit run: no task of {args.casefile} matches --only {args.only}",
               file=sys.stderr)
         return EXIT_ERROR
-    out = Path(args.out) if args.out else Path("reports") / case.name
+    if args.out:
+        out = Path(args.out)
+    else:
+        folder = safe_path_component(case.name)
+        out = Path("reports") / folder
+        if folder != case.name:
+            print(f"covaudit run: case name {case.name!r} is not a safe folder name; "
+                  f"writing to {out} (give --out to choose another place)", file=sys.stderr)
     store = RunStore(out)
     try:
         store.prepare()
@@ -89,7 +109,7 @@ def run(args: argparse.Namespace) -> int:
         summary = run_grid(tasks, store, backend, redo_failed=args.redo_failed,
                            progress=progress, case_file=args.casefile,
                            case_text=Path(args.casefile).read_text(encoding="utf-8"),
-                           case_info=case.to_dict())
+                           case_info=case.to_dict(), task_timeout=args.task_timeout)
     except KeyboardInterrupt:
         progress.close()
         print(f"covaudit run: interrupted; finished tasks are kept in {out}; run the same "

@@ -149,6 +149,10 @@ class AuditSettings:
         BLAS and numba threads while timing (accuracy work always uses one).
     exclusive_timing : bool
         Time after the parallel accuracy work, one task at a time.
+    timeout : float or None
+        Seconds one job of a task may run before its worker is stopped and the task
+        recorded as timed out (``[timing] timeout``; None: the runner's default from the
+        cost estimate, ``harness.grid.runner.deadlines``).
     """
 
     trace_method: str = "hutchpp"
@@ -167,6 +171,7 @@ class AuditSettings:
     warmup: int = 1
     timing_threads: int = 1
     exclusive_timing: bool = True
+    timeout: float | None = None
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -199,9 +204,6 @@ class Task(AuditSettings):
         Compression tolerance (None for exact solvers such as ``dense``).
     seed : int
     (the settings of ``AuditSettings``)
-    timeout : float or None
-        Seconds one job of this task may run before its worker is stopped and the task
-        recorded as timed out (None: the runner's default from the cost estimate).
     """
 
     case: str
@@ -218,7 +220,6 @@ class Task(AuditSettings):
     solver_options: Mapping[str, Any]
     tol: float | None
     seed: int
-    timeout: float | None = None
 
     # -- identity -------------------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:

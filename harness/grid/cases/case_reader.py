@@ -25,7 +25,8 @@ The layout (all tables optional except ``pointsets``, ``kernels`` and ``solvers`
                  max_n = 32768 (sizes above it are left out of the grid for this solver)
     [trace]   method = "hutchpp", probes = 32
     [metrics] compute = [...], holdout = 64, perturbation = 0.05, power_iterations = 20
-    [timing]  enabled = true, repeats = 3, warmup = 1, threads = 1, exclusive = true
+    [timing]  enabled = true, repeats = 3, warmup = 1, threads = 1, exclusive = true,
+              timeout = 600.0   # seconds per task job (default: from the cost estimate)
     [reference] order = ["dense", "statespace", "kronecker", "ladder"],
                 ladder_factor = 100, sample_tol = 1e-10
     [budget]  memory = "4 GiB", time = 600
@@ -34,6 +35,7 @@ The layout (all tables optional except ``pointsets``, ``kernels`` and ``solvers`
 from __future__ import annotations
 
 import inspect
+import math
 import re
 import tomllib
 from collections.abc import Callable, Mapping
@@ -148,12 +150,15 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
                                       minimum=1)
 
     timing = _subtable(check, doc, "timing", ("enabled", "repeats", "warmup", "threads",
-                                              "exclusive"))
+                                              "exclusive", "timeout"))
     timing_on = check.take_bool(timing, "enabled", "timing", default=True)
     repeats = check.take_int(timing, "repeats", "timing", default=3, minimum=1)
     warmup = check.take_int(timing, "warmup", "timing", default=1, minimum=0)
     threads = check.take_int(timing, "threads", "timing", default=1, minimum=1)
     exclusive = check.take_bool(timing, "exclusive", "timing", default=True)
+    timeout = check.take_number(timing, "timeout", "timing", default=None)
+    if timeout is not None and not (math.isfinite(timeout) and 0 < timeout <= 7 * 86400):
+        check.problem("timing.timeout", f"expected seconds in (0, 604800], got {timeout!r}")
 
     reference = _subtable(check, doc, "reference", ("order", "ladder_factor", "sample_tol"))
     order = check.take_list(reference, "order", "reference", item=check.choice(REFERENCE_KINDS),
@@ -183,6 +188,7 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
         ladder_factor=float(ladder_factor or 100.0), sample_tol=float(sample_tol or 1e-10),
         memory_budget=memory_budget, time_budget=time_budget, timing=timing_on,
         repeats=repeats, warmup=warmup, timing_threads=threads, exclusive_timing=exclusive,
+        timeout=timeout,
     )
 
 

@@ -5,6 +5,7 @@ from harness.grid.store.run_directory import (
     CorruptRecordWarning,
     OutputDirectoryError,
     RunStore,
+    safe_path_component,
 )
 from harness.grid.store.run_lock import LOCK_FILE, RunDirectoryLocked, RunLock
 from harness.grid.store.task_records import (
@@ -31,4 +32,5 @@ __all__ = [
     "is_complete",
     "load_record",
     "new_record",
+    "safe_path_component",
 ]

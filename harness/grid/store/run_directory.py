@@ -31,6 +31,33 @@ RUN_SCHEMA_VERSION = 1
 MIN_FREE_BYTES = 16 * 2**20
 
 
+#: Characters kept in a directory name made from a case name; others become "_".
+_SAFE_CHARACTERS = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ"
+                             "0123456789._-+")
+#: Longest directory name made from a case name (common file-system limits are 255 bytes).
+MAX_COMPONENT_LENGTH = 100
+
+
+def safe_path_component(name: str, *, fallback: str = "run") -> str:
+    """``name`` as one safe directory name: no separators, no ``..``, no leading dot.
+
+    Every character outside letters, digits and ``._-+`` becomes ``_``, leading and
+    trailing dots, dashes and underscores are trimmed and any ``..`` left becomes ``_``
+    (so ``../../x`` becomes ``x`` and an absolute path loses its root); the result never
+    starts with a dot, is at most
+    ``MAX_COMPONENT_LENGTH`` characters, and is ``fallback`` when nothing is left.
+
+    >>> safe_path_component("../../etc/passwd")
+    'etc_passwd'
+    """
+    text = "".join(c if c in _SAFE_CHARACTERS else "_" for c in str(name))
+    text = text.strip("._-")
+    while ".." in text:
+        text = text.replace("..", "_")
+    text = text[:MAX_COMPONENT_LENGTH].strip("._-")
+    return text or fallback
+
+
 class CorruptRecordWarning(UserWarning):
     """A task file in a run directory could not be read and was skipped."""
 
