@@ -13,7 +13,16 @@ import numpy as np
 
 from harness.audit.named_evaluation import EvaluationError, SolverOptions, evaluate_with_solver
 from harness.check.datafile import DataFileError, load_observations
+from harness.cli.flag_types import (
+    float_range,
+    int_range,
+    nonnegative_int,
+    positive_int,
+    tolerance,
+)
 from harness.cli.params import ParamSyntaxError, kernel_from_options
+from harness.geometry.spread import spread_warnings
+from harness.grid.runner.child_call import ChildCrashed, ChildTimeout, call_in_child
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
@@ -37,19 +46,28 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="dense, statespace, kronecker, hodlr, or package.module:factory")
     p.add_argument("--separable", action="store_true",
                    help="product of 1D kernels along the axes (needed by --solver kronecker)")
-    p.add_argument("--tol", type=float, default=1e-8, help="compression tolerance (hodlr, plugins)")
-    p.add_argument("--leaf-size", type=int, default=128, help="cluster-tree leaf size (hodlr)")
+    p.add_argument("--tol", type=tolerance("--tol"), default=1e-8,
+                   help="compression tolerance (hodlr, plugins)")
+    p.add_argument("--leaf-size", type=int_range("--leaf-size", 2, 2**20), default=128,
+                   help="cluster-tree leaf size (hodlr)")
     p.add_argument("--trace", choices=("exact", "hutchinson", "hutchpp"), default=None,
                    help="trace estimator for the score (default: exact for dense, "
                         "hutchpp for compressed solvers)")
-    p.add_argument("--probes", type=int, default=64, help="probe vectors for trace estimates")
-    p.add_argument("--seed", type=int, default=0,
+    p.add_argument("--probes", type=positive_int("--probes"), default=64,
+                   help="probe vectors for trace estimates")
+    p.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
                    help="seed of the probe vectors and of the solver's randomness (seed "
                         "index 0, derived as in check and run)")
     p.add_argument("--fisher", action="store_true",
                    help="also the expected Fisher information (O(p n^3) dense)")
     p.add_argument("--no-score", action="store_true", help="skip the score")
-    p.add_argument("--memory-budget", type=float, default=None, metavar="GIB",
+    p.add_argument("--task-timeout", type=float_range("--task-timeout", 0.0, 7 * 86400.0,
+                                                      low_open=True), default=None,
+                   metavar="SECONDS", help="stop a solver plugin after this many seconds "
+                                           "(plugins run in a child process; default: none)")
+    p.add_argument("--memory-budget", type=float_range("--memory-budget", 0.0, 1e6,
+                                                       low_open=True),
+                   default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB (default: 60%% of available)")
     p.add_argument("--drop-missing", action="store_true", help="drop rows with NaN/inf")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
@@ -96,16 +114,28 @@ def run(args: argparse.Namespace) -> int:
         obs = load_observations(args.datafile, coords=coords, value=args.value,
                                 drop_missing=args.drop_missing)
         kernel = kernel_from_options(args.kernel, args.param, dimension=obs.points.shape[1])
+        for warning in spread_warnings(obs.points, kernel.lengthscale):
+            print(f"covaudit evaluate: warning: {warning}", file=sys.stderr)
         options = SolverOptions(
             tol=args.tol, leaf_size=args.leaf_size, trace=args.trace, probes=args.probes,
             seed=args.seed, separable=args.separable,
             memory_budget=None if args.memory_budget is None
             else int(args.memory_budget * 2**30),
         )
-        outcome = evaluate_with_solver(args.solver, obs.points, obs.values, kernel,
-                                       mean=args.mean, reml=args.reml,
-                                       score=not args.no_score, fisher=args.fisher,
-                                       options=options)
+        if ":" in args.solver:  # a plugin: in a child process, so a crash is reported
+            outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
+                                    kernel, mean=args.mean, reml=args.reml,
+                                    score=not args.no_score, fisher=args.fisher,
+                                    options=options, timeout=args.task_timeout,
+                                    what=f"the solver plugin {args.solver!r}")
+        else:
+            outcome = evaluate_with_solver(args.solver, obs.points, obs.values, kernel,
+                                           mean=args.mean, reml=args.reml,
+                                           score=not args.no_score, fisher=args.fisher,
+                                           options=options)
+    except (ChildCrashed, ChildTimeout) as exc:
+        print(f"covaudit evaluate: error: {exc}", file=sys.stderr)
+        return 2
     except (DataFileError, KernelParameterError, ParamSyntaxError, EvaluationError,
             MemoryError, np.linalg.LinAlgError, ValueError) as exc:
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)

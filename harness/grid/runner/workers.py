@@ -50,7 +50,7 @@ WATCHDOG_SECONDS = 1.0
 _PR_SET_PDEATHSIG = 1
 
 
-def _die_with_parent(parent: int) -> None:
+def die_with_parent(parent: int) -> None:
     """Ask for SIGKILL when the parent dies (Linux) and start the orphan watchdog."""
     if sys.platform.startswith("linux"):
         with contextlib.suppress(OSError, AttributeError):
@@ -71,7 +71,7 @@ def _die_with_parent(parent: int) -> None:
 def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
     """Body of a worker process: receive job dicts, send outcomes, until None or EOF."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    _die_with_parent(parent)
+    die_with_parent(parent)
     fd = os.open(stderr_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
     os.dup2(fd, 2)
     os.close(fd)
@@ -88,6 +88,18 @@ def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
         outcome = execute(job)
         sys.stderr.flush()
         conn.send(outcome)
+
+
+#: Lines of faulthandler's report that say nothing about the task (module lists and the
+#: frames of the worker machinery itself).
+_NOISE = ("Extension modules:", "multiprocessing/", "harness/grid/runner/", "<string>\", line")
+
+
+def stderr_tail(text: str, *, lines: int = STDERR_TAIL_LINES) -> list[str]:
+    """The last ``lines`` informative lines of a dead worker's standard error."""
+    kept = [line.rstrip() for line in text.splitlines()
+            if line.strip() and not any(noise in line for noise in _NOISE)]
+    return kept[-lines:]
 
 
 def signal_description(exitcode: int | None) -> str:
@@ -190,7 +202,7 @@ class WorkerPool:
     def _crash(self, worker: _Worker, job: Job) -> dict[str, Any]:
         worker.process.join(timeout=5)
         text = self._pass_on(worker)
-        lines = [line for line in text.splitlines() if line.strip()][-STDERR_TAIL_LINES:]
+        lines = stderr_tail(text)
         how = signal_description(worker.process.exitcode)
         message = (f"the worker process running this task {how}; a crashing plugin "
                    "(os.abort, a segfault), os._exit or the out-of-memory killer are the "
