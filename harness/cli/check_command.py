@@ -30,6 +30,13 @@ from harness.check.check_records import CheckResult
 from harness.check.datafile import DataFileError, load_observations
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES
+from harness.cli.flag_types import (
+    float_range,
+    int_range,
+    nonnegative_int,
+    positive_float,
+    positive_int,
+)
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.model import MEAN_MODELS
 from harness.model.kernels import KERNELS, KernelParameterError
@@ -63,39 +70,48 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="comma-separated compression tolerances")
     p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
                    help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
-    p.add_argument("--holdout", type=float, default=0.1,
+    p.add_argument("--holdout",
+                   type=float_range("--holdout", 0.0, 1.0, low_open=True, high_open=True),
+                   default=0.1,
                    help="fraction held out for kriging (default 0.1)")
     p.add_argument("--drop-missing", action="store_true", help="drop rows with NaN/inf")
     p.add_argument("--average-duplicates", action="store_true",
                    help="average values at repeated locations")
-    p.add_argument("--probes", type=int, default=16,
+    p.add_argument("--probes", type=positive_int("--probes"), default=16,
                    help="probe vectors of the score-difference estimate")
-    p.add_argument("--dense-fit-max-n", type=int, default=None,
+    p.add_argument("--dense-fit-max-n", type=positive_int("--dense-fit-max-n"), default=None,
                    help="optional cap on n for the dense fit (default: the memory budget "
                         "and --fit-time-budget decide)")
-    p.add_argument("--fit-time-budget", type=float, default=DEFAULT_FIT_TIME_BUDGET,
+    p.add_argument("--fit-time-budget", type=positive_float("--fit-time-budget"),
+                   default=DEFAULT_FIT_TIME_BUDGET,
                    metavar="SECONDS",
                    help="seconds the dense exact fit may be estimated to take (default "
                         f"{DEFAULT_FIT_TIME_BUDGET:g}); beyond it the compressed fit is used")
     p.add_argument("--solver", default="hodlr",
                    help="solver under test: hodlr, an entry-point name, or "
                         "package.module:factory (same registry as run)")
-    p.add_argument("--solver-seeds", type=int, default=DEFAULT_SOLVER_SEEDS, metavar="K",
+    p.add_argument("--solver-seeds", type=int_range("--solver-seeds", 1, 1000),
+                   default=DEFAULT_SOLVER_SEEDS, metavar="K",
                    help="seeds of the solver's randomness per tolerance; the worst decides "
                         f"(default {DEFAULT_SOLVER_SEEDS})")
     p.add_argument("--reference", choices=REFERENCE_CHOICES, default="auto",
                    help="auto (dense within the memory budget, operator beyond), dense, "
                         "operator, or ladder (extra evidence only)")
-    p.add_argument("--ladder-factor", type=float, default=LADDER_FACTOR,
+    p.add_argument("--ladder-factor",
+                   type=float_range("--ladder-factor", 1.0, None, low_open=True),
+                   default=LADDER_FACTOR,
                    help=f"ladder reference: the solver at tol / factor (default "
                         f"{LADDER_FACTOR:g})")
-    p.add_argument("--memory-budget", type=float, default=None, metavar="GIB",
+    p.add_argument("--memory-budget",
+                   type=float_range("--memory-budget", 0.0, 1e6, low_open=True),
+                   default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
     p.add_argument("--out", default="reports/check", help="folder for check.json and "
                                                           "check.html (default reports/check)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
-    p.add_argument("--seed", type=int, default=0, help="seed of holdout, pilot and probes")
+    p.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
+                   help="seed of holdout, pilot and probes")
 
 
 def _tolerances(text: str) -> tuple[float, ...]:

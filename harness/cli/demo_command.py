@@ -19,6 +19,7 @@ from harness.check import CheckOptions, run_check, validate
 from harness.check.datafile import observations_from_arrays
 from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_demo
 from harness.cli.check_command import summary, write_outputs
+from harness.cli.flag_types import int_range
 
 DEMO_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
 
@@ -29,7 +30,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
         description="Generate a deterministic, fictional soil-moisture dataset with a known "
                     "covariance model and run covaudit check on it.")
     p.add_argument("--out", default="reports", help="output folder (default reports/)")
-    p.add_argument("--n", type=int, default=DEMO_N, help=f"points (default {DEMO_N})")
+    p.add_argument("--n", type=int_range("--n", 10, 10**7), default=DEMO_N,
+                   help=f"points (default {DEMO_N})")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -6,6 +6,7 @@ import argparse
 import sys
 
 from harness.analysis.load import RunDirError
+from harness.cli.flag_types import float_range, nonnegative_int
 from harness.report.export import export_methods
 
 EXIT_OK, EXIT_ERROR = 0, 2
@@ -18,9 +19,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
                     "as PDF and SVG into DIR.")
     parser.add_argument("run_dir", metavar="RUNDIR", help="run directory")
     parser.add_argument("--to", required=True, metavar="DIR", help="output directory")
-    parser.add_argument("--seed", type=int, default=0,
+    parser.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
                         help="seed of the bootstrap intervals (default 0)")
-    parser.add_argument("--level", type=float, default=0.95,
+    parser.add_argument("--level",
+                        type=float_range("--level", 0.0, 1.0, low_open=True, high_open=True),
+                        default=0.95,
                         help="confidence level of the intervals (default 0.95)")
     return parser
 

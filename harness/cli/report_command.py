@@ -7,6 +7,7 @@ import sys
 
 from harness.analysis.load import RunDirError, load_run
 from harness.audit.verdict import ThresholdError, Thresholds
+from harness.cli.flag_types import float_range, positive_float
 from harness.report import write_report
 from harness.report.run_report import thresholds_for
 
@@ -19,13 +20,14 @@ def add_threshold_options(parser: argparse.ArgumentParser) -> None:
     group.add_argument("--verdict-from", metavar="CASE.toml",
                        help="read the limits from this case file's [verdict] table "
                             "(default: the run's own case file)")
-    group.add_argument("--loglik-nats", type=float, metavar="X",
+    group.add_argument("--loglik-nats", type=positive_float("--loglik-nats"), metavar="X",
                        help="largest |log-likelihood error| in nats (default 0.1)")
-    group.add_argument("--param-shift-se", type=float, metavar="X",
+    group.add_argument("--param-shift-se", type=positive_float("--param-shift-se"), metavar="X",
                        help="largest implied parameter shift in SE (default 0.1)")
-    group.add_argument("--kriging-mean-sd", type=float, metavar="X",
+    group.add_argument("--kriging-mean-sd", type=positive_float("--kriging-mean-sd"), metavar="X",
                        help="largest kriging mean error in predictive SD (default 0.05)")
-    group.add_argument("--trace-min-fraction", type=float, metavar="X",
+    group.add_argument("--trace-min-fraction",
+                       type=float_range("--trace-min-fraction", 0.0, 1.0), metavar="X",
                        help="smallest share of trace z-scores within +-2 (default 0.8)")
 
 
