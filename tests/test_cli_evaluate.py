@@ -189,3 +189,71 @@ def test_hodlr_and_plugin_through_the_cli(datafile, capsys, monkeypatch):
     assert any("supplied generically" in note for note in plugin["notes"])
     code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "nosuch"])
     assert code == 2 and "known solvers" in err
+
+
+# -- --solver operator (the exact-operator reference) ---------------------------------------
+
+OPERATOR_KEYS = ("loglik", "loglik_se", "logdet", "logdet_se", "quadratic", "quadratic_bound",
+                 "score", "score_se", "iterations", "products", "seconds")
+
+
+def test_operator_json_keys_and_agreement_with_dense(datafile, capsys):
+    # Source: the dense reference through the same CLI (certified Cholesky).
+    path, _ = datafile
+    assert main(["evaluate", str(path), *BASE, "--json"]) == 0
+    dense = json.loads(capsys.readouterr().out)
+    assert main(["evaluate", str(path), *BASE, "--json", "--solver", "operator",
+                 "--preconditioner-tol", "1e-6", "--probes", "32"]) == 0
+    out = json.loads(capsys.readouterr().out)
+    for key in OPERATOR_KEYS:
+        assert key in out, key
+    assert out["solver"] == "operator" and out["converged"] is True
+    assert abs(out["loglik"] - dense["loglik"]) <= max(3 * out["loglik_se"], 1e-6)
+    assert abs(out["quadratic"] - dense["quadratic"]) <= out["quadratic_bound"] + 1e-10 * abs(
+        dense["quadratic"])
+    assert set(out["score_se"]) == set(dense["score"])
+    for name, value in out["score"].items():
+        assert abs(value - dense["score"][name]) <= 4 * out["score_se"][name] + 1e-6
+    assert out["preconditioner"]["name"] == "hodlr" and out["bound_kind"] == "residual/nugget"
+
+
+def test_operator_readable_summary_and_preconditioner_spec(datafile, capsys):
+    path, _ = datafile
+    assert main(["evaluate", str(path), *BASE, "--solver", "operator", "--preconditioner",
+                 "dense"]) == 0
+    out = capsys.readouterr().out
+    assert "SE" in out and "quadratic bound" in out and "converged True" in out
+
+
+def test_operator_unresolved_exit_code_and_message(datafile, capsys):
+    # An SE target that cannot be reached within the probe budget: exit 1, "unresolved".
+    path, _ = datafile
+    code = main(["evaluate", str(path), *BASE, "--json", "--solver", "operator",
+                 "--preconditioner-tol", "1e-2", "--probes", "8", "--se-target", "1e-9"])
+    captured = capsys.readouterr()
+    assert code == 1 and "unresolved" in captured.err and "se_target" in captured.err
+    assert json.loads(captured.out)["converged"] is False
+
+
+def test_operator_option_errors(datafile, capsys):
+    path, _ = datafile
+    code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "operator",
+                                "--fisher"])
+    assert code == 2 and "--fisher" in err
+    code, err = _error(capsys, ["evaluate", str(path), *BASE, "--solver", "operator",
+                                "--preconditioner", "nosuchsolver"])
+    assert code == 2 and "--preconditioner" in err and "known solvers" in err
+    code, err = _error(capsys, ["evaluate", str(path), *BASE, "--dask-local", "2"])
+    assert code == 2 and "--solver operator" in err
+
+
+def test_operator_on_a_local_dask_cluster(datafile, capsys):
+    path, _ = datafile
+    assert main(["evaluate", str(path), *BASE, "--json", "--solver", "operator",
+                 "--no-score"]) == 0
+    serial = json.loads(capsys.readouterr().out)
+    assert main(["evaluate", str(path), *BASE, "--json", "--solver", "operator",
+                 "--no-score", "--dask-local", "2"]) == 0
+    remote = json.loads(capsys.readouterr().out)
+    assert remote["dask"] == "local"
+    assert remote["loglik"] == pytest.approx(serial["loglik"], rel=1e-12)

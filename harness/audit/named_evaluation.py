@@ -2,13 +2,16 @@
 
 Exact references (``dense``, ``statespace``, ``kronecker``) return their own exact
 record; compressed solvers and plugins go through the generic likelihood code with a
-trace estimator. Both end in the same ``SolverOutcome``.
+trace estimator. Both end in the same ``SolverOutcome``. ``operator`` is the
+exact-operator reference (``harness.references.operator``), preconditioned by a solver
+resolved by name (``build_preconditioner``); its values carry SEs and bounds in ``extra``.
 """
 
 from __future__ import annotations
 
 import time
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -27,6 +30,7 @@ from harness.references import (
 )
 from harness.solvers.fallback import SolverOutputError, SolverProtocolError
 from harness.solvers.plugins import SolverLoadError
+from harness.solvers.protocol import Factorization
 from harness.solvers.registry import SolverRuntimeError, resolve_solver
 
 
@@ -45,6 +49,11 @@ class SolverOptions:
     seed: int = 0
     separable: bool = False
     memory_budget: int | None = None
+    preconditioner: str = "hodlr"
+    preconditioner_tol: float = 1e-8
+    se_target: float = 0.02
+    dask_local: int | None = None
+    scheduler: str | None = None
 
 
 @dataclass(frozen=True)
@@ -98,6 +107,9 @@ def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel:
         reference = KroneckerReference(points, SeparableKernel(kernel))
         return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score,
                                                           fisher=fisher))
+    if solver == "operator":
+        return _operator(points, y, kernel, mean=mean, reml=reml, score=score, fisher=fisher,
+                         options=options)
     return _compressed(solver, points, y, kernel, mean=mean, reml=reml, score=score,
                        fisher=fisher, options=options)
 
@@ -146,3 +158,85 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
                          logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta,
                          score=ev.score, fisher=ev.fisher, certificate=None, seconds=seconds,
                          notes=ev.notes, extra=extra)
+
+
+def build_preconditioner(name: str, points: np.ndarray, kernel: Kernel, *, tol: float,
+                         seed: int = 0, leaf_size: int = 128) -> Factorization:
+    """Factor Sigma with the solver ``name`` (``resolve_solver``) for use as the operator
+    reference's preconditioner; its seed is derived as for the solver under test."""
+    try:
+        resolved = resolve_solver(name)
+    except SolverLoadError as exc:
+        raise EvaluationError(f"--preconditioner: {exc}") from exc
+    factor_options: dict[str, Any] = {"leaf_size": leaf_size} if resolved.name == "hodlr" else {}
+    factor_options = seeded_options(resolved.factory, factor_options, solver_seed(seed, 0))
+    try:
+        return resolved.factorize(points, kernel, kernel.theta, tol=tol, **factor_options)
+    except (SolverRuntimeError, SolverOutputError, SolverProtocolError) as exc:
+        raise EvaluationError(f"--preconditioner {name!r}: {exc}") from exc
+
+
+@contextmanager
+def dask_client(*, dask_local: int | None, scheduler: str | None) -> Iterator[object | None]:
+    """A Dask client for ``--dask-local N`` (a LocalCluster) or ``--scheduler ADDR``."""
+    if dask_local is not None and scheduler is not None:
+        raise EvaluationError("choose one of --dask-local and --scheduler")
+    if dask_local is None and scheduler is None:
+        yield None
+        return
+    try:
+        from dask.distributed import Client, LocalCluster
+    except ImportError as exc:
+        raise EvaluationError("--dask-local/--scheduler need dask[distributed] "
+                              "(pip install 'covaudit[dask]')") from exc
+    if scheduler is not None:
+        with Client(scheduler) as client:
+            yield client
+        return
+    with LocalCluster(n_workers=int(dask_local), threads_per_worker=1,  # type: ignore[arg-type]
+                      dashboard_address=None) as cluster, Client(cluster) as client:
+        yield client
+
+
+def _operator(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str, reml: bool,
+              score: bool, fisher: bool, options: SolverOptions) -> SolverOutcome:
+    """The exact-operator reference, preconditioned by ``options.preconditioner``."""
+    from harness.references.operator import operator_evaluate
+
+    if fisher:
+        raise EvaluationError("--fisher is not available with --solver operator "
+                              "(it would need O(p^2) probe solves); use --solver dense at "
+                              "moderate n")
+    start = time.perf_counter()
+    pre = build_preconditioner(options.preconditioner, points, kernel,
+                               tol=options.preconditioner_tol, seed=options.seed,
+                               leaf_size=options.leaf_size)
+    seconds_pre = time.perf_counter() - start
+    rng = np.random.default_rng(options.seed).spawn(2)[1]
+    with dask_client(dask_local=options.dask_local, scheduler=options.scheduler) as client:
+        ev = operator_evaluate(points, y, kernel, mean=mean, reml=reml, preconditioner=pre,
+                               rng=rng, se_target=options.se_target,
+                               max_probes=options.probes, score=score,
+                               memory_budget=options.memory_budget, client=client)
+    names = kernel.param_names
+
+    def by_name(values: np.ndarray | None) -> dict[str, float] | None:
+        return None if values is None else dict(zip(names, map(float, values), strict=True))
+
+    extra = {
+        "loglik_se": ev.loglik_se, "logdet_se": ev.logdet_se,
+        "quadratic_bound": ev.quadratic_bound, "bound_kind": ev.bound_kind,
+        "score_se": by_name(ev.score_se), "trace_terms": by_name(ev.trace_terms),
+        "trace_se": by_name(ev.trace_se), "iterations": ev.iterations,
+        "products": ev.products, "probes": ev.probes, "converged": ev.converged,
+        "se_target": options.se_target,
+        "preconditioner": {"name": options.preconditioner, "tol": options.preconditioner_tol,
+                           "logdet": ev.preconditioner_logdet,
+                           "nbytes": int(pre.nbytes)},
+        "dask": ("local" if options.dask_local is not None else options.scheduler),
+    }
+    seconds = {"preconditioner": seconds_pre, **ev.phases}
+    return SolverOutcome(solver="operator", reference="operator", loglik=ev.loglik,
+                         logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta,
+                         score=ev.score, fisher=None, certificate=None, seconds=seconds,
+                         notes=ev.messages, extra=extra)

@@ -43,7 +43,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--mean", choices=MEAN_MODELS, default="zero", help="mean model (GLS)")
     p.add_argument("--reml", action="store_true", help="restricted (REML) likelihood")
     p.add_argument("--solver", default="dense",
-                   help="dense, statespace, kronecker, hodlr, or package.module:factory")
+                   help="dense, statespace, kronecker, hodlr, operator (exact-operator "
+                        "reference with SEs; exit code 1 when it does not converge), or "
+                        "package.module:factory")
     p.add_argument("--separable", action="store_true",
                    help="product of 1D kernels along the axes (needed by --solver kronecker)")
     p.add_argument("--tol", type=tolerance("--tol"), default=1e-8,
@@ -54,7 +56,25 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="trace estimator for the score (default: exact for dense, "
                         "hutchpp for compressed solvers)")
     p.add_argument("--probes", type=positive_int("--probes"), default=64,
-                   help="probe vectors for trace estimates")
+                   help="probe vectors for trace estimates (--solver operator: the probe "
+                        "budget for log det and traces)")
+    p.add_argument("--preconditioner", default="hodlr", metavar="NAME|pkg.mod:factory",
+                   help="--solver operator: the factorization that preconditions it "
+                        "(default: the built-in hodlr solver)")
+    p.add_argument("--preconditioner-tol", type=tolerance("--preconditioner-tol"),
+                   default=1e-8, metavar="T",
+                   help="--solver operator: the preconditioner's tolerance (default 1e-8)")
+    p.add_argument("--se-target", type=float_range("--se-target", 0.0, 1e6, low_open=True),
+                   default=0.02, metavar="NATS",
+                   help="--solver operator: draw probes until the log-likelihood SE is at "
+                        "most this (default 0.02 nat)")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--dask-local", type=positive_int("--dask-local"), metavar="N",
+                       default=None,
+                       help="--solver operator: products on a local Dask cluster of N workers")
+    where.add_argument("--scheduler", metavar="ADDR", default=None,
+                       help="--solver operator: products on the Dask scheduler at ADDR "
+                            "(e.g. tcp://host:8786)")
     p.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
                    help="seed of the probe vectors and of the solver's randomness (seed "
                         "index 0, derived as in check and run)")
@@ -90,9 +110,19 @@ def _summary(result: dict[str, Any]) -> str:
         f"  logdet      {result['logdet']:.10g}",
         f"  quadratic   {result['quadratic']:.10g}",
     ]
+    if result.get("loglik_se") is not None:
+        lines.append(f"  SE          loglik {result['loglik_se']:.3g}, logdet "
+                     f"{result['logdet_se']:.3g}; quadratic bound "
+                     f"{result['quadratic_bound']:.3g} ({result['bound_kind']})")
+        lines.append(f"  work        {result['iterations']} iterations, {result['products']} "
+                     f"exact column products, {result['probes']} probes, converged "
+                     f"{result['converged']}")
     if result["score"]:
         lines.append("  score       " + ", ".join(f"{k} = {v:.6g}"
                                                   for k, v in result["score"].items()))
+    if result.get("score_se"):
+        lines.append("  score SE    " + ", ".join(f"{k} = {v:.3g}"
+                                                  for k, v in result["score_se"].items()))
     if result.get("se"):
         lines.append("  SE (log)    " + ", ".join(f"{k} = {v:.4g}"
                                                   for k, v in result["se"].items()))
@@ -121,7 +151,12 @@ def run(args: argparse.Namespace) -> int:
             seed=args.seed, separable=args.separable,
             memory_budget=None if args.memory_budget is None
             else int(args.memory_budget * 2**30),
+            preconditioner=args.preconditioner, preconditioner_tol=args.preconditioner_tol,
+            se_target=args.se_target, dask_local=args.dask_local, scheduler=args.scheduler,
         )
+        if args.solver != "operator" and (args.dask_local is not None
+                                          or args.scheduler is not None):
+            raise EvaluationError("--dask-local and --scheduler apply to --solver operator")
         if ":" in args.solver:  # a plugin: in a child process, so a crash is reported
             outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
                                     kernel, mean=args.mean, reml=args.reml,
@@ -164,4 +199,8 @@ def run(args: argparse.Namespace) -> int:
         print(json.dumps(to_jsonable(result), indent=2, allow_nan=False))
     else:
         print(_summary(result))
+    if result.get("converged") is False:
+        for note in outcome.notes:
+            print(f"covaudit evaluate: unresolved: {note}", file=sys.stderr)
+        return 1
     return 0
