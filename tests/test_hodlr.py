@@ -276,3 +276,117 @@ def test_split_and_merge_meets_tolerance(monkeypatch: pytest.MonkeyPatch, tol: f
     s = np.linalg.svd(block, compute_uv=False)
     tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])
     assert low.rank <= 1.5 * np.count_nonzero(tail > tol * np.linalg.norm(s)) + 5
+
+
+# -- the tolerance controls the likelihood error (issue 11) ------------------------------
+
+def _median_loglik_errors(n: int, tols: tuple[float, ...], seeds: int
+                          ) -> dict[str, np.ndarray]:
+    """Median over ACA seeds of |L_hodlr - L_dense| for two data vectors on one problem.
+
+    The dense side is the certified LAPACK Cholesky of ``harness.references``
+    (independent code: assembled entry by entry, factored by dpotrf, DPOT01-style
+    certificate); L = -1/2 y'S^-1 y - 1/2 log det S - n/2 log 2 pi (Rasmussen and
+    Williams, *Gaussian Processes for Machine Learning*, 2006, eq. 2.30).
+    """
+    from harness.references import DenseCholesky
+
+    kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
+    rng = np.random.default_rng(0)
+    points = uniform(n, 2, rng=rng)
+    dense = DenseCholesky(points, kernel)
+    data = {"white noise": rng.standard_normal(n),  # hardest case for the quadratic term
+            "smooth field": dense.apply_sqrt(rng.standard_normal(n))}  # a draw from the model
+
+    def loglik(quad: float, logdet: float) -> float:
+        return -0.5 * quad - 0.5 * logdet - 0.5 * n * np.log(2 * np.pi)
+
+    exact = {k: loglik(float(y @ dense.solve(y)), dense.logdet()) for k, y in data.items()}
+    errs: dict[str, list[list[float]]] = {k: [] for k in data}
+    for tol in tols:
+        rows: dict[str, list[float]] = {k: [] for k in data}
+        for seed in range(seeds):
+            f = factorize(points, kernel, None, tol=tol, rng=seed)
+            for k, y in data.items():
+                rows[k].append(abs(loglik(float(y @ f.solve(y)), f.logdet()) - exact[k]))
+        for k in data:
+            errs[k].append(rows[k])
+    return {k: np.median(np.array(v), axis=1) for k, v in errs.items()}
+
+
+def _check_monotone(med: dict[str, np.ndarray], tols: tuple[float, ...]) -> None:
+    for name, e in med.items():
+        assert np.all(np.isfinite(e)) and e.size == len(tols), (name, e)
+        # strictly smaller median error at every tighter tolerance, by at least 3x per
+        # factor 100 in tol (the error is linear in the compression error: 100x is typical)
+        assert np.all(e[1:] < e[:-1] / 3.0), f"{name}: median |dL| {e} at tol {tols}"
+
+
+def test_loglik_error_follows_tolerance_down_to_1e12() -> None:
+    # n = 3,072 (two levels of large-block splitting still run), 3 seeds; ~15 s
+    tols = (1e-4, 1e-6, 1e-8, 1e-10, 1e-12)
+    med = _median_loglik_errors(3072, tols, seeds=3)
+    _check_monotone(med, tols)
+    # at 1e-12 the whole error is far below a nat on both data vectors (measured
+    # 6.5e-7 and 8e-10 nat at n = 4,096; the ceilings leave 10x room)
+    assert med["white noise"][-1] < 1e-5, med
+    assert med["smooth field"][-1] < 1e-7, med
+
+
+@pytest.mark.slow
+def test_loglik_error_follows_tolerance_n16000_five_seeds(request: pytest.FixtureRequest
+                                                          ) -> None:
+    # the issue's setting: n = 16,000, 5 ACA seeds, white noise and a smooth field
+    # (about 6 minutes on 2 loaded cores; runs only when selected with -m slow)
+    if "slow" not in (request.config.getoption("markexpr") or ""):
+        pytest.skip("n = 16,000 x 5 seeds: select with -m slow")
+    tols = (1e-6, 1e-8, 1e-10)
+    _check_monotone(_median_loglik_errors(16000, tols, seeds=5), tols)
+
+
+def test_factorization_is_exact_for_the_compressed_matrix() -> None:
+    # The likelihood error is the compression's alone: W W' reproduces the compressed
+    # Sigma~ (from its own blocks) to rounding. Iterative refinement on Sigma~ gives
+    # Sigma~^-1 y to working precision (Higham, *Accuracy and Stability of Numerical
+    # Algorithms*, 2002, sec. 12.1); the factor's own solve must agree with it.
+    kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
+    rng = np.random.default_rng(3)
+    points = uniform(4096, 2, rng=rng)
+    y = rng.standard_normal(4096)
+    for tol in (1e-6, 1e-10):
+        f = factorize(points, kernel, None, tol=tol, rng=0)
+        x = f.solve(y)
+        refined = x.copy()
+        for _ in range(3):
+            refined += f.solve(y - f.matvec(refined))
+        quad = float(y @ refined)
+        assert abs(float(y @ x) - quad) <= 1e-11 * abs(quad), (tol, float(y @ x), quad)
+
+
+def test_one_basis_helper_orthogonality_and_thresholds() -> None:
+    from harness.solvers.hodlr.orth import apply_basis, basis_factor, rcond_for
+
+    eps = np.finfo(float).eps
+    # the two first-order bounds of Cholesky QR (Yamamoto et al., ETNA 44, 2015)
+    assert rcond_for(orthogonality=1e-2, rounding=1.0) == pytest.approx(np.sqrt(eps / 1e-2))
+    assert rcond_for(orthogonality=1.0, rounding=1e-12) == pytest.approx(eps / 1e-12)
+    assert rcond_for(orthogonality=1e-30, rounding=1.0) == 0.5
+    rng = np.random.default_rng(2)
+    x = rng.standard_normal((400, 30)) @ np.triu(rng.standard_normal((30, 30)))
+    x[:, 7] = x[:, 6] + 1e-9 * x[:, 5]  # cond ~ 1e9: needs an explicit Q
+    for min_rcond in (1e-12, 0.5):
+        r, q = basis_factor(x, min_rcond=min_rcond)
+        t = rng.standard_normal((30, 4))
+        qt = apply_basis(x, r, q, t)
+        if q is not None:
+            np.testing.assert_allclose(q.T @ q, np.eye(30), atol=1e-13)
+            np.testing.assert_allclose(q @ r, x, atol=1e-13 * np.abs(x).max())
+        # Q t has the norm of t when Q has orthonormal columns (up to the implicit
+        # Q's loss of orthogonality eps cond^2 for a Gram factor kept at rcond 1e-12)
+        assert q is not None or min_rcond < 1e-6
+        if q is not None:
+            np.testing.assert_allclose(np.linalg.norm(qt, axis=0), np.linalg.norm(t, axis=0),
+                                       rtol=1e-12)
+    wide = rng.standard_normal((5, 8))
+    r, q = basis_factor(wide, min_rcond=0.5)
+    np.testing.assert_allclose(apply_basis(wide, r, q, np.eye(r.shape[0])) @ r, wide)

@@ -22,9 +22,10 @@ in two halves of tol / 2 each:
    evaluated; if (m / #rows) * sum ||residual row||^2 > (tol / 2)^2 ||S_k||_F^2 the
    iteration continues from the worst sampled row, up to ``checks.shape[0]`` times.
 2. Recompression: triangular factors R_a, R_b of both factors (A' = Q_a R_a,
-   B' = Q_b R_b, from the Gram matrices; ``orth.thin_qr`` when those are ill
-   conditioned), SVD of the small core R_a R_b' = u s v', truncated to the smallest r
-   with sqrt(sum_{i > r} s_i^2) <= (tol / 2) ||s||_2 (exact for the ACA approximant).
+   B' = Q_b R_b, from the Gram matrices; CholeskyQR2 or Householder QR when those are
+   too ill conditioned for ``tol``, see ``orth``), SVD of the small core
+   R_a R_b' = u s v', truncated to the smallest r with
+   sqrt(sum_{i > r} s_i^2) <= (tol / 2) ||s||_2 (exact for the ACA approximant).
 
 Globally, summing the per-block bounds (each block and its transpose; the diagonal
 leaf blocks are exact) gives ||Sigma - Sigma~||_F <= tol ||Sigma||_F up to the ACA
@@ -42,12 +43,10 @@ from dataclasses import dataclass
 
 import numba
 import numpy as np
-from scipy.linalg import lapack, solve_triangular
 
 from harness.model.kernels.rows import eval_row
-from harness.solvers.hodlr.orth import thin_qr
+from harness.solvers.hodlr.orth import apply_basis, basis_factor, rcond_for
 
-_GRAM_RCOND = 1e-5
 
 @numba.njit(inline="always", fastmath=True, nogil=True, cache=True)
 def _residual(family, x, ys, shape, scale, mode, coef, mat, k, out):
@@ -229,20 +228,13 @@ class LowRank:
         return int(self.u.nbytes + self.v.nbytes)
 
 
-def gram_factor(a: np.ndarray) -> np.ndarray | None:
-    """Upper R with R'R = a a' (rows of a are the factor's vectors), or None when the
-    column-scaled Gram matrix is numerically singular (rcond < 1e-5)."""
-    gram = a @ a.T
-    d = np.sqrt(np.diag(gram))
-    if not np.all(d > 0):
-        return None
-    r1, info = lapack.dpotrf(gram / np.outer(d, d), lower=0, clean=1)
-    if info != 0:
-        return None
-    rcond, info = lapack.dtrcon(r1, norm="1", uplo="U")
-    if info != 0 or rcond < _GRAM_RCOND:
-        return None
-    return r1 * d
+def truncation_rank(s: np.ndarray, tol: float) -> int:
+    """Smallest r with sqrt(sum_{i >= r} s_i^2) <= tol ||s||_2 (s sorted descending):
+    the Eckart-Young truncation of a matrix with singular values s to relative
+    Frobenius error ``tol``."""
+    tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])  # tail[i] = ||s[i:]||
+    keep = np.nonzero(tail > tol * float(np.sqrt(np.sum(s * s))))[0]
+    return int(keep[-1]) + 1 if keep.size else 0
 
 
 def recompress(a: np.ndarray, b: np.ndarray, *, tol: float) -> LowRank:
@@ -251,29 +243,22 @@ def recompress(a: np.ndarray, b: np.ndarray, *, tol: float) -> LowRank:
     With A' = Q_a R_a and B' = Q_b R_b, R_a R_b' = u s v', the result is
     U = A' R_a^-1 u_r = Q_a u_r and V = B' R_b^-1 v_r s_r, r the smallest rank whose
     discarded singular values have root-sum-square <= tol * ||s||_2. R comes from the
-    column-scaled Gram matrix (one BLAS-3 pass over each factor, no explicit Q); an
-    inexact R only perturbs the truncation estimate, never the kept product. When the
-    Gram matrix is too ill conditioned the Householder-backed ``thin_qr`` is used.
+    column-scaled Gram matrix (one BLAS-3 pass over each factor, no explicit Q) when its
+    rcond is high enough (``orth.rcond_for``) that the rounding of applying the implicit
+    Q stays below tol / 100 and its loss of orthogonality below 1e-2 (which only scales
+    the truncation estimate by 1 +- 1e-2: the kept product A' R_a^-1 (u_r s_r v_r')
+    R_b^-T B differs from A'B by Q_a (tail) Q_b'); otherwise Q is formed by CholeskyQR2
+    or Householder QR (``orth.basis_factor``).
     """
     k, m = a.shape
     n = b.shape[1]
     if k == 0:
         return LowRank(np.zeros((m, 0)), np.zeros((n, 0)), 0)
-    ra, rb = gram_factor(a), gram_factor(b)
-    if ra is None or rb is None:
-        qa, ra = thin_qr(np.ascontiguousarray(a.T))
-        qb, rb = thin_qr(np.ascontiguousarray(b.T))
-    else:
-        qa = qb = None
+    min_rcond = rcond_for(orthogonality=1e-2, rounding=0.01 * tol)
+    ra, qa = basis_factor(a.T, min_rcond=min_rcond)
+    rb, qb = basis_factor(b.T, min_rcond=min_rcond)
     u, s, vt = np.linalg.svd(ra @ rb.T, full_matrices=False)
-    total = float(np.sqrt(np.sum(s * s)))
-    tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])  # tail[i] = ||s[i:]||
-    keep = np.nonzero(tail > tol * total)[0]
-    r = int(keep[-1]) + 1 if keep.size else 0
-    left, right = u[:, :r], vt[:r].T * s[:r]
-    if qa is None:
-        u_r = a.T @ solve_triangular(ra, left, lower=False)
-        v_r = b.T @ solve_triangular(rb, right, lower=False)
-    else:
-        u_r, v_r = qa @ left, qb @ right
+    r = truncation_rank(s, tol)
+    u_r = apply_basis(a.T, ra, qa, u[:, :r])
+    v_r = apply_basis(b.T, rb, qb, vt[:r].T * s[:r])
     return LowRank(np.ascontiguousarray(u_r), np.ascontiguousarray(v_r), k)

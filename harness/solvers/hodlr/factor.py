@@ -34,11 +34,11 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.linalg import blas, lapack, solve_triangular
+from scipy.linalg import blas, solve_triangular
 
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.compressed import HodlrMatrix
-from harness.solvers.hodlr.orth import thin_qr
+from harness.solvers.hodlr.orth import basis_factor, cholesky_lower, rcond_for
 
 
 class CompressionBreakdownError(np.linalg.LinAlgError):
@@ -178,31 +178,9 @@ def implicit_rcond(tol: float) -> float:
     """Smallest rcond of the scaled Gram factor for which Q = U R^-1 is kept implicit.
 
     Q'Q - I ~ eps cond^2 (Cholesky QR) perturbs W_p W_p' by about that much, so it is
-    held to tol / 100: rcond >= sqrt(100 eps / tol), at most 0.1.
+    held to tol / 100 (``orth.rcond_for``).
     """
-    return min(0.1, float(np.sqrt(100.0 * np.finfo(float).eps / tol)))
-
-
-def _triangular_factor(u: np.ndarray, min_rcond: float
-                       ) -> tuple[np.ndarray, np.ndarray | None]:
-    """R with U = Q R, Q = U R^-1 (second element None), from the column-scaled Gram
-    matrix; when that is too ill conditioned (rcond < ``min_rcond``) R and the explicit
-    Q of ``thin_qr``."""
-    gram = u.T @ u
-    d = np.sqrt(np.diag(gram))
-    if np.all(d > 0):
-        r1, info = lapack.dpotrf(gram / np.outer(d, d), lower=0, clean=1)
-        if info == 0:
-            rcond, info = lapack.dtrcon(r1, norm="1", uplo="U")
-            if info == 0 and rcond >= min_rcond:
-                return r1 * d, None
-    q, r = thin_qr(u)
-    return r, q
-
-
-def _chol_lower(a: np.ndarray) -> tuple[np.ndarray, int]:
-    c, info = lapack.dpotrf(a, lower=1, clean=1, overwrite_a=0)
-    return c, int(info)
+    return rcond_for(orthogonality=0.01 * tol, rounding=0.01 * tol)
 
 
 def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> SymmetricFactor:
@@ -232,7 +210,7 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
 
     def leaf(j: int) -> tuple[np.ndarray, float]:
         s, e = int(leaf_b[j]), int(leaf_b[j + 1])
-        c, info = _chol_lower(hodlr.leaves[j])
+        c, info = cholesky_lower(hodlr.leaves[j])
         if info != 0:
             raise CompressionBreakdownError(
                 level=depth, block=j, rows=(s, e), depth=depth,
@@ -250,9 +228,10 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
             empty = np.zeros((0, 0))
             return NodeFactor(0, empty, empty, empty, empty), 0.0
         ua, ub = basis[s:mid, c0:c0 + rank], basis[mid:e, c0:c0 + rank]
-        (ra, qa), (rb, qb) = _triangular_factor(ua, min_rcond), _triangular_factor(ub, min_rcond)
+        (ra, qa), (rb, qb) = (basis_factor(ua, min_rcond=min_rcond),
+                              basis_factor(ub, min_rcond=min_rcond))
         g = ra @ rb.T
-        l22, info = _chol_lower(np.eye(rank) - g.T @ g)
+        l22, info = cholesky_lower(np.eye(rank) - g.T @ g)
         if info != 0:
             norm = float(np.linalg.norm(g, 2))
             raise CompressionBreakdownError(

@@ -14,37 +14,23 @@ Computing 70 (2003), sec. 2.5, "truncation of block matrices"):
 
 truncated to the smallest r with sqrt(sum_{i>r} sigma_i^2) <= tol ||sigma||_2. As in
 ``aca.recompress`` the R factors come from column-scaled Gram matrices and Q is never
-formed (``orth.thin_qr`` when the Gram matrix is ill conditioned).
+formed unless the Gram matrix is too ill conditioned for ``tol`` (``orth.basis_factor``).
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy.linalg import solve_triangular
 
-from harness.solvers.hodlr.aca import LowRank, gram_factor
-from harness.solvers.hodlr.orth import thin_qr
+from harness.solvers.hodlr.aca import LowRank, truncation_rank
+from harness.solvers.hodlr.orth import apply_basis, basis_factor, rcond_for
 
 
-def _basis(parts: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+def _basis(parts: list[np.ndarray], min_rcond: float
+           ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
     """[parts] = Q R: returns (stacked, R, explicit Q or None when Q = stacked R^-1)."""
     stacked = np.hstack(parts)
-    if stacked.shape[1] == 0:
-        return stacked, np.zeros((0, 0)), None
-    r = gram_factor(stacked.T)
-    if r is not None:
-        return stacked, r, None
-    if stacked.shape[0] < stacked.shape[1]:  # more columns than rows: Q = I, R = stacked
-        return stacked, stacked, np.eye(stacked.shape[0])
-    q, r = thin_qr(stacked)
+    r, q = basis_factor(stacked, min_rcond=min_rcond)
     return stacked, r, q
-
-
-def _apply_q(stacked: np.ndarray, r: np.ndarray, q: np.ndarray | None,
-             t: np.ndarray) -> np.ndarray:
-    if q is not None:
-        return q @ t
-    return stacked @ solve_triangular(r, t, lower=False, check_finite=False)
 
 
 def merge_quarters(quarters: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]],
@@ -58,8 +44,9 @@ def merge_quarters(quarters: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]
     tol : float
         Relative Frobenius truncation tolerance of the merged block.
     """
-    rows = [_basis([quarters[s, 0][0], quarters[s, 1][0]]) for s in (0, 1)]
-    cols = [_basis([quarters[0, t][1], quarters[1, t][1]]) for t in (0, 1)]
+    min_rcond = rcond_for(orthogonality=1e-2, rounding=0.01 * tol)
+    rows = [_basis([quarters[s, 0][0], quarters[s, 1][0]], min_rcond) for s in (0, 1)]
+    cols = [_basis([quarters[0, t][1], quarters[1, t][1]], min_rcond) for t in (0, 1)]
     rsz = [r[1].shape[0] for r in rows]
     csz = [c[1].shape[0] for c in cols]
     core = np.zeros((sum(rsz), sum(csz)))
@@ -76,12 +63,10 @@ def merge_quarters(quarters: dict[tuple[int, int], tuple[np.ndarray, np.ndarray]
     if core.size == 0:
         return LowRank(np.zeros((m, 0)), np.zeros((n, 0)), 0)
     u, sig, wt = np.linalg.svd(core, full_matrices=False)
-    tail = np.sqrt(np.cumsum((sig * sig)[::-1])[::-1])
-    keep = np.nonzero(tail > tol * float(np.sqrt(np.sum(sig * sig))))[0]
-    r = int(keep[-1]) + 1 if keep.size else 0
+    r = truncation_rank(sig, tol)
     left, right = u[:, :r], wt[:r].T * sig[:r]
-    out_u = np.vstack([_apply_q(*rows[s], left[sum(rsz[:s]):sum(rsz[:s + 1])]) for s in (0, 1)])
-    out_v = np.vstack([_apply_q(*cols[t], right[sum(csz[:t]):sum(csz[:t + 1])])
+    out_u = np.vstack([apply_basis(*rows[s], left[sum(rsz[:s]):sum(rsz[:s + 1])]) for s in (0, 1)])
+    out_v = np.vstack([apply_basis(*cols[t], right[sum(csz[:t]):sum(csz[:t + 1])])
                        for t in (0, 1)])
     aca_rank = sum(quarters[key][0].shape[1] for key in quarters)
     return LowRank(np.ascontiguousarray(out_u), np.ascontiguousarray(out_v), aca_rank)
