@@ -6,7 +6,8 @@ child dies with its parent and ignores SIGINT) and returns its result or re-rais
 exception here. When the child dies (os.abort, a segfault, os._exit) it raises
 ``ChildCrashed`` with the signal or exit status and the last lines the child wrote to
 standard error; past ``timeout`` seconds the child is killed and ``ChildTimeout`` is
-raised. ``fn`` and its arguments must be picklable (a module-level function).
+raised (counted from the moment the child has started, so start-up is not charged to
+the call). ``fn`` and its arguments must be picklable (a module-level function).
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ from multiprocessing.connection import Connection, wait
 from pathlib import Path
 from typing import Any
 
-from harness.grid.runner.workers import die_with_parent, signal_description, stderr_tail
+from harness.grid.runner.workers import READY, die_with_parent, signal_description, stderr_tail
 
 
 class ChildCrashed(RuntimeError):
@@ -50,6 +51,7 @@ def _child(conn: Connection, stderr_path: str, parent: int, fn: Callable[..., An
     import faulthandler
 
     faulthandler.enable(file=sys.stderr)
+    conn.send(READY)
     try:
         result: tuple[bool, Any] = (True, fn(*args, **kwargs))
     except BaseException as exc:  # noqa: BLE001 - every exception goes back to the parent
@@ -78,16 +80,20 @@ def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = No
                                         kwargs))
         process.start()
         child_conn.close()
-        deadline = None if timeout is None else time.monotonic() + timeout
+        deadline = None  # counts from the child's READY (start-up is not the call's time)
         try:
             while True:
                 left = None if deadline is None else max(0.0, deadline - time.monotonic())
                 ready = wait([parent_conn, process.sentinel], timeout=left)
                 if parent_conn in ready:
                     try:
-                        ok, value = parent_conn.recv()
+                        message = parent_conn.recv()
                     except (EOFError, OSError):
                         break
+                    if message == READY:
+                        deadline = None if timeout is None else time.monotonic() + timeout
+                        continue
+                    ok, value = message
                     process.join(timeout=10)
                     _pass_on(stderr_path)
                     if ok:

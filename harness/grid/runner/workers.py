@@ -48,6 +48,8 @@ STDERR_TAIL_LINES = 12
 #: Seconds between the watchdog's checks that the parent is alive.
 WATCHDOG_SECONDS = 1.0
 _PR_SET_PDEATHSIG = 1
+#: A worker's first message: imports done, a job's timeout may start counting.
+READY = "ready"
 
 
 def die_with_parent(parent: int) -> None:
@@ -78,6 +80,9 @@ def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
     import faulthandler
 
     faulthandler.enable(file=sys.stderr, all_threads=False)
+    import harness.audit.task_audit  # noqa: F401 - imports before the clock starts
+
+    conn.send(READY)
     while True:
         try:
             job = conn.recv()
@@ -121,6 +126,7 @@ class _Worker:
     conn: Connection
     stderr_path: Path
     job: Job | None = None
+    ready: bool = False
     deadline: float = float("inf")
     offset: int = 0
     jobs_done: int = 0
@@ -199,6 +205,15 @@ class WorkerPool:
             worker.stderr_path.unlink()
 
     # -- jobs ------------------------------------------------------------------------
+    @staticmethod
+    def _deadline(worker: _Worker) -> float:
+        """When the worker's job times out: its timeout after the worker is ready (a
+        fresh worker's start-up does not count)."""
+        job = worker.job
+        if job is None or not job.timeout or not worker.ready:
+            return float("inf")
+        return time.monotonic() + job.timeout
+
     def _crash(self, worker: _Worker, job: Job) -> dict[str, Any]:
         worker.process.join(timeout=5)
         text = self._pass_on(worker)
@@ -237,8 +252,7 @@ class WorkerPool:
                     job = queue.popleft()
                     worker = self._acquire()
                     worker.job = job
-                    worker.deadline = (time.monotonic() + job.timeout
-                                       if job.timeout else float("inf"))
+                    worker.deadline = self._deadline(worker)
                     worker.conn.send(job.to_dict())
                     busy.append(worker)
                 soonest = min(w.deadline for w in busy)
@@ -255,11 +269,16 @@ class WorkerPool:
                     keep = False
                     if worker.conn in ready:
                         try:
-                            outcome = worker.conn.recv()
-                            keep = True
-                            self._pass_on(worker)
+                            message = worker.conn.recv()
                         except (EOFError, OSError):
                             outcome = self._crash(worker, job)
+                        else:
+                            if message == READY:  # start-up done: the clock starts now
+                                worker.ready = True
+                                worker.deadline = self._deadline(worker)
+                                continue
+                            outcome, keep = message, True
+                            self._pass_on(worker)
                     elif worker.process.sentinel in ready:
                         outcome = self._crash(worker, job)
                     elif time.monotonic() >= worker.deadline:

@@ -17,11 +17,21 @@ from typing import Any
 TEMP_PREFIX = ".tmp-"
 
 
+def _file_mode() -> int:
+    """The mode ``open()`` would give a new file here (0o666 less the umask); ``mkstemp``
+    creates 0o600, which would make results unreadable to a group that should see them."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
 def atomic_write_text(path: str | Path, text: str) -> Path:
     """Write ``text`` to ``path`` atomically (see module docstring)."""
     path = Path(path)
     fd, temp = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=path.suffix, dir=path.parent)
     try:
+        if hasattr(os, "fchmod"):
+            os.fchmod(fd, _file_mode())
         with os.fdopen(fd, "w", encoding="utf-8") as handle:
             handle.write(text)
             handle.flush()
