@@ -85,12 +85,14 @@ def main(argv: list[str] | None = None) -> int:
 
     from harness._version import __version__
     from harness.grid.cases import load_case
-    from harness.grid.cases.cost import estimate_grid, measure_dense_rate
+    from harness.grid.cases.cost import contention, estimate_grid, measure_dense_rate
     from harness.grid.store.environment import environment
 
     case = load_case(args.casefile)
     rate = measure_dense_rate(rng=0)
-    estimate = estimate_grid(case.tasks(), dense_limit_bytes=None, rate=rate)
+    load_before = list(__import__("os").getloadavg())
+    estimate = estimate_grid(case.tasks(), dense_limit_bytes=None, rate=rate,
+                             load_factor=contention())
     runs = [_run_case(args.casefile) for _ in range(args.repeats)]
     measured = float(np.median(runs))
     unit = _unit(args.unit_repeats)
@@ -107,12 +109,14 @@ def main(argv: list[str] | None = None) -> int:
                     "environment": environment(None)},
         "threadpools": threadpoolctl.threadpool_info(),
         "covaudit": __version__, "numpy": np.__version__,
+        "load_average_at_start": load_before,
         "load_average_at_end": list(__import__("os").getloadavg()),
     }
     if args.demo:
         out["demo_wall_seconds"] = _demo_seconds()
     print(f"estimate {estimate.total_seconds:.1f} s (start-up {estimate.startup_seconds:.1f} "
-          f"s, probe {rate.flops / 1e9:.2f} Gflop/s), measured {measured:.1f} s "
+          f"s, probe {rate.flops / 1e9:.2f} Gflop/s, load x{estimate.contention:.2f}), "
+          "measured {measured:.1f} s "
           f"(runs {', '.join(f'{r:.1f}' for r in runs)}); estimate/measured {ratio:.2f}; "
           f"unit (dpotrf n=8192) {unit['median_seconds']:.2f} s"
           + (f"; demo {out['demo_wall_seconds']:.0f} s" if args.demo else ""))

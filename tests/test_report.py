@@ -7,6 +7,7 @@ import json
 import re
 import shutil
 import subprocess
+from html import unescape
 from html.parser import HTMLParser
 from pathlib import Path
 
@@ -194,3 +195,88 @@ def test_shipped_baseline_report_is_trimmed(tmp_path):
     assert "Results per dataset" in html and 'href="results.csv"' in html
     assert "does not pay at this size" in html
     assert "No power law is drawn" in html
+
+
+# --- the check report: answer first, marked failures, one set of labels ---------------
+
+def _check_html(**kw):
+    from check_example import example_points, example_result
+
+    from harness.report.check_report import render_check_report
+
+    points, holdout = example_points()
+    return render_check_report(example_result(**kw), points=points, holdout=holdout)
+
+
+def test_check_report_answers_first_with_times_in_seconds():
+    html = _check_html()
+    text = unescape(re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", html)))
+    answer = text.index("Recommended tolerance: 1e-6")
+    assert answer < text.index("Verdict per tolerance")
+    # dense time = compressed time x speed-up = 0.25 s x 3.2 (hand arithmetic)
+    assert "3.2× faster than the dense computation: 0.8 s (dense) against 0.25 s" in text
+    assert "&lt;b&gt;wells&lt;/b&gt;.csv" in html and "<b>wells</b>" not in html
+
+
+def test_check_report_says_when_nothing_is_safe_or_nothing_pays():
+    text = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", _check_html(recommended=False)))
+    assert "No tolerance in the list is safe for these data." in text
+    assert "Use the exact computation at this size" in text
+    slow = re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", _check_html(slow=True)))
+    assert "does not pay at this size" in slow
+
+
+def test_check_report_marks_the_failing_metric_and_shortens_breakdowns():
+    from check_example import BREAKDOWN
+
+    html = _check_html()
+    rows = re.findall(r'<tr class="(safe|unsafe|unresolved)">(.*?)</tr>', html, re.S)
+    unsafe = [body for cls, body in rows if cls == "unsafe"]
+    assert len(unsafe) == 2
+    # the 1e-2 row fails the log-likelihood limit: that cell, and only it, is marked
+    marked = re.findall(r'<td class="fail">(.*?)</td>', unsafe[0], re.S)
+    assert len(marked) == 1 and "\u2718" in unescape(marked[0]) and "2.6" in marked[0]
+    # the breakdown row shows a shortened message and a note with the full text
+    assert BREAKDOWN not in unsafe[1] and "\u2026" in unsafe[1] and "[1]" in unsafe[1]
+    assert f"[1] tolerance 1e-3: {BREAKDOWN}" in html
+    unresolved = [body for cls, body in rows if cls == "unresolved"][0]
+    assert re.search(r'<td class="unresolved">\? 0\.09', unresolved)
+
+
+def test_check_report_uses_one_set_of_labels_with_a_legend():
+    from harness.report.labels import COLUMN_LABELS, METRIC_LABELS
+
+    html = _check_html()
+    for key in ("loglik_error", "param_shift_se", "kriging_mean_sd", "mloe", "mmom",
+                "microergodic_shift_se"):
+        label = METRIC_LABELS[key]
+        assert f"<th>{label.short}" in html.replace("&#39;", "'")
+        assert f"<dt>{label.short}</dt><dd>{label.label}: {label.legend}</dd>" in \
+            html.replace("&#39;", "'")
+    for key in ("tol", "seconds", "speedup"):
+        assert f"<dt>{COLUMN_LABELS[key].short}</dt>" in html
+    assert "the documentation" not in html
+    for term in ("DPOT01", "Hutch++", "MLOE", "MMOM", "microergodic"):
+        assert term in html
+
+
+def test_check_report_figures_are_embedded_with_alt_text_and_notes_are_unique():
+    html = _check_html()
+    parsed = _parse(html)
+    assert len(parsed.images) == 3  # errors, speed-up, map
+    assert all(u.startswith("data:image/svg+xml;base64,") for u in parsed.images)
+    assert len(re.findall(r'<img src="data:[^"]+" alt="[^"]{40,}"', html)) == 3
+    assert "script" not in parsed.tags
+    notes = re.findall(r"<li>(.*?)</li>", html, re.S)
+    assert len(notes) == len(set(notes))
+    assert sum("Hutch++" in n and "Fisher" in n for n in notes) == 1
+
+
+def test_terminal_and_readme_use_the_report_labels():
+    from harness.report.labels import COLUMN_LABELS, METRIC_LABELS, TERMS
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    for m in [*METRIC_LABELS.values(), *COLUMN_LABELS.values()]:
+        assert f"**{m.label}** (`{m.key}`): {m.legend}." in readme, m.key
+    for term in TERMS:
+        assert f"**{term}**" in readme

@@ -18,14 +18,15 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
                         help="list only tasks whose key or label matches (repeatable)")
     parser.add_argument("--json", action="store_true", help="print JSON instead of a table")
     parser.add_argument("--no-probe", action="store_true",
-                        help="do not time the 0.25 s dense probe that calibrates the "
-                             "estimates to this machine (assume 7 Gflop/s)")
+                        help="do not time the 0.25 s dense probe nor read the load that "
+                             "calibrate the estimates to this machine (assume 7 Gflop/s, "
+                             "idle)")
     return parser
 
 
 def run(args: argparse.Namespace) -> int:
     from harness.grid.cases import CaseFileError, format_bytes, load_case
-    from harness.grid.cases.cost import estimate_grid, measure_dense_rate
+    from harness.grid.cases.cost import contention, estimate_grid, measure_dense_rate
     from harness.grid.runner import select_tasks
     from harness.references.budget import default_memory_budget
 
@@ -37,7 +38,8 @@ def run(args: argparse.Namespace) -> int:
     tasks = select_tasks(case.tasks(), args.only)
     budget = case.memory_budget or default_memory_budget()
     rate = None if args.no_probe else measure_dense_rate(rng=0)
-    grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate)
+    grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate,
+                         load_factor=1.0 if args.no_probe else contention())
     rows = [{"key": task.key, "label": task.label, **cost.to_dict()}
             for task, cost in zip(tasks, grid.tasks, strict=True)]
     if args.json:
@@ -52,7 +54,9 @@ def run(args: argparse.Namespace) -> int:
         print(f"{r['key']:16}  {r['label']:{width}}  {r['estimated_seconds']:>9.3g}s  "
               f"{format_bytes(r['estimated_bytes']):>11}  {ref}")
     basis = (f"calibrated by a dense probe at {grid.rate / 1e9:.3g} Gflop/s on one thread"
-             if grid.measured else f"assuming {grid.rate / 1e9:.3g} Gflop/s (--no-probe)")
+             f" and the machine's load (x{grid.contention:.2g})"
+             if grid.measured else f"assuming {grid.rate / 1e9:.3g} Gflop/s on an idle "
+             "machine (--no-probe)")
     print(f"estimated total: {grid.total_seconds:.3g} s serial, start-up (compilation) "
           f"{grid.startup_seconds:.2g} s included; {basis}. An estimate: on a loaded "
           "machine expect up to twice as long (see harness.grid.cases.cost)")

@@ -40,6 +40,7 @@ from harness.cli.flag_types import (
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.model import MEAN_MODELS
 from harness.model.kernels import KERNELS, KernelParameterError
+from harness.report.check_figures import holdout_indices
 from harness.report.check_report import render_check_report
 from harness.solvers.registry import SolverRuntimeError
 
@@ -107,8 +108,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
-    p.add_argument("--out", default="reports/check", help="folder for check.json and "
-                                                          "check.html (default reports/check)")
+    p.add_argument("--out", default=None, help="folder for check.json and check.html "
+                                               "(default reports/check-<data file stem>/)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
     p.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
                    help="seed of holdout, pilot and probes")
@@ -167,7 +168,8 @@ def json_text(result: CheckResult) -> str:
 
 
 def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "check.html",
-                  json_name: str = "check.json", extra: dict[str, str] | None = None
+                  json_name: str = "check.json", extra: dict[str, str] | None = None,
+                  points: np.ndarray | None = None, holdout: np.ndarray | None = None
                   ) -> Path:
     """Write the JSON, the HTML report and ``extra`` files (name -> text) into ``out``
     atomically: everything goes to a temporary folder first and is renamed at the end."""
@@ -179,7 +181,8 @@ def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "che
         for name, text in (extra or {}).items():
             (tmp / name).parent.mkdir(parents=True, exist_ok=True)
             (tmp / name).write_text(text, encoding="utf-8")
-        (tmp / html_name).write_text(render_check_report(result), encoding="utf-8")
+        (tmp / html_name).write_text(render_check_report(result, points=points,
+                                                         holdout=holdout), encoding="utf-8")
         out.mkdir(exist_ok=True)
         for item in sorted(tmp.rglob("*")):
             if item.is_file():
@@ -250,11 +253,21 @@ def _short(value: Any) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
-def run(args: argparse.Namespace) -> int:
-    def progress(message: str) -> None:
-        if not args.json:
-            print(f"  .. {message}", file=sys.stderr)
+def default_out(datafile: str | Path) -> Path:
+    """``reports/check-<data file stem>``: one folder per data file, so checks of different
+    files do not overwrite each other."""
+    return Path("reports") / f"check-{Path(datafile).stem}"
 
+
+def written_files(out: str | Path, names: list[str]) -> list[Path]:
+    """The files ``write_outputs`` wrote into ``out``, in order."""
+    return [Path(out) / name for name in names if (Path(out) / name).is_file()]
+
+
+def run(args: argparse.Namespace) -> int:
+    from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
+
+    out = Path(args.out) if args.out else default_out(args.datafile)
     try:
         options = options_from_args(args)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
@@ -262,8 +275,14 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        result = run_check(data, options, source=str(args.datafile), progress=progress)
-        write_outputs(result, args.out)
+        progress = CheckProgress(tolerances=len(options.tolerances), refit=options.refit,
+                                 enabled=progress_enabled(json_output=args.json))
+        try:
+            result = run_check(data, options, source=str(args.datafile), progress=progress)
+        finally:
+            progress.close()
+        write_outputs(result, out, points=data.points, holdout=holdout_indices(
+            data.n, fraction=args.holdout, seed=args.seed))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
             OSError, SolverRuntimeError) as exc:
@@ -272,4 +291,6 @@ def run(args: argparse.Namespace) -> int:
     print(json_text(result) if args.json else summary(result))
     for warning in result.warnings if args.json else ():
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
+    for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
+        print(line, file=sys.stderr if args.json else sys.stdout)
     return 0 if result.recommended_tolerance is not None else 1

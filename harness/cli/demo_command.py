@@ -20,6 +20,7 @@ from harness.check.datafile import observations_from_arrays
 from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_demo
 from harness.cli.check_command import summary, write_outputs
 from harness.cli.flag_types import int_range
+from harness.report.check_figures import holdout_indices
 
 DEMO_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
 
@@ -53,7 +54,9 @@ def run(args: argparse.Namespace) -> int:
                            truth=demo.truth(), progress=progress)
         write_outputs(result, args.out, html_name="demo.html", json_name="demo.json",
                       extra={"demo-data/soil_moisture.csv": frame.to_csv(index=False),
-                             "demo-data/soil_moisture.md": demo.dictionary})
+                             "demo-data/soil_moisture.md": demo.dictionary},
+                      points=data.points, holdout=holdout_indices(
+                          data.n, fraction=options.holdout, seed=options.seed))
     except (ValueError, MemoryError, np.linalg.LinAlgError, OSError) as exc:
         print(f"covaudit demo: error: {exc}", file=sys.stderr)
         return 2

@@ -1,106 +1,181 @@
-# ruff: noqa: E501  (the HTML template is kept readable as one string)
-"""Self-contained HTML report of a check (inline CSS, every user string escaped).
+"""Self-contained HTML report of a check, answer first (inline CSS, figures embedded,
+every user string escaped).
 
-Rendered with jinja2 and ``autoescape=True``: file names, column names and notes come
-from the user and are escaped. The report states that the thresholds are common
-practice, not a published standard, and that the audit checks numerical agreement with
-the exact model, not whether the model suits the data (DESIGN sections 7 and 9).
+Order: the answer (recommended tolerance, its speed-up, the reference and compressed
+times in seconds, or a plain sentence when no tolerance pays), warnings, the verdict
+table (compact numbers; the failing metric of an unsafe row marked by colour, a symbol
+and bold), a legend of every label (``harness.report.labels``), figures, then the fit,
+the spread over seeds and the notes. Rendered with jinja2 and ``autoescape=True``. The
+report states that the thresholds are common practice, not a published standard, and
+that the audit checks numerical agreement with the exact model, not whether the model
+suits the data (DESIGN sections 7 and 9).
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from typing import Any
 
 import jinja2
+import numpy as np
 
 from harness.audit.verdict import COMMON_PRACTICE
-from harness.check.check_records import CheckResult
+from harness.check.check_records import CheckResult, ToleranceResult
+from harness.report import check_figures
+from harness.report.condense import collapse_notes, shorten
+from harness.report.labels import COLUMN_LABELS, METRIC_LABELS, TERMS, metric_label
+from harness.report.run_summary import DOES_NOT_PAY
+from harness.report.style import data_uri
 
-_TEMPLATE = """<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8"><title>covaudit check: {{ r.source }}</title>
-<style>
-body{font-family:system-ui,sans-serif;max-width:70rem;margin:2rem auto;padding:0 1rem;color:#222}
-table{border-collapse:collapse;margin:1rem 0}td,th{border:1px solid #bbb;padding:.25rem .5rem;
-text-align:right}th{background:#eee}td.l,th.l{text-align:left}.ok{background:#dfd}
-.bad{background:#fdd}.info{color:#555}.box{border:1px solid #999;padding:.5rem 1rem;background:#f8f8f8}
-@media print{body{margin:0}}
-</style></head><body>
-<h1>covaudit check</h1>
-<p><b>Data:</b> {{ r.source }} &mdash; {{ r.n }} points ({{ r.n_fit }} fitted, {{ r.n_holdout }}
-held out), {{ r.d }}D, coordinates {{ r.coord_system }}. <b>Model:</b> {{ r.kernel }} kernel,
-{{ r.mean }} mean. <b>Reference:</b> {{ r.reference }}.</p>
-<p><b>Solver under test:</b> {{ r.solver.get("name", "") }}{% if r.solver.get("version") %} {{ r.solver.get("version") }}{% endif %}{% if r.solver.get("origin") %} ({{ r.solver.get("origin") }}){% endif %}, {{ r.solver_seeds | length }} seed(s) of its randomness per tolerance; the worst seed decides.</p>
-{% for w in r.warnings %}<div class="box bad"><b>Warning:</b> {{ w }}</div>{% endfor %}
-<div class="box"><b>Recommendation:</b>
-{% if r.recommended_tolerance is not none %}tolerance {{ fmt(r.recommended_tolerance) }}
-(loosest safe tolerance; log-likelihood {{ fmt(r.speedup) }}x faster than {{ r.speedup_over }}).
-{% else %}no tolerance in the list is safe for these data.{% endif %}</div>
-<h2>Fitted parameters</h2>
-<table><tr><th class="l">parameter</th><th>estimate</th><th>SE</th>{% if truth %}<th>truth</th>{% endif %}</tr>
-{% for name, value in params %}<tr><td class="l">{{ name }}</td><td>{{ fmt(value) }}</td>
-<td>{{ fmt(se.get(name)) }}</td>{% if truth %}<td>{{ fmt(truth.get(name)) }}</td>{% endif %}</tr>{% endfor %}
-{% if r.se.microergodic is not none %}<tr><td class="l">s2 / l^(2 nu) (microergodic)</td>
-<td>{{ fmt(r.se.microergodic) }}</td><td>{{ fmt(r.se.microergodic_se) }}</td>{% if truth %}<td>{{ fmt(truth.get("microergodic")) }}</td>{% endif %}</tr>{% endif %}
-</table>
-<p>Maximized log-likelihood {{ fmt(r.loglik) }} ({{ r.fit.get("method") }}{% if r.fit.get("engine") %}, {{ r.fit.get("engine") }}{% endif %}).</p>
-<h2>Verdict per tolerance</h2>
-<table><tr><th>tol</th><th class="l">verdict</th>{% for m in metric_names %}<th>{{ m }}{% if limits.get(m) is not none %}<br><span class="info">&le; {{ fmt(limits[m]) }}</span>{% endif %}</th>{% endfor %}<th>seconds</th><th>speed-up</th></tr>
-{% for t in r.tolerances %}<tr class="{{ 'ok' if t.safe else 'bad' }}"><td>{{ fmt(t.tol) }}</td>
-<td class="l">{{ t.status or ('safe' if t.safe else 'unsafe') }}</td>
-{% if t.error %}<td class="l" colspan="{{ metric_names | length + 2 }}">{{ t.error }}</td>
-{% else %}{% for m in metric_names %}{% set v = t.metric(m) %}<td>{% if v %}{{ fmt(v.value) }}{% if v.uncertainty %} &plusmn; {{ fmt(v.uncertainty) }}{% endif %}{% endif %}</td>{% endfor %}
-<td>{{ fmt(t.seconds) }}</td><td>{{ fmt(t.speedup) }}</td>{% endif %}</tr>{% endfor %}</table>
-<h2>Spread over the solver's seeds</h2>
-<table><tr><th>tol</th><th class="l">metric</th><th>min</th><th>median</th><th>max</th><th>seeds</th></tr>
-{% for t in r.tolerances %}{% for name, sp in t.spread.items() %}<tr><td>{{ fmt(t.tol) }}</td><td class="l">{{ name }}</td><td>{{ fmt(sp.get("min")) }}</td><td>{{ fmt(sp.get("median")) }}</td><td>{{ fmt(sp.get("max")) }}</td><td>{{ sp.get("seeds") }}</td></tr>{% endfor %}{% endfor %}</table>
-<h3>Reasons</h3><ul>{% for t in r.tolerances %}<li>{{ fmt(t.tol) }}: {{ t.status }} &mdash; {{ t.reasons | join("; ") }}</li>{% endfor %}</ul>
-{% if r.refit %}<h2>End-to-end refit at tol {{ fmt(r.refit.tol) }}</h2>
-<p>Largest parameter shift {{ fmt(r.refit.max_shift_se) }} SE; change of the maximized
-log-likelihood {{ fmt(r.refit.loglik_change) }} nat ({{ r.refit.evaluations }} evaluations, {{ r.refit.accepted_steps }} step(s) accepted). {{ r.refit.note }}</p>{% endif %}
-<h2>Held-out kriging (reference model)</h2>
-<p>{{ r.holdout.get("points") }} points: RMSE {{ fmt(r.holdout.get("rmse")) }}, mean squared
-z-score {{ fmt(r.holdout.get("mean_z2")) }}, 95% interval coverage {{ fmt(r.holdout.get("coverage95")) }}.</p>
-<h2>Notes</h2><ul>{% for note in r.notes %}<li>{{ note }}</li>{% endfor %}
-<li>Thresholds: {{ practice }}.</li>
-<li>MLOE and MMOM follow Hong, Abdulah, Genton and Sun (2021, Spatial Statistics 43), with definitions written from memory (see the documentation).</li>
-<li>This audit checks numerical agreement with the exact model, not whether the model suits
-the data. Where results feed decisions about health, safety or the environment, follow local
-regulations and licensed professional practice.</li></ul>
-</body></html>
-"""
+TEMPLATE = "check.html.j2"
+#: Characters of a breakdown message shown in the table (the rest goes to a note).
+ERROR_WIDTH = 60
+#: Metrics with a limit first, then the information-only ones, in table order.
+TABLE_ORDER: tuple[str, ...] = ("loglik_error", "loglik_error_extrapolated",
+                                "param_shift_se", "kriging_mean_sd",
+                                "microergodic_shift_se", "kriging_var_ratio", "mloe", "mmom")
 
 
-def _fmt(value: Any) -> str:
+def compact(value: Any) -> str:
+    """A short number: 3 significant digits, exponent form outside [1e-3, 1e4)."""
     if value is None:
         return ""
     if isinstance(value, list):
-        return ", ".join(_fmt(v) for v in value)
-    if isinstance(value, float):
-        if not math.isfinite(value):
-            return str(value)
-        return f"{value:.4g}"
-    return str(value)
+        return "(" + ", ".join(compact(v) for v in value) + ")"
+    if isinstance(value, bool | str):
+        return str(value)
+    if isinstance(value, int | np.integer):
+        return f"{int(value):,}"
+    v = float(value)
+    if not math.isfinite(v):
+        return "\u2013"
+    if v == 0:
+        return "0"
+    if 1e-3 <= abs(v) < 1e4:
+        return f"{v:.3g}"
+    mantissa, exponent = f"{v:.1e}".split("e")
+    return f"{mantissa.replace('.0', '')}e{int(exponent)}"
 
 
-def _flat(params: dict[str, Any]) -> dict[str, Any]:
-    return dict(params)
+def tolerance_text(value: float) -> str:
+    """A tolerance in exponent form, ``1e-3``, ``2.5e-7``."""
+    if not math.isfinite(value) or value <= 0:
+        return compact(value)
+    mantissa, exponent = f"{value:.2g}".split("e") if "e" in f"{value:.2g}" else (
+        f"{value / 10 ** math.floor(math.log10(value)):.2g}",
+        str(math.floor(math.log10(value))))
+    mantissa = mantissa.rstrip("0").rstrip(".") if "." in mantissa else mantissa
+    return f"{mantissa}e{int(exponent)}"
 
 
-def render_check_report(result: CheckResult) -> str:
-    """The HTML text of the report."""
-    env = jinja2.Environment(autoescape=True, undefined=jinja2.StrictUndefined)
-    template = env.from_string(_TEMPLATE)
-    names: list[str] = []
-    limits: dict[str, float | None] = {}
+@dataclass(frozen=True)
+class Cell:
+    """One metric cell: text, and ``state`` fail / unresolved / ok / info."""
+
+    text: str
+    uncertainty: str
+    state: str
+
+
+def _metric_state(row: ToleranceResult, name: str) -> str:
+    statuses = [s.get("status", {}).get(name) for s in row.seeds if isinstance(s, dict)]
+    if "unsafe" in statuses:
+        return "fail"
+    if "unresolved" in statuses:
+        return "unresolved"
+    if "safe" in statuses:
+        return "ok"
+    m = row.metric(name)
+    if m is None or m.threshold is None:
+        return "info"
+    return "ok" if m.passed else "fail"
+
+
+def _cells(row: ToleranceResult, names: list[str]) -> list[Cell]:
+    cells = []
+    for name in names:
+        m = row.metric(name)
+        if m is None:
+            cells.append(Cell("", "", "info"))
+            continue
+        unc = compact(m.uncertainty) if m.uncertainty else ""
+        cells.append(Cell(compact(m.value), unc, _metric_state(row, name)))
+    return cells
+
+
+def _headline(result: CheckResult) -> dict[str, Any]:
+    rec = next((r for r in result.tolerances if r.tol == result.recommended_tolerance),
+               None)
+    over = result.speedup_over or "the reference"
+    if rec is None:
+        reason = str(result.recommendation.get("reason", "")) if result.recommendation \
+            else ""
+        return {"found": False, "text": "No tolerance in the list is safe for these data.",
+                "advice": "Use the exact computation at this size, or audit tighter "
+                          "tolerances.", "reason": reason}
+    speedup = rec.speedup if rec.speedup is not None else result.speedup
+    compressed = rec.seconds
+    reference = (compressed * speedup if speedup is not None and math.isfinite(compressed)
+                 and math.isfinite(speedup) else float("nan"))
+    pays = speedup is not None and math.isfinite(speedup) and speedup >= 1
+    return {"found": True, "tol": tolerance_text(rec.tol), "speedup": compact(speedup),
+            "pays": pays, "over": over, "reference_seconds": compact(reference),
+            "compressed_seconds": compact(compressed),
+            "text": "", "advice": "" if pays else
+            f"It is accurate enough but {DOES_NOT_PAY}: the {over} computation is faster "
+            "here. Compression pays only at larger n.",
+            "reason": str(result.recommendation.get("reason", ""))
+            if result.recommendation else ""}
+
+
+def render_check_report(result: CheckResult, *, points: np.ndarray | None = None,
+                        holdout: np.ndarray | None = None) -> str:
+    """The HTML text of the report.
+
+    Parameters
+    ----------
+    points : array (n, d), optional
+        The data points, for the map (2D only).
+    holdout : array of int, optional
+        Indices of the kriging holdout among ``points``.
+    """
+    present = {m.name for row in result.tolerances for m in row.metrics}
+    names = [n for n in TABLE_ORDER if n in present] + sorted(
+        present - set(TABLE_ORDER))
+    limits = {}
     for row in result.tolerances:
         for m in row.metrics:
-            if m.name not in names:
-                names.append(m.name)
-                limits[m.name] = m.threshold
-    truth = None
-    if result.truth:
-        truth = _flat(result.truth)
-    return template.render(r=result, fmt=_fmt, params=list(result.params.items()),
-                           se=result.se.get("natural", {}), truth=truth,
-                           metric_names=names, limits=limits, practice=COMMON_PRACTICE)
+            if m.threshold is not None:
+                limits.setdefault(m.name, m.threshold)
+    error_notes: list[str] = []
+    rows = []
+    for row in sorted(result.tolerances, key=lambda r: r.tol, reverse=True):
+        note_index = None
+        if row.error:
+            error_notes.append(f"tolerance {tolerance_text(row.tol)}: {row.error}")
+            note_index = len(error_notes)
+        rows.append({"tol": tolerance_text(row.tol), "verdict": check_figures.verdict_of(row),
+                     "cells": _cells(row, names), "seconds": compact(row.seconds),
+                     "speedup": compact(row.speedup),
+                     "slow": row.speedup is not None and math.isfinite(row.speedup)
+                     and row.speedup < 1,
+                     "error": shorten(row.error, ERROR_WIDTH) if row.error else "",
+                     "note_index": note_index, "reasons": list(row.reasons)})
+    figures = {
+        "errors": check_figures.error_vs_tolerance(result),
+        "speedup": check_figures.speedup_vs_tolerance(result),
+        "map": check_figures.points_map(points, holdout),
+    }
+    notes = [n.line() for n in collapse_notes(result.notes)]
+    env = jinja2.Environment(loader=jinja2.PackageLoader("harness.report", "templates"),
+                             autoescape=True, undefined=jinja2.StrictUndefined)
+    return env.get_template(TEMPLATE).render(
+        r=result, fmt=compact, params=list(result.params.items()),
+        se=result.se.get("natural", {}), truth=dict(result.truth) if result.truth else None,
+        names=names, labels={n: metric_label(n) for n in names}, limits=limits,
+        rows=rows, error_notes=error_notes, headline=_headline(result),
+        columns=COLUMN_LABELS, legend=[metric_label(n) for n in names],
+        terms=TERMS, practice=COMMON_PRACTICE, notes=notes,
+        figures={k: (data_uri(f) if f is not None else "") for k, f in figures.items()},
+        all_labels=METRIC_LABELS)

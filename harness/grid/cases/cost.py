@@ -22,11 +22,19 @@ matrix on one thread, median of 5, about 0.25 s), calibrates the whole model. Th
 constants were fitted to measured runs of ``cases/smoke.toml`` on a 2-core machine (see
 ``benchmarks/results/cost_model.json``); elsewhere they are estimates, shown as such.
 Without a measured rate the model assumes ``DENSE_FLOPS``.
+
+The probe runs for a fraction of a second on one thread and so sees a core to itself
+even on a busy machine, while the run then shares the cores with everything else: the
+grid estimate is multiplied by the expected share, ``contention = max(1, (load + 1) /
+cores)`` with ``load`` the one-minute load average (the scheduler's fair share of
+``cores`` among ``load + 1`` runnable processes; common practice, from memory). A probe
+alone missed a loaded run by a factor 3 (``benchmarks/results/cost_model_probe_only.json``).
 """
 
 from __future__ import annotations
 
 import math
+import os
 import time
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -101,22 +109,40 @@ class CostEstimate:
                 "dense_reference": self.dense_reference}
 
 
+def contention(*, load: float | None = None, cores: int | None = None) -> float:
+    """``max(1, (load + 1) / cores)``: how much slower a run is expected to go than the
+    probe measured, on a machine running ``load`` other processes (module docstring).
+    Defaults: the one-minute load average and ``os.cpu_count()``; 1 where unknown."""
+    if load is None:
+        try:
+            load = os.getloadavg()[0]
+        except (AttributeError, OSError):
+            return 1.0
+    cores = cores or os.cpu_count() or 1
+    if not (math.isfinite(load) and load >= 0):
+        return 1.0
+    return max(1.0, (load + 1.0) / cores)
+
+
 @dataclass(frozen=True)
 class GridEstimate:
-    """The tasks' estimates, the run's start-up and their total (seconds, serial)."""
+    """The tasks' estimates, the run's start-up and their total (seconds, serial), all
+    times ``contention`` (1 on an idle machine)."""
 
     tasks: tuple[CostEstimate, ...]
     startup_seconds: float
     rate: float
     measured: bool
+    contention: float = 1.0
 
     @property
     def total_seconds(self) -> float:
-        return self.startup_seconds + sum(t.seconds for t in self.tasks)
+        return self.contention * (self.startup_seconds + sum(t.seconds for t in self.tasks))
 
     def to_dict(self) -> dict[str, object]:
         return {"total_seconds": self.total_seconds, "startup_seconds": self.startup_seconds,
-                "dense_flops_per_second": self.rate, "rate_measured": self.measured}
+                "dense_flops_per_second": self.rate, "rate_measured": self.measured,
+                "contention": self.contention}
 
 
 def _params(task: Task) -> int:
@@ -180,8 +206,15 @@ def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
 
 
 def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
-                  rate: DenseRate | float | None = None) -> GridEstimate:
-    """Every task's estimate plus the run's start-up (compilation), serial seconds."""
+                  rate: DenseRate | float | None = None,
+                  load_factor: float = 1.0) -> GridEstimate:
+    """Every task's estimate plus the run's start-up (compilation), serial seconds.
+
+    Parameters
+    ----------
+    load_factor : float
+        ``contention()`` of the machine (1: idle); multiplies the total.
+    """
     measured = rate is not None
     value = rate.flops if isinstance(rate, DenseRate) else rate
     flops_per_second = DENSE_FLOPS if value is None else float(value)
@@ -190,4 +223,4 @@ def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
     startup = STARTUP_FLOPS / flops_per_second if any(t.solver != "dense"
                                                       for t in tasks) else 0.0
     return GridEstimate(tasks=estimates, startup_seconds=startup, rate=flops_per_second,
-                        measured=measured)
+                        measured=measured, contention=max(1.0, float(load_factor)))
