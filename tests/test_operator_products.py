@@ -164,3 +164,21 @@ def test_bad_inputs_are_refused(problem):
     with pytest.raises(ValueError, match="finite"):
         KernelOperator(np.array([[0.0, np.nan]]), Matern32(1.0, 0.2, 0.0))
     assert plan_tiles(5, tile=512).n_tiles == 1
+
+
+@pytest.mark.parametrize("family", [0, 1, 2, 3])
+@pytest.mark.parametrize("mode", [0, 1, 2, 3])
+def test_vectorized_tiles_equal_the_row_routines_to_a_few_ulp(family, mode):
+    # Source: harness.model.kernels.rows.fill_block (libm exp); spread from 0 to beyond
+    # the 708 cutoff of the vectorized exponential (those entries are < 1e-300).
+    from harness.model.kernels.rows import fill_block
+    from harness.references.operator.tile_entries import fill_tile
+
+    rng = np.random.default_rng(family * 4 + mode)
+    xs = rng.random((70, 2)) * 10.0 ** rng.uniform(-3, 3, (70, 1))
+    ys = np.vstack([xs[:5], rng.random((60, 2)) * 900])
+    want = np.empty((70, 65))
+    got = np.empty((70, 65))
+    fill_block(family, xs, ys, 0.0, 1.7, mode, want)
+    fill_tile(family, xs, ys, 0.0, 1.7, mode, got)
+    np.testing.assert_allclose(got, want, rtol=4e-15, atol=1e-290)

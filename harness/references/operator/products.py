@@ -2,8 +2,9 @@
 
 For an n x k block B the products are computed tile by tile: each tile pair {I, J} of
 the ``schedule.TilePlan`` is evaluated once from the kernel (compiled entries of
-``harness.model.kernels.rows``) and used for both out[I] += K_IJ B[J] and
-out[J] += K_IJ' B[I]. Memory is O(n k) plus one tile per thread; time O(n^2 k).
+``tile_entries``, which follow ``harness.model.kernels.rows``) and used for both
+out[I] += K_IJ B[J] and out[J] += K_IJ' B[I]. Memory is O(n k) plus one tile per thread;
+time O(n^2 k).
 
 Parallelism and reproducibility: the pairs of one round write disjoint rows, so a round
 runs with ``numba.prange`` over its pairs; the rounds run in their fixed order, so each
@@ -31,10 +32,11 @@ import numpy as np
 from threadpoolctl import threadpool_limits
 
 from harness.model.kernels import Kernel
-from harness.model.kernels.rows import COORD, SLOPE, VALUE, family_code, fill_block
+from harness.model.kernels.rows import COORD, SLOPE, VALUE, family_code
 from harness.references.budget import default_memory_budget
 from harness.references.operator.progress import product_bar
 from harness.references.operator.schedule import DEFAULT_TILE, TilePlan, column_chunk, plan_tiles
+from harness.references.operator.tile_entries import fill_tile
 
 #: Fraction of the available memory one product may use when no budget is given.
 DEFAULT_PRODUCT_FRACTION = 0.25
@@ -52,7 +54,7 @@ def _round_product(family, xs, shape, scale, modes, b, out, starts, first, secon
         j1 = starts[tj + 1]
         tile = np.empty((i1 - i0, j1 - j0))
         for mi in range(modes.shape[0]):
-            fill_block(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
+            fill_tile(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
             out[mi, i0:i1] += np.dot(tile, b[j0:j1])
             if ti != tj:
                 out[mi, j0:j1] += np.dot(tile.T, b[i0:i1])
@@ -76,7 +78,7 @@ def _row_block_product(family, xs, shape, scale, modes, b, out, starts, row_tile
             j1 = starts[tj + 1]
             tile = np.empty((i1 - i0, j1 - j0))
             for mi in range(modes.shape[0]):
-                fill_block(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
+                fill_tile(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
                 out[mi, i0:i1] += np.dot(tile, b[j0:j1])
 
 
