@@ -280,3 +280,20 @@ def test_terminal_and_readme_use_the_report_labels():
         assert f"**{m.label}** (`{m.key}`): {m.legend}." in readme, m.key
     for term in TERMS:
         assert f"**{term}**" in readme
+
+
+def test_terminal_summary_uses_the_same_labels_and_keeps_words_whole():
+    from check_example import BREAKDOWN, example_result
+
+    from harness.cli.check_command import summary
+    from harness.report.labels import METRIC_LABELS
+
+    text = summary(example_result())
+    for key in ("loglik_error", "param_shift_se", "kriging_mean_sd", "mloe", "mmom"):
+        assert METRIC_LABELS[key].short in text
+    assert "dL (nat)" not in text and "shift/SE" not in text
+    row = next(line for line in text.splitlines() if line.strip().startswith("1e-03"))
+    assert row.rstrip().endswith("\u2026 [1]") and " of the\u2026" in row
+    assert f"[1] tol 1e-03: {BREAKDOWN}" in text
+    # dense time = 0.25 s x 3.2 = 0.8 s (hand arithmetic)
+    assert "0.8 s against 0.25 s" in text

@@ -42,6 +42,8 @@ from harness.model import MEAN_MODELS
 from harness.model.kernels import KERNELS, KernelParameterError
 from harness.report.check_figures import holdout_indices
 from harness.report.check_report import render_check_report
+from harness.report.condense import shorten
+from harness.report.labels import metric_label
 from harness.solvers.registry import SolverRuntimeError
 
 SHAPE_NAMES = ("nu", "alpha")
@@ -211,20 +213,28 @@ def summary(result: CheckResult) -> str:
     if result.se.get("microergodic") is not None:
         lines.append(f"  s2/l^(2nu)  {result.se['microergodic']:.6g} "
                      f"(SE {result.se['microergodic_se']:.3g})")
-    header = (f"  {'tol':>8} {'verdict':>10} {'dL (nat)':>11} {'shift/SE':>10} "
-              f"{'krig/SD':>10} {'MLOE':>10} {'MMOM':>10} {'speed-up':>9}")
+    shown = ("loglik_error", "param_shift_se", "kriging_mean_sd", "mloe", "mmom")
+    header = (f"  {metric_label('tol').short:>9} {metric_label('verdict').short:>10} "
+              + " ".join(f"{metric_label(n).short:>14}" for n in shown)
+              + f" {metric_label('speedup').short:>9}")
     lines += ["", header]
+    broke: list[str] = []
     for row in result.tolerances:
         status = row.status or ("safe" if row.safe else "unsafe")
         if row.error and not row.metrics:
-            lines.append(f"  {row.tol:>8.0e} {status:>10}  {row.error[:80]}")
+            broke.append(f"  [{len(broke) + 1}] tol {row.tol:.0e}: {row.error}")
+            lines.append(f"  {row.tol:>9.0e} {status:>10}  {shorten(row.error, 60)} "
+                         f"[{len(broke)}]")
             continue
         vals = [row.metric(n) for n in ("loglik_error", "param_shift_se", "kriging_mean_sd",
                                         "mloe", "mmom")]
-        cells = " ".join(f"{(v.value if v else float('nan')):>10.3g}" for v in vals[1:])
-        lines.append(f"  {row.tol:>8.0e} {status:>10} "
-                     f"{vals[0].value if vals[0] else float('nan'):>11.3g} {cells} "
+        cells = " ".join(f"{(v.value if v else float('nan')):>14.3g}" for v in vals)
+        lines.append(f"  {row.tol:>9.0e} {status:>10} {cells} "
                      f"{row.speedup or float('nan'):>9.3g}")
+    lines += broke
+    lines.append("  " + "; ".join(f"{metric_label(n).short}: {metric_label(n).label}"
+                                  for n in shown[:3])
+                 + "; MLOE, MMOM: loss of prediction efficiency (see check.html's legend)")
     lines.append("")
     if not result.fit_converged:
         lines.append("  every verdict was measured at an unconverged estimate")
@@ -232,8 +242,11 @@ def summary(result: CheckResult) -> str:
         lines.append("  recommendation: no tolerance in the list qualifies ("
                      + str(result.recommendation.get("reason", "none is safe")) + ")")
     else:
+        best = next(r for r in result.tolerances if r.tol == result.recommended_tolerance)
+        times = (f": {best.seconds * result.speedup:.3g} s against {best.seconds:.3g} s "
+                 "per log-likelihood evaluation" if math.isfinite(best.seconds) else "")
         lines.append(f"  recommendation: tol {result.recommended_tolerance:g} "
-                     f"({result.speedup:.3g}x faster than {result.speedup_over})")
+                     f"({result.speedup:.3g}x faster than {result.speedup_over}{times})")
     if result.refit:
         lines.append(f"  refit at tol {result.refit.tol:g}: largest shift "
                      f"{result.refit.max_shift_se:.3g} SE, loglik change "
