@@ -116,7 +116,7 @@ def main(argv: list[str] | None = None) -> int:
         out["demo_wall_seconds"] = _demo_seconds()
     print(f"estimate {estimate.total_seconds:.1f} s (start-up {estimate.startup_seconds:.1f} "
           f"s, probe {rate.flops / 1e9:.2f} Gflop/s, load x{estimate.contention:.2f}), "
-          "measured {measured:.1f} s "
+          f"measured {measured:.1f} s "
           f"(runs {', '.join(f'{r:.1f}' for r in runs)}); estimate/measured {ratio:.2f}; "
           f"unit (dpotrf n=8192) {unit['median_seconds']:.2f} s"
           + (f"; demo {out['demo_wall_seconds']:.0f} s" if args.demo else ""))
