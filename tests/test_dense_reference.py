@@ -196,3 +196,65 @@ def test_blocked_cholesky_equals_numpy_across_panels():
     np.testing.assert_allclose(a, np.linalg.cholesky(sigma), rtol=1e-10, atol=1e-12)
     bad = np.asfortranarray(-np.eye(200))
     assert blocked_cholesky(bad, panel=64) == 1
+
+
+def test_blocked_cholesky_dsyrk_path_equals_scipy_cho_factor():
+    # the panel path (dsyrk on diagonal blocks, dgemm below) against scipy.linalg.cho_factor
+    # (LAPACK dpotrf in one call), with a ragged last panel
+    import scipy.linalg
+
+    from harness.references.cholesky import blocked_cholesky
+
+    pts = np.random.default_rng(3).random((1000, 2))
+    sigma = Matern32(1.0, 0.1, 1e-2).covariance(pts)
+    for panel in (128, 300, 999):
+        a = np.asfortranarray(np.tril(sigma))
+        assert blocked_cholesky(a, panel=panel) == 0
+        expected = np.tril(scipy.linalg.cho_factor(sigma, lower=True)[0])
+        np.testing.assert_allclose(a, expected, rtol=1e-10, atol=1e-13)
+
+
+@pytest.mark.parametrize("relative", [0.0, 1e-13, 1e-11, 1e-9, 1e-7])
+def test_randomized_certificate_bounds_the_dpot01_ratio(relative):
+    # A factor with a known perturbation: L~ = L + delta e_i e_j', so the full DPOT01
+    # ratio ||Sigma - L~ L~'||_1 / (n ||Sigma||_1 eps) (LAPACK TESTING/LIN/dpot01.f) is
+    # computed exactly by dpot01_ratio; the randomized value must bound it (Halko,
+    # Martinsson and Tropp 2011, Lemma 4.1: failure probability 1e-4 per call with 4
+    # probes) and not be looser than the worst case sqrt(n) 10 sqrt(2/pi) (+ the
+    # rounding floor of forming (L L' - Sigma) Z, below 10 in these units).
+    pts = np.random.default_rng(4).random((400, 2))
+    chol = DenseCholesky(pts, Matern32(1.0, 0.15, 1e-2), certify=False)
+    chol.factor[57, 21] *= 1.0 + relative
+    full = chol.dpot01_ratio()
+    for seed in range(3):
+        bound = chol.randomized_ratio(rng=seed)
+        assert np.isfinite(bound) and bound >= full, (relative, full, bound)
+        assert bound <= np.sqrt(400) * 10 * np.sqrt(2 / np.pi) * full + 10.0, (full, bound)
+    # the two certificates agree on pass / fail away from the threshold
+    if full < 1.0:
+        assert chol.randomized_ratio(rng=9) < 30
+    if full > 30 * np.sqrt(400) * 10:
+        assert chol.randomized_ratio(rng=9) > 30
+
+
+def test_certificate_methods_and_their_options():
+    pts = np.random.default_rng(5).random((300, 2))
+    kernel = Matern32(1.0, 0.2, 0.05)
+    fast = DenseCholesky(pts, kernel)  # default: randomized
+    full = DenseCholesky(pts, kernel, certificate_method="dpot01")
+    assert fast.certificate_method == "randomized" and full.certificate_method == "dpot01"
+    assert full.certificate <= fast.certificate < 30
+    assert full.certificate == pytest.approx(full.dpot01_ratio())
+    assert set(fast.seconds) >= {"assemble", "factor", "certify"}
+    with pytest.raises(ValueError, match="certificate_method must be one of"):
+        DenseCholesky(pts, kernel, certificate_method="exact")
+    with pytest.raises(ValueError, match="probes must be a positive integer"):
+        DenseCholesky(pts, kernel, probes=0)
+
+
+def test_randomized_certificate_failure_is_an_error(monkeypatch):
+    pts = np.random.default_rng(6).random((80, 2))
+    monkeypatch.setattr(cholesky_module.DenseCholesky, "randomized_ratio",
+                        lambda self, **kw: 1e3)
+    with pytest.raises(CertificateError, match="random probes"):
+        DenseCholesky(pts, Matern32(1.0, 0.2, 0.05))
