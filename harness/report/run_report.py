@@ -30,6 +30,7 @@ from harness.analysis.scaling_table import (
 from harness.audit.verdict import COMMON_PRACTICE, ThresholdError, Thresholds, VerdictSet, judge
 from harness.report import figures
 from harness.report.condense import collapse_notes
+from harness.report.labels import TERMS
 from harness.report.run_summary import (
     DOES_NOT_PAY,
     dataset_summary,
@@ -285,7 +286,7 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "load_notes": [note.line() for note in collapse_notes(run.notes)],
         "case_text": _case_text(meta),
         "comparison": _comparison_context(comparison) if comparison is not None else None,
-        "dataset_summary": html_table(dataset_summary(results)),
+        "dataset_summary": html_table(dataset_summary(results)), "terms": TERMS,
         "results": html_table(_results_table(results)), "results_href": results_href,
         "n_columns": int(len(_results_table(results).columns)),
     }
