@@ -89,16 +89,17 @@ def evaluate_with_solver(solver: str, points: np.ndarray, y: np.ndarray, kernel:
         raise EvaluationError(
             f"--separable is supported with --solver kronecker or dense, not {solver!r}")
     if solver == "dense":
-        model = SeparableKernel(kernel) if options.separable else kernel
+        model: Any = SeparableKernel(kernel) if options.separable else kernel
         ev = dense_evaluate(points, y, model, mean=mean, reml=reml, score=score,
                             fisher=fisher, memory_budget=options.memory_budget)
         return _from_reference(solver, ev)
     if solver == "statespace":
-        reference = StateSpaceReference(points, kernel)
+        statespace = StateSpaceReference(points, kernel)
         if fisher:
             raise EvaluationError("--fisher is not available with --solver statespace; "
                                   "use --solver dense at moderate n")
-        return _from_reference(solver, reference.evaluate(y, mean=mean, reml=reml, score=score))
+        return _from_reference(solver, statespace.evaluate(y, mean=mean, reml=reml,
+                                                           score=score))
     if solver == "kronecker":
         if not options.separable:
             raise EvaluationError(
@@ -144,7 +145,7 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
         raise EvaluationError(str(exc)) from exc
     seconds = {"factor": seconds_factor, **ev.seconds}
     trace_info: dict[str, Any] | None = None
-    if ev.score is not None:
+    if ev.score is not None and ev.trace_terms is not None and ev.trace_stderr is not None:
         trace_info = {
             "method": ev.trace_method, "probes": ev.probes, "solves": ev.solves,
             "matvecs": ev.matvecs,
