@@ -102,34 +102,83 @@ FAMILY_FUNCTIONS = {
 }
 
 
-@numba.njit(parallel=True, fastmath=True)
-def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
-                     scale: float, out: np.ndarray) -> None:
-    """out[i, j] = scale * rho(||xs_i - ys_j||) for pre-scaled coordinates (x / l).
+#: compiled family name -> integer code (numba caches functions of plain arguments only)
+FAMILY_CODES = {"exponential": 0, "matern32": 1, "matern52": 2, "gaussian": 3,
+                "rational_quadratic": 4}
+_CODE_OF = {fn: FAMILY_CODES[name] for name, pair in FAMILY_FUNCTIONS.items() for fn in pair}
+_PARALLEL = {"cache": True, "fastmath": True, "parallel": True}
 
-    ``out`` may be C- or Fortran-ordered; the loop runs over columns in parallel.
+
+@numba.njit(cache=True, fastmath=True, nogil=True)
+def apply_rho(family, shape, scale, buf, j0, j1):
+    """buf[j] <- scale * rho(buf[j]) for j0 <= j < j1 (buf holds squared scaled distances).
+
+    One branch on the family code outside each loop, so every family's loop is
+    branch-free (a switch inside the inner loop ran 7x slower, measured at n = 8,000).
     """
-    m, d = xs.shape
-    n = ys.shape[0]
-    for j in numba.prange(n):
+    if family == 0:
+        for j in range(j0, j1):
+            buf[j] = scale * _exponential(buf[j], shape)
+    elif family == 1:
+        for j in range(j0, j1):
+            buf[j] = scale * _matern32(buf[j], shape)
+    elif family == 2:
+        for j in range(j0, j1):
+            buf[j] = scale * _matern52(buf[j], shape)
+    elif family == 3:
+        for j in range(j0, j1):
+            buf[j] = scale * _gaussian(buf[j], shape)
+    else:
+        for j in range(j0, j1):
+            buf[j] = scale * _rational_quadratic(buf[j], shape)
+
+
+@numba.njit(cache=True, fastmath=True, nogil=True)
+def _apply_rho_slope(family, shape, q, values, slopes):
+    """values[i], slopes[i] <- rho(q_i), s(q_i), one family branch outside the loop."""
+    m = q.shape[0]
+    if family == 0:
         for i in range(m):
-            q = 0.0
-            for k in range(d):
-                t = xs[i, k] - ys[j, k]
-                q += t * t
-            out[i, j] = scale * rho(q, shape)
+            values[i], slopes[i] = _exponential_slope(q[i], shape)
+    elif family == 1:
+        for i in range(m):
+            values[i], slopes[i] = _matern32_slope(q[i], shape)
+    elif family == 2:
+        for i in range(m):
+            values[i], slopes[i] = _matern52_slope(q[i], shape)
+    elif family == 3:
+        for i in range(m):
+            values[i], slopes[i] = _gaussian_slope(q[i], shape)
+    else:
+        for i in range(m):
+            values[i], slopes[i] = _rational_quadratic_slope(q[i], shape)
 
 
-@numba.njit(parallel=True, fastmath=True)
-def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget: float,
-                         out: np.ndarray) -> None:
-    """Lower triangle (i >= j) of scale * R + nugget * I, in place.
+@numba.njit(inline="always", cache=True, fastmath=True)
+def _squared_distances(xs, y, buf, i0):
+    """buf[i] = ||xs_i - y||^2 for i >= i0, coordinate by coordinate (no cancellation)."""
+    d = xs.shape[1]
+    for i in range(i0, xs.shape[0]):
+        q = 0.0
+        for k in range(d):
+            t = xs[i, k] - y[k]
+            q += t * t
+        buf[i] = q
 
-    Entries above the diagonal are left untouched, which is what ``dpotrf`` with
-    ``lower=True`` reads. Use a Fortran-ordered ``out`` so each column is contiguous.
-    Column j is paired with column n-1-j so both threads get equal work.
-    """
-    n, d = xs.shape
+
+@numba.njit(**_PARALLEL)
+def _fill_correlation(family, xs, ys, shape, scale, out):
+    m = xs.shape[0]
+    for j in numba.prange(ys.shape[0]):
+        buf = np.empty(m)
+        _squared_distances(xs, ys[j], buf, 0)
+        apply_rho(family, shape, scale, buf, 0, m)
+        out[:, j] = buf
+
+
+@numba.njit(**_PARALLEL)
+def _fill_lower_symmetric(family, xs, shape, scale, nugget, out):
+    n = xs.shape[0]
     half = (n + 1) // 2
     for p in numba.prange(half):
         first = np.int64(p)
@@ -137,16 +186,56 @@ def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget
             j = first if side == 0 else n - 1 - first
             if side == 1 and j == first:
                 continue
-            for i in range(j, n):
-                q = 0.0
+            col = out[:, j]
+            _squared_distances(xs, xs[j], col, j)
+            apply_rho(family, shape, scale, col, j, n)
+            col[j] += nugget
+
+
+@numba.njit(**_PARALLEL)
+def _fill_with_derivatives(family, xs, ys, shape, scale, isotropic, out, derivs):
+    m, d = xs.shape
+    for j in numba.prange(ys.shape[0]):
+        q = np.empty(m)
+        values = np.empty(m)
+        slopes = np.empty(m)
+        _squared_distances(xs, ys[j], q, 0)
+        _apply_rho_slope(family, shape, q, values, slopes)
+        for i in range(m):
+            out[i, j] = scale * values[i]
+            s = scale * slopes[i]
+            if isotropic:
+                derivs[0, i, j] = s
+            elif q[i] > 0.0:
                 for k in range(d):
-                    t = xs[i, k] - xs[j, k]
-                    q += t * t
-                out[i, j] = scale * rho(q, shape)
-            out[j, j] += nugget
+                    t = xs[i, k] - ys[j, k]
+                    derivs[k, i, j] = s * (t * t) / q[i]
+            else:
+                for k in range(d):
+                    derivs[k, i, j] = 0.0
 
 
-@numba.njit(parallel=True, fastmath=True)
+def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
+                     scale: float, out: np.ndarray) -> None:
+    """out[i, j] = scale * rho(||xs_i - ys_j||) for pre-scaled coordinates (x / l).
+
+    ``rho`` is a compiled closed form of ``FAMILY_FUNCTIONS``; ``out`` may be C- or
+    Fortran-ordered; columns run in parallel (cached compiled code).
+    """
+    _fill_correlation(_CODE_OF[rho], xs, ys, float(shape), float(scale), out)
+
+
+def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget: float,
+                         out: np.ndarray) -> None:
+    """Lower triangle (i >= j) of scale * R + nugget * I, in place.
+
+    Entries above the diagonal are left untouched, which is what ``dpotrf`` with
+    ``lower=True`` reads. ``out`` must be Fortran-ordered (each column contiguous).
+    Column j is paired with column n-1-j so both threads get equal work.
+    """
+    _fill_lower_symmetric(_CODE_OF[rho], xs, float(shape), float(scale), float(nugget), out)
+
+
 def fill_with_derivatives(rho_slope, xs: np.ndarray, ys: np.ndarray, shape: float,
                           scale: float, isotropic: bool, out: np.ndarray,
                           derivs: np.ndarray) -> None:
@@ -155,22 +244,5 @@ def fill_with_derivatives(rho_slope, xs: np.ndarray, ys: np.ndarray, shape: floa
     out[i, j] = scale * rho; derivs[k, i, j] = scale * s(r) * w_k, where w = 1 for an
     isotropic kernel and w_k = (xs_ik - ys_jk)^2 / r^2 otherwise (0 at r = 0).
     """
-    m, d = xs.shape
-    n = ys.shape[0]
-    for j in numba.prange(n):
-        for i in range(m):
-            q = 0.0
-            for k in range(d):
-                t = xs[i, k] - ys[j, k]
-                q += t * t
-            value, s = rho_slope(q, shape)
-            out[i, j] = scale * value
-            if isotropic:
-                derivs[0, i, j] = scale * s
-            elif q > 0.0:
-                for k in range(d):
-                    t = xs[i, k] - ys[j, k]
-                    derivs[k, i, j] = scale * s * (t * t) / q
-            else:
-                for k in range(d):
-                    derivs[k, i, j] = 0.0
+    _fill_with_derivatives(_CODE_OF[rho_slope], xs, ys, float(shape), float(scale),
+                           bool(isotropic), out, derivs)

@@ -23,25 +23,19 @@ from __future__ import annotations
 import numba
 
 from harness.model.kernels.assembly import (
-    _exponential,
+    FAMILY_CODES,
     _exponential_slope,
-    _gaussian,
     _gaussian_slope,
-    _matern32,
     _matern32_slope,
-    _matern52,
     _matern52_slope,
-    _rational_quadratic,
     _rational_quadratic_slope,
+    apply_rho,
 )
 
 VALUE = 0
 SLOPE = 1
 COORD = 2
 
-#: compiled family name -> integer code understood by the routines below
-FAMILY_CODES = {"exponential": 0, "matern32": 1, "matern52": 2, "gaussian": 3,
-                "rational_quadratic": 4}
 
 _FAST = {"cache": True, "fastmath": True, "nogil": True}
 
@@ -70,21 +64,7 @@ def eval_row(family, x, ys, shape, scale, mode, out, j0, j1):
             q += t * t
         out[j] = q
     if mode == VALUE:
-        if family == 0:
-            for j in range(j0, j1):
-                out[j] = scale * _exponential(out[j], shape)
-        elif family == 1:
-            for j in range(j0, j1):
-                out[j] = scale * _matern32(out[j], shape)
-        elif family == 2:
-            for j in range(j0, j1):
-                out[j] = scale * _matern52(out[j], shape)
-        elif family == 3:
-            for j in range(j0, j1):
-                out[j] = scale * _gaussian(out[j], shape)
-        else:
-            for j in range(j0, j1):
-                out[j] = scale * _rational_quadratic(out[j], shape)
+        apply_rho(family, shape, scale, out, j0, j1)
     elif mode == SLOPE:
         for j in range(j0, j1):
             out[j] = scale * _slope(family, out[j], shape)[1]
