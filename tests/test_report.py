@@ -251,8 +251,8 @@ def test_check_report_uses_one_set_of_labels_with_a_legend():
                 "microergodic_shift_se"):
         label = METRIC_LABELS[key]
         assert f"<th>{label.short}" in html.replace("&#39;", "'")
-        assert f"<dt>{label.short}</dt><dd>{label.label}: {label.legend}</dd>" in \
-            html.replace("&#39;", "'")
+        assert (f"<dt>{label.short}</dt><dd>{label.label}: {label.legend} "
+                f"<code>{key}</code></dd>") in html.replace("&#39;", "'")
     for key in ("tol", "seconds", "speedup"):
         assert f"<dt>{COLUMN_LABELS[key].short}</dt>" in html
     assert "the documentation" not in html
