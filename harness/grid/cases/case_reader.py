@@ -304,6 +304,10 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
     check.finish_table(table, path, SOLVER_KEYS)
     name = check.take_str(table, "name", path, required=True)
     tolerances = check.take_list(table, "tolerances", path, item=check.positive_number)
+    for k, tol in enumerate(tolerances or ()):
+        if isinstance(tol, float) and not tol < 1.0:
+            check.problem(f"{path}.tolerances[{k}]", f"expected a tolerance in (0, 1), got "
+                                                     f"{tol!r}")
     max_n = table.get("max_n")
     if max_n is not None:
         max_n = check.positive_int(max_n, f"{path}.max_n")
