@@ -152,3 +152,50 @@ def test_shipped_case_files_are_listed_through_resources():
 def test_from_text_without_file(tmp_path):
     case = case_from_text(MINIMAL, file="<text>", base=tmp_path, default_name="t")
     assert case.name == "t"
+
+
+# -- issue 12: version-free pairing key, [timing] timeout, tolerance range -------------
+
+def test_pair_key_ignores_versions_and_execution_settings(tmp_path):
+    # Defect 1: the pairing key must survive a version bump (common practice: pair on
+    # what the problem is, record versions beside it).
+    from dataclasses import replace
+
+    task = _case(MINIMAL, tmp_path).tasks()[0]
+    assert replace(task, solver_version="9.9").pair_key == task.pair_key
+    assert replace(task, repeats=7, timing_threads=4, timeout=5.0).pair_key == task.pair_key
+    for change in (dict(n=task.n + 1), dict(tol=1e-3), dict(seed=5), dict(case="other"),
+                   dict(solver_options={"leaf_size": 7}), dict(kernel="gaussian")):
+        assert replace(task, **change).pair_key != task.pair_key, change
+
+
+def test_timing_timeout_reaches_every_task_without_changing_keys(tmp_path):
+    plain = _case(MINIMAL, tmp_path).tasks()
+    timed = _case(MINIMAL + "[timing]\ntimeout = 42.5\n", tmp_path, "t.toml").tasks()
+    assert {t.timeout for t in timed} == {42.5} and {t.timeout for t in plain} == {None}
+    assert [t.key for t in timed] == [t.key for t in plain]  # runs stay resumable
+
+
+@pytest.mark.parametrize("value", ["0", "-1", '"abc"', "1e400", "1e9"])
+def test_timing_timeout_is_validated(tmp_path, value):
+    with pytest.raises(CaseFileError, match="timing.timeout"):
+        _case(MINIMAL + f"[timing]\ntimeout = {value}\n", tmp_path)
+
+
+@pytest.mark.parametrize("tol", ["1.0", "2.0"])
+def test_tolerances_must_lie_below_one(tmp_path, tol):
+    with pytest.raises(CaseFileError, match=r"tolerances\[0\]"):
+        _case(MINIMAL.replace("tolerances = [1e-4, 1e-8]", f"tolerances = [{tol}]"), tmp_path)
+
+
+def test_default_timeout_is_generous_and_overridable(tmp_path):
+    from dataclasses import replace
+
+    from harness.grid.runner.deadlines import TIMEOUT_FLOOR_SECONDS, task_timeout
+
+    task = _case(MINIMAL, tmp_path).tasks()[0]
+    assert task_timeout(task) >= TIMEOUT_FLOOR_SECONDS
+    assert task_timeout(replace(task, timeout=9.0)) == 9.0
+    assert task_timeout(replace(task, timeout=9.0), override=3.0) == 3.0
+    with pytest.raises(ValueError, match="--task-timeout"):
+        task_timeout(task, override=-1.0)

@@ -103,3 +103,75 @@ def test_full_disk_is_refused_before_work(tmp_path, monkeypatch):
     monkeypatch.setattr(shutil, "disk_usage", nearly_full)
     with pytest.raises(OutputDirectoryError, match="1,000 bytes free"):
         RunStore(tmp_path / "run").prepare()
+
+
+# -- issue 12: run-directory lock, safe folder names, tables after every task ----------
+
+def test_lock_refuses_a_second_holder_naming_the_process(tmp_path):
+    # Defect 5. Source of the semantics: flock(2), an exclusive lock per open file.
+    import os
+
+    from harness.grid.store import RunDirectoryLocked, RunLock
+
+    with RunLock(tmp_path) as first:
+        assert json.loads(first.path.read_text())["pid"] == os.getpid()
+        with pytest.raises(RunDirectoryLocked, match=f"in use by process {os.getpid()}"):
+            RunLock(tmp_path).acquire()
+    assert (tmp_path / ".covaudit.lock").read_text() == ""  # released: no owner
+    with RunLock(tmp_path) as again:  # free again after release
+        assert again.took_over is None
+
+
+def test_stale_lock_content_is_taken_over(tmp_path, caplog):
+    from harness.grid.store import RunLock
+
+    (tmp_path / ".covaudit.lock").write_text(json.dumps(
+        {"pid": 999999999, "host": "elsewhere", "started": "then"}))
+    with caplog.at_level("WARNING"), RunLock(tmp_path) as lock:
+        assert lock.took_over["pid"] == 999999999
+    assert "took over the stale lock of process 999999999" in caplog.text
+
+
+@pytest.mark.parametrize(("name", "folder"), [
+    ("smoke", "smoke"), ("../../x", "x"), ("/etc/passwd", "etc_passwd"), ("a/b\\c", "a_b_c"),
+    ("..", "run"), ("", "run"), (".hidden", "hidden"), ("x" * 300, "x" * 100),
+    ("tol 1e-4: run!", "tol_1e-4__run"),
+])
+def test_case_names_become_one_safe_folder_name(name, folder):
+    # Defect 4: the default run directory used the case name uncleaned.
+    from harness.grid.store import safe_path_component
+
+    out = safe_path_component(name)
+    assert out == folder
+    assert "/" not in out and "\\" not in out and ".." not in out and not out.startswith(".")
+
+
+def test_tables_are_rewritten_after_every_task(tmp_path):
+    # Defect 9: results.csv was written only at the end of a run.
+    from harness.grid.runner.grid_run import _Recorder
+    from harness.grid.runner.jobs import Job
+
+    class _Backend:
+        name, workers, shared = "serial", 1, False
+
+    store = RunStore(tmp_path)
+    store.prepare()
+    recorder = _Recorder(store, {}, _Backend(), None)
+    recorder.tasks = {"k1": type("T", (), {"timing": False})(),
+                      "k2": type("T", (), {"timing": False})()}
+    for n, key in enumerate(("k1", "k2"), start=1):
+        job = Job(key=key, label=key, stage="accuracy", task={"n": 10, "solver": "s"})
+        recorder.accuracy(job, {"status": "ok", "result": {"metrics": {}}})
+        assert len(pd.read_csv(tmp_path / "results.csv")) == n
+
+
+def test_atomic_files_get_the_umask_mode(tmp_path):
+    # mkstemp creates 0600; results must be readable like any file written with open().
+    import os
+
+    from harness.grid.store import atomic_write_text
+
+    path = atomic_write_text(tmp_path / "t.csv", "a\n")
+    mask = os.umask(0)
+    os.umask(mask)
+    assert path.stat().st_mode & 0o777 == 0o666 & ~mask
