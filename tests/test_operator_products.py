@@ -182,3 +182,16 @@ def test_vectorized_tiles_equal_the_row_routines_to_a_few_ulp(family, mode):
     fill_block(family, xs, ys, 0.0, 1.7, mode, want)
     fill_tile(family, xs, ys, 0.0, 1.7, mode, got)
     np.testing.assert_allclose(got, want, rtol=4e-15, atol=1e-290)
+
+
+def test_progress_bar_on_request_and_silent_otherwise(problem, capsys):
+    x, b = problem
+    kernel = Matern32(1.0, 0.2, 0.01)
+    want = KernelOperator(x, kernel, tile=100, progress=False).matvec(b)
+    assert capsys.readouterr().err == ""
+    got = KernelOperator(x, kernel, tile=100, progress=True).matvec(b)
+    err = capsys.readouterr().err
+    assert "exact product" in err and "round" in err
+    assert np.array_equal(got, want)
+    KernelOperator(x, kernel, tile=100).matvec(b)      # None: stderr is not a terminal here
+    assert capsys.readouterr().err == ""
