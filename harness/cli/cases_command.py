@@ -40,7 +40,7 @@ def run(args: argparse.Namespace) -> int:
     rate = None if args.no_probe else measure_dense_rate(rng=0)
     grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate,
                          load_factor=1.0 if args.no_probe else contention())
-    rows = [{"key": task.key, "label": task.label, **cost.to_dict()}
+    rows: list[dict[str, Any]] = [{"key": task.key, "label": task.label, **cost.to_dict()}
             for task, cost in zip(tasks, grid.tasks, strict=True)]
     if args.json:
         print(json.dumps({"case": case.name, "tasks": rows, "estimate": grid.to_dict()},

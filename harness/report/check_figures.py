@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 from matplotlib.axes import Axes
@@ -21,13 +22,13 @@ from harness.report.labels import metric_label
 from harness.report.style import THRESHOLD_STYLE, figure_rc
 
 #: Marker of each verdict: shape and fill differ, so grey-scale prints keep them apart.
-VERDICT_MARKERS: dict[str, dict[str, object]] = {
+VERDICT_MARKERS: dict[str, dict[str, Any]] = {
     "safe": {"marker": "o", "markerfacecolor": "#0072B2", "markeredgecolor": "#0072B2"},
     "unsafe": {"marker": "X", "markerfacecolor": "#D55E00", "markeredgecolor": "#000000"},
     "unresolved": {"marker": "s", "markerfacecolor": "white",
                    "markeredgecolor": "#444444"},
 }
-RECOMMENDED_STYLE = {"color": "#000000", "linestyle": (0, (1, 2)), "linewidth": 1.4}
+RECOMMENDED_STYLE: dict[str, Any] = {"color": "#000000", "linestyle": (0, (1, 2)), "linewidth": 1.4}
 #: Metrics drawn against tolerance (those with a limit, then the microergodic shift).
 ERROR_METRICS: tuple[str, ...] = ("loglik_error", "loglik_error_extrapolated",
                                   "param_shift_se", "kriging_mean_sd",
@@ -89,7 +90,8 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                 limit = m.threshold if m.threshold is not None else limit
                 err = 2 * m.uncertainty if m.uncertainty and math.isfinite(
                     m.uncertainty) else None
-                ax.errorbar([row.tol], [value], yerr=None if err is None else [[0], [err]],
+                yerr = None if err is None else np.array([[0.0], [err]])
+                ax.errorbar([row.tol], [value], yerr=yerr,
                             linestyle="none", color="#444444", capsize=2, markersize=6,
                             **VERDICT_MARKERS[verdict])
                 tols.append(row.tol)
@@ -115,22 +117,23 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
             if r.speedup is not None and math.isfinite(r.speedup) and r.speedup > 0]
     if not rows:
         return None
+    speedups = [float(r.speedup or 0.0) for r in rows]
     with figure_rc():
         fig = Figure(figsize=(7.2, 2.6), layout="constrained")
         ax = fig.add_subplot()
-        ax.plot([r.tol for r in rows], [r.speedup for r in rows], color="#0072B2",
+        ax.plot([r.tol for r in rows], speedups, color="#0072B2",
                 linewidth=1.0, zorder=0)
         seen = []
-        for r in rows:
+        for r, speedup in zip(rows, speedups, strict=True):
             verdict = verdict_of(r)
             seen.append(verdict)
-            ax.plot([r.tol], [r.speedup], linestyle="none", markersize=7,
+            ax.plot([r.tol], [speedup], linestyle="none", markersize=7,
                     **VERDICT_MARKERS[verdict])
         ax.axhline(1.0, **THRESHOLD_STYLE)
         ax.annotate("break-even: below this line the reference is faster",
                     xy=(0.01, 1.0), xycoords=("axes fraction", "data"), ha="left",
                     va="bottom", fontsize=7)
-        ax.set_ylim(bottom=0, top=1.15 * max(1.0, max(r.speedup for r in rows)))
+        ax.set_ylim(bottom=0, top=1.15 * max(1.0, *speedups))
         _log_x(ax)
         _mark_recommended(ax, result.recommended_tolerance)
         ax.set_ylabel(f"speed-up over {result.speedup_over} (\u00d7)")

@@ -143,7 +143,7 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
     present = {m.name for row in result.tolerances for m in row.metrics}
     names = [n for n in TABLE_ORDER if n in present] + sorted(
         present - set(TABLE_ORDER))
-    limits = {}
+    limits: dict[str, float] = {}
     for row in result.tolerances:
         for m in row.metrics:
             if m.threshold is not None:

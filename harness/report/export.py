@@ -132,6 +132,8 @@ def methods_paragraph(run: RunData, rows: Sequence[ScalingRow], *, level: float 
         pieces = []
         for r in fitted:
             f = r.fit
+            if f is None:
+                continue
             text = (f"{r.label}, {PHASE_WORDS.get(r.metric, r.metric)}: b = {f.slope:.2f} "
                     f"[{f.ci_low:.2f}, {f.ci_high:.2f}]")
             if not math.isnan(f.boot_low):
@@ -143,6 +145,8 @@ def methods_paragraph(run: RunData, rows: Sequence[ScalingRow], *, level: float 
                    and math.isfinite(r.crossover.fitted) and r.metric == "t_total"]
         for r in crosses:
             c = r.crossover
+            if c is None:
+                continue
             ci = "" if math.isnan(c.low) else f" ({100 * level:g}% bootstrap interval " \
                 f"{c.low:.3g} to {c.high:.3g})"
             parts.append(f"The fitted total time of {r.label} falls below the dense "

@@ -99,7 +99,7 @@ def _slow_recommendations(vs: VerdictSet) -> int:
 
 
 def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
-    records: dict[tuple[str, float], dict[str, object]] = {}
+    records: dict[tuple[str, float], dict[str, Any]] = {}
     for v in vs.verdicts:
         rec = records.setdefault((v.solver, v.tol), {
             "solver": v.solver, "tol": v.tol, "\u2714 safe": 0, "\u2718 unsafe": 0,

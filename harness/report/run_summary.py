@@ -99,10 +99,11 @@ def environment_summary(meta: Mapping[str, Any]) -> pd.DataFrame:
     env: Mapping[str, Any] = meta.get("environment") or {}
     if not isinstance(env, Mapping):
         env = {}
-    cpu = env.get("cpu") if isinstance(env.get("cpu"), Mapping) else {}
-    versions = env.get("versions") if isinstance(env.get("versions"),
-                                                        Mapping) else {}
-    backend = meta.get("backend") if isinstance(meta.get("backend"), Mapping) else {}
+    cpu: Mapping[str, Any] = env["cpu"] if isinstance(env.get("cpu"), Mapping) else {}
+    versions: Mapping[str, Any] = env["versions"] if isinstance(env.get("versions"),
+                                                                Mapping) else {}
+    backend: Mapping[str, Any] = meta["backend"] if isinstance(meta.get("backend"),
+                                                               Mapping) else {}
     memory = cpu.get("memory_bytes")
     rows = [
         ("machine", " ".join(str(cpu.get(k, "")) for k in ("model", "machine")).strip()),

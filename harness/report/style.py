@@ -14,6 +14,7 @@ import io
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
+from typing import Any
 
 import matplotlib as mpl
 from matplotlib.figure import Figure
@@ -22,9 +23,10 @@ PALETTE: tuple[str, ...] = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00
                             "#56B4E9", "#000000")
 MARKERS: tuple[str, ...] = ("o", "s", "^", "D", "v", "P", "X", "*")
 LINESTYLES: tuple[str, ...] = ("-", "--", "-.", ":")
-THRESHOLD_STYLE = {"color": "#444444", "linestyle": (0, (6, 3)), "linewidth": 1.2}
+THRESHOLD_STYLE: dict[str, Any] = {"color": "#444444", "linestyle": (0, (6, 3)),
+                                   "linewidth": 1.2}
 
-RC: dict[str, object] = {
+RC: dict[str, Any] = {
     "svg.hashsalt": "covaudit",
     "svg.fonttype": "path",
     "pdf.fonttype": 42,
@@ -48,7 +50,7 @@ class SeriesStyle:
     marker: str
     linestyle: str
 
-    def kwargs(self) -> dict[str, object]:
+    def kwargs(self) -> dict[str, Any]:
         return {"color": self.color, "marker": self.marker, "linestyle": self.linestyle}
 
 
@@ -66,7 +68,7 @@ def plain(text: object) -> str:
 @contextmanager
 def figure_rc() -> Iterator[None]:
     """The fixed rc settings under which covaudit draws and saves figures."""
-    with mpl.rc_context(RC):
+    with mpl.rc_context(RC):  # type: ignore[arg-type]  # the stubs list every rc key
         yield
 
 
