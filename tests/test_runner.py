@@ -227,3 +227,21 @@ def test_beyond_the_dense_budget_without_another_reference_is_skipped(tmp_path):
     for record in store.records().values():
         assert record["status"] == "skipped"
         assert "dense reference at n = 80" in record["skip_reason"]
+
+
+def test_serial_runs_in_one_reused_child_process(tmp_path, plugin_dir):
+    # Issue 12: serial means one at a time, not in-process; the worker is reused, so the
+    # start-up (imports) is paid once, not per task.
+    import os
+
+    text = FAULTS.replace('[[solvers]]\nname = "faulty_plugin:factorize"\n'
+                          'options = { mode = "crash" }\n', "")
+    tasks = _case(tmp_path, text).tasks()
+    store = RunStore(tmp_path / "out")
+    backend = SerialBackend()
+    try:
+        run_grid(tasks, store, backend)
+    finally:
+        backend.close()
+    pids = {r["worker"]["pid"] for r in store.records().values()}
+    assert len(pids) == 1 and os.getpid() not in pids
