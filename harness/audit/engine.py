@@ -38,7 +38,7 @@ import statistics
 import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Protocol
+from typing import TYPE_CHECKING, Protocol, runtime_checkable
 
 import numpy as np
 
@@ -411,6 +411,11 @@ class ValueReference(Protocol):
     def values(self) -> ReferenceValues: ...
 
 
+@runtime_checkable
+class _HasValues(Protocol):
+    def values(self) -> ReferenceValues: ...
+
+
 @dataclass(frozen=True)
 class SeedAudit:
     """One tolerance on one seed of the solver: metric values and judgements."""
@@ -590,8 +595,8 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
         failures: list[str] = []
         ref: ReferenceSides | ReferenceValues | None
         try:
-            ref = (reference.values() if hasattr(reference, "values")
-                   else reference.sides(tol))  # type: ignore[union-attr]
+            ref = (reference.values() if isinstance(reference, _HasValues)
+                   else reference.sides(tol))
         except (SolverRuntimeError, SolverOutputError, np.linalg.LinAlgError) as exc:
             failures.append(f"the {reference.info.kind} reference failed at tol {tol:g}: {exc}")
             ref = None
@@ -603,7 +608,7 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                     rows.append(_value_seed_audit(index, seed, tol, data, solver,
                                                   solver_options or {}, ref,
                                                   getattr(reference, "probes", 64), th))
-                else:
+                elif ref is not None:
                     rows.append(_seed_audit(index, seed, tol, data, solver,
                                             solver_options or {}, ref, th))
             except (SolverRuntimeError, SolverOutputError, SolverProtocolError,

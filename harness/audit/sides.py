@@ -32,6 +32,7 @@ from harness.likelihood.whitening import fit_mean
 from harness.model import design_matrix
 from harness.model.kernels import Kernel
 from harness.references import DenseCholesky
+from harness.solvers.protocol import Factorization
 
 _ROWS = 1024
 
@@ -86,7 +87,7 @@ def _dense_derivative_products(points: np.ndarray, kernel: Kernel, vectors: np.n
     return out
 
 
-def kriging_weights(fac: object, points: np.ndarray, kernel: Kernel, new_points: np.ndarray,
+def kriging_weights(fac: Factorization, points: np.ndarray, kernel: Kernel, new_points: np.ndarray,
                     *, mean: str) -> np.ndarray:
     """Universal-kriging weights lambda (n x m) of the factorization's model.
 
@@ -94,36 +95,38 @@ def kriging_weights(fac: object, points: np.ndarray, kernel: Kernel, new_points:
     (Cressie 1993, eq. 3.4.59; the second term vanishes for the zero mean).
     """
     cross = kernel.cross_covariance(points, new_points)
-    lam = np.asarray(fac.solve(cross))  # type: ignore[attr-defined]
+    lam = np.asarray(fac.solve(cross))
     design = design_matrix(points, mean)
     if design.shape[1]:
-        sf = np.asarray(fac.solve(design))  # type: ignore[attr-defined]
+        sf = np.asarray(fac.solve(design))
         gram = design.T @ sf
         u = design_matrix(new_points, mean).T - design.T @ lam
         lam = lam + sf @ np.linalg.solve(gram, u)
     return lam
 
 
-def evaluate_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
+def evaluate_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
                   *, mean: str, probes: np.ndarray, factor_seconds: float) -> Side:
     """Reduce ``fac`` (of Sigma at ``kernel``'s parameters, all points) to a ``Side``."""
     seconds = {"factor": factor_seconds}
     t0 = time.perf_counter()
-    logdet = float(fac.logdet())  # type: ignore[attr-defined]
+    logdet = float(fac.logdet())
     design = design_matrix(points, mean)
     fit, _ = fit_mean(fac, y, design, logdet)
     seconds["loglik"] = time.perf_counter() - t0
     t0 = time.perf_counter()
-    a = np.asarray(fac.solve(y - design @ fit.beta))  # type: ignore[attr-defined]
+    a = np.asarray(fac.solve(y - design @ fit.beta))
     stacked = np.column_stack([a, probes])
     if isinstance(fac, DenseCholesky):
         prods = _dense_derivative_products(points, kernel, stacked)
     else:
-        prods = np.stack([np.asarray(fac.derivative_matvec(i, stacked))  # type: ignore[attr-defined]
+        # Solvers come adapted (harness.solvers.fallback), which always offers it.
+        derivative_matvec = getattr(fac, "derivative_matvec")  # noqa: B009
+        prods = np.stack([np.asarray(derivative_matvec(i, stacked))
                           for i in range(kernel.n_params)])
     quad = prods[:, :, 0] @ a
     p, n, k = kernel.n_params, points.shape[0], probes.shape[1]
-    solved = np.asarray(fac.solve(  # type: ignore[attr-defined]
+    solved = np.asarray(fac.solve(
         np.moveaxis(prods[:, :, 1:], 0, 1).reshape(n, p * k)))
     sinv = np.moveaxis(solved.reshape(n, p, k), 1, 0)
     seconds["extras"] = time.perf_counter() - t0
@@ -132,7 +135,7 @@ def evaluate_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, ker
                 nbytes=int(getattr(fac, "nbytes", 0)))
 
 
-def kriging_side(name: str, fac: object, points: np.ndarray, y: np.ndarray, kernel: Kernel,
+def kriging_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
                  new_points: np.ndarray, *, mean: str) -> KrigingSide:
     """Kriging at ``new_points`` by ``fac``, a factorization of Sigma at ``points`` (the
     points other than the held-out ones)."""

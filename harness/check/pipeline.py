@@ -74,6 +74,7 @@ from harness.model.kernels import Kernel, make_kernel
 from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
 from harness.references.budget import check_dense_budget
 from harness.solvers.plugins import SolverLoadError
+from harness.solvers.protocol import Factorization
 from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver
 
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
@@ -492,11 +493,11 @@ def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,
     return out
 
 
-def evaluate_loglik(fac: object, y: np.ndarray, design: np.ndarray) -> float:
+def evaluate_loglik(fac: Factorization, y: np.ndarray, design: np.ndarray) -> float:
     """GLS profile log-likelihood through a factorization."""
     from harness.likelihood.whitening import fit_mean
 
-    return float(fit_mean(fac, y, design, float(fac.logdet()))[0].loglik)  # type: ignore[attr-defined]
+    return float(fit_mean(fac, y, design, float(fac.logdet()))[0].loglik)
 
 
 def _with_growth(row: ToleranceResult, entry: Mapping[str, Any] | None) -> ToleranceResult:
