@@ -258,3 +258,17 @@ def test_randomized_certificate_failure_is_an_error(monkeypatch):
                         lambda self, **kw: 1e3)
     with pytest.raises(CertificateError, match="random probes"):
         DenseCholesky(pts, Matern32(1.0, 0.2, 0.05))
+
+
+def test_budget_counts_panel_and_certificate_temporaries():
+    # n^2 doubles for the factor, plus one n x 4,096 panel and four 4,096^2 blocks above
+    # n = 8,192, plus four n x 1,024 certificate blocks; 5% allowance (common practice)
+    from harness.references import dense_bytes_needed, largest_dense_n
+
+    n = 16000
+    expected = 1.05 * 8 * (n * n + n * 4096 + 4 * 4096**2 + n * 4096)
+    assert dense_bytes_needed(n) == int(expected)
+    assert dense_bytes_needed(4000) == int(1.05 * 8 * (4000**2 + 4000 * 4000))
+    budget = 12 * 2**30
+    fits = largest_dense_n(budget)
+    assert dense_bytes_needed(fits) <= budget < dense_bytes_needed(fits + 100)

@@ -18,24 +18,47 @@ def default_memory_budget() -> int:
     return int(DEFAULT_BUDGET_FRACTION * psutil.virtual_memory().available)
 
 
+#: Temporaries besides the squares, in doubles: above n = 8,192 the panel factorization
+#: (``cholesky.blocked_cholesky``) holds one n x 4,096 panel and four 4,096 x 4,096
+#: blocks; the certificate holds four n x 1,024 column blocks (Sigma's block, its
+#: absolute value, products).
+_PANEL = 4096
+_CERTIFICATE_COLUMNS = 4 * 1024
+_SINGLE_CALL_N = 8192
+
+
+def _squares(score: bool, fisher: bool, n_params: int) -> int:
+    return 1 + (1 if (score or fisher) else 0) + (n_params if fisher else 0)
+
+
+def _temporary_doubles(n: int) -> int:
+    panel = n * _PANEL + 4 * _PANEL * _PANEL if n > _SINGLE_CALL_N else 0
+    return panel + n * min(n, _CERTIFICATE_COLUMNS)
+
+
 def dense_bytes_needed(n: int, *, score: bool = False, fisher: bool = False,
                        n_params: int = 0) -> int:
     """Peak bytes of a dense evaluation at n points.
 
     The factor is one n x n float64 array (assembled and factored in place); exact
     traces need Sigma^-1 (a second n x n); the Fisher information keeps
-    Sigma^-1 dSigma/dtheta_i for every parameter (p more). Row blocks of derivatives and
-    O(n) vectors are covered by a 5% allowance.
+    Sigma^-1 dSigma/dtheta_i for every parameter (p more). The factorization's panels
+    and the certificate's column blocks add ``_temporary_doubles(n)`` doubles;
+    O(n) vectors and smaller blocks are covered by a 5% allowance.
     """
-    squares = 1 + (1 if (score or fisher) else 0) + (n_params if fisher else 0)
-    return int(1.05 * squares * 8 * n * n)
+    squares = _squares(score, fisher, n_params)
+    return int(1.05 * 8 * (squares * n * n + _temporary_doubles(n)))
 
 
 def largest_dense_n(budget: int, *, score: bool = False, fisher: bool = False,
                     n_params: int = 0) -> int:
     """The largest n whose dense evaluation fits in ``budget`` bytes."""
-    squares = 1 + (1 if (score or fisher) else 0) + (n_params if fisher else 0)
-    return int((budget / (1.05 * squares * 8)) ** 0.5)
+    squares = _squares(score, fisher, n_params)
+    n = int((budget / (1.05 * squares * 8)) ** 0.5)
+    while n > 0 and dense_bytes_needed(n, score=score, fisher=fisher,
+                                       n_params=n_params) > budget:
+        n -= max(1, n // 1000)
+    return n
 
 
 def check_dense_budget(n: int, *, budget: int | None, score: bool = False,

@@ -68,7 +68,7 @@ def blocked_cholesky(a: np.ndarray, *, panel: int | None = None) -> int:
     whole matrix crashed inside OpenBLAS 0.3.30's threaded dpotrf at n = 26,100 on
     this machine (segmentation fault; one thread, or n <= 8,192, ran fine), so
     matrices above ``CHOLESKY_PANEL`` never go to a single call; below it the single
-    call is used. Temporaries stay at a few (n x panel) doubles.
+    call is used. Temporaries: one (n x panel) block and a few (panel x panel) ones.
 
     Parameters
     ----------
@@ -86,7 +86,8 @@ def blocked_cholesky(a: np.ndarray, *, panel: int | None = None) -> int:
         panel = n if n <= CHOLESKY_PANEL else _BLOCKED_PANEL
     for k0 in range(0, n, panel):
         k1 = min(n, k0 + panel)
-        diag, info = lapack.dpotrf(np.asfortranarray(a[k0:k1, k0:k1]), lower=1, clean=1)
+        diag, info = lapack.dpotrf(np.asfortranarray(a[k0:k1, k0:k1]), lower=1, clean=1,
+                                   overwrite_a=1)
         if info != 0:
             return k0 + info if info > 0 else info
         a[k0:k1, k0:k1] = diag
@@ -101,8 +102,9 @@ def blocked_cholesky(a: np.ndarray, *, panel: int | None = None) -> int:
             a[j0:j1, j0:j1] = blas.dsyrk(-1.0, rows, beta=1.0,
                                          c=np.asfortranarray(a[j0:j1, j0:j1]), lower=1,
                                          overwrite_c=1)
-            if j1 < n:
-                a[j1:, j0:j1] -= below[j1 - k1:] @ rows.T
+            for i0 in range(j1, n, panel):  # row chunks keep the product at panel^2
+                i1 = min(n, i0 + panel)
+                a[i0:i1, j0:j1] -= below[i0 - k1:i1 - k1] @ rows.T
     for j in range(1, n):
         a[:j, j] = 0.0  # contiguous in Fortran order
     return 0
