@@ -114,16 +114,16 @@ class _Recorder:
             self.progress(GridEvent(kind="done", label=label, status=status, stage=stage))
 
     def _timing_context(self, concurrent: int) -> dict[str, Any]:
-        context = {"concurrent_tasks": concurrent, "backend": self.backend.name,
-                   "shared_cluster": self.backend.shared, "warnings": []}
+        warnings: list[str] = []
         if concurrent > 1:
-            context["warnings"].append(
+            warnings.append(
                 f"timed while up to {concurrent} tasks ran concurrently "
                 "(timing.exclusive = false): expect inflated, noisy times")
         if self.backend.shared:
-            context["warnings"].append("timed on a shared Dask cluster: other clients' work "
-                                       "may have run alongside")
-        return context
+            warnings.append("timed on a shared Dask cluster: other clients' work "
+                            "may have run alongside")
+        return {"concurrent_tasks": concurrent, "backend": self.backend.name,
+                "shared_cluster": self.backend.shared, "warnings": warnings}
 
     def accuracy(self, job: Job, outcome: dict[str, Any]) -> None:
         task = self.tasks[job.key]

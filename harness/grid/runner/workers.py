@@ -262,9 +262,10 @@ class WorkerPool:
                                                                for w in busy]
                 ready = set(wait(handles, timeout=wait_for))
                 for worker in list(busy):
-                    job = worker.job
-                    if job is None:  # pragma: no cover - a busy worker always has a job
+                    current = worker.job
+                    if current is None:  # pragma: no cover - a busy worker always has a job
                         continue
+                    job = current
                     outcome: dict[str, Any] | None = None
                     keep = False
                     if worker.conn in ready:
