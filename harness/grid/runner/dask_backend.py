@@ -44,7 +44,7 @@ class DaskBackend:
             self.workers = max(1, sum(int(w.get("nthreads", 1))
                                       for w in info.get("workers", {}).values()))
         else:
-            if local_workers < 1:
+            if local_workers is None or local_workers < 1:
                 raise ValueError(f"--dask-local must be >= 1, got {local_workers}")
             with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
                 self._cluster = LocalCluster(
