@@ -1,7 +1,7 @@
 """Structured exact references at a million points (run: pytest tests/bench --benchmark-only).
 
-Targets: Kalman log-likelihood + finite-difference score at n = 1e6 under 30 s per
-family; Kronecker log-likelihood + analytic score on a 1000 x 1000 grid under 60 s.
+Targets: Kalman log-likelihood + analytic (sensitivity-recursion) score at n = 1e6
+under 30 s per family; Kronecker log-likelihood + analytic score on a 1000 x 1000 grid under 60 s.
 """
 
 import numpy as np
