@@ -28,6 +28,9 @@ from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
 from harness.model.kernels import KERNELS, KernelParameterError
 
+#: Built-in references and solvers evaluated in this process; anything else is a plugin.
+IN_PROCESS_SOLVERS = frozenset({"dense", "statespace", "kronecker", "hodlr", "operator"})
+
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p = subparsers.add_parser(
@@ -157,7 +160,8 @@ def run(args: argparse.Namespace) -> int:
         if args.solver != "operator" and (args.dask_local is not None
                                           or args.scheduler is not None):
             raise EvaluationError("--dask-local and --scheduler apply to --solver operator")
-        if ":" in args.solver:  # a plugin: in a child process, so a crash is reported
+        if args.solver not in IN_PROCESS_SOLVERS:  # plugins (module:factory or entry
+            # points) run in a child process, so a crash or a hang is reported
             outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
                                     kernel, mean=args.mean, reml=args.reml,
                                     score=not args.no_score, fisher=args.fisher,
