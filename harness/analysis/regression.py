@@ -42,6 +42,7 @@ from scipy import stats
 
 from harness.analysis.load import RunData
 from harness.grid.store.columns import ACCURACY_COLUMNS, PHASES
+from harness.model.json_values import json_text
 
 COMPARISON_FILE = "comparison.json"
 
@@ -453,23 +454,10 @@ def write_comparison(comparison: Comparison, path: str | Path) -> Path:
     if p.is_dir():
         p = p / COMPARISON_FILE
     tmp = p.with_suffix(".json.tmp")
-    tmp.write_text(json.dumps(_json_safe(comparison.to_dict()), indent=2, sort_keys=True)
+    tmp.write_text(json_text(comparison, sort_keys=True)
                    + "\n", encoding="utf-8")
     tmp.replace(p)
     return p
-
-
-def _json_safe(value: object) -> object:
-    """NaN and infinities become null (strict JSON); containers are walked."""
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    if isinstance(value, dict):
-        return {str(k): _json_safe(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_json_safe(v) for v in value]
-    if isinstance(value, np.generic):
-        return _json_safe(value.item())
-    return value
 
 
 def _finding(data: Mapping[str, Any]) -> Finding:

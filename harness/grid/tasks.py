@@ -23,12 +23,13 @@ cell therefore sees the same data, and any cell reruns alone with identical stre
 from __future__ import annotations
 
 import hashlib
-import json
 from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
+
+from harness.model.json_values import canonical_json
 
 #: Names of the child streams of a task's data SeedSequence, in spawn order.
 STREAMS: tuple[str, ...] = ("points", "sample", "holdout", "probes", "power", "solver")
@@ -51,11 +52,6 @@ UNKEYED_FIELDS: tuple[str, ...] = ("timeout",)
 
 #: Reference kinds in decreasing trust (DESIGN section 4); ``ladder`` is the stand-in.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
-
-
-def canonical_json(value: Any) -> str:
-    """JSON with sorted keys and no whitespace: the form that is hashed."""
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), allow_nan=False)
 
 
 def _digest(value: Any) -> str:

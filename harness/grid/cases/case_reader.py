@@ -54,13 +54,16 @@ from harness.grid.cases.case_schema import Checker
 from harness.grid.cases.problems import CaseFileError, CaseProblem
 from harness.grid.cases.units import parse_bytes
 from harness.grid.tasks import METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec
-from harness.model.kernels import KERNELS, KernelParameterError, make_kernel
+from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError, make_kernel
 from harness.model.mean import MEAN_MODELS
 
 TOP_KEYS = ("name", "description", "seeds", "pointsets", "kernels", "mean", "solvers",
             "trace", "metrics", "timing", "reference", "budget")
 POINTSET_KEYS = ("name", "generator", "options", "sizes", "dims", "file", "columns", "values")
-KERNEL_KEYS = ("family", "variance", "lengthscale", "nugget", "nu", "alpha", "separable")
+#: Keys of a ``[[kernels]]`` table: the family, every parameter any family declares
+#: (``Kernel.PARAMETERS``), and separability.
+KERNEL_KEYS = ("family", *dict.fromkeys(spec.name for cls in KERNEL_CLASSES
+                                       for spec in cls.PARAMETERS), "separable")
 SOLVER_KEYS = ("name", "tolerances", "options", "max_n")
 TRACE_METHODS = ("exact", "hutchinson", "hutchpp")
 GENERATOR_NAMES = (*GENERATORS, "tensor_grid")
