@@ -80,7 +80,7 @@ class RunData:
                 "timing_rows": int(len(self.timings)), "notes": list(self.notes)}
 
 
-def _read_csv(path: Path, *, dtype: dict[str, Any] | None = None) -> pd.DataFrame:
+def _read_csv(path: Path, *, dtype: type[str] | dict[str, Any] | None = None) -> pd.DataFrame:
     try:
         return pd.read_csv(path, dtype=dtype, keep_default_na=True)
     except pd.errors.EmptyDataError as exc:

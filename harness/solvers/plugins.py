@@ -68,7 +68,7 @@ def load_factory(spec: str) -> Callable[..., object]:
         raise SolverLoadError(
             f"solver spec {spec!r}: {attribute!r} is a {type(target).__name__}, not a "
             "callable factorize(points, kernel, theta, *, tol, ...)")
-    return target  # type: ignore[return-value]
+    return target
 
 
 def entry_point_solvers() -> dict[str, importlib.metadata.EntryPoint]:

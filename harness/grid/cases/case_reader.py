@@ -183,8 +183,10 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
     if check.problems:
         raise CaseFileError(check.problems)
     return Case(
-        name=name, description=description, source=file, pointsets=tuple(pointsets),
-        kernels=tuple(kernels), means=tuple(means), reml=reml, solvers=tuple(solvers),
+        name=name, description=description, source=file,
+        pointsets=tuple(p for p in pointsets if p is not None),
+        kernels=tuple(k for k in kernels if k is not None), means=tuple(means), reml=reml,
+        solvers=tuple(s for s in solvers if s is not None),
         seeds=tuple(seeds), trace_method=trace_method, probes=probes, metrics=tuple(compute),
         holdout=holdout, perturbation=float(perturbation or 0.05),
         power_iterations=power_iterations, references=tuple(order),
@@ -210,6 +212,7 @@ def _generator_options(check: Checker, path: str, generator: str, options: Any) 
     table = check.table(options, f"{path}.options") if options is not None else {}
     if table is None:
         return {}
+    valid: tuple[str, ...]
     if generator == "tensor_grid":
         valid = ("extent",)
     else:
