@@ -62,10 +62,11 @@ del chol
 t = time.perf_counter()
 a = assemble_lower(kernel, points)
 t1 = time.perf_counter()
-_, info = lapack.dpotrf(a, lower=1, overwrite_a=1, clean=0)
-t2 = time.perf_counter()
-out.update(assembly_seconds=t1 - t, dpotrf_seconds=t2 - t1, dpotrf_info=int(info),
-           peak_bytes=resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)
+out.update(assembly_seconds=t1 - t)
+if n <= 8192:  # one threaded dpotrf call crashes above (cholesky.blocked_cholesky)
+    _, info = lapack.dpotrf(a, lower=1, overwrite_a=1, clean=0)
+    out.update(dpotrf_seconds=time.perf_counter() - t1, dpotrf_info=int(info))
+out.update(peak_bytes=resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)
 print(json.dumps(out))
 """
 
@@ -95,7 +96,7 @@ def fit_exponent(ns: list[int], ts: list[float]) -> float:
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--n", type=int, nargs="+", default=[16000, 32000, 65536, 131072])
+    parser.add_argument("--n", type=int, nargs="*", default=[16000, 32000, 65536, 131072])
     parser.add_argument("--tol", type=float, nargs="+", default=[1e-6])
     parser.add_argument("--repeats", type=int, default=3,
                         help="factorizations per (n, tol) up to n = 32,768 (median)")
@@ -139,6 +140,12 @@ def main(argv: list[str] | None = None) -> int:
         row = {"kind": "dense", "n": n, **d}
         if "error" not in d:
             ref = d["reference"]
+            if "dpotrf_seconds" not in d:
+                # one threaded dpotrf call segfaults at n = 16,000 on this machine (OpenBLAS
+                # 0.3.30), so the call is estimated from the same-run unit by n^3 scaling
+                d["dpotrf_seconds"] = u * (n / unit["n"]) ** 3
+                row["dpotrf_seconds_estimated"] = "unit x (n / 8,192)^3"
+            row["dpotrf_seconds"] = d["dpotrf_seconds"]
             row["reference_over_dpotrf"] = (ref["factor"] + ref.get("certify", 0.0)) / d[
                 "dpotrf_seconds"]
             row["dpotrf_units"] = d["dpotrf_seconds"] / u
