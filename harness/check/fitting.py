@@ -417,11 +417,11 @@ def fisher_scoring(engine: Engine, kernel: Kernel, theta0: np.ndarray, *,
     Wright 2006, Algorithm 3.1, with a zero sufficient-decrease constant).
 
     Stopping rule (the score tolerance in SE units): converged when
-    max_i |(F^-1 g)_i| / SE_i <= tol over the free parameters (``_free_step``), with
-    tol = max(``step_tol_se``, 2 x the estimated score's own noise in the same units)
-    when the engine's score is stochastic (``EngineEvaluation.score_se``): a stochastic
-    score cannot be driven below its noise, and the tolerance reached is stated in
-    ``MleFit.score_tol_se``.
+    max_i |(F^-1 g)_i| / SE_i <= ``step_tol_se`` over the free parameters
+    (``_free_step``). When the engine's score is stochastic (``EngineEvaluation.score_se``)
+    the iteration also stops once the step is within 2 x the score's own noise in the
+    same units (it cannot be driven below it); if that is above ``step_tol_se`` the fit
+    is returned as not converged, with the noise floor stated (``MleFit.score_tol_se``).
     The search cannot stall silently: when no step length is accepted, or ``max_steps``
     is reached first, the fit is returned with ``converged = False`` and a note saying so
     (with the number of accepted steps).
@@ -443,7 +443,13 @@ def fisher_scoring(engine: Engine, kernel: Kernel, theta0: np.ndarray, *,
         step_se = _step_in_se(step, fisher, free)
         tol_se = max(step_tol_se, 2.0 * _noise_in_se(current.score_se, fisher))
         if step_se <= tol_se:
-            converged = True
+            converged = step_se <= step_tol_se
+            if not converged:
+                notes.append(f"Fisher scoring stopped at the noise floor of the estimated "
+                             f"score: {step_se:.3g} SE is within 2 x its noise ({tol_se:.3g} "
+                             f"SE) but above the requested {step_tol_se:g} SE: not "
+                             "converged to the requested tolerance (more probes or the "
+                             "dense fit would resolve it)")
             break
         if accepted_steps >= max_steps:
             notes.append(f"Fisher scoring stopped after {max_steps} steps with the score "
