@@ -40,8 +40,8 @@ def distributed_products(client: object, scaled: np.ndarray, kernel: Kernel,
                          ) -> np.ndarray:
     """(len(which), n, k) products computed as row blocks on ``client``'s workers."""
     groups = row_blocks(plan.n_tiles, BLOCKS_PER_WORKER * _worker_count(client))
-    scattered_points = client.scatter(scaled, broadcast=True)  # type: ignore[attr-defined]
-    scattered_block = client.scatter(part, broadcast=True)  # type: ignore[attr-defined]
+    scattered_points = client.scatter(scaled, broadcast=True, hash=False)  # type: ignore[attr-defined]
+    scattered_block = client.scatter(part, broadcast=True, hash=False)  # type: ignore[attr-defined]
     futures = [client.submit(row_block_products, scattered_points, kernel,  # type: ignore[attr-defined]
                              scattered_block, which, plan.starts, tiles, pure=False)
                for tiles in groups]
