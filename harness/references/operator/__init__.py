@@ -10,7 +10,7 @@ Modules, one concern each:
 
 - ``schedule``: tiles, the round-robin order of tile pairs, the memory guard;
 - ``products``: compiled tiled products Sigma B and dSigma/dtheta_i B (``KernelOperator``);
-- ``progress``: the tqdm bar of long products;
+- ``product_progress``: the tqdm bar of long products;
 - ``distributed``: row blocks of the products on Dask workers;
 - ``pcg``: preconditioned CG with its rigorous quadratic-form bound;
 - ``operator_gls``: the GLS mean and quadratic form by CG;
