@@ -51,6 +51,7 @@ from harness.geometry.pointsets import generate, tensor_grid
 from harness.grid.cases.cost import estimate_cost
 from harness.grid.tasks import Task
 from harness.model.evaluation import fisher_standard_errors
+from harness.model.json_values import to_jsonable
 from harness.model.kernels import Kernel, make_kernel, smoothness
 
 HALF_INTEGER_NU = (0.5, 1.5, 2.5)
@@ -332,30 +333,6 @@ def _finite(value: float) -> float | None:
     return float(value) if value is not None and math.isfinite(value) else None
 
 
-def _clean(metrics: dict[str, Any]) -> dict[str, Any]:
-    out = {}
-    for key, value in metrics.items():
-        if isinstance(value, float | np.floating):
-            out[key] = None if not math.isfinite(float(value)) else float(value)
-        elif isinstance(value, np.integer):
-            out[key] = int(value)
-        else:
-            out[key] = value
-    return out
-
-
-def _jsonable(value: Any) -> Any:
-    if isinstance(value, np.ndarray):
-        return value.tolist()
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, np.generic):
-        return value.item()
-    return value
-
-
 def _check_finite(name: str, value: float, solver: str) -> None:
     if not math.isfinite(value):
         raise FloatingPointError(f"solver {solver!r} returned a non-finite {name}: {value!r}")
@@ -479,18 +456,18 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
 
     ranks = getattr(fact, "ranks", None)
     return {
-        "metrics": _clean(metrics),
+        "metrics": to_jsonable(metrics),
         "reference": {"kind": reference.kind, "description": reference.description,
                       "declined": declined, "certificate": _finite(getattr(ref0, "certificate",
                                                                            None) or math.nan),
-                      "loglik": ref0.loglik, "score": _jsonable(ref0.score),
-                      "fisher": _jsonable(ref0.fisher),
-                      "standard_errors": _jsonable(_standard_errors(ref0.fisher)),
+                      "loglik": ref0.loglik, "score": to_jsonable(ref0.score),
+                      "fisher": to_jsonable(ref0.fisher),
+                      "standard_errors": to_jsonable(_standard_errors(ref0.fisher)),
                       "notes": list(ref0.notes)},
         "solver": {"name": task.solver, "version": task.solver_version, "tol": task.tol,
-                   "loglik": sol0.loglik, "score": _jsonable(sol0.score),
-                   "trace_estimate": _jsonable(sol0.trace_terms),
-                   "trace_stderr": _jsonable(sol0.trace_stderr),
+                   "loglik": sol0.loglik, "score": to_jsonable(sol0.score),
+                   "trace_estimate": to_jsonable(sol0.trace_terms),
+                   "trace_stderr": to_jsonable(sol0.trace_stderr),
                    "nbytes": int(fact.nbytes), "ranks": None if callable(ranks) else ranks,
                    "solves": sol0.solves, "matvecs": sol0.matvecs},
         "data": {"n": int(data.points.shape[0]), "d": int(data.points.shape[1]),

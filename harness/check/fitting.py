@@ -180,12 +180,15 @@ def default_starts(kernel: Kernel, scale: DataScale) -> list[np.ndarray]:
 
 
 def default_bounds(kernel: Kernel, scale: DataScale) -> list[tuple[float, float]]:
-    """Log-scale bounds per parameter (module docstring)."""
-    v, d = scale.variance, scale.diameter
-    bounds = [(math.log(1e-4 * v), math.log(1e3 * v))]
-    bounds += [(math.log(1e-4 * d), math.log(1e2 * d))] * len(kernel.lengthscale)
-    if kernel.has_nugget:
-        bounds.append((math.log(1e-8 * v), math.log(10 * v)))
+    """Log-scale bounds per parameter of theta, from the kernel's parameter declarations
+    (``ParameterSpec.fit_range`` times the data scale it names; module docstring)."""
+    scales = {"variance": scale.variance, "distance": scale.diameter}
+    bounds: list[tuple[float, float]] = []
+    for spec in kernel.PARAMETERS:
+        if spec.shape or (spec.name == "nugget" and not kernel.has_nugget):
+            continue
+        count = len(kernel.lengthscale) if spec.per_coordinate else 1
+        bounds += [spec.fit_bounds(scales[spec.fit_scale])] * count
     return bounds
 
 

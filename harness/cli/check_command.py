@@ -11,7 +11,6 @@ Exit codes: 0 a safe tolerance was found, 1 none is safe, 2 bad input or an erro
 from __future__ import annotations
 
 import argparse
-import json
 import math
 import os
 import shutil
@@ -39,14 +38,17 @@ from harness.cli.flag_types import (
 )
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.model import MEAN_MODELS
-from harness.model.kernels import KERNELS, KernelParameterError
+from harness.model.json_values import json_text as strict_json
+from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
 from harness.report.check_figures import holdout_indices
 from harness.report.check_report import render_check_report
 from harness.report.condense import shorten
 from harness.report.labels import metric_label
 from harness.solvers.registry import SolverRuntimeError
 
-SHAPE_NAMES = ("nu", "alpha")
+#: Shape parameters of any family (``Kernel.PARAMETERS``): fixed during the fit.
+SHAPE_NAMES = tuple(dict.fromkeys(spec.name for cls in KERNEL_CLASSES
+                                  for spec in cls.PARAMETERS if spec.shape))
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -152,21 +154,9 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         ladder_factor=args.ladder_factor)
 
 
-def _clean(value: Any) -> Any:
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, list | tuple):
-        return [_clean(v) for v in value]
-    if isinstance(value, np.generic):
-        return _clean(value.item())
-    return value
-
-
 def json_text(result: CheckResult) -> str:
     """The JSON output (non-finite numbers as null)."""
-    return json.dumps(_clean(result.to_dict()), indent=2, allow_nan=False)
+    return strict_json(result)
 
 
 def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "check.html",
