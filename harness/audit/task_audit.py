@@ -114,6 +114,8 @@ def build_data(task: Task, streams: dict[str, np.random.Generator]) -> TaskData:
         span = np.asarray(extent if extent is not None else (1.0,) * task.d, dtype=float)
         holdout = span * streams["holdout"].random((task.holdout, task.d))
         return TaskData(points=points, holdout=holdout, observed=None)
+    if spec.generator is None:
+        raise ValueError(f"point set {spec.name!r} names neither a generator nor a file")
     points = generate(spec.generator, task.n, task.d, rng=streams["points"], **options)
     holdout = generate(spec.generator, task.holdout, task.d, rng=streams["holdout"], **options)
     return TaskData(points=points, holdout=holdout, observed=None)
@@ -318,7 +320,7 @@ def _draw_y(task: Task, data: TaskData, kernel: Kernel, reference: Reference, so
             streams: dict[str, np.random.Generator]) -> tuple[np.ndarray, str]:
     if data.observed is not None:
         return data.observed, f"file column {task.pointset.value_column!r}"
-    z = streams["sample"].standard_normal(data.points.shape[0])
+    z = np.asarray(streams["sample"].standard_normal(data.points.shape[0]))
     if reference.apply_sqrt is not None and reference.kind == "dense":
         return reference.apply_sqrt(z), "dense Cholesky factor"
     fact = solver.factorize(data.points, kernel, kernel.theta, tol=task.sample_tol,
@@ -420,6 +422,8 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
         ref1 = reference.evaluate(kernel1, y)
         metrics.update(scalar_error(sol1.loglik, ref1.loglik).to_dict("perturbed_loglik"))
         try:
+            if sol1.score is None:
+                raise FisherError("the solver returned no score at the perturbed point")
             metrics.update(score_errors(sol1.score, ref1.score, ref1.fisher, names)
                            .to_dict("perturbed_score"))
         except FisherError as exc:
@@ -497,7 +501,7 @@ def audit_timing(task: Task) -> dict[str, Any]:
     solver = _resolve(task)
     kernel = build_kernel(task)
     data = build_data(task, streams)
-    y = streams["sample"].standard_normal(data.points.shape[0])
+    y = np.asarray(streams["sample"].standard_normal(data.points.shape[0]))
     theta = kernel.theta
     options = solver_options(task, solver, streams)
 

@@ -234,7 +234,8 @@ def summary(result: CheckResult) -> str:
     else:
         best = next(r for r in result.tolerances if r.tol == result.recommended_tolerance)
         times = (f": {best.seconds * result.speedup:.3g} s against {best.seconds:.3g} s "
-                 "per log-likelihood evaluation" if math.isfinite(best.seconds) else "")
+                 "per log-likelihood evaluation"
+                 if result.speedup is not None and math.isfinite(best.seconds) else "")
         lines.append(f"  recommendation: tol {result.recommended_tolerance:g} "
                      f"({result.speedup:.3g}x faster than {result.speedup_over}{times})")
     if result.refit:
