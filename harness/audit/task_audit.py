@@ -58,6 +58,9 @@ HALF_INTEGER_NU = (0.5, 1.5, 2.5)
 #: Central-difference step (log scale) of the observed information when a reference
 #: gives no Fisher matrix.
 HESSIAN_STEP = 1e-3
+#: Tolerance of the built-in solver preconditioning the operator reference (it changes
+#: iteration counts and standard errors only, never the answer).
+OPERATOR_PRECONDITIONER_TOL = 1e-10
 
 
 class TaskSkipped(Exception):
@@ -139,6 +142,9 @@ class Reference:
     kriging: Callable[[np.ndarray, np.ndarray], tuple[np.ndarray, np.ndarray]] | None = None
     description: str = ""
     notes: list[str] = field(default_factory=list)
+    #: Uncertainty of the last ``evaluate`` at theta_0: ``loglik_se`` (standard error)
+    #: and ``loglik_bound`` (deterministic bound); empty for exact references.
+    uncertainty: dict[str, float] = field(default_factory=dict)
 
 
 def _observed_information(loglik: Callable[[np.ndarray], float], theta: np.ndarray,
@@ -248,6 +254,39 @@ def _ladder_reference(task: Task, data: TaskData, kernel: Kernel, solver: Any,
                             "(a stand-in, not exact)"])
 
 
+def _operator_reference(task: Task, data: TaskData, kernel: Kernel,
+                        streams: dict[str, np.random.Generator]) -> Reference:
+    """The exact operator (``harness.references.operator``), preconditioned by the built-in
+    solver at ``OPERATOR_PRECONDITIONER_TOL``: every value from exact kernel products, with
+    its standard error (log det, traces) or bound (quadratic form)."""
+    from harness.audit.named_evaluation import build_preconditioner
+    from harness.references.operator import operator_evaluate
+
+    probe_seed = int(streams["probes"].integers(2 ** 63))
+    uncertainty: dict[str, float] = {}
+
+    def evaluate(model: Kernel, y: np.ndarray) -> Any:
+        pre = build_preconditioner("hodlr", data.points, model, tol=OPERATOR_PRECONDITIONER_TOL,
+                                   seed=task.seed)
+        ev = operator_evaluate(data.points, y, model, mean=task.mean, reml=task.reml,
+                               preconditioner=pre, rng=probe_seed, score=True)
+        if not ev.converged:
+            raise TaskSkipped("operator reference unresolved: " + "; ".join(ev.messages))
+        if model is kernel:
+            # L = -Q/2 - ...: the quadratic-form bound enters L halved.
+            uncertainty.update(loglik_se=ev.loglik_se, loglik_bound=0.5 * ev.quadratic_bound)
+        return ev.as_model_evaluation()
+
+    return Reference(kind="operator", evaluate=evaluate,
+                     description=("exact operator: tiled kernel products, PCG and Lanczos "
+                                  f"quadrature, preconditioned by hodlr at tol "
+                                  f"{OPERATOR_PRECONDITIONER_TOL:g}"),
+                     notes=["operator reference: log-likelihood with a standard error (its "
+                            "column reference_loglik_se); no Fisher information, so score "
+                            "metrics and parameter shifts are unavailable"],
+                     uncertainty=uncertainty)
+
+
 def choose_reference(task: Task, data: TaskData, kernel: Kernel, solver: Any,
                      streams: dict[str, np.random.Generator]) -> tuple[Reference, list[str]]:
     """The first reference in ``task.references`` that applies, with why others did not."""
@@ -285,6 +324,8 @@ def choose_reference(task: Task, data: TaskData, kernel: Kernel, solver: Any,
             except KroneckerError as exc:
                 declined.append(f"kronecker: {exc}")
                 continue
+        if kind == "operator":
+            return _operator_reference(task, data, kernel, streams), declined
         if kind == "ladder":
             if task.tol is None:
                 declined.append("ladder: the solver is exact (no tolerance to tighten)")
@@ -390,6 +431,8 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
         metrics.update(scalar_error(sol0.logdet, ref0.logdet).to_dict("logdet"))
         metrics.update(scalar_error(sol0.quadratic, ref0.quadratic).to_dict("quadratic"))
         metrics.update(scalar_error(sol0.loglik, ref0.loglik).to_dict("loglik"))
+        metrics["reference_loglik_se"] = float(reference.uncertainty.get("loglik_se", 0.0))
+        metrics["reference_loglik_bound"] = float(reference.uncertainty.get("loglik_bound", 0.0))
     shift = None
     if "score" in task.metrics and sol0.score is not None:
         try:

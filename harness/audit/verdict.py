@@ -300,8 +300,9 @@ def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
     each finished task is one seed, the worst decides; failed tasks keep it from safe."""
     per_task = []
     for _, row in ok.iterrows():
-        per_task.append([judge_metric(col, float(pd.to_numeric(row.get(col), errors="coerce")),
-                                      getattr(th, attr)) for col, attr in LIMITED_COLUMNS])
+        per_task.append([judge_metric(col, _number(row, col), getattr(th, attr),
+                                      **_uncertainty(row, col))
+                         for col, attr in LIMITED_COLUMNS])
     cert = _certificate_evidence(ok, th.certificate_max)
     tv = tolerance_verdict(tol, per_task, reference=_reference_info(ok, cert),
                            required=[c for c, _ in LIMITED_COLUMNS])
@@ -317,6 +318,30 @@ def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
     return Verdict(dataset, solver, tol, status, evidence, len(ok), failed,
                    _median(ok, "t_total"), reasons=tuple(reasons),
                    spread={k: v.to_dict() for k, v in tv.spread.items()})
+
+
+#: results columns holding the reference's own uncertainty of a limited metric (the exact
+#: operator reference; absent or 0 for dense and structured references).
+UNCERTAINTY_COLUMNS: dict[str, tuple[str, str]] = {
+    "loglik_abs_err": ("reference_loglik_se", "reference_loglik_bound")}
+
+
+def _number(row: pd.Series, column: str) -> float:
+    return float(pd.to_numeric(row.get(column), errors="coerce"))
+
+
+def _uncertainty(row: pd.Series, column: str) -> dict[str, float]:
+    """``se`` and ``bound`` of ``column`` for ``judge_metric``: 0 when not recorded."""
+    if column not in UNCERTAINTY_COLUMNS:
+        return {}
+    se_col, bound_col = UNCERTAINTY_COLUMNS[column]
+    values = {}
+    for name, col in (("se", se_col), ("bound", bound_col)):
+        value = _number(row, col) if col in row.index else math.nan
+        if math.isnan(value) and str(row.get("reference", "")) != "operator":
+            value = 0.0          # exact references: no uncertainty recorded or needed
+        values[name] = value     # an operator row without its SE stays unresolved
+    return values
 
 
 def _evidence(j: MetricJudgement) -> Evidence:

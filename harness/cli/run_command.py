@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import importlib.util
 import logging
 import sys
@@ -54,6 +55,21 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="stop a task (and record it as timed out) after this many "
                              "seconds (default: the case file's [timing] timeout, else "
                              "the cost estimate times a safety factor, at least 300 s)")
+    parser.add_argument("--reference", choices=tuple(REFERENCE_ORDERS), default=None,
+                        help="the truth each task compares with: dense, operator (exact "
+                             "products, beyond the dense memory budget), ladder (the solver "
+                             "at a tighter tolerance; never the sole basis of 'safe'), or "
+                             "auto (dense within the budget, else a structured reference, "
+                             "else the operator); default: the case file's [reference] order")
+
+
+#: ``--reference`` choices and the reference order each gives every task.
+REFERENCE_ORDERS: dict[str, tuple[str, ...]] = {
+    "auto": ("dense", "statespace", "kronecker", "operator"),
+    "dense": ("dense",),
+    "operator": ("operator",),
+    "ladder": ("ladder",),
+}
 
 
 def _write_report(out: Path) -> Path | None:
@@ -77,6 +93,8 @@ def run(args: argparse.Namespace) -> int:
     except CaseFileError as exc:
         print(f"covaudit run: {exc}", file=sys.stderr)
         return EXIT_ERROR
+    if args.reference is not None:
+        case = dataclasses.replace(case, references=REFERENCE_ORDERS[args.reference])
     tasks = select_tasks(case.tasks(), args.only)
     if not tasks:
         print(f"covaudit run: no task of {args.casefile} matches --only {args.only}",

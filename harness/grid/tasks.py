@@ -52,6 +52,11 @@ UNKEYED_FIELDS: tuple[str, ...] = ("timeout",)
 
 #: Reference kinds in decreasing trust (DESIGN section 4); ``ladder`` is the stand-in.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
+#: Every kind a case file or ``run --reference`` may name: the default order plus the
+#: exact operator (``harness.references.operator``), which is opt-in because it costs
+#: O(n^2) per product (and keeps the default order, hence earlier task keys, unchanged).
+ALL_REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "operator",
+                                        "ladder")
 
 
 def _digest(value: Any) -> str:

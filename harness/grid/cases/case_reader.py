@@ -53,7 +53,7 @@ from harness.grid.cases.case_grid import (
 from harness.grid.cases.case_schema import Checker
 from harness.grid.cases.problems import CaseFileError, CaseProblem
 from harness.grid.cases.units import parse_bytes
-from harness.grid.tasks import METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec
+from harness.grid.tasks import ALL_REFERENCE_KINDS, METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError, make_kernel
 from harness.model.mean import MEAN_MODELS
 
@@ -164,7 +164,7 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
         check.problem("timing.timeout", f"expected seconds in (0, 604800], got {timeout!r}")
 
     reference = _subtable(check, doc, "reference", ("order", "ladder_factor", "sample_tol"))
-    order = check.take_list(reference, "order", "reference", item=check.choice(REFERENCE_KINDS),
+    order = check.take_list(reference, "order", "reference", item=check.choice(ALL_REFERENCE_KINDS),
                             default=list(REFERENCE_KINDS))
     ladder_factor = check.take_number(reference, "ladder_factor", "reference", default=100.0)
     if ladder_factor is not None and ladder_factor <= 1:
