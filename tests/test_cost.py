@@ -75,3 +75,22 @@ def test_smoke_estimate_within_a_factor_2_of_a_measured_run(tmp_path):
               / summary.seconds for r in (before, after)]
     assert any(0.5 <= q <= 2.0 for q in ratios), (ratios, summary.seconds)
     assert isinstance(before, DenseRate)
+
+
+def test_operator_reference_cost_is_its_predicted_products_at_the_measured_rate():
+    # The operator reference costs (column products) x n^2 / rate
+    # (harness.references.operator.product_cost); the dense estimate is not used for it.
+    import dataclasses
+
+    from harness.grid.cases.cost import estimate_cost
+    from harness.references.operator import estimate_operator_seconds
+
+    task = next(t for t in load_case(Path(__file__).resolve().parent.parent / "cases"
+                                     / "smoke.toml").tasks() if t.solver == "hodlr")
+    big = dataclasses.replace(task, n=60_000, references=("operator",), timing=False,
+                              metrics=("loglik",))
+    slow = estimate_cost(big, dense_limit_bytes=None, operator_rate=1e9)
+    fast = estimate_cost(big, dense_limit_bytes=None, operator_rate=1e10)
+    assert slow.operator_reference and not slow.dense_reference
+    expected = estimate_operator_seconds(60_000, rate=1e9, n_params=3, mean_columns=1)
+    assert slow.seconds - fast.seconds == pytest.approx(expected * 0.9, rel=1e-9)

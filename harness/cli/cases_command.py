@@ -38,8 +38,19 @@ def run(args: argparse.Namespace) -> int:
     tasks = select_tasks(case.tasks(), args.only)
     budget = case.memory_budget or default_memory_budget()
     rate = None if args.no_probe else measure_dense_rate(rng=0)
+    operator_rate = None
+    uses_operator = [t for t in tasks if "operator" in t.references]
+    if uses_operator and not args.no_probe:
+        from harness.model.kernels import make_kernel
+        from harness.references.operator import measure_product_rate
+
+        first = uses_operator[0]
+        operator_rate = measure_product_rate(
+            make_kernel(first.kernel, dict(first.kernel_params)), dimension=first.d, n=2048,
+            k=8, rng=0).column_rate
     grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate,
-                         load_factor=1.0 if args.no_probe else contention())
+                         load_factor=1.0 if args.no_probe else contention(),
+                         operator_rate=operator_rate)
     rows: list[dict[str, Any]] = [{"key": task.key, "label": task.label, **cost.to_dict()}
             for task, cost in zip(tasks, grid.tasks, strict=True)]
     if args.json:
@@ -50,7 +61,8 @@ def run(args: argparse.Namespace) -> int:
     print(f"{case.name}: {len(rows)} tasks ({case.source})")
     print(f"{'key':16}  {'label':{width}}  {'est. time':>10}  {'est. memory':>11}  reference")
     for r in rows:
-        ref = "dense" if r["dense_reference"] else "structured/ladder"
+        ref = ("dense" if r["dense_reference"] else "operator" if r["operator_reference"]
+               else "structured/ladder")
         print(f"{r['key']:16}  {r['label']:{width}}  {r['estimated_seconds']:>9.3g}s  "
               f"{format_bytes(r['estimated_bytes']):>11}  {ref}")
     basis = (f"calibrated by a dense probe at {grid.rate / 1e9:.3g} Gflop/s on one thread"

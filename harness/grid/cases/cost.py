@@ -55,6 +55,10 @@ JOB_OVERHEAD_FLOPS = 3.6e9
 STARTUP_FLOPS = 8.1e10
 #: Matrix size of the dense-rate probe.
 PROBE_N = 1024
+#: Assumed exact-product speed (n^2-entry columns per second, both cores) when none was
+#: measured: benchmarks/results/operator_reference.json measured 1.5e10 at n = 131,072
+#: (Matern 3/2, 2D) on a loaded 2-core machine; 1e10 leaves room for slower kernels.
+OPERATOR_COLUMN_RATE = 1e10
 
 
 @dataclass(frozen=True)
@@ -103,10 +107,12 @@ class CostEstimate:
     seconds: float
     bytes: int
     dense_reference: bool
+    operator_reference: bool = False
 
     def to_dict(self) -> dict[str, float | int | bool]:
         return {"estimated_seconds": self.seconds, "estimated_bytes": self.bytes,
-                "dense_reference": self.dense_reference}
+                "dense_reference": self.dense_reference,
+                "operator_reference": self.operator_reference}
 
 
 def contention(*, load: float | None = None, cores: int | None = None) -> float:
@@ -165,15 +171,33 @@ def _jobs(task: Task) -> int:
     return 2 if task.timing and task.exclusive_timing else 1
 
 
+def _operator_seconds(task: Task, column_rate: float) -> float:
+    """Seconds of the exact-operator reference: its predicted n^2-entry column products
+    at ``column_rate`` (``harness.references.operator.estimate_operator_seconds``)."""
+    from harness.model.mean import design_matrix
+    from harness.references.operator import estimate_operator_seconds
+
+    mean_columns = design_matrix(np.zeros((1, task.d)), task.mean).shape[1]
+    seconds = estimate_operator_seconds(task.n, rate=column_rate, n_params=_params(task),
+                                        mean_columns=mean_columns)
+    return seconds * (2 if "perturbed" in task.metrics else 1)
+
+
 def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
-                  rate: float | None = None) -> CostEstimate:
+                  rate: float | None = None,
+                  operator_rate: float | None = None) -> CostEstimate:
     """Estimate one task's cost (module docstring); the dense reference is assumed when it
-    fits the budget.
+    fits the budget, the exact operator when the task's references name it and dense does
+    not fit (or is not named).
 
     Parameters
     ----------
     rate : float, optional
         Dense flop/s of this machine (``measure_dense_rate``); ``DENSE_FLOPS`` when None.
+    operator_rate : float, optional
+        Exact-product columns (n^2 kernel entries each) per second
+        (``harness.references.operator.measure_product_rate``); ``OPERATOR_COLUMN_RATE``
+        when None.
     """
     flops_per_second = DENSE_FLOPS if rate is None else float(rate)
     if not (math.isfinite(flops_per_second) and flops_per_second > 0):
@@ -194,20 +218,26 @@ def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
     work = solver_work * (2 if "perturbed" in task.metrics else 1)
     if task.timing:
         work += solver_work * (task.repeats + task.warmup)
+    extra_seconds = 0.0
     if use_dense:
         work += dense_work
         peak = max(dense_bytes, solver_bytes)
+    elif "operator" in task.references:
+        extra_seconds = _operator_seconds(task, operator_rate or OPERATOR_COLUMN_RATE)
+        work += solver_work  # the preconditioner's factorization
+        peak = 2 * solver_bytes
     else:
         work += solver_work * 3  # structured or ladder reference: the same order
         peak = 2 * solver_bytes
     work += JOB_OVERHEAD_FLOPS * _jobs(task)
-    return CostEstimate(seconds=work / flops_per_second, bytes=peak,
-                        dense_reference=use_dense)
+    return CostEstimate(seconds=work / flops_per_second + extra_seconds, bytes=peak,
+                        dense_reference=use_dense, operator_reference=extra_seconds > 0)
 
 
 def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
                   rate: DenseRate | float | None = None,
-                  load_factor: float = 1.0) -> GridEstimate:
+                  load_factor: float = 1.0,
+                  operator_rate: float | None = None) -> GridEstimate:
     """Every task's estimate plus the run's start-up (compilation), serial seconds.
 
     Parameters
@@ -219,7 +249,8 @@ def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
     value = rate.flops if isinstance(rate, DenseRate) else rate
     flops_per_second = DENSE_FLOPS if value is None else float(value)
     estimates = tuple(estimate_cost(t, dense_limit_bytes=dense_limit_bytes,
-                                    rate=flops_per_second) for t in tasks)
+                                    rate=flops_per_second, operator_rate=operator_rate)
+                      for t in tasks)
     startup = STARTUP_FLOPS / flops_per_second if any(t.solver != "dense"
                                                       for t in tasks) else 0.0
     return GridEstimate(tasks=estimates, startup_seconds=startup, rate=flops_per_second,
