@@ -23,6 +23,8 @@ import argparse
 import numpy as np
 from machine_unit import commit, machine, measure_unit, median, run_child, write_results
 
+from harness.analysis.scaling import fit_power_law
+
 _HODLR = r"""
 import json, resource, sys, time
 import numpy as np
@@ -90,8 +92,12 @@ print(json.dumps(out))
 
 
 def fit_exponent(ns: list[int], ts: list[float]) -> float:
-    """Least-squares slope b of log t = a + b log n."""
-    return float(np.polyfit(np.log(ns), np.log(ts), 1)[0])
+    """Slope b of log t = a + b log n: the project's power-law fit
+    (``harness.analysis.scaling.fit_power_law``) from three sizes on, the two-point slope
+    log(t2/t1)/log(n2/n1) with two."""
+    if len(set(ns)) >= 3:
+        return fit_power_law(ns, ts).slope
+    return float(np.log(ts[-1] / ts[0]) / np.log(ns[-1] / ns[0]))
 
 
 def main(argv: list[str] | None = None) -> int:

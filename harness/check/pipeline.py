@@ -33,8 +33,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
+from harness.analysis.scaling import extrapolate, fit_power_law
 from harness.audit import engine as audit_engine
 from harness.audit.audit_references import (
     DenseReference,
@@ -473,22 +473,16 @@ def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,
             except (SolverRuntimeError, np.linalg.LinAlgError):
                 errors[tol].append(math.inf)
     out: dict[str, Any] = {"sizes": sizes, "n_target": n, "per_tolerance": {}}
-    logm = np.log(np.asarray(sizes, dtype=float))
     for tol, errs in errors.items():
         e = np.asarray(errs)
         entry: dict[str, Any] = {"errors": [float(v) for v in e]}
         if np.all(np.isfinite(e)):
-            z = np.log(np.maximum(e, 1e-14))
-            slope, intercept = np.polyfit(logm, z, 1)
-            resid = z - (intercept + slope * logm)
-            k = len(sizes)
-            s = math.sqrt(float(resid @ resid) / (k - 2)) if k > 2 else math.nan
-            x0 = math.log(n)
-            lev = 1 + 1 / k + (x0 - logm.mean()) ** 2 / float(((logm - logm.mean()) ** 2).sum())
-            pred = intercept + slope * x0
-            half = float(stats.t.ppf(0.975, k - 2)) * s * math.sqrt(lev)
-            entry.update({"slope": float(slope), "extrapolated": math.exp(pred),
-                          "upper95": math.exp(pred + half), "lower95": math.exp(pred - half)})
+            # |dL| ~ a m^b over the subsample sizes, extrapolated to n with its 95%
+            # prediction interval (the project's one power-law fit).
+            fit = fit_power_law(sizes, np.maximum(e, 1e-14), level=0.95)
+            at_n = extrapolate(fit, n)
+            entry.update({"slope": fit.slope, "extrapolated": at_n.value,
+                          "upper95": at_n.high, "lower95": at_n.low})
         out["per_tolerance"][repr(tol)] = entry
     return out
 

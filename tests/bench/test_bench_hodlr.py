@@ -13,6 +13,7 @@ import time
 import numpy as np
 import pytest
 
+from harness.analysis.scaling import fit_power_law
 from harness.model.kernels import Matern32, assemble_lower
 from harness.references.cholesky import blocked_cholesky
 from harness.solvers.hodlr import factorize
@@ -81,7 +82,7 @@ def test_bench_scaling_exponent(benchmark) -> None:
             points = _points(n)
             ts.append(min(seconds(points) for _ in range(3 if n < 128000 else 1)))
         benchmark.extra_info["seconds"] = ts
-        return float(np.polyfit(np.log(ns), np.log(ts), 1)[0])
+        return fit_power_law(ns, ts).slope
 
     exponent = benchmark.pedantic(fit, rounds=1, iterations=1)
     benchmark.extra_info["exponent"] = exponent
