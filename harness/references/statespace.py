@@ -217,6 +217,17 @@ def _discretize(dt, lam, nil_pow, noise_coefficients, trans, noise):  # pragma: 
 
 
 @numba.njit(cache=True)
+def _product_rule(da, x, a, dx, out):  # pragma: no cover - compiled
+    """out = dA X + A dX: the derivative of the product A X (m x m times m x c)."""
+    for r in range(out.shape[0]):
+        for c in range(out.shape[1]):
+            acc = 0.0
+            for k in range(a.shape[1]):
+                acc += da[r, k] * x[k, c] + a[r, k] * dx[k, c]
+            out[r, c] = acc
+
+
+@numba.njit(cache=True)
 def _covariance_pass(trans, noise, pinf, tau2, innov_var, gain):  # pragma: no cover - compiled
     """Kalman covariance recursion; returns -1, or the first index with S_i <= 0."""
     n = innov_var.shape[0]
@@ -320,12 +331,7 @@ def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data,
                     pred[r, c] = acc
             for j in range(npar):
                 da = dtrans[j, i]
-                for r in range(m):
-                    for c in range(m):
-                        acc = 0.0
-                        for k in range(m):
-                            acc += da[r, k] * filt[k, c] + a[r, k] * dfilt[j, k, c]
-                        dtmp[r, c] = acc
+                _product_rule(da, filt, a, dfilt[j], dtmp)
                 for r in range(m):
                     for c in range(m):
                         acc = dnoise[j, i, r, c]
@@ -340,13 +346,7 @@ def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data,
                         acc += a[r, k] * mean[k, c]
                     mpred[r, c] = acc
             for j in range(npar):
-                da = dtrans[j, i]
-                for r in range(m):
-                    for c in range(ncol):
-                        acc = 0.0
-                        for k in range(m):
-                            acc += da[r, k] * mean[k, c] + a[r, k] * dmean[j, k, c]
-                        dmpred[j, r, c] = acc
+                _product_rule(dtrans[j, i], mean, a, dmean[j], dmpred[j])
         s = pred[0, 0] + tau2
         if not s > 0.0:
             return i

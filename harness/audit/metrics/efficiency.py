@@ -24,7 +24,7 @@ noise-free field; both models use the same parameters, so only the solver differ
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 
@@ -40,8 +40,7 @@ class Efficiency:
     points: int
 
     def to_dict(self) -> dict[str, float]:
-        return {"mloe": self.mloe, "mmom": self.mmom, "loe_max": self.loe_max,
-                "mom_max_abs": self.mom_max_abs, "points": self.points}
+        return asdict(self)
 
 
 def prediction_efficiency(weights_approx: np.ndarray, cross: np.ndarray,

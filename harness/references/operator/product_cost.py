@@ -18,7 +18,7 @@ and Lanczos of about ``steps`` steps, ``probes`` probes); they are estimates, an
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 
@@ -36,8 +36,7 @@ class ProductRate:
     family: str
 
     def to_dict(self) -> dict[str, object]:
-        return {"column_rate": self.column_rate, "n": self.n, "k": self.k,
-                "seconds": self.seconds, "family": self.family}
+        return asdict(self)
 
 
 def measure_product_rate(kernel: Kernel, *, dimension: int = 2, n: int = 4096, k: int = 16,
