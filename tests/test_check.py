@@ -271,3 +271,24 @@ def test_operator_reference_agrees_with_dense_within_its_uncertainty(tmp_path):
         da, db = a.metric("loglik_error"), b.metric("loglik_error")
         assert abs(da.value - db.value) <= 2 * db.uncertainty + 1e-6
     assert op.tolerances[0].status == "unsafe"      # 1e-2: kriging error over the limit
+
+
+def test_beyond_the_memory_budget_auto_uses_the_operator_with_ses(tmp_path, capsys):
+    # Issue 10's 60,000-point case at small n: a budget too small for the dense
+    # reference makes auto choose the exact operator; every tolerance gets a verdict
+    # with the reference's uncertainty in the JSON and the HTML report.
+    path = _field_file(tmp_path, n=150)
+    out = tmp_path / "o"
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-2,1e-8",
+                 *FIXED, "--memory-budget", "0.0005", "--solver-seeds", "1", "--json",
+                 "--out", str(out), "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code in (0, 1)
+    assert result["reference"] == "operator"
+    # 0.5 MiB: too small for the dense reference's squares, enough for operator tiles.
+    for row in result["tolerances"]:
+        assert row["status"] in ("safe", "unsafe", "unresolved")
+        assert row["reference"] == "operator"
+        assert row["seeds"][0]["uncertainty"]["loglik_error"] > 0
+    html = (out / "check.html").read_text()
+    assert "exact operator" in html and "SE" in html
