@@ -50,8 +50,11 @@ def _mark_recommended(ax: Axes, tol: float | None) -> None:
                 ha="right", va="top", rotation=90, fontsize=7)
 
 
-def _log_x(ax: Axes) -> None:
+def _log_x(ax: Axes, tolerances: Sequence[float]) -> None:
     ax.set_xscale("log")
+    if tolerances:
+        # a factor 3 of margin, so a single tolerance still gets a proper axis
+        ax.set_xlim(min(tolerances) / 3, max(tolerances) * 3)
     ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("compression tolerance (looser \u2192)")
 
@@ -103,7 +106,7 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                             xycoords=("axes fraction", "data"), ha="left", va="bottom",
                             fontsize=7)
             ax.set_yscale("log")
-            _log_x(ax)
+            _log_x(ax, tols)
             _mark_recommended(ax, result.recommended_tolerance)
             ax.set_title(metric_label(name).label, fontsize=9)
             _legend_for_verdicts(ax, seen)
@@ -134,7 +137,7 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
                     xy=(0.01, 1.0), xycoords=("axes fraction", "data"), ha="left",
                     va="bottom", fontsize=7)
         ax.set_ylim(bottom=0, top=1.15 * max(1.0, *speedups))
-        _log_x(ax)
+        _log_x(ax, [r.tol for r in rows])
         _mark_recommended(ax, result.recommended_tolerance)
         ax.set_ylabel(f"speed-up over {result.speedup_over} (\u00d7)")
         ax.set_title("How much faster the compressed solver is", fontsize=9)
