@@ -49,3 +49,19 @@ def test_the_version_has_one_source():
                 if any(line.strip().startswith(("__version__ =", "__version__: str ="))
                        for line in p.read_text(encoding="utf-8").splitlines())}
     assert defining == {"_version.py"}
+
+
+def test_references_never_import_the_solvers_they_judge():
+    # DESIGN section 2: a shared bug would hide itself. Only the protocol (a type) may be
+    # imported; a solver reaches a reference as a preconditioner argument.
+    import ast
+
+    offenders = []
+    for path in (PACKAGE / "references").rglob("*.py"):
+        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+            names = ([node.module or ""] if isinstance(node, ast.ImportFrom)
+                     else [a.name for a in node.names] if isinstance(node, ast.Import) else [])
+            for name in names:
+                if name.startswith("harness.solvers") and name != "harness.solvers.protocol":
+                    offenders.append(f"{path.relative_to(PACKAGE)}: {name}")
+    assert not offenders, offenders
