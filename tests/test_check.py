@@ -292,3 +292,27 @@ def test_beyond_the_memory_budget_auto_uses_the_operator_with_ses(tmp_path, caps
         assert row["seeds"][0]["uncertainty"]["loglik_error"] > 0
     html = (out / "check.html").read_text()
     assert "exact operator" in html and "SE" in html
+
+
+def test_the_map_marks_the_holdout_the_check_used(tmp_path, monkeypatch):
+    # The report's map must mark exactly the points the kriging audit held out.
+    from harness.check import CheckOptions, pipeline, run_check, validate
+    from harness.check.datafile import load_observations
+
+    used = {}
+    original = pipeline.split_holdout
+
+    def spy(n, fraction, rng):
+        train, hold = original(n, fraction, rng)
+        used.setdefault("hold", hold)
+        return train, hold
+
+    monkeypatch.setattr(pipeline, "split_holdout", spy)
+    path = _field_file(tmp_path, n=150)
+    data = validate(load_observations(path, coords=["e", "n"], value="z"))
+    options = CheckOptions(tolerances=(1e-8,), fixed_params=dict(TRUE), solver_seeds=1,
+                           refit=False)
+    run_check(data, options, source=str(path))
+    monkeypatch.setattr(pipeline, "split_holdout", original)
+    expected = pipeline.holdout_indices(data.n, fraction=options.holdout, seed=options.seed)
+    np.testing.assert_array_equal(np.sort(used["hold"]), np.sort(expected))

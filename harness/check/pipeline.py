@@ -177,6 +177,21 @@ def _template(options: CheckOptions, d: int) -> Kernel:
     return make_kernel(options.kernel, params)
 
 
+#: Child streams of ``default_rng(seed)`` a check uses, in spawn order.
+CHECK_STREAMS: tuple[str, ...] = ("split", "fit", "probes", "growth")
+
+
+def check_streams(seed: int) -> dict[str, np.random.Generator]:
+    """The check's random streams by name: one child of ``default_rng(seed)`` each."""
+    children = np.random.default_rng(seed).spawn(len(CHECK_STREAMS))
+    return dict(zip(CHECK_STREAMS, children, strict=True))
+
+
+def holdout_indices(n: int, *, fraction: float, seed: int) -> np.ndarray:
+    """The kriging holdout ``run_check`` draws for ``n`` points at ``seed`` (for the map)."""
+    return split_holdout(n, fraction, check_streams(seed)["split"])[1]
+
+
 def split_holdout(n: int, fraction: float, rng: np.random.Generator
                   ) -> tuple[np.ndarray, np.ndarray]:
     """Random (conditioning, holdout) index arrays, holdout of round(fraction n) >= 5
@@ -347,8 +362,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         raise CheckError(f"--fit-time-budget: expected a positive number of seconds, got "
                          f"{options.fit_time_budget!r}")
     solver = _resolve(options)
-    gen = np.random.default_rng(options.seed)
-    split_rng, fit_rng, probe_rng, growth_rng = gen.spawn(4)
+    streams = check_streams(options.seed)
+    split_rng, fit_rng, probe_rng, growth_rng = (streams[name] for name in CHECK_STREAMS)
     train, hold = split_holdout(data.n, options.holdout, split_rng)
     x, y = data.points, data.values
     d = x.shape[1]

@@ -28,7 +28,7 @@ from harness.check import CheckDataError, CheckError, CheckOptions, run_check, v
 from harness.check.check_records import CheckResult
 from harness.check.datafile import DataFileError, load_observations
 from harness.check.fitting import FitError
-from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES
+from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
 from harness.cli.flag_types import (
     float_range,
     int_range,
@@ -40,7 +40,6 @@ from harness.cli.params import ParamSyntaxError, parse_params
 from harness.model import MEAN_MODELS
 from harness.model.json_values import json_text as strict_json
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
-from harness.report.check_figures import holdout_indices
 from harness.report.check_report import render_check_report
 from harness.report.condense import shorten
 from harness.report.labels import metric_label

@@ -169,12 +169,3 @@ def points_map(points: np.ndarray | None, holdout: np.ndarray | None) -> Figure 
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), fontsize=7,
                   frameon=False)
     return fig
-
-
-def holdout_indices(n: int, *, fraction: float, seed: int) -> np.ndarray:
-    """The holdout ``run_check`` draws for ``n`` points (its first child stream of
-    ``default_rng(seed)``); for the map only."""
-    from harness.check.pipeline import split_holdout
-
-    split_rng = np.random.default_rng(seed).spawn(4)[0]
-    return split_holdout(n, fraction, split_rng)[1]
