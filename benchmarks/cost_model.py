@@ -27,21 +27,8 @@ from pathlib import Path
 
 import numpy as np
 
-
-def _unit(repeats: int) -> dict[str, float]:
-    from scipy.linalg import cho_factor
-
-    n = 8192
-    rng = np.random.default_rng(0)
-    a = rng.standard_normal((n, 512))
-    spd = a @ a.T / 512 + np.eye(n)
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
-        times.append(time.perf_counter() - start)
-    return {"n": n, "median_seconds": float(np.median(times)), "repeats": repeats,
-            "what": "scipy.linalg.cho_factor (LAPACK dpotrf), default BLAS threads"}
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from operator_common import cholesky_unit, machine  # noqa: E402
 
 
 def _run_case(casefile: str) -> float:
@@ -81,8 +68,6 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--json", help="write the results to this file")
     args = parser.parse_args(argv)
 
-    import threadpoolctl
-
     from harness._version import __version__
     from harness.grid.cases import load_case
     from harness.grid.cases.cost import contention, estimate_grid, measure_dense_rate
@@ -95,7 +80,7 @@ def main(argv: list[str] | None = None) -> int:
                              load_factor=contention())
     runs = [_run_case(args.casefile) for _ in range(args.repeats)]
     measured = float(np.median(runs))
-    unit = _unit(args.unit_repeats)
+    unit = cholesky_unit(args.unit_repeats)
     ratio = estimate.total_seconds / measured
     out = {
         "what": "covaudit cases estimate against a measured serial run of the same grid",
@@ -107,7 +92,7 @@ def main(argv: list[str] | None = None) -> int:
         "unit": unit, "measured_in_units": measured / unit["median_seconds"],
         "machine": {"cpu": platform.processor() or platform.machine(),
                     "environment": environment(None)},
-        "threadpools": threadpoolctl.threadpool_info(),
+        "threadpools": machine()["thread_pools"],
         "covaudit": __version__, "numpy": np.__version__,
         "load_average_at_start": load_before,
         "load_average_at_end": list(__import__("os").getloadavg()),

@@ -15,7 +15,6 @@ from __future__ import annotations
 import json
 import os
 import platform
-import statistics
 import sys
 import time
 from pathlib import Path
@@ -26,7 +25,9 @@ import scipy.linalg
 from scipy import optimize
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
+from operator_common import cholesky_unit, cpu_description  # noqa: E402
 from test_fit_accuracy import IndependentModel, _data  # noqa: E402
 
 from harness import __version__  # noqa: E402
@@ -40,32 +41,8 @@ CASES = (("matern32", 11, "dense"), ("exponential", 12, "dense"),
 FIT_BUDGET = 7200.0
 
 
-def _unit_seconds(repeats: int = 3) -> float:
-    """Median seconds of one scipy.linalg.cho_factor at n = 8,192 (the same-run unit)."""
-    rng = np.random.default_rng(0)
-    a = rng.standard_normal((8192, 256))
-    spd = a @ a.T + 8192 * np.eye(8192)
-    times = []
-    for _ in range(repeats):
-        m = spd.copy()
-        t0 = time.perf_counter()
-        scipy.linalg.cho_factor(m, overwrite_a=True)
-        times.append(time.perf_counter() - t0)
-    return statistics.median(times)
-
-
-def _cpu() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
-
-
 def main() -> int:
-    unit = _unit_seconds()
+    unit = cholesky_unit()["median_seconds"]
     rows = []
     for family, seed, path in CASES:
         x, y, truth = _data(family, seed)
@@ -99,7 +76,7 @@ def main() -> int:
         rows.append(row)
         print(json.dumps(row))
     out = {"benchmark": "fit_accuracy", "harness_version": __version__,
-           "machine": {"cpu": _cpu(), "cores": os.cpu_count(),
+           "machine": {"cpu": cpu_description(), "cores": os.cpu_count(),
                        "platform": platform.platform(), "python": sys.version.split()[0]},
            "threads": {k: os.environ.get(k) for k in ("OMP_NUM_THREADS",
                                                       "OPENBLAS_NUM_THREADS",

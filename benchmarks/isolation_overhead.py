@@ -68,10 +68,15 @@ def round_trips() -> list[float]:
     return times
 
 
-def timed(command: list[str]) -> dict:
+def timed(command: list[str], *, scratch: str | None = None) -> dict:
+    """Run ``command``; the record names it without this machine's paths (the
+    interpreter as ``python``, a scratch folder as ``$TMP``)."""
     start = time.perf_counter()
     proc = subprocess.run(command, capture_output=True, text=True, check=False)
-    return {"command": " ".join(command), "seconds": time.perf_counter() - start,
+    shown = " ".join("python" if part == sys.executable else part for part in command)
+    if scratch:
+        shown = shown.replace(scratch, "$TMP")
+    return {"command": shown, "seconds": time.perf_counter() - start,
             "exit_code": proc.returncode,
             "last_line": (proc.stdout.strip().splitlines() or [""])[-1]}
 
@@ -83,7 +88,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory() as folder:
         smoke = timed([sys.executable, "-c", "import sys; from harness.cli import main; "
                        "sys.exit(main())", "run", "cases/smoke.toml", "--out",
-                       os.path.join(folder, "smoke")])
+                       os.path.join(folder, "smoke")], scratch=folder)
     faults = timed([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
                     "tests/test_faults.py"])
     payload = {

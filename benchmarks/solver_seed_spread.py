@@ -24,6 +24,9 @@ from pathlib import Path
 import numpy as np
 import scipy
 
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+from operator_common import cpu_description  # noqa: E402
+
 from harness import __version__
 from harness.audit.solver_seeds import solver_seed
 from harness.geometry.pointsets import generate
@@ -34,16 +37,6 @@ from harness.solvers.registry import resolve_solver
 
 SEEDS = 8
 OUT = Path(__file__).resolve().parent / "results" / "solver_seed_spread.json"
-
-
-def _cpu() -> str:
-    try:
-        for line in Path("/proc/cpuinfo").read_text().splitlines():
-            if line.startswith("model name"):
-                return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
 
 
 def _stats(values: list[float]) -> dict[str, float]:
@@ -73,7 +66,8 @@ def main() -> int:
                   f"{statistics.median(ll):.3g} max {max(ll):.3g}")
     result = {
         "benchmark": "solver_seed_spread", "harness_version": __version__,
-        "machine": {"cpu": _cpu(), "cores": os.cpu_count(), "platform": platform.platform(),
+        "machine": {"cpu": cpu_description(), "cores": os.cpu_count(),
+                    "platform": platform.platform(),
                     "python": sys.version.split()[0]},
         "threads": {k: os.environ.get(k) for k in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS",
                                                    "MKL_NUM_THREADS", "NUMBA_NUM_THREADS")},
