@@ -44,6 +44,7 @@ import numpy as np
 
 from harness.audit.metric_values import MetricValue
 from harness.audit.solver_seeds import seeded_options
+from harness.grid.tasks import ALL_REFERENCE_KINDS, AuditSettings
 from harness.model.kernels import Kernel
 
 if TYPE_CHECKING:
@@ -59,10 +60,10 @@ _SEVERITY = {SAFE: 0, UNRESOLVED: 1, UNSAFE: 2}
 SE_MULTIPLIER = 2.0
 #: Reference kinds the engine accepts; ``ladder`` is never the sole basis of ``safe``.
 EXACT_REFERENCES: frozenset[str] = frozenset({"dense", "statespace", "kronecker", "operator"})
-REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "operator", "ladder")
+REFERENCE_KINDS: tuple[str, ...] = ALL_REFERENCE_KINDS
 #: The ladder reference is the solver at tol / LADDER_FACTOR unless set otherwise (the
-#: same default as ``harness.grid.tasks.Task.ladder_factor``).
-LADDER_FACTOR = 100.0
+#: case files' and tasks' default, ``AuditSettings.ladder_factor``).
+LADDER_FACTOR: float = AuditSettings.ladder_factor
 UNCONVERGED_REASON = "measured at an unconverged estimate (the fit did not converge)"
 LADDER_REASON = ("ladder reference only (the solver at a tighter tolerance): extra "
                  "evidence, never the sole basis of safe")
