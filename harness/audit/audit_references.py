@@ -36,6 +36,9 @@ from harness.references import CERTIFICATE_THRESHOLD, DenseCholesky
 from harness.solvers.registry import ResolvedSolver
 
 OPERATOR_MODULE = "harness.references.operator"
+#: Tolerance of the built-in solver preconditioning the operator reference (it changes
+#: iteration counts and standard errors only, never the answer); ``check`` and ``run``.
+OPERATOR_PRECONDITIONER_TOL = 1e-10
 
 
 def operator_available() -> bool:
@@ -124,7 +127,7 @@ class OperatorReference:
     """
 
     def __init__(self, data: AuditData, *, base_seed: int, probes: int = 64,
-                 preconditioner_tol: float = 1e-10, leaf_size: int = 128,
+                 preconditioner_tol: float = OPERATOR_PRECONDITIONER_TOL, leaf_size: int = 128,
                  memory_budget: int | None = None) -> None:
         from harness.references.operator import operator_evaluate, operator_kriging
         from harness.solvers.registry import resolve_solver

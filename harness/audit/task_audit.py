@@ -34,6 +34,7 @@ from typing import Any
 
 import numpy as np
 
+from harness.audit.audit_references import OPERATOR_PRECONDITIONER_TOL
 from harness.audit.metrics import (
     FisherError,
     factorization_error,
@@ -58,9 +59,6 @@ HALF_INTEGER_NU = (0.5, 1.5, 2.5)
 #: Central-difference step (log scale) of the observed information when a reference
 #: gives no Fisher matrix.
 HESSIAN_STEP = 1e-3
-#: Tolerance of the built-in solver preconditioning the operator reference (it changes
-#: iteration counts and standard errors only, never the answer).
-OPERATOR_PRECONDITIONER_TOL = 1e-10
 
 
 class TaskSkipped(Exception):
