@@ -15,7 +15,7 @@ from harness.geometry.pointsets import clustered, uniform
 from harness.geometry.tree import build_tree
 from harness.model.kernels import Exponential, Gaussian, Kernel, Matern, Matern32, Matern52
 from harness.solvers.hodlr import CompressionBreakdownError, HodlrFactorization, factorize
-from harness.solvers.hodlr.aca import aca_compiled, recompress
+from harness.solvers.hodlr.aca import ACA_BLOCK, aca_compiled, recompress
 from harness.solvers.hodlr.orth import thin_qr
 from harness.solvers.protocol import SymmetricFactorization
 
@@ -234,8 +234,10 @@ def test_aca_touching_block_meets_tolerance(tol: float) -> None:
     mid = int(tree.bounds[1][1])
     block = kernel.cross_covariance(points[tree.perm[:mid]], points[tree.perm[mid:]])
     checks = np.random.default_rng(0).integers(0, mid, size=(8, 8))
-    a, b = aca_compiled(1, xs[:mid], xs[mid:], 0.0, 1.0, 0, 0.5 * tol, mid, checks)
-    low = recompress(a, b, tol=0.5 * tol)
+    a, b, gram_a, gram_b = aca_compiled(1, xs[:mid], xs[mid:], 0.0, 1.0, 0, 0.5 * tol, mid,
+                                        checks, ACA_BLOCK)
+    np.testing.assert_allclose(gram_a, a @ a.T, rtol=1e-12, atol=1e-12 * np.abs(gram_a).max())
+    low = recompress(a, b, tol=0.5 * tol, gram_a=gram_a, gram_b=gram_b)
     err = np.linalg.norm(block - low.u @ low.v.T) / np.linalg.norm(block)
     assert err <= 3 * tol, err  # the ACA half of the bound is an estimate (random rows)
     s = np.linalg.svd(block, compute_uv=False)  # optimal rank for the same Frobenius error
@@ -254,28 +256,6 @@ def test_thin_qr(decay: float) -> None:
     np.testing.assert_allclose(q.T @ q, np.eye(40), atol=1e-12)
     np.testing.assert_allclose(q @ r, x, atol=1e-13 * np.abs(x).max())
     assert np.allclose(np.tril(r, -1), 0.0)
-
-
-@pytest.mark.parametrize("tol", [1e-5, 1e-8])
-def test_split_and_merge_meets_tolerance(monkeypatch: pytest.MonkeyPatch, tol: float) -> None:
-    # large blocks are compressed by quarters and merged; force two split levels on a
-    # 2400 x 2400 touching block and compare with the dense block (numpy)
-    import harness.solvers.hodlr.entries as entries_module
-
-    monkeypatch.setattr(entries_module, "SPLIT_MIN", 1200)
-    kernel = Matern32(lengthscale=0.1)
-    points = uniform(4800, 2, rng=np.random.default_rng(4))
-    tree = build_tree(points, leaf_size=128)
-    pts = points[tree.perm]
-    entries = entries_module.KernelEntries(kernel=kernel, points=pts)
-    checks = np.random.default_rng(0).integers(0, 2400, size=(8, 8))
-    low = entries.off_diagonal((0, 2400), (2400, 4800), entries.scaled, tol=tol, checks=checks)
-    block = kernel.cross_covariance(pts[:2400], pts[2400:])
-    err = np.linalg.norm(block - low.u @ low.v.T) / np.linalg.norm(block)
-    assert err <= tol, err
-    s = np.linalg.svd(block, compute_uv=False)
-    tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])
-    assert low.rank <= 1.5 * np.count_nonzero(tail > tol * np.linalg.norm(s)) + 5
 
 
 # -- the tolerance controls the likelihood error (issue 11) ------------------------------

@@ -15,15 +15,13 @@ import numpy as np
 
 from harness.model.kernels.classes import Kernel
 from harness.model.kernels.rows import family_code, fill_block, mode_for
-from harness.solvers.hodlr.aca import LowRank, aca_callable, aca_compiled, recompress
-from harness.solvers.hodlr.merge import merge_quarters
-
-#: Blocks with at least this many rows + columns are compressed quarter by quarter and
-#: merged (``merge`` module); each quarter may split again.
-SPLIT_MIN = 6144  # measured best of 2500..32768 at n = 16k and 64k (2D Matern 3/2)
-#: At most this many nested splits: each merge level costs a Gram product of the
-#: stacked bases, which outgrows the ACA savings on the largest blocks.
-SPLIT_DEPTH = 3
+from harness.solvers.hodlr.aca import (
+    ACA_BLOCK,
+    LowRank,
+    aca_callable,
+    aca_compiled,
+    recompress,
+)
 
 
 @dataclass(frozen=True)
@@ -71,47 +69,24 @@ class KernelEntries:
                      *, tol: float, checks: np.ndarray) -> LowRank:
         """Sigma[rows, cols] ~ U V' for disjoint ranges, to relative Frobenius ``tol``.
 
-        Half the tolerance goes to ACA. The other half goes to the recompression, or,
-        for blocks of at least ``SPLIT_MIN`` rows + columns (compiled kernels), to the
-        merges of their quarters: 0.4 tol for the last merge, 0.05 tol for the merges
-        one split down, half that one further down, and so on, so the truncations
-        total at most tol / 2.
+        Half the tolerance goes to ACA, the other half to the recompression (``aca``
+        module).
         """
-        if self.kernel.compiled and (rows[1] - rows[0]) + (cols[1] - cols[0]) >= SPLIT_MIN:
-            return self._split(rows, cols, scaled, tol=tol, budget=0.4 * tol, checks=checks,
-                               depth=1)
-        a, b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks)
-        return recompress(a, b, tol=0.5 * tol)
-
-    def _split(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray, *,
-               tol: float, budget: float, checks: np.ndarray, depth: int) -> LowRank:
-        (r0, r1), (c0, c1) = rows, cols
-        rmid, cmid = (r0 + r1) // 2, (c0 + c1) // 2  # the tree's split: floor(m / 2) first
-        row_parts, col_parts = ((r0, rmid), (rmid, r1)), ((c0, cmid), (cmid, c1))
-        quarters = {}
-        for s, rr in enumerate(row_parts):
-            for t, cc in enumerate(col_parts):
-                sub_checks = checks % (rr[1] - rr[0])
-                if depth < SPLIT_DEPTH and (rr[1] - rr[0]) + (cc[1] - cc[0]) >= SPLIT_MIN:
-                    inner = 0.05 * tol if budget > 0.05 * tol else 0.5 * budget
-                    low = self._split(rr, cc, scaled, tol=tol, budget=inner, checks=sub_checks,
-                                      depth=depth + 1)
-                    quarters[s, t] = (low.u, low.v)
-                else:
-                    a, b = self._aca(rr, cc, scaled, tol=0.5 * tol, checks=sub_checks)
-                    quarters[s, t] = (a.T, b.T)
-        return merge_quarters(quarters, tol=budget)
+        a, b, gram_a, gram_b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks)
+        return recompress(a, b, tol=0.5 * tol, gram_a=gram_a, gram_b=gram_b)
 
     def _aca(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray, *,
-             tol: float, checks: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """Raw ACA factors (A, B), K ~ A' B, to the (estimated) relative tolerance ``tol``."""
+             tol: float, checks: np.ndarray
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]:
+        """ACA factors (A, B), K ~ A' B, to the (estimated) relative tolerance ``tol``,
+        with their Gram matrices A A', B B' where the compiled ACA formed them."""
         k = self.kernel
         (r0, r1), (c0, c1) = rows, cols
         m, n = r1 - r0, c1 - c0
         if k.compiled:
             return aca_compiled(family_code(k.family), scaled[r0:r1], scaled[c0:c1],
                                 k.shape_value, k.variance, mode_for(k.isotropic, self.which),
-                                tol, min(m, n), checks)
+                                tol, min(m, n), checks, ACA_BLOCK)
         cols_idx = np.arange(c0, c1)
         rows_idx = np.arange(r0, r1)
         p = self._param_index()
@@ -121,6 +96,7 @@ class KernelEntries:
                 return k.cross_covariance(self.points[rr], self.points[cc])
             return k.block_with_derivatives(self.points, rr, cc)[1][p]
 
-        return aca_callable(lambda i: value(np.array([r0 + i]), cols_idx)[0],
+        a, b = aca_callable(lambda i: value(np.array([r0 + i]), cols_idx)[0],
                             lambda j: value(rows_idx, np.array([c0 + j]))[:, 0],
                             m, n, tol=tol, checks=checks)
+        return a, b, None, None

@@ -1,7 +1,6 @@
 """Orthogonal bases of tall matrices, and the one dense Cholesky helper of the solver.
 
-Every basis the solver needs (ACA factors before recompression, stacked bases in a
-merge, the whitened bases of the symmetric factorization) is a tall X (m x k, m >= k)
+Every basis the solver needs (ACA factors before recompression, the whitened bases of the symmetric factorization) is a tall X (m x k, m >= k)
 with X = Q R. Three ways to get there, from cheap to robust:
 
 * implicit Cholesky QR: R = chol(D^-1 X'X D^-1) D (D the column norms) from one Gram
@@ -43,19 +42,28 @@ def rcond_for(*, orthogonality: float, rounding: float) -> float:
     return min(0.5, max(float(np.sqrt(_EPS / orthogonality)), _EPS / rounding))
 
 
-def scaled_gram_factor(x: np.ndarray) -> tuple[np.ndarray, np.ndarray, float] | None:
+def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None
+                       ) -> tuple[np.ndarray, np.ndarray, float] | None:
     """Cholesky factor of the column-scaled Gram matrix of a tall ``x``.
 
     Returns (R1, d, rcond) with R1' R1 = D^-1 X'X D^-1, d the column norms
     (R = R1 diag(d) is the triangular factor of X) and rcond LAPACK dtrcon's 1-norm
     reciprocal condition number of R1; None when a column is zero or not finite or the
-    scaled Gram matrix is not numerically positive definite.
+    scaled Gram matrix is not numerically positive definite. ``gram``, when given, is
+    X'X already computed (it is then not formed again).
     """
-    d = np.sqrt(np.einsum("ij,ij->j", x, x))
+    if gram is None:
+        d = np.sqrt(np.einsum("ij,ij->j", x, x))
+    else:
+        d = np.sqrt(np.diag(gram).copy())
     if not (np.all(d > 0) and np.all(np.isfinite(d))):
         return None
-    xs = x / d
-    r1, info = lapack.dpotrf(xs.T @ xs, lower=0, clean=1, overwrite_a=1)
+    if gram is None:
+        xs = x / d
+        scaled = xs.T @ xs
+    else:
+        scaled = gram / np.outer(d, d)
+    r1, info = lapack.dpotrf(scaled, lower=0, clean=1, overwrite_a=1)
     if info != 0:
         return None
     rcond, info = lapack.dtrcon(r1, norm="1", uplo="U")
@@ -92,17 +100,18 @@ def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return q, r
 
 
-def basis_factor(x: np.ndarray, *, min_rcond: float) -> tuple[np.ndarray, np.ndarray | None]:
+def basis_factor(x: np.ndarray, *, min_rcond: float, gram: np.ndarray | None = None
+                 ) -> tuple[np.ndarray, np.ndarray | None]:
     """R with X = Q R, and Q when it had to be formed.
 
     Returns (R, None) when the column-scaled Gram factor has rcond >= ``min_rcond``
     (Q = X R^-1 stays implicit), else (R, Q) from ``thin_qr``. A wide X (m < k) gets
-    Q = I, R = X.
+    Q = I, R = X. ``gram``: X'X when already computed.
     """
     m, k = x.shape
     if k == 0:
         return np.zeros((0, 0)), None
-    first = scaled_gram_factor(x)
+    first = scaled_gram_factor(x, gram)
     if first is not None and first[2] >= min_rcond:
         r1, d, _ = first
         return r1 * d, None
