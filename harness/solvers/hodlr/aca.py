@@ -47,7 +47,6 @@ import numpy as np
 from harness.model.kernels.rows import eval_row
 from harness.solvers.hodlr.orth import apply_basis, basis_factor, rcond_for
 
-
 _JIT = {"fastmath": True, "nogil": True, "cache": True}
 
 #: Residual rows taken per step of the blocked ACA: 16 rows turn the memory-bound

@@ -1,7 +1,8 @@
 """Orthogonal bases of tall matrices, and the one dense Cholesky helper of the solver.
 
-Every basis the solver needs (ACA factors before recompression, the whitened bases of the symmetric factorization) is a tall X (m x k, m >= k)
-with X = Q R. Three ways to get there, from cheap to robust:
+Every basis the solver needs (ACA factors before recompression, the whitened bases of
+the symmetric factorization) is a tall X (m x k, m >= k) with X = Q R. Three ways to
+get there, from cheap to robust:
 
 * implicit Cholesky QR: R = chol(D^-1 X'X D^-1) D (D the column norms) from one Gram
   product, Q = X R^-1 never formed. Its loss of orthogonality is about
