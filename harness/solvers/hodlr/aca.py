@@ -160,13 +160,26 @@ def _skeleton_factors(core):
 
 
 @numba.njit(**_JIT)
-def _grow(vecs, k, need, cap_limit):
-    """``vecs`` with room for ``need`` rows (doubling, at most ``cap_limit``)."""
-    if need <= vecs.shape[0]:
-        return vecs
-    grown = np.empty((min(cap_limit, max(2 * vecs.shape[0], need)), vecs.shape[1]))
-    grown[:k] = vecs[:k]
-    return grown
+def _layout(scratch, cap, m, n):
+    """Views A (cap x m) and B (cap x n) on the front of the flat buffer ``scratch``."""
+    a_vecs = scratch[:cap * m].reshape((cap, m))
+    b_vecs = scratch[cap * m:cap * (m + n)].reshape((cap, n))
+    return a_vecs, b_vecs
+
+
+@numba.njit(**_JIT)
+def _grow(scratch, a_vecs, b_vecs, k, need, cap_limit):
+    """A buffer with room for ``need`` rows of A and B (doubling, at most ``cap_limit``),
+    the first k rows carried over; returns (buffer, A, B)."""
+    m, n = a_vecs.shape[1], b_vecs.shape[1]
+    if need <= a_vecs.shape[0]:
+        return scratch, a_vecs, b_vecs
+    cap = min(cap_limit, max(2 * a_vecs.shape[0], need))
+    grown = np.empty(cap * (m + n))
+    new_a, new_b = _layout(grown, cap, m, n)
+    new_a[:k] = a_vecs[:k]
+    new_b[:k] = b_vecs[:k]
+    return grown, new_a, new_b
 
 
 #: Rows per product when the Gram matrix is extended: only the lower triangle is
@@ -183,11 +196,11 @@ def _extend_gram(gram, vecs, k0, k):
         out[:k0, :k0] = gram[:k0, :k0]
     for j0 in range(k0, k, _GRAM_CHUNK):
         j1 = min(k, j0 + _GRAM_CHUNK)
-        new = np.dot(vecs[:j1], np.ascontiguousarray(vecs[j0:j1].T))
-        for i in range(j1):
-            for j in range(j1 - j0):
-                out[i, j0 + j] = new[i, j]
-                out[j0 + j, i] = new[i, j]
+        new = np.dot(vecs[j0:j1], vecs[:j1].T)
+        for j in range(j1 - j0):
+            for i in range(j1):
+                out[j0 + j, i] = new[j, i]
+                out[i, j0 + j] = new[j, i]
     return out
 
 
@@ -200,20 +213,25 @@ def _listed(idx, count, i):
 
 
 @numba.njit(**_JIT)
-def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, block):
+def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, block, scratch):
     """Blocked ACA on K[i, j] = entry(xs_i, ys_j) (see module docstring).
 
     ``family``, ``mode``: as in ``harness.model.kernels.rows``; ``checks``: (rounds,
-    rows) random row indices for the residual checks; ``block``: residual rows per step.
-    Returns (A, B, GA, GB) with K ~ A' B, A of shape (k, m), B of shape (k, n), and
-    their Gram matrices GA = A A', GB = B B' (k x k). Serial; releases the GIL.
+    rows) random row indices for the residual checks; ``block``: residual rows per step;
+    ``scratch``: a flat float buffer for the factors, reused when large enough (a fresh
+    buffer's first touch costs about 0.5 s per GB here). Returns (A, B, GA, GB, buffer)
+    with K ~ A' B, A of shape (k, m), B of shape (k, n) (views into ``buffer``, the
+    scratch or a larger one that replaced it), and their Gram matrices GA = A A',
+    GB = B B' (k x k). Serial; releases the GIL.
     """
     m = xs.shape[0]
     n = ys.shape[0]
     block = max(1, min(block, m))
     cap_limit = max_rank + block
-    a_vecs = np.empty((min(cap_limit, 4 * block), m))
-    b_vecs = np.empty((min(cap_limit, 4 * block), n))
+    cap = min(cap_limit, max(4 * block, scratch.shape[0] // (m + n)))
+    if scratch.shape[0] < cap * (m + n):
+        scratch = np.empty(cap * (m + n))
+    a_vecs, b_vecs = _layout(scratch, cap, m, n)
     gram_a = np.empty((0, 0))
     gram_b = np.empty((0, 0))
     k_gram = 0
@@ -257,8 +275,7 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
             rows_sel = np.empty((found, n))
             for s in range(found):
                 rows_sel[s] = res[sel_rows[s]]
-            a_vecs = _grow(a_vecs, k, k + found, cap_limit)
-            b_vecs = _grow(b_vecs, k, k + found, cap_limit)
+            scratch, a_vecs, b_vecs = _grow(scratch, a_vecs, b_vecs, k, k + found, cap_limit)
             a_vecs[k:k + found] = np.dot(left, col_res)
             b_vecs[k:k + found] = np.dot(right, rows_sel)
             for s in range(found):
@@ -313,8 +330,7 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
                 break
     gram_a = _extend_gram(gram_a, a_vecs, k_gram, k)
     gram_b = _extend_gram(gram_b, b_vecs, k_gram, k)
-    return (a_vecs[:k].copy(), b_vecs[:k].copy(), gram_a[:k, :k].copy(),
-            gram_b[:k, :k].copy())
+    return (a_vecs[:k], b_vecs[:k], gram_a[:k, :k].copy(), gram_b[:k, :k].copy(), scratch)
 
 
 def aca_callable(row: Callable[[int], np.ndarray], col: Callable[[int], np.ndarray],
@@ -376,6 +392,14 @@ def aca_callable(row: Callable[[int], np.ndarray], col: Callable[[int], np.ndarr
     a = np.array(a_list) if k else np.empty((0, m))
     b = np.array(b_list) if k else np.empty((0, n))
     return a, b
+
+
+class FactorScratch:
+    """A flat buffer that ``aca_compiled`` reuses for its factors (one per worker thread:
+    the largest blocks come first, so later blocks find it large enough)."""
+
+    def __init__(self) -> None:
+        self.buffer = np.empty(0)
 
 
 @dataclass(frozen=True)

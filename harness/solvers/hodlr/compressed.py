@@ -13,13 +13,14 @@ order; callers permute.
 
 from __future__ import annotations
 
+import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
 
 from harness.geometry.tree import ClusterTree
-from harness.solvers.hodlr.aca import LowRank
+from harness.solvers.hodlr.aca import FactorScratch, LowRank
 from harness.solvers.hodlr.entries import KernelEntries
 
 CHECK_ROUNDS = 8
@@ -102,9 +103,14 @@ def build_hodlr(entries: KernelEntries, tree: ClusterTree, *, tol: float,
             checks = rng.integers(0, mid - s, size=(CHECK_ROUNDS, CHECK_ROWS))
             jobs.append((level, j, (s, mid), (mid, e), checks))
 
+    per_thread = threading.local()
+
     def compress(job: tuple) -> LowRank:
         _, _, rows, cols, checks = job
-        return entries.off_diagonal(rows, cols, scaled, tol=tol, checks=checks)
+        if not hasattr(per_thread, "scratch"):
+            per_thread.scratch = FactorScratch()
+        return entries.off_diagonal(rows, cols, scaled, tol=tol, checks=checks,
+                                    scratch=per_thread.scratch)
 
     leaf_bounds = tree.bounds[tree.depth]
     results: dict[tuple[int, int], LowRank] = {}

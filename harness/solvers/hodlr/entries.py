@@ -17,6 +17,7 @@ from harness.model.kernels.classes import Kernel
 from harness.model.kernels.rows import family_code, fill_block, mode_for
 from harness.solvers.hodlr.aca import (
     ACA_BLOCK,
+    FactorScratch,
     LowRank,
     aca_callable,
     aca_compiled,
@@ -66,17 +67,19 @@ class KernelEntries:
         return k.derivative_block(self.points, idx, idx, self._param_index())
 
     def off_diagonal(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray,
-                     *, tol: float, checks: np.ndarray) -> LowRank:
+                     *, tol: float, checks: np.ndarray,
+                     scratch: FactorScratch | None = None) -> LowRank:
         """Sigma[rows, cols] ~ U V' for disjoint ranges, to relative Frobenius ``tol``.
 
         Half the tolerance goes to ACA, the other half to the recompression (``aca``
-        module).
+        module). ``scratch``: the calling thread's reusable ACA buffer.
         """
-        a, b, gram_a, gram_b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks)
+        a, b, gram_a, gram_b = self._aca(rows, cols, scaled, tol=0.5 * tol, checks=checks,
+                                         scratch=scratch or FactorScratch())
         return recompress(a, b, tol=0.5 * tol, gram_a=gram_a, gram_b=gram_b)
 
     def _aca(self, rows: tuple[int, int], cols: tuple[int, int], scaled: np.ndarray, *,
-             tol: float, checks: np.ndarray
+             tol: float, checks: np.ndarray, scratch: FactorScratch
              ) -> tuple[np.ndarray, np.ndarray, np.ndarray | None, np.ndarray | None]:
         """ACA factors (A, B), K ~ A' B, to the (estimated) relative tolerance ``tol``,
         with their Gram matrices A A', B B' where the compiled ACA formed them."""
@@ -84,9 +87,11 @@ class KernelEntries:
         (r0, r1), (c0, c1) = rows, cols
         m, n = r1 - r0, c1 - c0
         if k.compiled:
-            return aca_compiled(family_code(k.family), scaled[r0:r1], scaled[c0:c1],
-                                k.shape_value, k.variance, mode_for(k.isotropic, self.which),
-                                tol, min(m, n), checks, ACA_BLOCK)
+            a, b, gram_a, gram_b, scratch.buffer = aca_compiled(
+                family_code(k.family), scaled[r0:r1], scaled[c0:c1], k.shape_value,
+                k.variance, mode_for(k.isotropic, self.which), tol, min(m, n), checks,
+                ACA_BLOCK, scratch.buffer)
+            return a, b, gram_a, gram_b
         cols_idx = np.arange(c0, c1)
         rows_idx = np.arange(r0, r1)
         p = self._param_index()
