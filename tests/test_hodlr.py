@@ -63,8 +63,12 @@ def points_1500() -> np.ndarray:
 def test_errors_shrink_with_tolerance(points_1500: np.ndarray, family: str,
                                       lengthscale: float) -> None:
     ref = Reference(points_1500, KERNELS[family](lengthscale), np.random.default_rng(1))
-    errs = np.array([_errors(ref, factorize(points_1500, ref.kernel, None, tol=t, rng=0))
-                     for t in TOLS])  # rows: tol; cols: logdet, solve, quadratic form
+    # rows: tol; cols: logdet, solve, quadratic form; the largest over three ACA seeds
+    # (one seed's error can cancel by chance: the Gaussian kernel at l = 0.2 gave a
+    # quadratic-form error of 1.1e-8 at tol 1e-6 and 7.8e-8 at 1e-8)
+    errs = np.array([np.max([_errors(ref, factorize(points_1500, ref.kernel, None, tol=t,
+                                                    rng=seed)) for seed in range(3)], axis=0)
+                     for t in TOLS])
     floor = 1e-10  # round-off level of the dense reference itself (n = 1500)
     for col, name in enumerate(("logdet", "solve", "quadratic form")):
         e = np.maximum(errs[:, col], floor)
@@ -303,7 +307,7 @@ def _check_monotone(med: dict[str, np.ndarray], tols: tuple[float, ...]) -> None
 
 
 def test_loglik_error_follows_tolerance_down_to_1e12() -> None:
-    # n = 3,072 (two levels of large-block splitting still run), 3 seeds; ~15 s
+    # n = 3,072 (the root block takes about ten blocked-ACA steps), 3 seeds; ~15 s
     tols = (1e-4, 1e-6, 1e-8, 1e-10, 1e-12)
     med = _median_loglik_errors(3072, tols, seeds=3)
     _check_monotone(med, tols)
