@@ -164,14 +164,16 @@ def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = Non
     tol : float
         Compression tolerance, 0 < tol < 1. Meaning: every off-diagonal block K of
         Sigma is replaced by a low-rank U V' with ||K - U V'||_F <= tol ||K||_F
-        (estimated for the ACA half, exact for the truncation half; ``aca`` module), so
-        ||Sigma - Sigma~||_F <= tol ||Sigma||_F; the factorization then reproduces
-        Sigma~ to rounding (W W' = Sigma~; the bases' orthogonality is kept to tol / 100,
-        ``orth`` module), so the error of every result is the compression's. Measured
-        per-block ratios ||K - U V'||_F / (tol ||K||_F) were 0.6-1.1 at n = 16,000, tol
-        1e-8. The log-likelihood error scales with tol times the problem's sensitivity
-        (about ||Sigma^-1 y||^2 ||Sigma - Sigma~||_F / n for white-noise-like data), not
-        with tol alone: ``covaudit`` measures it.
+        (tol / 2 for the blocked ACA, estimated, plus tol / 20 for the SVD truncation,
+        exact; ``aca`` and ``entries`` modules), so ||Sigma - Sigma~||_F <= tol
+        ||Sigma||_F; the factorization then reproduces Sigma~ to rounding (W W' =
+        Sigma~; the bases' orthogonality is kept to tol / 100, ``orth`` module), so the
+        error of every result is the compression's. The log-likelihood error scales
+        with tol times the problem's sensitivity, which is largest for white-noise-like
+        data (y' Sigma^-1 y weighs the rough directions the truncation discards), not
+        with tol alone: ``covaudit`` measures it. Its size per tolerance on one problem
+        (n = 16,000, 2D Matern 3/2, l = 0.1, nugget 1e-2, 5 seeds) is recorded by
+        ``benchmarks/hodlr_accuracy.py`` in ``benchmarks/results/hodlr_accuracy.json``.
     leaf_size : int
         Maximum points per leaf of the cluster tree.
     rng : Generator, int or None
