@@ -88,8 +88,9 @@ def _residuals(family, points, others, idx, count, shape, scale, mode, own, othe
 def _cross_pivots(res, count, limit, rows, cols):
     """Pivots of the residual rows res[:count]: Gaussian elimination with the pivot row
     of largest norm and, in it, the entry of largest magnitude (at most ``limit`` steps;
-    stops when the largest row norm falls below 1e-10 of the first pivot row's: below
-    that the rows are rounding noise of the residual and a pivot there would amplify it).
+    a row whose exact norm is below 1e-10 of the first pivot row's, or whose largest
+    entry sits in a column already taken, is skipped: it is rounding noise of the rows
+    already eliminated and a pivot there would amplify it).
 
     The elimination is kept implicit: the current rows are E res with E (count x count)
     and their norms come from the Gram matrix G = res res' as diag(E G E'), so each
