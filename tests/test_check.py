@@ -262,7 +262,7 @@ def test_operator_reference_agrees_with_dense_within_its_uncertainty(tmp_path):
     data = validate(load_observations(path, coords=["e", "n"], value="z"))
     results = {}
     for ref in ("dense", "operator"):
-        options = CheckOptions(tolerances=(1e-2, 1e-8), fixed_params=dict(TRUE),
+        options = CheckOptions(tolerances=(1e-1, 1e-8), fixed_params=dict(TRUE),
                                reference=ref, solver_seeds=1, refit=False)
         results[ref] = run_check(data, options, source=str(path))
     dense, op = results["dense"], results["operator"]
@@ -270,7 +270,9 @@ def test_operator_reference_agrees_with_dense_within_its_uncertainty(tmp_path):
     for a, b in zip(dense.tolerances, op.tolerances, strict=True):
         da, db = a.metric("loglik_error"), b.metric("loglik_error")
         assert abs(da.value - db.value) <= 2 * db.uncertainty + 1e-6
-    assert op.tolerances[0].status == "unsafe"      # 1e-2: kriging error over the limit
+    # 1e-1: log-likelihood and kriging errors over their limits (the solver keeps about
+    # tol/20 of each block, so 1e-2 is already within them at n = 150).
+    assert op.tolerances[0].tol == 1e-1 and op.tolerances[0].status == "unsafe"
 
 
 def test_beyond_the_memory_budget_auto_uses_the_operator_with_ses(tmp_path, capsys):
