@@ -19,6 +19,7 @@ from harness.references import (
     dense_kriging,
 )
 from harness.references import cholesky as cholesky_module
+from harness.references.cholesky import blocked_cholesky
 
 
 @pytest.fixture(scope="module")
@@ -157,14 +158,26 @@ def test_certificate_detects_a_corrupted_factor(problem):
     chol = DenseCholesky(points[:100], Matern32(1.0, 0.2, 0.05))
     assert chol.certificate < 30
     chol.factor[5, 3] *= 1 + 1e-9
-    assert chol._certify() > 30
+    assert chol.dpot01_ratio() > 30
+    assert chol.randomized_ratio(rng=0) > 30
 
 
-def test_failed_certificate_is_an_error(problem, monkeypatch):
+def _corrupting_cholesky(a, **options):
+    """The real panel factorization, then one entry of the factor off by 1e-9 relative."""
+    info = blocked_cholesky(a, **options)
+    a[7, 2] *= 1.0 + 1e-9
+    return info
+
+
+@pytest.mark.parametrize("method, words", [("dpot01", "full ratio"),
+                                           ("randomized", "random probes")])
+def test_failed_certificate_is_an_error(problem, monkeypatch, method, words):
+    # The factorization itself is corrupted after the probes of the randomized
+    # certificate were taken from the assembled matrix: both certificates must see it.
     points, _ = problem
-    monkeypatch.setattr(cholesky_module.DenseCholesky, "_certify", lambda self: 1e4)
-    with pytest.raises(CertificateError, match="failed its certificate"):
-        DenseCholesky(points[:50], Matern32(1.0, 0.2, 0.05))
+    monkeypatch.setattr(cholesky_module, "blocked_cholesky", _corrupting_cholesky)
+    with pytest.raises(CertificateError, match=f"failed its certificate.*{words}"):
+        DenseCholesky(points[:50], Matern32(1.0, 0.2, 0.05), certificate_method=method)
 
 
 def test_duplicate_points_with_zero_nugget_are_reported():
@@ -187,8 +200,6 @@ def test_mismatched_lengths_are_refused():
 def test_blocked_cholesky_equals_numpy_across_panels():
     # numpy.linalg.cholesky as the outside check; panel 64 forces many panels and a
     # ragged last one (n = 300).
-    from harness.references.cholesky import blocked_cholesky
-
     pts = np.random.default_rng(9).random((300, 2))
     sigma = Matern32(1.0, 0.2, 0.05).covariance(pts)
     a = np.asfortranarray(np.tril(sigma) + np.triu(np.full_like(sigma, 7.0), k=1))
@@ -202,8 +213,6 @@ def test_blocked_cholesky_dsyrk_path_equals_scipy_cho_factor():
     # the panel path (dsyrk on diagonal blocks, dgemm below) against scipy.linalg.cho_factor
     # (LAPACK dpotrf in one call), with a ragged last panel
     import scipy.linalg
-
-    from harness.references.cholesky import blocked_cholesky
 
     pts = np.random.default_rng(3).random((1000, 2))
     sigma = Matern32(1.0, 0.1, 1e-2).covariance(pts)
@@ -252,21 +261,13 @@ def test_certificate_methods_and_their_options():
         DenseCholesky(pts, kernel, probes=0)
 
 
-def test_randomized_certificate_failure_is_an_error(monkeypatch):
-    pts = np.random.default_rng(6).random((80, 2))
-    monkeypatch.setattr(cholesky_module.DenseCholesky, "randomized_ratio",
-                        lambda self, **kw: 1e3)
-    with pytest.raises(CertificateError, match="random probes"):
-        DenseCholesky(pts, Matern32(1.0, 0.2, 0.05))
-
-
 def test_budget_counts_panel_and_certificate_temporaries():
-    # n^2 doubles for the factor, plus one n x 4,096 panel and four 4,096^2 blocks above
-    # n = 8,192, plus four n x 1,024 certificate blocks; 5% allowance (common practice)
+    # n^2 doubles for the factor (the panel factorization works in place), plus four
+    # n x 1,024 certificate blocks; 5% allowance (common practice)
     from harness.references import dense_bytes_needed, largest_dense_n
 
     n = 16000
-    expected = 1.05 * 8 * (n * n + n * 4096 + 4 * 4096**2 + n * 4096)
+    expected = 1.05 * 8 * (n * n + n * 4096)
     assert dense_bytes_needed(n) == int(expected)
     assert dense_bytes_needed(4000) == int(1.05 * 8 * (4000**2 + 4000 * 4000))
     budget = 12 * 2**30

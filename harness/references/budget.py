@@ -18,13 +18,11 @@ def default_memory_budget() -> int:
     return int(DEFAULT_BUDGET_FRACTION * psutil.virtual_memory().available)
 
 
-#: Temporaries besides the squares, in doubles: above n = 8,192 the panel factorization
-#: (``cholesky.blocked_cholesky``) holds one n x 4,096 panel and four 4,096 x 4,096
-#: blocks; the certificate holds four n x 1,024 column blocks (Sigma's block, its
-#: absolute value, products).
-_PANEL = 4096
+#: Temporaries besides the squares, in doubles: the panel factorization
+#: (``cholesky.blocked_cholesky``) works in place; the full DPOT01 certificate and the
+#: derivative products hold four n x 1,024 column blocks (Sigma's block, its absolute
+#: value, products).
 _CERTIFICATE_COLUMNS = 4 * 1024
-_SINGLE_CALL_N = 8192
 
 
 def _squares(score: bool, fisher: bool, n_params: int) -> int:
@@ -32,8 +30,7 @@ def _squares(score: bool, fisher: bool, n_params: int) -> int:
 
 
 def _temporary_doubles(n: int) -> int:
-    panel = n * _PANEL + 4 * _PANEL * _PANEL if n > _SINGLE_CALL_N else 0
-    return panel + n * min(n, _CERTIFICATE_COLUMNS)
+    return n * min(n, _CERTIFICATE_COLUMNS)
 
 
 def dense_bytes_needed(n: int, *, score: bool = False, fisher: bool = False,
@@ -42,8 +39,8 @@ def dense_bytes_needed(n: int, *, score: bool = False, fisher: bool = False,
 
     The factor is one n x n float64 array (assembled and factored in place); exact
     traces need Sigma^-1 (a second n x n); the Fisher information keeps
-    Sigma^-1 dSigma/dtheta_i for every parameter (p more). The factorization's panels
-    and the certificate's column blocks add ``_temporary_doubles(n)`` doubles;
+    Sigma^-1 dSigma/dtheta_i for every parameter (p more). The certificate's column
+    blocks add ``_temporary_doubles(n)`` doubles;
     O(n) vectors and smaller blocks are covered by a 5% allowance.
     """
     squares = _squares(score, fisher, n_params)

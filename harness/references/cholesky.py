@@ -1,7 +1,8 @@
 """Dense Cholesky factorization of Sigma in float64, with a residual certificate.
 
 Sigma = L L' is assembled (lower triangle, Fortran order) and factored in place by
-``dpotrf`` (by column panels above 8,192, ``blocked_cholesky``); nothing else of size
+column panels (``blocked_cholesky``: LAPACK dpotrf on the diagonal blocks, BLAS dtrsm
+and dsyrk on the rest, through the array's leading dimension); nothing else of size
 n x n is held. Two certificates of the residual E = L L' - Sigma, both compared with
 LAPACK's test threshold 30 (``TESTING/dtest.in``), both raising ``CertificateError``
 at or above it:
@@ -16,8 +17,9 @@ at or above it:
       ratio~ = sqrt(n) 10 sqrt(2/pi) max_i ||E z_i|| / (n ||Sigma||_1 eps)
 
   is at least the DPOT01 ratio with that probability (k = 4: 1 - 1e-4). E Z costs
-  two triangular products L (L' Z) and one pass of Sigma Z with Sigma re-evaluated by
-  column blocks: O(n^2) per probe, no extra n x n memory.
+  two triangular products L (L' Z) after the factorization and one symmetric product
+  Sigma [Z, 1] (BLAS dsymm) of the assembled matrix before it: O(n^2) per probe, no
+  extra n x n memory, no kernel evaluation.
 * ``"dpot01"``: the full ratio ||Sigma - L L'||_1 / (n ||Sigma||_1 eps), formed by
   column blocks (about one more factorization and one more assembly).
 """
@@ -25,6 +27,7 @@ at or above it:
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
@@ -32,6 +35,11 @@ from scipy.linalg import blas, lapack
 
 from harness.model.kernels import Kernel, assemble_lower
 from harness.references.budget import check_dense_budget
+from harness.references.inplace_blas import (
+    potrf_lower,
+    syrk_lower_update,
+    trsm_right_lower_transpose,
+)
 
 CERTIFICATE_THRESHOLD = 30.0
 _BLOCK = 1024
@@ -45,66 +53,53 @@ class SingularCovarianceError(np.linalg.LinAlgError):
     """Sigma is not numerically positive definite."""
 
 
-#: Matrices up to this size go to one dpotrf call; larger ones are factored by panels.
-CHOLESKY_PANEL = 8192
-#: Panel width of the blocked factorization above ``CHOLESKY_PANEL``.
-_BLOCKED_PANEL = 4096
+#: Panel width of ``blocked_cholesky`` (common practice: a few hundred columns keep the
+#: diagonal dpotrf small and the trailing dsyrk large; 512 ran within 1.05x of one
+#: dpotrf call at n = 12,288 here, ``benchmarks/dense_panel.py``).
+CHOLESKY_PANEL = 512
 #: Probe vectors of the randomized certificate (failure probability 10^-k).
 CERTIFICATE_PROBES = 4
 #: Certificate methods accepted by ``DenseCholesky``.
 CERTIFICATE_METHODS = ("randomized", "dpot01")
 
 
-def blocked_cholesky(a: np.ndarray, *, panel: int | None = None) -> int:
+def blocked_cholesky(a: np.ndarray, *, panel: int = CHOLESKY_PANEL) -> int:
     """Lower Cholesky factor of a Fortran-ordered SPD array, in place, by column panels.
 
     Right-looking blocked algorithm (Golub and Van Loan, *Matrix Computations*, 4th ed.,
     Algorithm 4.2.10, "block Cholesky"): for each panel K, A_KK = L_KK L_KK' (LAPACK
-    dpotrf), L_RK = A_RK L_KK^-T (BLAS dtrsm), and for each later column panel J the
-    trailing update A_JJ -= L_JK L_JK' by a symmetric rank-k update (BLAS dsyrk, the
-    lower triangle only: half the flops of a full product) and A_IJ -= L_IK L_JK'
-    (dgemm) below it, so the flop count is the n^3 / 3 of one dpotrf. Only the lower
-    triangle is read; the strict upper triangle is set to zero. One LAPACK call on the
-    whole matrix crashed inside OpenBLAS 0.3.30's threaded dpotrf at n = 26,100 on
-    this machine (segmentation fault; one thread, or n <= 8,192, ran fine), so
-    matrices above ``CHOLESKY_PANEL`` never go to a single call; below it the single
-    call is used. Temporaries: one (n x panel) block and a few (panel x panel) ones.
+    dpotrf on the diagonal block), L_RK = A_RK L_KK^-T (BLAS dtrsm) for the rows R
+    below it, and the trailing matrix A_RR -= L_RK L_RK' by one symmetric rank-k update
+    (BLAS dsyrk, lower triangle only), so the flop count is the n^3 / 3 of one dpotrf.
+    Every call works on the array itself through its leading dimension
+    (``inplace_blas``): no block is copied and nothing of size n is allocated. LAPACK is
+    only ever called on panel x panel blocks: one dpotrf call on the whole matrix
+    crashed inside OpenBLAS 0.3.30's threaded dpotrf at n = 26,100 on this machine
+    (segmentation fault; one thread, or n <= 8,192, ran fine). Only the lower triangle
+    is read; the strict upper triangle is set to zero.
 
     Parameters
     ----------
-    a : ndarray, shape (n, n), Fortran order
-    panel : int, optional
-        Panel width; default: one call up to ``CHOLESKY_PANEL``, else 4,096.
+    a : ndarray, shape (n, n), Fortran order, float64
+    panel : int
+        Panel width (default ``CHOLESKY_PANEL``).
 
     Returns
     -------
     int
         0 on success, else the 1-based column at which the matrix is not positive definite.
     """
+    if panel < 1:
+        raise ValueError(f"panel must be a positive integer, got {panel!r}")
     n = a.shape[0]
-    if panel is None:
-        panel = n if n <= CHOLESKY_PANEL else _BLOCKED_PANEL
     for k0 in range(0, n, panel):
         k1 = min(n, k0 + panel)
-        diag, info = lapack.dpotrf(np.asfortranarray(a[k0:k1, k0:k1]), lower=1, clean=1,
-                                   overwrite_a=1)
+        info = potrf_lower(a, (k0, k1))
         if info != 0:
             return k0 + info if info > 0 else info
-        a[k0:k1, k0:k1] = diag
-        if k1 == n:
-            break
-        below = blas.dtrsm(1.0, diag, np.asfortranarray(a[k1:, k0:k1]), side=1, lower=1,
-                           trans_a=1, overwrite_b=1)
-        a[k1:, k0:k1] = below
-        for j0 in range(k1, n, panel):
-            j1 = min(n, j0 + panel)
-            rows = below[j0 - k1:j1 - k1]
-            a[j0:j1, j0:j1] = blas.dsyrk(-1.0, rows, beta=1.0,
-                                         c=np.asfortranarray(a[j0:j1, j0:j1]), lower=1,
-                                         overwrite_c=1)
-            for i0 in range(j1, n, panel):  # row chunks keep the product at panel^2
-                i1 = min(n, i0 + panel)
-                a[i0:i1, j0:j1] -= below[i0 - k1:i1 - k1] @ rows.T
+        if k1 < n:
+            trsm_right_lower_transpose(a, (k0, k1), (k1, n))
+            syrk_lower_update(a, (k1, n), (k0, k1))
     for j in range(1, n):
         a[:j, j] = 0.0  # contiguous in Fortran order
     return 0
@@ -118,6 +113,43 @@ def _duplicate_count(points: np.ndarray) -> int:
 def _as_2d(points: np.ndarray) -> np.ndarray:
     points = np.asarray(points, dtype=float)
     return points[:, None] if points.ndim == 1 else points
+
+
+@dataclass(frozen=True)
+class _ProbeProducts:
+    """Gaussian probes Z, Sigma Z and a lower bound on ||Sigma||_1, for the certificate.
+
+    ``of_lower`` takes them from the assembled lower triangle before it is factored in
+    place: one BLAS dsymm of Sigma with [Z, 1] (O(n^2 (k + 1)), reading the matrix
+    once). ||Sigma||_1 >= max(max_i |(Sigma 1)_i|, max_i Sigma_ii), with equality for
+    the covariances of this package, whose entries are all >= 0 (a lower bound only
+    loosens the bound on the ratio, which divides by it).
+    """
+
+    z: np.ndarray
+    sigma_z: np.ndarray
+    sigma_norm_1: float
+
+    @classmethod
+    def of_lower(cls, lower: np.ndarray, *, probes: int,
+                 rng: np.random.Generator) -> _ProbeProducts:
+        n = lower.shape[0]
+        z = np.asfortranarray(np.column_stack([rng.standard_normal((n, probes)),
+                                               np.ones(n)]))
+        product = blas.dsymm(1.0, lower, z, lower=1)
+        norm = max(float(np.abs(product[:, -1]).max()), float(np.diagonal(lower).max()))
+        return cls(np.asfortranarray(z[:, :-1]), np.asfortranarray(product[:, :-1]), norm)
+
+    def ratio(self, factor: np.ndarray) -> float:
+        """sqrt(n) 10 sqrt(2/pi) max_i ||L (L' z_i) - Sigma z_i|| / (n ||Sigma||_1 eps)."""
+        n = factor.shape[0]
+        product = blas.dtrmm(1.0, factor, blas.dtrmm(1.0, factor, self.z, lower=1,
+                                                     trans_a=1), lower=1)
+        product -= self.sigma_z
+        residual = float(np.sqrt((product * product).sum(axis=0)).max())
+        eps = np.finfo(float).eps
+        bound_2norm = 10.0 * np.sqrt(2.0 / np.pi) * residual
+        return float(np.sqrt(n) * bound_2norm / (n * self.sigma_norm_1 * eps))
 
 
 class DenseCholesky:
@@ -173,6 +205,12 @@ class DenseCholesky:
         start = time.perf_counter()
         factor = assemble_lower(kernel, self.points)
         self.seconds["assemble"] = time.perf_counter() - start
+        probes_before: _ProbeProducts | None = None
+        if certify and certificate_method == "randomized":
+            start = time.perf_counter()
+            probes_before = _ProbeProducts.of_lower(factor, probes=self._probes,
+                                                    rng=self._rng)
+            self.seconds["certify"] = time.perf_counter() - start
         start = time.perf_counter()
         info = blocked_cholesky(factor)
         self.seconds["factor"] = time.perf_counter() - start
@@ -184,8 +222,10 @@ class DenseCholesky:
         self.certificate: float | None = None
         if certify:
             start = time.perf_counter()
-            self.certificate = self._certify()
-            self.seconds["certify"] = time.perf_counter() - start
+            self.certificate = (self.dpot01_ratio() if probes_before is None
+                                else probes_before.ratio(factor))
+            self.seconds["certify"] = self.seconds.get("certify", 0.0) + (
+                time.perf_counter() - start)
             if not self.certificate < CERTIFICATE_THRESHOLD:
                 raise CertificateError(
                     f"dense Cholesky failed its certificate: scaled residual "
@@ -212,25 +252,18 @@ class DenseCholesky:
         return (f"upper bound from {self._probes} random probes, holding with probability "
                 f">= 1 - 1e-{self._probes}")
 
-    def _certify(self) -> float:
-        """The certificate of ``certificate_method``."""
-        if self.certificate_method == "dpot01":
-            return self.dpot01_ratio()
-        return self.randomized_ratio(probes=self._probes, rng=self._rng)
-
     def randomized_ratio(self, *, probes: int = CERTIFICATE_PROBES,
                          rng: np.random.Generator | int | None = None) -> float:
-        """Probabilistic upper bound on the DPOT01 ratio from ``probes`` Gaussian vectors.
+        """Probabilistic upper bound on the DPOT01 ratio of the current factor.
 
-        ratio~ = sqrt(n) 10 sqrt(2/pi) max_i ||(L L' - Sigma) z_i|| / (n ||Sigma||_1 eps),
-        at least the DPOT01 ratio with probability >= 1 - 10^-probes (module docstring;
-        Halko, Martinsson and Tropp 2011, Lemma 4.1). Sigma Z and ||Sigma||_1 come from
-        one pass over column blocks of Sigma; L (L' Z) from two BLAS dtrmm calls.
+        As the default certificate (module docstring), but with Sigma Z and ||Sigma||_1
+        from one pass over column blocks of Sigma re-evaluated from the kernel, so it
+        can be called at any time after the factorization (the default certificate
+        takes Sigma Z from the assembled matrix before it is overwritten).
         """
         n = self.n
         z = np.asfortranarray(np.random.default_rng(rng).standard_normal((n, int(probes))))
-        c = self.factor
-        product = blas.dtrmm(1.0, c, blas.dtrmm(1.0, c, z, lower=1, trans_a=1), lower=1)
+        sigma_z = np.zeros_like(z)
         idx = np.arange(n)
         col_abs = np.zeros(n)
         for j0 in range(0, n, _BLOCK):
@@ -238,16 +271,13 @@ class DenseCholesky:
             # Sigma[j0:, J] (lower part of column block J); its strictly lower rows also
             # stand for the symmetric block Sigma[J, j1:]
             sigma = self.kernel.block(self.points, idx[j0:], idx[j0:j1])
-            product[j0:] -= sigma @ z[j0:j1]
+            sigma_z[j0:] += sigma @ z[j0:j1]
             below = sigma[j1 - j0:]
-            product[j0:j1] -= below.T @ z[j1:]
+            sigma_z[j0:j1] += below.T @ z[j1:]
             absolute = np.abs(sigma)
             col_abs[j0:j1] += absolute.sum(axis=0)
             col_abs[j1:] += absolute[j1 - j0:].sum(axis=1)
-        residual = float(np.sqrt((product * product).sum(axis=0)).max())
-        eps = np.finfo(float).eps
-        bound_2norm = 10.0 * np.sqrt(2.0 / np.pi) * residual
-        return float(np.sqrt(n) * bound_2norm / (n * float(col_abs.max()) * eps))
+        return _ProbeProducts(z, sigma_z, float(col_abs.max())).ratio(self.factor)
 
     def dpot01_ratio(self) -> float:
         """The full DPOT01 ratio ||Sigma - L L'||_1 / (n ||Sigma||_1 eps), by column blocks."""
