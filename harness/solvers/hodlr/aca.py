@@ -449,7 +449,7 @@ def recompress(a: np.ndarray, b: np.ndarray, *, tol: float, gram_a: np.ndarray |
     discarded singular values have root-sum-square <= tol * ||s||_2. R comes from the
     column-scaled Gram matrix (one BLAS-3 pass over each factor, no explicit Q) when its
     rcond is high enough (``orth.rcond_for``) that the rounding of applying the implicit
-    Q stays below tol / 100 and its loss of orthogonality below 1e-2 (which only scales
+    Q stays below tol / 10 and its loss of orthogonality below 1e-2 (which only scales
     the truncation estimate by 1 +- 1e-2: the kept product A' R_a^-1 (u_r s_r v_r')
     R_b^-T B differs from A'B by Q_a (tail) Q_b'); otherwise Q is formed by CholeskyQR2
     or Householder QR (``orth.basis_factor``). ``gram_a``, ``gram_b``: A A' and B B' when
@@ -459,7 +459,7 @@ def recompress(a: np.ndarray, b: np.ndarray, *, tol: float, gram_a: np.ndarray |
     n = b.shape[1]
     if k == 0:
         return LowRank(np.zeros((m, 0)), np.zeros((n, 0)), 0)
-    min_rcond = rcond_for(orthogonality=1e-2, rounding=0.01 * tol)
+    min_rcond = rcond_for(orthogonality=1e-2, rounding=0.1 * tol)
     ra, qa = basis_factor(a.T, min_rcond=min_rcond, gram=gram_a)
     rb, qb = basis_factor(b.T, min_rcond=min_rcond, gram=gram_b)
     u, s, vt = np.linalg.svd(ra @ rb.T, full_matrices=False)
