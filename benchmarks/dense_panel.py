@@ -1,9 +1,9 @@
 """Panel Cholesky of the dense reference against one LAPACK dpotrf call, same matrix.
 
 Matern 3/2, l = 0.1, nugget 1e-2, 2D uniform points; ``blocked_cholesky`` with its
-default 512-column panels (in-place dtrsm and dsyrk trailing updates) and one ``dpotrf`` call on copies
-of the same assembled matrix, alternating, median of ``--repeats``, at n above the
-single-call limit of 8,192 but below where one threaded call crashed here. Seconds and
+default 512-column panels (in-place dtrsm and dsyrk trailing updates) and one
+``dpotrf`` call on copies of the same assembled matrix, alternating, median of
+``--repeats``, at an n above 8,192 but below where one threaded call crashed here. Seconds and
 units of the same-run unit (``machine_unit``).
 
 Usage::

@@ -262,6 +262,27 @@ def test_thin_qr(decay: float) -> None:
     assert np.allclose(np.tril(r, -1), 0.0)
 
 
+@pytest.mark.parametrize("condition", [1e4, 1e7, 1e10, 1e13])
+def test_thin_qr_on_ill_conditioned_columns(condition: float) -> None:
+    # Columns that are nearly dependent (not just badly scaled): X = U diag(s) V' with
+    # s log-spaced to 1/condition. CholeskyQR2 holds up to cond ~ 1e7, shifted
+    # CholeskyQR3 beyond (Fukaya et al., SIAM J. Sci. Comput. 42 (2020) A477, Thm 5.3:
+    # orthogonality and residual of order eps); numpy's Householder QR is the reference
+    # for the residual.
+    rng = np.random.default_rng(2)
+    m, k = 3000, 80
+    u, _ = np.linalg.qr(rng.standard_normal((m, k)))
+    v, _ = np.linalg.qr(rng.standard_normal((k, k)))
+    x = (u * np.logspace(0, -np.log10(condition), k)) @ v.T
+    q, r = thin_qr(x)
+    assert np.linalg.norm(q.T @ q - np.eye(k)) < 1e-12
+    _, r_house = np.linalg.qr(x)
+    residual = np.linalg.norm(q @ r - x) / np.linalg.norm(x)
+    residual_house = np.linalg.norm(np.linalg.qr(x)[0] @ r_house - x) / np.linalg.norm(x)
+    assert residual < max(1e-14, 10 * residual_house), (residual, residual_house)
+    assert np.allclose(np.tril(r, -1), 0.0)
+
+
 # -- the tolerance controls the likelihood error (issue 11) ------------------------------
 
 def _median_loglik_errors(n: int, tols: tuple[float, ...], seeds: int
