@@ -76,7 +76,9 @@ def blocked_cholesky(a: np.ndarray, *, panel: int = CHOLESKY_PANEL) -> int:
     only ever called on panel x panel blocks: one dpotrf call on the whole matrix
     crashed inside OpenBLAS 0.3.30's threaded dpotrf at n = 26,100 on this machine
     (segmentation fault; one thread, or n <= 8,192, ran fine). Only the lower triangle
-    is read; the strict upper triangle is set to zero.
+    is read and written: the strict upper triangle is left as it was (zero for an array
+    from ``assemble_lower``, whose untouched pages read as zero; writing zeros there
+    cost 1-2 s of page faults at n = 16,000).
 
     Parameters
     ----------
@@ -100,8 +102,6 @@ def blocked_cholesky(a: np.ndarray, *, panel: int = CHOLESKY_PANEL) -> int:
         if k1 < n:
             trsm_right_lower_transpose(a, (k0, k1), (k1, n))
             syrk_lower_update(a, (k1, n), (k0, k1))
-    for j in range(1, n):
-        a[:j, j] = 0.0  # contiguous in Fortran order
     return 0
 
 
