@@ -151,6 +151,19 @@ def test_square_root_consistency(problem_3000) -> None:
     np.testing.assert_allclose(f.solve(b[:, 0]), f.solve(b)[:, 0], rtol=1e-10, atol=0)
 
 
+def test_results_do_not_depend_on_threads(problem_3000) -> None:
+    # The nodes of a level run on worker threads (disjoint row ranges): one thread and
+    # two must give the same bits, factorization and every operator.
+    ref, _ = problem_3000
+    one, two = (factorize(ref.points, ref.kernel, None, tol=1e-6, rng=3, threads=t)
+                for t in (1, 2))
+    assert one.logdet() == two.logdet()
+    b = np.random.default_rng(5).standard_normal((ref.points.shape[0], 4))
+    for name in ("solve", "matvec", "solve_sqrt", "apply_sqrt", "apply_sqrt_transpose"):
+        assert np.array_equal(getattr(one, name)(b), getattr(two, name)(b)), name
+    assert np.array_equal(one.derivative_matvec(1, b), two.derivative_matvec(1, b))
+
+
 def test_derivative_matvec_matches_dense(problem_3000) -> None:
     ref, f = problem_3000
     idx = np.arange(ref.points.shape[0])

@@ -22,6 +22,7 @@ import numpy as np
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.aca import FactorScratch, LowRank
 from harness.solvers.hodlr.entries import KernelEntries
+from harness.solvers.hodlr.parallel import for_each_node, node_pool
 
 CHECK_ROUNDS = 8
 CHECK_ROWS = 8
@@ -61,20 +62,29 @@ class HodlrMatrix:
             out.append(LevelRanks(level, int(r.max()), float(r.mean()), int(r.size)))
         return tuple(out)
 
-    def matvec(self, x: np.ndarray) -> np.ndarray:
-        """K x for x of shape (n, k) in tree order."""
+    def matvec(self, x: np.ndarray, *, threads: int = 1) -> np.ndarray:
+        """K x for x of shape (n, k) in tree order (the nodes of a level on ``threads``
+        workers)."""
         tree = self.tree
         y = np.empty_like(x)
         leaf_bounds = tree.bounds[tree.depth]
-        for j, d in enumerate(self.leaves):
+
+        def leaf(j: int) -> None:
             s, e = leaf_bounds[j], leaf_bounds[j + 1]
-            y[s:e] = d @ x[s:e]
-        for level, pairs in enumerate(self.pairs):
-            b = tree.bounds[level + 1]
-            for j, p in enumerate(pairs):
-                s, mid, e = b[2 * j], b[2 * j + 1], b[2 * j + 2]
-                y[s:mid] += p.u @ (p.v.T @ x[mid:e])
-                y[mid:e] += p.v @ (p.u.T @ x[s:mid])
+            y[s:e] = self.leaves[j] @ x[s:e]
+
+        with node_pool(threads) as pool:
+            for_each_node(pool, leaf, range(len(self.leaves)))
+            for level, pairs in enumerate(self.pairs):
+                b = tree.bounds[level + 1]
+
+                def pair(j: int, b: np.ndarray = b, pairs: tuple = pairs) -> None:
+                    s, mid, e = b[2 * j], b[2 * j + 1], b[2 * j + 2]
+                    p = pairs[j]
+                    y[s:mid] += p.u @ (p.v.T @ x[mid:e])
+                    y[mid:e] += p.v @ (p.u.T @ x[s:mid])
+
+                for_each_node(pool, pair, range(len(pairs)))
         return y
 
 

@@ -52,13 +52,14 @@ def compress_lengthscale_derivative(kernel: Kernel, points_tree: np.ndarray, tre
 
 
 def derivative_product(role: DerivativeRole, kernel: Kernel, sigma: HodlrMatrix,
-                       lengthscale: HodlrMatrix | None, x: np.ndarray) -> np.ndarray:
+                       lengthscale: HodlrMatrix | None, x: np.ndarray, *,
+                       threads: int = 1) -> np.ndarray:
     """dSigma/dtheta_i @ x in tree order, x of shape (n, m)."""
     if role.kind == "variance":
-        return sigma.matvec(x) - kernel.nugget * x
+        return sigma.matvec(x, threads=threads) - kernel.nugget * x
     if role.kind == "nugget":
         return kernel.nugget * x
     if lengthscale is None:
         raise ValueError(f"the derivative in log_lengthscale (axis {role.k}) has not been "
                          "compressed")
-    return lengthscale.matvec(x)
+    return lengthscale.matvec(x, threads=threads)

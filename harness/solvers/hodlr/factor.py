@@ -30,6 +30,7 @@ positive definite exactly when the compressed matrix is not: that is reported as
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
@@ -39,6 +40,7 @@ from scipy.linalg import blas, solve_triangular
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.compressed import HodlrMatrix
 from harness.solvers.hodlr.orth import basis_factor, cholesky_lower, rcond_for
+from harness.solvers.hodlr.parallel import for_each_node, node_pool
 
 
 class CompressionBreakdownError(np.linalg.LinAlgError):
@@ -111,59 +113,84 @@ class SymmetricFactor:
         b = self.tree.bounds[self.tree.depth]
         return [(int(b[j]), int(b[j + 1]), c) for j, c in enumerate(self.leaf_chol)]
 
-    def apply(self, x: np.ndarray) -> np.ndarray:
+    def _leaf_pass(self, pool: ThreadPoolExecutor | None,
+                   step: Callable[[np.ndarray, np.ndarray], np.ndarray],
+                   y: np.ndarray) -> None:
+        def leaf(item: tuple[int, int, np.ndarray]) -> None:
+            s, e, c = item
+            y[s:e] = step(c, y[s:e])
+        for_each_node(pool, leaf, self._leaves())
+
+    def _level_pass(self, pool: ThreadPoolExecutor | None, level: int,
+                    step: Callable[..., None], y: np.ndarray) -> None:
+        def node(j: int) -> None:
+            f = self.nodes[level][j]
+            if f.rank:
+                ia, ib, ua, ub = self._node_views(level, j)
+                step(f, ua, ub, y[ia], y[ib])
+        for_each_node(pool, node, range(len(self.nodes[level])))
+
+    def apply(self, x: np.ndarray, *, threads: int = 1) -> np.ndarray:
         """W x (x: (n, k), tree order): W_0 first, leaves last."""
         y = x.copy()
-        for level in range(self.tree.depth):
-            for j, f in enumerate(self.nodes[level]):
-                if f.rank:
-                    ia, ib, ua, ub = self._node_views(level, j)
-                    ta, tb = _qt(ua, f.ra, y[ia]), _qt(ub, f.rb, y[ib])
-                    y[ib] += _q(ub, f.rb, f.g.T @ ta + f.l22 @ tb - tb)
-        for s, e, c in self._leaves():
-            y[s:e] = c @ y[s:e]
+        with node_pool(threads) as pool:
+            for level in range(self.tree.depth):
+                self._level_pass(pool, level, _forward_update, y)
+            self._leaf_pass(pool, lambda c, v: c @ v, y)
         return y
 
-    def apply_transpose(self, x: np.ndarray) -> np.ndarray:
+    def apply_transpose(self, x: np.ndarray, *, threads: int = 1) -> np.ndarray:
         """W' x: leaves first, then W_{L-1}' ... W_0'."""
         y = x.copy()
-        for s, e, c in self._leaves():
-            y[s:e] = c.T @ y[s:e]
-        for level in range(self.tree.depth - 1, -1, -1):
-            for j, f in enumerate(self.nodes[level]):
-                if f.rank:
-                    ia, ib, ua, ub = self._node_views(level, j)
-                    tb = _qt(ub, f.rb, y[ib])
-                    y[ia] += _q(ua, f.ra, f.g @ tb)
-                    y[ib] += _q(ub, f.rb, f.l22.T @ tb - tb)
+        with node_pool(threads) as pool:
+            self._leaf_pass(pool, lambda c, v: c.T @ v, y)
+            for level in range(self.tree.depth - 1, -1, -1):
+                self._level_pass(pool, level, _transpose_update, y)
         return y
 
-    def solve(self, x: np.ndarray) -> np.ndarray:
+    def solve(self, x: np.ndarray, *, threads: int = 1) -> np.ndarray:
         """W^-1 x: leaves first, then W_{L-1}^-1 ... W_0^-1."""
         y = x.copy()
-        for s, e, c in self._leaves():
-            y[s:e] = solve_triangular(c, y[s:e], lower=True, check_finite=False)
-        for level in range(self.tree.depth - 1, -1, -1):
-            for j, f in enumerate(self.nodes[level]):
-                if f.rank:
-                    ia, ib, ua, ub = self._node_views(level, j)
-                    _inverse_update(f, ua, ub, y[ia], y[ib])
+        with node_pool(threads) as pool:
+            self._leaf_pass(pool, lambda c, v: solve_triangular(c, v, lower=True,
+                                                                check_finite=False), y)
+            for level in range(self.tree.depth - 1, -1, -1):
+                self._level_pass(pool, level, _inverse_update, y)
         return y
 
-    def solve_transpose(self, x: np.ndarray) -> np.ndarray:
+    def solve_transpose(self, x: np.ndarray, *, threads: int = 1) -> np.ndarray:
         """W'^-1 x: W_0'^-1 first, leaves last."""
         y = x.copy()
-        for level in range(self.tree.depth):
-            for j, f in enumerate(self.nodes[level]):
-                if f.rank:
-                    ia, ib, ua, ub = self._node_views(level, j)
-                    tb = _qt(ub, f.rb, y[ib])
-                    w = solve_triangular(f.l22, tb, lower=True, trans="T", check_finite=False)
-                    y[ia] -= _q(ua, f.ra, f.g @ w)
-                    y[ib] -= _q(ub, f.rb, tb - w)
-        for s, e, c in self._leaves():
-            y[s:e] = solve_triangular(c, y[s:e], lower=True, trans="T", check_finite=False)
+        with node_pool(threads) as pool:
+            for level in range(self.tree.depth):
+                self._level_pass(pool, level, _inverse_transpose_update, y)
+            self._leaf_pass(pool, lambda c, v: solve_triangular(
+                c, v, lower=True, trans="T", check_finite=False), y)
         return y
+
+
+def _forward_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,
+                    xb: np.ndarray) -> None:
+    """x <- W_p x in place: x_b += Q_b (G' t_a + L_22 t_b - t_b), t = Q' x."""
+    ta, tb = _qt(ua, f.ra, xa), _qt(ub, f.rb, xb)
+    xb += _q(ub, f.rb, f.g.T @ ta + f.l22 @ tb - tb)
+
+
+def _transpose_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,
+                      xb: np.ndarray) -> None:
+    """x <- W_p' x in place: x_a += Q_a G t_b, x_b += Q_b (L_22' t_b - t_b)."""
+    tb = _qt(ub, f.rb, xb)
+    xa += _q(ua, f.ra, f.g @ tb)
+    xb += _q(ub, f.rb, f.l22.T @ tb - tb)
+
+
+def _inverse_transpose_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray,
+                              xa: np.ndarray, xb: np.ndarray) -> None:
+    """x <- W_p'^-1 x in place: w = L_22^-T t_b, x_a -= Q_a G w, x_b -= Q_b (t_b - w)."""
+    tb = _qt(ub, f.rb, xb)
+    w = solve_triangular(f.l22, tb, lower=True, trans="T", check_finite=False)
+    xa -= _q(ua, f.ra, f.g @ w)
+    xb -= _q(ub, f.rb, tb - w)
 
 
 def _inverse_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,

@@ -10,8 +10,10 @@ Sigma~ = W_o W_o' in the caller's order.
 
 Threads: BLAS is held to one thread inside every call (the dense updates are small,
 one BLAS thread per worker was 4x faster than multithreaded BLAS here) and the work
-(blocks to compress, largest first; leaves; the nodes of a level) is spread over
-``threads`` worker threads; the compiled kernels release the GIL.
+(blocks to compress, largest first; leaves; the nodes of a level, in the
+factorization and in every product and solve) is spread over ``threads`` worker
+threads (``parallel``; the results do not depend on their number); the compiled
+kernels release the GIL.
 """
 
 from __future__ import annotations
@@ -96,23 +98,26 @@ class HodlrFactorization:
 
     def solve(self, b: np.ndarray) -> np.ndarray:
         """Sigma~^-1 b = W'^-1 W^-1 b."""
-        return self._apply(b, lambda x: self._factor.solve_transpose(self._factor.solve(x)))
+        t = self._threads
+        return self._apply(b, lambda x: self._factor.solve_transpose(
+            self._factor.solve(x, threads=t), threads=t))
 
     def matvec(self, b: np.ndarray) -> np.ndarray:
         """Sigma~ b from the compressed blocks (leaves + U V' pairs)."""
-        return self._apply(b, self._sigma.matvec)
+        return self._apply(b, lambda x: self._sigma.matvec(x, threads=self._threads))
 
     def solve_sqrt(self, b: np.ndarray) -> np.ndarray:
         """W_o^-1 b."""
-        return self._apply(b, self._factor.solve)
+        return self._apply(b, lambda x: self._factor.solve(x, threads=self._threads))
 
     def apply_sqrt(self, b: np.ndarray) -> np.ndarray:
         """W_o b (b standard normal gives a sample with covariance Sigma~)."""
-        return self._apply(b, self._factor.apply)
+        return self._apply(b, lambda x: self._factor.apply(x, threads=self._threads))
 
     def apply_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
         """W_o' b (so that apply_sqrt(apply_sqrt_transpose(b)) = Sigma~ b)."""
-        return self._apply(b, self._factor.apply_transpose)
+        return self._apply(b, lambda x: self._factor.apply_transpose(x,
+                                                                    threads=self._threads))
 
     def derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray:
         """dSigma/dtheta_i @ b (``derivatives`` module); compresses on first use."""
@@ -121,7 +126,7 @@ class HodlrFactorization:
             self.compress_derivatives([i])
         deriv = self._derivatives.get(i)
         return self._apply(b, lambda x: derivative_product(role, self.kernel, self._sigma,
-                                                           deriv, x))
+                                                           deriv, x, threads=self._threads))
 
     # -- extras --------------------------------------------------------------------
     def compress_derivatives(self, indices: list[int] | None = None) -> None:
