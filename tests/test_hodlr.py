@@ -143,6 +143,11 @@ def test_square_root_consistency(problem_3000) -> None:
     # W^-1 W b = b and Sigma~ Sigma~^-1 b = b
     np.testing.assert_allclose(f.solve_sqrt(f.apply_sqrt(b)), b, rtol=0, atol=1e-10)
     np.testing.assert_allclose(f.matvec(f.solve(b)), b, rtol=0, atol=1e-9)
+    # W^-T W^-1 b = Sigma~^-1 b and W' W^-T b = b
+    np.testing.assert_allclose(f.solve_sqrt_transpose(f.solve_sqrt(b)), f.solve(b),
+                               rtol=0, atol=1e-10 * np.abs(f.solve(b)).max())
+    np.testing.assert_allclose(f.apply_sqrt_transpose(f.solve_sqrt_transpose(b)), b,
+                               rtol=0, atol=1e-10)
     # b' Sigma~^-1 b = ||W^-1 b||^2
     np.testing.assert_allclose(np.sum(b * f.solve(b), axis=0),
                                np.sum(f.solve_sqrt(b) ** 2, axis=0), rtol=1e-10)
@@ -159,7 +164,8 @@ def test_results_do_not_depend_on_threads(problem_3000) -> None:
                 for t in (1, 2))
     assert one.logdet() == two.logdet()
     b = np.random.default_rng(5).standard_normal((ref.points.shape[0], 4))
-    for name in ("solve", "matvec", "solve_sqrt", "apply_sqrt", "apply_sqrt_transpose"):
+    for name in ("solve", "matvec", "solve_sqrt", "apply_sqrt", "apply_sqrt_transpose",
+                 "solve_sqrt_transpose"):
         assert np.array_equal(getattr(one, name)(b), getattr(two, name)(b)), name
     assert np.array_equal(one.derivative_matvec(1, b), two.derivative_matvec(1, b))
 

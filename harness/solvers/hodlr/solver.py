@@ -110,6 +110,11 @@ class HodlrFactorization:
         """W_o^-1 b."""
         return self._apply(b, lambda x: self._factor.solve(x, threads=self._threads))
 
+    def solve_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
+        """W_o^-T b (one pass; the generic stand-in would take three)."""
+        return self._apply(b, lambda x: self._factor.solve_transpose(x,
+                                                                     threads=self._threads))
+
     def apply_sqrt(self, b: np.ndarray) -> np.ndarray:
         """W_o b (b standard normal gives a sample with covariance Sigma~)."""
         return self._apply(b, lambda x: self._factor.apply(x, threads=self._threads))
