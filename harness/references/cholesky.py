@@ -54,8 +54,8 @@ class SingularCovarianceError(np.linalg.LinAlgError):
 
 
 #: Panel width of ``blocked_cholesky`` (common practice: a few hundred columns keep the
-#: diagonal dpotrf small and the trailing dsyrk large; 512 ran within 1.05x of one
-#: dpotrf call at n = 12,288 here, ``benchmarks/dense_panel.py``).
+#: diagonal dpotrf small and the trailing dsyrk large; at n = 12,288 it took 0.78 of
+#: one dpotrf call's time here, ``benchmarks/results/dense_panel.json``).
 CHOLESKY_PANEL = 512
 #: Probe vectors of the randomized certificate (failure probability 10^-k).
 CERTIFICATE_PROBES = 4

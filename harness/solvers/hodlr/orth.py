@@ -11,7 +11,11 @@ get there, from cheap to robust:
   Q = X R^-1 to a vector costs a relative error of about eps cond(X D^-1);
 * CholeskyQR2 (ibid.): a second Cholesky QR pass on the explicit first Q, orthogonal
   to working precision when eps cond^2 < 1;
-* Householder QR (``numpy.linalg.qr``, LAPACK dgeqrf/dorgqr), unconditionally stable.
+* shifted CholeskyQR3 (Fukaya, Kannan, Nakatsukasa, Yamamoto and Yanagisawa, SIAM J.
+  Sci. Comput. 42 (2020) A477-A503): a first pass on X'X + s I, then CholeskyQR2, for
+  condition numbers up to about 1 / (m k eps);
+* Householder QR (``numpy.linalg.qr``, LAPACK dgeqrf/dorgqr), unconditionally stable,
+  the last resort.
 
 ``basis_factor`` picks the cheapest that keeps both effects below a caller-given
 level (``rcond_for``); all Gram factors go through ``scaled_gram_factor``, and all
