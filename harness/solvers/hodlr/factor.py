@@ -208,9 +208,10 @@ def implicit_rcond(tol: float) -> float:
     whitened frame, where the compression error itself is at least tol, so it is held
     to tol; the rounding of applying Q = U R^-1 (~ eps cond) to tol / 100
     (``orth.rcond_for``). Holding the orthogonality to tol / 100 instead formed Q
-    explicitly at most nodes for tol <= 1e-8 (rcond >= 0.5) and gave the same
-    log-likelihood errors to three digits at n = 16,000, tol 1e-8 and 1e-10 (white-noise
-    and smooth-field values, 3 seeds) in about twice the factorization time at 1e-8.
+    explicitly at most nodes for tol <= 1e-8 (rcond >= 0.5): at n = 16,000 it gave the
+    same log-likelihood errors to three digits at tol 1e-6, 1e-8 and 1e-10 (white-noise
+    and smooth-field values, 5 seeds) with a factorization 1.6 times as long at 1e-8
+    (``benchmarks/results/hodlr_variants.json``, variant ``strict_orthogonality``).
     """
     return rcond_for(orthogonality=tol, rounding=0.01 * tol)
 
