@@ -29,7 +29,8 @@ def _dense_seconds(points: np.ndarray) -> float:
     t = time.perf_counter()
     a = assemble_lower(KERNEL, points)
     # one threaded dpotrf call segfaults at n = 16,000 here (OpenBLAS 0.3.30): the panel
-    # factorization of the dense reference (within ~1.1x of one call at 8,192-12,288)
+    # factorization of the dense reference (0.78 of one call's time at 12,288,
+    # benchmarks/results/dense_panel.json)
     info = blocked_cholesky(a)
     elapsed = time.perf_counter() - t
     if info != 0:
