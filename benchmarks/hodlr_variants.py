@@ -46,7 +46,7 @@ from harness.geometry.pointsets import uniform
 from harness.model.kernels import Matern32
 from harness.references import DenseCholesky
 from harness.solvers.hodlr import factorize
-from harness.solvers.hodlr.aca import FactorScratch, recompress
+from harness.solvers.hodlr.aca import recompress
 from harness.solvers.hodlr.orth import rcond_for, scaled_gram_factor, thin_qr
 
 KERNEL = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
@@ -58,17 +58,12 @@ def loglik(quad: float, logdet: float, n: int) -> float:
 
 
 def _top_levels_loose(n: int):
-    shipped = entries.KernelEntries.off_diagonal
+    """``entries.recompress`` with ten times its tolerance (tol / 20 -> tol / 2) on
+    blocks of n / 8 rows or more; A is k x m, so its second dimension is the rows."""
+    def loose(a, b, *, tol, **grams):
+        return recompress(a, b, tol=10.0 * tol if a.shape[1] >= n // 8 else tol, **grams)
 
-    def off_diagonal(self, rows, cols, scaled, *, tol, checks, scratch=None):
-        if rows[1] - rows[0] < n // 8:
-            return shipped(self, rows, cols, scaled, tol=tol, checks=checks,
-                           scratch=scratch)
-        a, b, gram_a, gram_b = self._aca(rows, cols, scaled, tol=entries.ACA_SHARE * tol,
-                                         checks=checks, scratch=scratch or FactorScratch())
-        return recompress(a, b, tol=0.5 * tol, gram_a=gram_a, gram_b=gram_b)
-
-    return entries.KernelEntries, "off_diagonal", off_diagonal
+    return entries, "recompress", loose
 
 
 def variants(n: int) -> dict[str, list[tuple[object, str, object]]]:

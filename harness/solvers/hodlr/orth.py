@@ -47,11 +47,12 @@ def rcond_for(*, orthogonality: float, rounding: float) -> float:
     return min(0.5, max(float(np.sqrt(_EPS / orthogonality)), _EPS / rounding))
 
 
-def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None
+def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None, *,
+                       shift: bool = False
                        ) -> tuple[np.ndarray, np.ndarray, float] | None:
     """Cholesky factor of the column-scaled Gram matrix of a tall ``x``.
 
-    Returns (R1, d, rcond) with R1' R1 = D^-1 X'X D^-1, d the column norms
+    Returns (R1, d, rcond) with R1' R1 = D^-1 X'X D^-1 (+ s I), d the column norms
     (R = R1 diag(d) is the triangular factor of X) and rcond LAPACK dtrcon's 1-norm
     reciprocal condition number of R1; None when a column is zero or not finite or the
     scaled Gram matrix is not numerically positive definite. ``gram``, when given, is
@@ -59,6 +60,11 @@ def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None
     first and scaled after (entrywise the same to rounding as the Gram matrix of
     X D^-1, without the copy of X: 1.9x faster at 32,768 x 252 here,
     ``benchmarks/results/hodlr_variants.json``).
+
+    With ``shift``, s = 11 (m k + k (k + 1)) eps ||X D^-1||_2^2, the shift of Fukaya,
+    Kannan, Nakatsukasa, Yamamoto and Yanagisawa, SIAM J. Sci. Comput. 42 (2020)
+    A477-A503, Algorithm 4.1, which keeps the Cholesky factorization from breaking down
+    for condition numbers up to about 1 / (m k eps).
     """
     if gram is None:
         gram = x.T @ x
@@ -66,6 +72,10 @@ def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None
     if not (np.all(d > 0) and np.all(np.isfinite(d))):
         return None
     scaled = gram / np.outer(d, d)
+    if shift:
+        m, k = x.shape
+        scaled[np.diag_indices(k)] += (11.0 * (m * k + k * (k + 1)) * _EPS
+                                       * _largest_eigenvalue(scaled))
     r1, info = lapack.dpotrf(scaled, lower=0, clean=1, overwrite_a=1)
     if info != 0:
         return None
@@ -86,38 +96,6 @@ def _largest_eigenvalue(g: np.ndarray) -> float:
     return 1.1 * lam
 
 
-def _cholesky_qr_pass(q: np.ndarray, *, shift: bool,
-                      first: tuple[np.ndarray, np.ndarray, float] | None = None
-                      ) -> tuple[np.ndarray, np.ndarray] | None:
-    """One Cholesky QR pass: (Q R^-1, R) with R' R = Q'Q (+ s I); Q is overwritten.
-
-    Columns are scaled first (R = R1 D). With ``shift``, s = 11 (m k + k (k + 1)) eps
-    ||Q D^-1||_2^2, the shift of Fukaya, Kannan, Nakatsukasa, Yamamoto and
-    Yanagisawa, SIAM J. Sci. Comput. 42 (2020) A477-A503, Algorithm 4.1, which keeps
-    the Cholesky factorization from breaking down for condition numbers up to about
-    1 / (m k eps). ``first``: ``scaled_gram_factor(Q)`` when already computed (plain
-    pass only). None on breakdown.
-    """
-    m, k = q.shape
-    if first is None:
-        gram = blas.dsyrk(1.0, q, trans=1, lower=0)  # Q'Q, upper triangle (Q Fortran)
-        d = np.sqrt(np.diag(gram).copy())
-        if not (np.all(d > 0) and np.all(np.isfinite(d))):
-            return None
-        scaled = gram / np.outer(d, d)
-        if shift:
-            scaled = np.triu(scaled) + np.triu(scaled, 1).T
-            scaled[np.diag_indices(k)] += (11.0 * (m * k + k * (k + 1)) * _EPS
-                                           * _largest_eigenvalue(scaled))
-        r1, info = lapack.dpotrf(scaled, lower=0, clean=1, overwrite_a=1)
-        if info != 0:
-            return None
-    else:
-        r1, d, _ = first
-    r = r1 * d
-    return blas.dtrsm(1.0, r, q, side=1, lower=0, overwrite_b=1), r
-
-
 def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """X = Q R with Q (m x k) orthonormal to working precision and R (k x k) upper.
 
@@ -125,7 +103,7 @@ def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     eps cond^2 < 1e-3 and the second pass restores orthogonality; Yamamoto et al.
     2015), shifted CholeskyQR3 (a shifted pass, then two plain ones; Fukaya et al.
     2020) below that, Householder QR (``numpy.linalg.qr``) when a pass breaks down.
-    The passes are BLAS-3 (Gram product and dtrsm on one copy of X).
+    Each pass is one Gram product and one in-place dtrsm (Q <- Q R^-1) on one copy of X.
 
     Parameters
     ----------
@@ -137,18 +115,22 @@ def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return np.empty((m, 0)), np.empty((0, 0))
     if m < k:
         raise ValueError(f"thin_qr: expected a tall matrix (m >= k), got shape {x.shape}")
-    first = scaled_gram_factor(x)
-    shifted = first is None or first[2] < 1e-6
+    gram = x.T @ x
+    factor = scaled_gram_factor(x, gram)
+    passes = 2
+    if factor is None or factor[2] < 1e-6:
+        factor, passes = scaled_gram_factor(x, gram, shift=True), 3
     q = np.array(x, dtype=float, order="F")
     r = np.eye(k)
-    passes = [(True, None), (False, None), (False, None)] if shifted else [(False, first),
-                                                                           (False, None)]
-    for shift, known in passes:
-        step = _cholesky_qr_pass(q, shift=shift, first=known)
-        if step is None:
+    for done in range(passes):
+        if factor is None:
             q, r = np.linalg.qr(x)
             return q, r
-        q, r = step[0], step[1] @ r
+        step = factor[0] * factor[1]
+        q = blas.dtrsm(1.0, step, q, side=1, lower=0, overwrite_b=1)
+        r = step @ r
+        if done + 1 < passes:
+            factor = scaled_gram_factor(q)
     return q, r
 
 
