@@ -210,7 +210,7 @@ def implicit_rcond(tol: float) -> float:
     (``orth.rcond_for``). Holding the orthogonality to tol / 100 instead formed Q
     explicitly at most nodes for tol <= 1e-8 (rcond >= 0.5): at n = 16,000 it gave the
     same log-likelihood errors to three digits at tol 1e-6, 1e-8 and 1e-10 (white-noise
-    and smooth-field values, 5 seeds) with a factorization 1.6 times as long at 1e-8
+    and smooth-field values, 5 seeds) with a factorization 1.7 times as long at 1e-8
     (``benchmarks/results/hodlr_variants.json``, variant ``strict_orthogonality``).
     """
     return rcond_for(orthogonality=tol, rounding=0.01 * tol)

@@ -58,7 +58,7 @@ def scaled_gram_factor(x: np.ndarray, gram: np.ndarray | None = None, *,
     scaled Gram matrix is not numerically positive definite. ``gram``, when given, is
     X'X already computed (it is then not formed again). The Gram matrix is formed
     first and scaled after (entrywise the same to rounding as the Gram matrix of
-    X D^-1, without the copy of X: 1.9x faster at 32,768 x 252 here,
+    X D^-1, without the copy of X: 1.8x faster at 32,768 x 252 here,
     ``benchmarks/results/hodlr_variants.json``).
 
     With ``shift``, s = 11 (m k + k (k + 1)) eps ||X D^-1||_2^2, the shift of Fukaya,
