@@ -421,3 +421,56 @@ def test_one_basis_helper_orthogonality_and_thresholds() -> None:
     wide = rng.standard_normal((5, 8))
     r, q = basis_factor(wide, min_rcond=0.5)
     np.testing.assert_allclose(apply_basis(wide, r, q, np.eye(r.shape[0])) @ r, wide)
+
+
+def test_row_block_products_equal_numpy() -> None:
+    # The in-place dgemm calls on row blocks of a C-ordered array against NumPy's
+    # products of the same blocks (the reference: numpy.matmul on copies).
+    from harness.solvers.hodlr.row_blocks import cross_product, subtract_product
+
+    rng = np.random.default_rng(5)
+    a = rng.standard_normal((300, 90))
+    rows, own, ancestors = slice(40, 217), slice(60, 83), slice(0, 57)
+    np.testing.assert_allclose(cross_product(a, rows, own, ancestors),
+                               a[rows, own].T @ a[rows, ancestors], rtol=1e-13, atol=1e-12)
+    coefficients = rng.standard_normal((23, 57))
+    expected = a.copy()
+    expected[rows, ancestors] -= a[rows, own] @ coefficients
+    subtract_product(a, rows, ancestors, own, coefficients)
+    np.testing.assert_allclose(a, expected, rtol=1e-13, atol=1e-12)
+    empty = cross_product(a, slice(5, 5), own, ancestors)
+    assert empty.shape == (23, 57) and not empty.any()
+    with pytest.raises(ValueError, match="overlap"):
+        subtract_product(a, rows, slice(50, 70), own, rng.standard_normal((23, 20)))
+    with pytest.raises(ValueError, match="C-ordered"):
+        cross_product(np.asfortranarray(a), rows, own, ancestors)
+    with pytest.raises(ValueError, match="not a block"):
+        cross_product(a, slice(0, 400), own, ancestors)
+
+
+def test_inverse_update_maps_equal_the_substitutions() -> None:
+    # W_p^-1 applied through the two r x r maps equals the step-by-step triangular
+    # substitutions of the factor's own solve (``_inverse_update``), and W_p W_p^-1 = I
+    # with W_p from ``_forward_update`` (arXiv 1405.0223, Lemma 3.1).
+    from harness.solvers.hodlr.factor import (
+        NodeFactor,
+        _forward_update,
+        _inverse_update,
+        _inverse_update_maps,
+    )
+
+    rng = np.random.default_rng(6)
+    r, m = 12, 40
+    ua, ub = rng.standard_normal((m, r)), rng.standard_normal((m, r))
+    ra, rb = np.linalg.qr(ua, mode="r"), np.linalg.qr(ub, mode="r")
+    g = 0.3 * rng.standard_normal((r, r)) / np.sqrt(r)
+    f = NodeFactor(r, g, np.linalg.cholesky(np.eye(r) - g.T @ g), ra, rb)
+    xa, xb = rng.standard_normal((m, 7)), rng.standard_normal((m, 7))
+    map_a, map_b = _inverse_update_maps(f)
+    via_maps = xb - ub @ (map_a @ (ua.T @ xa) + map_b @ (ub.T @ xb))
+    stepwise = xb.copy()
+    _inverse_update(f, ua, ub, xa.copy(), stepwise)
+    np.testing.assert_allclose(via_maps, stepwise, rtol=1e-12, atol=1e-12)
+    back = via_maps.copy()
+    _forward_update(f, ua, ub, xa.copy(), back)
+    np.testing.assert_allclose(back, xb, rtol=1e-12, atol=1e-12)

@@ -98,6 +98,7 @@ class KernelEntries:
         (r0, r1), (c0, c1) = rows, cols
         m, n = r1 - r0, c1 - c0
         if k.compiled:
+            scratch.reserve(rank_bound=min(m, n), m=m, n=n, block=ACA_BLOCK)
             a, b, gram_a, gram_b, scratch.buffer = aca_compiled(
                 family_code(k.family), scaled[r0:r1], scaled[c0:c1], k.shape_value,
                 k.variance, mode_for(k.isotropic, self.which), tol, min(m, n), checks,
