@@ -30,7 +30,7 @@ _capsule_pointer = ctypes.pythonapi.PyCapsule_GetPointer
 _capsule_pointer.restype = ctypes.c_void_p
 _capsule_pointer.argtypes = [ctypes.py_object, ctypes.c_char_p]
 
-_DGEMM_CAPSULE = cython_blas.__pyx_capi__["dgemm"]  # type: ignore[attr-defined]
+_DGEMM_CAPSULE = cython_blas.__pyx_capi__["dgemm"]
 _DGEMM = ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * 13))(
     _capsule_pointer(_DGEMM_CAPSULE, _capsule_name(_DGEMM_CAPSULE)))
 _LARGEST_INT = 2**31 - 1
