@@ -448,15 +448,17 @@ def test_row_block_products_equal_numpy() -> None:
         cross_product(a, slice(0, 400), own, ancestors)
 
 
-def test_inverse_update_maps_equal_the_substitutions() -> None:
-    # W_p^-1 applied through the two r x r maps equals the step-by-step triangular
-    # substitutions of the factor's own solve (``_inverse_update``), and W_p W_p^-1 = I
-    # with W_p from ``_forward_update`` (arXiv 1405.0223, Lemma 3.1).
+def test_inverse_maps_equal_the_substitutions() -> None:
+    # W_p^-1 and W_p'^-1 applied through the two r x r maps equal the step-by-step
+    # triangular substitutions of the node factor's definition (arXiv 1405.0223,
+    # Lemma 3.1: t = R^-T U' x, w = L_22^-1 (t_b - G' t_a), x_b -= U_b R_b^-1 (t_b - w)),
+    # written out here with SciPy's solve_triangular; and W_p W_p^-1 = I with W_p from
+    # ``_forward_update``.
     from harness.solvers.hodlr.factor import (
         NodeFactor,
         _forward_update,
+        _inverse_transpose_update,
         _inverse_update,
-        _inverse_update_maps,
     )
 
     rng = np.random.default_rng(6)
@@ -464,13 +466,29 @@ def test_inverse_update_maps_equal_the_substitutions() -> None:
     ua, ub = rng.standard_normal((m, r)), rng.standard_normal((m, r))
     ra, rb = np.linalg.qr(ua, mode="r"), np.linalg.qr(ub, mode="r")
     g = 0.3 * rng.standard_normal((r, r)) / np.sqrt(r)
-    f = NodeFactor(r, g, np.linalg.cholesky(np.eye(r) - g.T @ g), ra, rb)
+    l22 = np.linalg.cholesky(np.eye(r) - g.T @ g)
+    f = NodeFactor.build(r, g, l22, ra, rb)
     xa, xb = rng.standard_normal((m, 7)), rng.standard_normal((m, 7))
-    map_a, map_b = _inverse_update_maps(f)
-    via_maps = xb - ub @ (map_a @ (ua.T @ xa) + map_b @ (ub.T @ xb))
-    stepwise = xb.copy()
-    _inverse_update(f, ua, ub, xa.copy(), stepwise)
-    np.testing.assert_allclose(via_maps, stepwise, rtol=1e-12, atol=1e-12)
-    back = via_maps.copy()
-    _forward_update(f, ua, ub, xa.copy(), back)
-    np.testing.assert_allclose(back, xb, rtol=1e-12, atol=1e-12)
+
+    def qt(u, rr, x):
+        return sl.solve_triangular(rr, u.T @ x, trans="T", lower=False)
+
+    def q(u, rr, t):
+        return u @ sl.solve_triangular(rr, t, lower=False)
+
+    ta, tb = qt(ua, ra, xa), qt(ub, rb, xb)
+    w = sl.solve_triangular(l22, tb - g.T @ ta, lower=True)
+    expected_b = xb - q(ub, rb, tb - w)
+    got_a, got_b = xa.copy(), xb.copy()
+    _inverse_update(f, ua, ub, got_a, got_b)
+    np.testing.assert_array_equal(got_a, xa)
+    np.testing.assert_allclose(got_b, expected_b, rtol=1e-12, atol=1e-12)
+    _forward_update(f, ua, ub, got_a, got_b)
+    np.testing.assert_allclose(got_b, xb, rtol=1e-12, atol=1e-12)
+    # transpose: w = L_22^-T t_b, x_a -= Q_a G w, x_b -= Q_b (t_b - w)
+    w = sl.solve_triangular(l22, tb, lower=True, trans="T")
+    expected_a, expected_b = xa - q(ua, ra, g @ w), xb - q(ub, rb, tb - w)
+    got_a, got_b = xa.copy(), xb.copy()
+    _inverse_transpose_update(f, ua, ub, got_a, got_b)
+    np.testing.assert_allclose(got_a, expected_a, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(got_b, expected_b, rtol=1e-12, atol=1e-12)

@@ -60,20 +60,54 @@ class CompressionBreakdownError(np.linalg.LinAlgError):
 
 @dataclass(frozen=True)
 class NodeFactor:
-    """W_p at one internal node: rank r, G = R_a R_b', L_22 = chol(I - G'G) and the
+    """W_p at one internal node: rank r, G = R_a R_b', L_22 = chol(I - G'G), the
     triangular factors R_a, R_b with Q_a = U_a R_a^-1 (the stored basis columns hold
     U_a, U_b; Q is never formed unless the Gram matrix was too ill conditioned, in
-    which case the columns hold Q and R is the identity)."""
+    which case the columns hold Q and R is the identity), and the r x r maps of
+    W_p^-1 (``inverse_maps``)."""
 
     rank: int
     g: np.ndarray
     l22: np.ndarray
     ra: np.ndarray
     rb: np.ndarray
+    solve_a: np.ndarray
+    solve_b: np.ndarray
+
+    @classmethod
+    def build(cls, rank: int, g: np.ndarray, l22: np.ndarray, ra: np.ndarray,
+              rb: np.ndarray) -> NodeFactor:
+        """The node factor with its inverse maps computed."""
+        solve_a, solve_b = inverse_maps(g, l22, ra, rb)
+        return cls(rank, g, l22, ra, rb, solve_a, solve_b)
 
     @property
     def nbytes(self) -> int:
-        return int(self.g.nbytes + self.l22.nbytes + self.ra.nbytes + self.rb.nbytes)
+        return int(sum(a.nbytes for a in (self.g, self.l22, self.ra, self.rb, self.solve_a,
+                                          self.solve_b)))
+
+
+def inverse_maps(g: np.ndarray, l22: np.ndarray, ra: np.ndarray, rb: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+    """(A_a, A_b) with W_p^-1 x = x - [0; U_b (A_a U_a' x_a + A_b U_b' x_b)].
+
+    Multiplying out W_p^-1 (t = Q' x = R^-T U' x, w = L_22^-1 (t_b - G' t_a),
+    x_b -= Q_b (t_b - w); module docstring):
+
+        A_a = R_b^-1 L_22^-1 G' R_a^-T,    A_b = R_b^-1 (I - L_22^-1) R_b^-T,
+
+    and W_p'^-1 x = x - [U_a A_a' U_b' x_b; U_b A_b' U_b' x_b]. With these r x r
+    matrices every product with W_p^-1 or W_p'^-1 is three (two) products with the
+    bases and no triangular solve of the vectors' width (small solves ran at a tenth of
+    the products' rate at 128-row nodes). Only r x r inverses are formed; their
+    rounding is that of the substitutions they replace (Higham, *Accuracy and
+    Stability of Numerical Algorithms*, 2nd ed., 2002, sec. 14.2).
+    """
+    eye = np.eye(g.shape[0])
+    l22_inv = solve_triangular(l22, eye, lower=True, check_finite=False)
+    rb_inv = solve_triangular(rb, eye, lower=False, check_finite=False)
+    ra_inv = solve_triangular(ra, eye, lower=False, check_finite=False)
+    return rb_inv @ (l22_inv @ g.T) @ ra_inv.T, rb_inv @ (eye - l22_inv) @ rb_inv.T
 
 
 def _qt(u: np.ndarray, r: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -187,40 +221,16 @@ def _transpose_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndar
 
 def _inverse_transpose_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray,
                               xa: np.ndarray, xb: np.ndarray) -> None:
-    """x <- W_p'^-1 x in place: w = L_22^-T t_b, x_a -= Q_a G w, x_b -= Q_b (t_b - w)."""
-    tb = _qt(ub, f.rb, xb)
-    w = solve_triangular(f.l22, tb, lower=True, trans="T", check_finite=False)
-    xa -= _q(ua, f.ra, f.g @ w)
-    xb -= _q(ub, f.rb, tb - w)
+    """x <- W_p'^-1 x in place: c = U_b' x_b, x_a -= U_a A_a' c, x_b -= U_b A_b' c."""
+    c = ub.T @ xb
+    xa -= ua @ (f.solve_a.T @ c)
+    xb -= ub @ (f.solve_b.T @ c)
 
 
 def _inverse_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,
                     xb: np.ndarray) -> None:
-    """x <- W_p^-1 x in place: x_b -= Q_b (t_b - L_22^-1 (t_b - G' t_a)), t = Q' x."""
-    ta, tb = _qt(ua, f.ra, xa), _qt(ub, f.rb, xb)
-    w = solve_triangular(f.l22, tb - f.g.T @ ta, lower=True, check_finite=False)
-    xb -= _q(ub, f.rb, tb - w)
-
-
-def _inverse_update_maps(f: NodeFactor) -> tuple[np.ndarray, np.ndarray]:
-    """(A_a, A_b) with W_p^-1 x = x - [0; U_b (A_a U_a' x_a + A_b U_b' x_b)].
-
-    Multiplying out ``_inverse_update`` (t = R^-T U' x, w = L_22^-1 (t_b - G' t_a),
-    x_b -= U_b R_b^-1 (t_b - w)):
-
-        A_a = R_b^-1 L_22^-1 G' R_a^-T,    A_b = R_b^-1 (I - L_22^-1) R_b^-T,
-
-    r x r matrices, so that updating the ancestors' columns takes three products with
-    the bases and no triangular solve of their width (small solves ran at a tenth of
-    the products' rate at 128-row nodes). Only the r x r inverses are formed; their
-    rounding is that of the substitutions they replace (Higham, *Accuracy and
-    Stability of Numerical Algorithms*, 2nd ed., 2002, sec. 14.2).
-    """
-    eye = np.eye(f.rank)
-    l22_inv = solve_triangular(f.l22, eye, lower=True, check_finite=False)
-    rb_inv = solve_triangular(f.rb, eye, lower=False, check_finite=False)
-    ra_inv = solve_triangular(f.ra, eye, lower=False, check_finite=False)
-    return rb_inv @ (l22_inv @ f.g.T) @ ra_inv.T, rb_inv @ (eye - l22_inv) @ rb_inv.T
+    """x <- W_p^-1 x in place: x_b -= U_b (A_a U_a' x_a + A_b U_b' x_b)."""
+    xb -= ub @ (f.solve_a @ (ua.T @ xa) + f.solve_b @ (ub.T @ xb))
 
 
 def implicit_rcond(tol: float) -> float:
@@ -293,7 +303,7 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
         c0 = int(offsets[level])
         if rank == 0:
             empty = np.zeros((0, 0))
-            return NodeFactor(0, empty, empty, empty, empty), 0.0
+            return NodeFactor(0, empty, empty, empty, empty, empty, empty), 0.0
         ua, ub = basis[s:mid, c0:c0 + rank], basis[mid:e, c0:c0 + rank]
         if halves is not None:
             half_b = halves.submit(basis_factor, ub, min_rcond=min_rcond)
@@ -315,12 +325,12 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
             ua[...] = qa
         if qb is not None:
             ub[...] = qb
-        f = NodeFactor(rank, g, l22, eye if qa is not None else ra, eye if qb is not None else rb)
+        f = NodeFactor.build(rank, g, l22, eye if qa is not None else ra,
+                             eye if qb is not None else rb)
         if c0:  # the ancestors' columns of these rows <- W_p^-1 (them)
             rows_a, rows_b, own = slice(s, mid), slice(mid, e), slice(c0, c0 + rank)
-            map_a, map_b = _inverse_update_maps(f)
-            coefficients = (map_a @ cross_product(basis, rows_a, own, slice(0, c0))
-                            + map_b @ cross_product(basis, rows_b, own, slice(0, c0)))
+            coefficients = (f.solve_a @ cross_product(basis, rows_a, own, slice(0, c0))
+                            + f.solve_b @ cross_product(basis, rows_b, own, slice(0, c0)))
             subtract_product(basis, rows_b, slice(0, c0), own, coefficients)
         return f, 2.0 * float(np.sum(np.log(np.diag(l22))))
 
