@@ -289,18 +289,60 @@ def _innovation_pass(trans, gain, innov_var, data, out):  # pragma: no cover - c
                 mean[r, j] = pred[r, j] + gain[i, r] * v
 
 
+#: What a parameter does to the step matrices (``_step_derivatives``).
+SCALES_NOISE, SCALES_TIME, NOISE_ONLY = 0, 1, 2
+
+
 @numba.njit(cache=True)
-def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data, white,
-                      dwhite, dinnov):  # pragma: no cover - compiled
+def _step_derivatives(kinds, tau, a, q, drift, growth, da, dq):  # pragma: no cover
+    """dA_i, dQ_i for every parameter at one step (module docstring, "Score").
+
+    ``SCALES_NOISE`` (log s2): dA = 0, dQ = Q. ``SCALES_TIME`` (log l, in the l = 1
+    coordinates with scaled gap tau): dA = -tau F A, dQ = -tau A q_c L L' A'.
+    ``NOISE_ONLY`` (log tau2): dA = dQ = 0. Formed per step, so the filter keeps no
+    per-step derivative arrays (8 n m^2 bytes per parameter each).
+    """
+    m = a.shape[0]
+    for j in range(kinds.shape[0]):
+        for r in range(m):
+            for c in range(m):
+                da[j, r, c] = 0.0
+                dq[j, r, c] = q[r, c] if kinds[j] == SCALES_NOISE else 0.0
+        if kinds[j] != SCALES_TIME:
+            continue
+        for r in range(m):
+            for c in range(m):
+                acc = 0.0
+                grown = 0.0
+                for k in range(m):
+                    acc += drift[r, k] * a[k, c]
+                    grown += a[r, k] * growth[k, c]
+                da[j, r, c] = -tau * acc
+                dq[j, r, c] = grown  # (A q_c L L')[r, c], finished below
+        for r in range(m):
+            row = dq[j, r].copy()
+            for c in range(m):
+                acc = 0.0
+                for k in range(m):
+                    acc += row[k] * a[c, k]
+                dq[j, r, c] = -tau * acc
+
+
+@numba.njit(cache=True)
+def _sensitivity_pass(trans, noise, tau, kinds, drift, growth, pinf, dpinf, tau2, dr, data,
+                      white, dwhite, dinnov):  # pragma: no cover - compiled
     """Kalman filter with its parameter sensitivities (module docstring, "Score").
 
-    For each parameter j: dA_i = dtrans[j, i], dQ_i = dnoise[j, i], dP_0 = dpinf[j],
-    dR = dr[j]. Fills white[i, c] = v_ic / sqrt(S_i), dwhite[j, i, c] its derivative and
-    dinnov[j, i] = dS_i / dtheta_j; returns -1, or the first index with S_i <= 0.
+    For each parameter j: dA_i, dQ_i from ``_step_derivatives`` (``kinds[j]``, scaled
+    gaps ``tau``, drift F and growth q_c L L'), dP_0 = dpinf[j], dR = dr[j]. Fills
+    white[i, c] = v_ic / sqrt(S_i), dwhite[j, i, c] its derivative and dinnov[j, i] =
+    dS_i / dtheta_j; returns -1, or the first index with S_i <= 0.
     """
     n, ncol = data.shape
     m = pinf.shape[0]
     npar = dr.shape[0]
+    dtrans = np.empty((npar, m, m))
+    dnoise = np.empty((npar, m, m))
     filt = pinf.copy()
     dfilt = dpinf.copy()
     pred = pinf.copy()
@@ -316,6 +358,7 @@ def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data,
     for i in range(n):
         if i > 0:
             a = trans[i]
+            _step_derivatives(kinds, tau[i], a, noise[i], drift, growth, dtrans, dnoise)
             # P- = A P A' + Q; dP- = dA P A' + A dP A' + A P dA' + dQ
             for r in range(m):
                 for c in range(m):
@@ -330,11 +373,11 @@ def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data,
                         acc += tmp[r, k] * a[c, k]
                     pred[r, c] = acc
             for j in range(npar):
-                da = dtrans[j, i]
+                da = dtrans[j]
                 _product_rule(da, filt, a, dfilt[j], dtmp)
                 for r in range(m):
                     for c in range(m):
-                        acc = dnoise[j, i, r, c]
+                        acc = dnoise[j, r, c]
                         for k in range(m):
                             acc += dtmp[r, k] * a[c, k] + tmp[r, k] * da[c, k]
                         dpred[j, r, c] = acc
@@ -346,7 +389,7 @@ def _sensitivity_pass(trans, noise, dtrans, dnoise, pinf, dpinf, tau2, dr, data,
                         acc += a[r, k] * mean[k, c]
                     mpred[r, c] = acc
             for j in range(npar):
-                _product_rule(dtrans[j, i], mean, a, dmean[j], dmpred[j])
+                _product_rule(dtrans[j], mean, a, dmean[j], dmpred[j])
         s = pred[0, 0] + tau2
         if not s > 0.0:
             return i
@@ -514,20 +557,19 @@ class StateSpaceReference:
         tau = np.concatenate([[0.0], self._gaps]) / ls
         trans, noise = discretize(model, tau)
         npar, n, m = len(names), tau.size, model.m
-        dtrans = np.zeros((npar, n, m, m))
-        dnoise = np.zeros((npar, n, m, m))
+        kinds = np.empty(npar, dtype=np.int64)
         dpinf = np.zeros((npar, m, m))
         dr = np.zeros(npar)
         drift = model.nilpotent - model.lam * np.eye(m)
-        growth = model.noise_coefficients[0]  # q_c L L'
+        growth = np.ascontiguousarray(model.noise_coefficients[0])  # q_c L L'
         for j, name in enumerate(names):
             if name == "log_variance":  # P_inf and Q scale with s2
-                dnoise[j] = noise
+                kinds[j] = SCALES_NOISE
                 dpinf[j] = model.pinf
             elif name == "log_lengthscale":  # gaps tau = dt / l: d tau / d log l = -tau
-                dtrans[j] = -tau[:, None, None] * (drift @ trans)
-                dnoise[j] = -tau[:, None, None] * (trans @ growth @ trans.transpose(0, 2, 1))
+                kinds[j] = SCALES_TIME
             elif name == "log_nugget":
+                kinds[j] = NOISE_ONLY
                 dr[j] = kernel.nugget
             else:  # pragma: no cover - the accepted kernels have only these parameters
                 raise StateSpaceError(f"no analytic derivative for parameter {name!r}")
@@ -536,7 +578,7 @@ class StateSpaceReference:
         white = np.empty_like(data)
         dwhite = np.empty((npar,) + data.shape)
         dinnov = np.empty((npar, n))
-        bad = _sensitivity_pass(trans, noise, dtrans, dnoise, model.pinf, dpinf,
+        bad = _sensitivity_pass(trans, noise, tau, kinds, drift, growth, model.pinf, dpinf,
                                 float(kernel.nugget), dr, data, white, dwhite, dinnov)
         if bad >= 0:
             raise StateSpaceError(f"singular: innovation variance <= 0 at sorted point {bad}; "
