@@ -410,8 +410,7 @@ def aca_callable(row: Callable[[int], np.ndarray], col: Callable[[int], np.ndarr
 #: pages the factors reach are ever touched (and count as resident), so the reserve is
 #: an upper bound on growth, not a cost; NumPy asks the kernel for huge pages on such
 #: a buffer (``madvise``), where a buffer grown inside compiled code takes 4 KiB page
-#: faults and a copy per doubling: the root block at n = 131,072 took 7.4 s with the
-#: doublings and 4.9 s in a reused buffer (tol 1e-6, 2D Matern 3/2, this machine).
+#: faults and a copy per doubling (the largest blocks, which come first, paid both).
 SCRATCH_RESERVE_BYTES = 2**31
 
 

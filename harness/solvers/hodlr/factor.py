@@ -98,8 +98,9 @@ def inverse_maps(g: np.ndarray, l22: np.ndarray, ra: np.ndarray, rb: np.ndarray
 
     and W_p'^-1 x = x - [U_a A_a' U_b' x_b; U_b A_b' U_b' x_b]. With these r x r
     matrices every product with W_p^-1 or W_p'^-1 is three (two) products with the
-    bases and no triangular solve of the vectors' width (small solves ran at a tenth of
-    the products' rate at 128-row nodes). Only r x r inverses are formed; their
+    bases and no triangular solve of the vectors' width (OpenBLAS's triangular solves
+    with a small r x r factor run far below its matrix-product rate). Only r x r
+    inverses are formed; their
     rounding is that of the substitutions they replace (Higham, *Accuracy and
     Stability of Numerical Algorithms*, 2nd ed., 2002, sec. 14.2).
     """

@@ -19,20 +19,29 @@ threads at once.
 from __future__ import annotations
 
 import ctypes
+from collections.abc import Callable
 
 import numpy as np
 from scipy.linalg import cython_blas
 
-_capsule_name = ctypes.pythonapi.PyCapsule_GetName
-_capsule_name.restype = ctypes.c_char_p
-_capsule_name.argtypes = [ctypes.py_object]
-_capsule_pointer = ctypes.pythonapi.PyCapsule_GetPointer
-_capsule_pointer.restype = ctypes.c_void_p
-_capsule_pointer.argtypes = [ctypes.py_object, ctypes.c_char_p]
 
-_DGEMM_CAPSULE = cython_blas.__pyx_capi__["dgemm"]
-_DGEMM = ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * 13))(
-    _capsule_pointer(_DGEMM_CAPSULE, _capsule_name(_DGEMM_CAPSULE)))
+def _exported_dgemm() -> Callable[..., None]:
+    """SciPy's Fortran dgemm as a ctypes function (13 arguments, all by reference).
+
+    The solver keeps its own lookup rather than the dense reference's
+    (``harness.references.inplace_blas``): the two are audited against each other.
+    """
+    capsule = cython_blas.__pyx_capi__["dgemm"]
+    api = ctypes.pythonapi
+    api.PyCapsule_GetName.restype = ctypes.c_char_p
+    api.PyCapsule_GetName.argtypes = [ctypes.py_object]
+    api.PyCapsule_GetPointer.restype = ctypes.c_void_p
+    api.PyCapsule_GetPointer.argtypes = [ctypes.py_object, ctypes.c_char_p]
+    address = api.PyCapsule_GetPointer(capsule, api.PyCapsule_GetName(capsule))
+    return ctypes.CFUNCTYPE(None, *([ctypes.c_void_p] * 13))(address)
+
+
+_DGEMM = _exported_dgemm()
 _LARGEST_INT = 2**31 - 1
 
 

@@ -1,0 +1,147 @@
+"""Where the HODLR compression spends its time: per tree level, and the root block alone.
+
+Problem: the performance targets' setting (``hodlr_scaling.py``): 2D uniform points,
+Matern 3/2, s2 = 1, l = 0.1, nugget 1e-2, leaf 128, two worker threads. One
+factorization per (n, tol) after a warm-up at n = 2,000, with the solver's own ACA and
+truncation timed block by block in this process (the two functions are wrapped, not
+changed), so each level's thread-seconds add up the work the two workers share. The
+root block is one task: when its ACA and truncation take about as long as the whole
+phase's wall time, that one thread's work bounds the phase. Also recorded: how many
+truncations had to form an explicit orthogonal basis (``orth.basis_factor``) and their
+thread-seconds, and the phase walls of ``factorize``. Seconds and units of the same-run
+unit (``machine_unit``).
+
+Usage::
+
+    python benchmarks/hodlr_phases.py --n 131072 --tol 1e-6 1e-8 \
+        --json benchmarks/results/hodlr_phases.json
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import os
+import sys
+import time
+from collections import defaultdict
+
+import numpy as np
+from machine_unit import commit, machine, measure_unit, write_results
+
+import harness.solvers.hodlr.aca as aca
+import harness.solvers.hodlr.entries as entries
+from harness.model.kernels import Matern32
+from harness.solvers.hodlr import factorize
+
+
+class BlockClock:
+    """Thread-seconds of ACA and truncation per tree level, from wrapped functions."""
+
+    def __init__(self, n: int) -> None:
+        self.n = n
+        self.aca: dict[int, list[float]] = defaultdict(list)
+        self.aca_rank: dict[int, list[int]] = defaultdict(list)
+        self.truncation: dict[int, list[float]] = defaultdict(list)
+        self.explicit: list[float] = []
+
+    def level(self, rows: int) -> int:
+        return max(0, round(math.log2(self.n / rows)) - 1)
+
+    def install(self) -> list[tuple[object, str, object]]:
+        saved = [(entries.KernelEntries, "_aca", entries.KernelEntries._aca),
+                 (entries, "recompress", entries.recompress),
+                 (aca, "basis_factor", aca.basis_factor)]
+        timed_aca, timed_recompress, timed_basis = (saved[0][2], saved[1][2], saved[2][2])
+        clock = self
+
+        def block_aca(self, rows, cols, *args, **kwargs):
+            t = time.perf_counter()
+            out = timed_aca(self, rows, cols, *args, **kwargs)
+            level = clock.level(rows[1] - rows[0])
+            clock.aca[level].append(time.perf_counter() - t)
+            clock.aca_rank[level].append(int(out[0].shape[0]))
+            return out
+
+        def block_recompress(a, b, **kwargs):
+            t = time.perf_counter()
+            out = timed_recompress(a, b, **kwargs)
+            clock.truncation[clock.level(a.shape[1])].append(time.perf_counter() - t)
+            return out
+
+        def basis(x, **kwargs):
+            t = time.perf_counter()
+            out = timed_basis(x, **kwargs)
+            if out[1] is not None:
+                clock.explicit.append(time.perf_counter() - t)
+            return out
+
+        entries.KernelEntries._aca = block_aca
+        entries.recompress = block_recompress
+        aca.basis_factor = basis
+        return saved
+
+
+def run(n: int, tol: float) -> dict:
+    kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
+    points = np.random.default_rng(0).random((n, 2))
+    clock = BlockClock(n)
+    saved = clock.install()
+    try:
+        f = factorize(points, kernel, None, tol=tol, rng=0)
+    finally:
+        for owner, name, value in saved:
+            setattr(owner, name, value)
+    levels = []
+    for level in sorted(clock.aca):
+        levels.append({"level": level, "blocks": len(clock.aca[level]),
+                       "aca_thread_seconds": float(sum(clock.aca[level])),
+                       "truncation_thread_seconds": float(sum(clock.truncation[level])),
+                       "max_aca_rank": max(clock.aca_rank[level]),
+                       "max_rank": f.ranks[level].max})
+    root = levels[0]
+    return {"n": n, "tol": tol, "phases": f.timings.to_dict(), "levels": levels,
+            "root_seconds": root["aca_thread_seconds"] + root["truncation_thread_seconds"],
+            "compression_thread_seconds": float(sum(l["aca_thread_seconds"]
+                                                    + l["truncation_thread_seconds"]
+                                                    for l in levels)),
+            "explicit_bases": len(clock.explicit),
+            "explicit_basis_thread_seconds": float(sum(clock.explicit))}
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--n", type=int, nargs="+", default=[131072])
+    parser.add_argument("--tol", type=float, nargs="+", default=[1e-6, 1e-8])
+    parser.add_argument("--json", default="benchmarks/results/hodlr_phases.json")
+    args = parser.parse_args(argv)
+    info = machine()
+    unit = measure_unit()
+    u = unit["seconds"]
+    print(f"unit: {unit['name']} = {u:.3f} s (load average {info['load_average']})")
+    factorize(np.random.default_rng(1).random((2000, 2)),
+              Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2), None, tol=1e-6, rng=0)
+    rows = []
+    for n in args.n:
+        for tol in args.tol:
+            row = run(n, tol)
+            p = row["phases"]
+            row["units"] = {k: v / u for k, v in p.items()}
+            print(f"n {n} tol {tol:g}: compress {p['compress']:.2f} s (root block "
+                  f"{row['root_seconds']:.2f} s of one thread; all blocks "
+                  f"{row['compression_thread_seconds']:.2f} thread-s; "
+                  f"{row['explicit_bases']} explicit bases, "
+                  f"{row['explicit_basis_thread_seconds']:.2f} thread-s), "
+                  f"factor {p['factor']:.2f} s", flush=True)
+            rows.append(row)
+    info["load_average_end"] = list(os.getloadavg())
+    write_results(args.json, {"benchmark": "hodlr_phases", "schema_version": 1,
+                              "command": "python benchmarks/hodlr_phases.py "
+                                         + " ".join(argv or sys.argv[1:]),
+                              "commit": commit(), "machine": info, "unit": unit,
+                              "rows": rows})
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
