@@ -102,9 +102,9 @@ def run(n: int, tol: float) -> dict:
     root = levels[0]
     return {"n": n, "tol": tol, "phases": f.timings.to_dict(), "levels": levels,
             "root_seconds": root["aca_thread_seconds"] + root["truncation_thread_seconds"],
-            "compression_thread_seconds": float(sum(l["aca_thread_seconds"]
-                                                    + l["truncation_thread_seconds"]
-                                                    for l in levels)),
+            "compression_thread_seconds": float(sum(row["aca_thread_seconds"]
+                                                    + row["truncation_thread_seconds"]
+                                                    for row in levels)),
             "explicit_bases": len(clock.explicit),
             "explicit_basis_thread_seconds": float(sum(clock.explicit))}
 
