@@ -72,7 +72,7 @@ class BlockClock:
         def basis(x, **kwargs):
             t = time.perf_counter()
             out = timed_basis(x, **kwargs)
-            if out[1] is not None:
+            if out.explicit is not None:
                 clock.explicit.append(time.perf_counter() - t)
             return out
 

@@ -406,21 +406,48 @@ def test_one_basis_helper_orthogonality_and_thresholds() -> None:
     x = rng.standard_normal((400, 30)) @ np.triu(rng.standard_normal((30, 30)))
     x[:, 7] = x[:, 6] + 1e-9 * x[:, 5]  # cond ~ 1e9: needs an explicit Q
     for min_rcond in (1e-12, 0.5):
-        r, q = basis_factor(x, min_rcond=min_rcond)
+        basis = basis_factor(x, min_rcond=min_rcond)
         t = rng.standard_normal((30, 4))
-        qt = apply_basis(x, r, q, t)
-        if q is not None:
+        qt = apply_basis(x, basis, t)
+        # cond ~ 1e9 passes rcond 1e-12 implicitly, but not 0.5: then Cholesky QR
+        # passes form Y, and Q = Y S^-1 must be orthonormal to about 4 eps (S's
+        # rcond >= 0.5; Yamamoto et al. 2015) and reproduce X = Q R
+        assert (basis.explicit is None) == (min_rcond < 1e-6)
+        if basis.explicit is not None:
+            q = apply_basis(x, basis, np.eye(30))
             np.testing.assert_allclose(q.T @ q, np.eye(30), atol=1e-13)
-            np.testing.assert_allclose(q @ r, x, atol=1e-13 * np.abs(x).max())
-        # Q t has the norm of t when Q has orthonormal columns (up to the implicit
-        # Q's loss of orthogonality eps cond^2 for a Gram factor kept at rcond 1e-12)
-        assert q is not None or min_rcond < 1e-6
-        if q is not None:
+            np.testing.assert_allclose(q @ basis.r, x, atol=1e-13 * np.abs(x).max())
+            # Q t has the norm of t when Q has orthonormal columns
             np.testing.assert_allclose(np.linalg.norm(qt, axis=0), np.linalg.norm(t, axis=0),
                                        rtol=1e-12)
     wide = rng.standard_normal((5, 8))
-    r, q = basis_factor(wide, min_rcond=0.5)
-    np.testing.assert_allclose(apply_basis(wide, r, q, np.eye(r.shape[0])) @ r, wide)
+    basis = basis_factor(wide, min_rcond=0.5)
+    np.testing.assert_allclose(apply_basis(wide, basis, np.eye(5)) @ basis.r, wide)
+
+
+def test_basis_factor_stops_its_passes_when_the_next_may_stay_implicit() -> None:
+    # X of condition 1e7 (rcond of its scaled Gram factor below a threshold of 1e-4):
+    # one explicit Cholesky QR pass leaves Y of condition ~ 1 + eps cond^2 ~ 1 + 1e-2,
+    # whose Gram factor passes, so Q = Y S^-1 stays implicit (CholeskyQR2 without its
+    # last solve; Yamamoto et al., ETNA 44, 2015). Q must still be orthonormal to the
+    # threshold's bound eps / rcond^2 and give X = Q R (checked against numpy's
+    # Householder QR up to column signs).
+    from harness.solvers.hodlr.orth import apply_basis, basis_factor
+
+    rng = np.random.default_rng(8)
+    u, _ = np.linalg.qr(rng.standard_normal((3000, 60)))
+    v, _ = np.linalg.qr(rng.standard_normal((60, 60)))
+    x = (u * np.logspace(0, -7, 60)) @ v.T
+    basis = basis_factor(x, min_rcond=1e-4)
+    assert basis.explicit is not None
+    assert not np.allclose(basis.last, np.eye(60))  # the last pass stayed implicit
+    q = apply_basis(x, basis, np.eye(60))
+    eps = np.finfo(float).eps
+    assert np.abs(q.T @ q - np.eye(60)).max() <= 100 * eps / 1e-4**2
+    np.testing.assert_allclose(q @ basis.r, x, atol=1e-13)
+    _, r_householder = np.linalg.qr(x)  # R is unique up to the signs of its rows
+    np.testing.assert_allclose(np.abs(basis.r), np.abs(r_householder), rtol=1e-6,
+                               atol=1e-12)
 
 
 def test_row_block_products_equal_numpy() -> None:

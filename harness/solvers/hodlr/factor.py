@@ -62,9 +62,9 @@ class CompressionBreakdownError(np.linalg.LinAlgError):
 class NodeFactor:
     """W_p at one internal node: rank r, G = R_a R_b', L_22 = chol(I - G'G), the
     triangular factors R_a, R_b with Q_a = U_a R_a^-1 (the stored basis columns hold
-    U_a, U_b; Q is never formed unless the Gram matrix was too ill conditioned, in
-    which case the columns hold Q and R is the identity), and the r x r maps of
-    W_p^-1 (``inverse_maps``)."""
+    U_a, U_b, or, where the Gram matrix was too ill conditioned, the Y of
+    ``orth.basis_factor``'s Cholesky QR passes, R then its last factor S), and the
+    r x r maps of W_p^-1 (``inverse_maps``)."""
 
     rank: int
     g: np.ndarray
@@ -308,12 +308,12 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
         ua, ub = basis[s:mid, c0:c0 + rank], basis[mid:e, c0:c0 + rank]
         if halves is not None:
             half_b = halves.submit(basis_factor, ub, min_rcond=min_rcond)
-            ra, qa = basis_factor(ua, min_rcond=min_rcond)
-            rb, qb = half_b.result()
+            basis_a = basis_factor(ua, min_rcond=min_rcond)
+            basis_b = half_b.result()
         else:
-            (ra, qa), (rb, qb) = (basis_factor(ua, min_rcond=min_rcond),
-                                  basis_factor(ub, min_rcond=min_rcond))
-        g = ra @ rb.T
+            basis_a, basis_b = (basis_factor(ua, min_rcond=min_rcond),
+                                basis_factor(ub, min_rcond=min_rcond))
+        g = basis_a.r @ basis_b.r.T
         l22, info = cholesky_lower(np.eye(rank) - g.T @ g)
         if info != 0:
             norm = float(np.linalg.norm(g, 2))
@@ -321,13 +321,12 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
                 level=level, block=j, rows=(s, e), depth=depth,
                 detail=f"the scaled off-diagonal coupling has 2-norm {norm:.6g} >= 1 "
                        f"(I - G'G not positive definite, dpotrf info={info})")
-        eye = np.eye(rank)
-        if qa is not None:  # explicit Q stored: the basis columns are Q, R_a acts as I
-            ua[...] = qa
-        if qb is not None:
-            ub[...] = qb
-        f = NodeFactor.build(rank, g, l22, eye if qa is not None else ra,
-                             eye if qb is not None else rb)
+        # where Cholesky QR passes formed Y, the basis columns hold Y and Q = Y S^-1
+        if basis_a.explicit is not None:
+            ua[...] = basis_a.explicit
+        if basis_b.explicit is not None:
+            ub[...] = basis_b.explicit
+        f = NodeFactor.build(rank, g, l22, basis_a.last, basis_b.last)
         if c0:  # the ancestors' columns of these rows <- W_p^-1 (them)
             rows_a, rows_b, own = slice(s, mid), slice(mid, e), slice(c0, c0 + rank)
             coefficients = (f.solve_a @ cross_product(basis, rows_a, own, slice(0, c0))

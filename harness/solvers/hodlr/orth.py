@@ -18,11 +18,15 @@ get there, from cheap to robust:
   the last resort.
 
 ``basis_factor`` picks the cheapest that keeps both effects below a caller-given
-level (``rcond_for``); all Gram factors go through ``scaled_gram_factor``, and all
+level (``rcond_for``): it runs explicit passes only until the next one may stay
+implicit, so its Q is Y S^-1 with Y the last explicit matrix (``Basis``); all Gram
+factors go through ``scaled_gram_factor``, and all
 small dense SPD factorizations (leaf blocks, I - G'G) through ``cholesky_lower``.
 """
 
 from __future__ import annotations
+
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import blas, lapack, solve_triangular
@@ -96,14 +100,80 @@ def _largest_eigenvalue(g: np.ndarray) -> float:
     return 1.1 * lam
 
 
+@dataclass(frozen=True)
+class Basis:
+    """X = Q R (m x k, m >= k) with the orthonormal Q kept as Q = Y S^-1.
+
+    ``explicit`` is Y when Cholesky QR passes (or Householder QR) had to form it, None
+    when Y is X itself; ``last`` is the upper triangular S (the identity for a
+    Householder Q); ``r`` is the whole triangular factor (R = S R_passes).
+    """
+
+    r: np.ndarray
+    explicit: np.ndarray | None
+    last: np.ndarray
+
+
+#: Explicit Cholesky QR passes before Householder QR takes over (shifted CholeskyQR3
+#: needs three; Fukaya et al. 2020).
+MAX_PASSES = 3
+
+
+def basis_factor(x: np.ndarray, *, min_rcond: float, gram: np.ndarray | None = None
+                 ) -> Basis:
+    """The triangular factor of X and the cheapest exact-enough form of its Q.
+
+    Cholesky QR passes Y <- Y S^-1 (S from the column-scaled Gram factor of Y, Y = X
+    at first; the first pass shifted when that factor's rcond is below 1e-6, Fukaya et
+    al. 2020) run until the Gram factor S of the current Y has rcond >= ``min_rcond``:
+    Q = Y S^-1 then stays implicit (its loss of orthogonality ~ eps / rcond^2 and its
+    rounding ~ eps / rcond are those ``rcond_for`` allows; Yamamoto et al. 2015). With
+    no pass that is implicit Cholesky QR on X; after one pass, CholeskyQR2 without its
+    last triangular solve. Householder QR (``numpy.linalg.qr``) when a pass breaks down
+    or ``MAX_PASSES`` do not suffice. A wide X (m < k) gets Q = I, R = X. ``gram``: X'X
+    when already computed.
+    """
+    m, k = x.shape
+    if k == 0:
+        return Basis(np.zeros((0, 0)), None, np.zeros((0, 0)))
+    if m < k:
+        return Basis(np.array(x), np.eye(m), np.eye(m))
+    factor = scaled_gram_factor(x, gram)
+    if factor is not None and factor[2] >= min_rcond:
+        s = factor[0] * factor[1]
+        return Basis(s, None, s)
+    if factor is None or factor[2] < 1e-6:
+        factor = scaled_gram_factor(x, gram, shift=True)
+    y = np.array(x, dtype=float, order="F")
+    r = np.eye(k)
+    for _ in range(MAX_PASSES):
+        if factor is None:
+            break
+        step = factor[0] * factor[1]
+        y = blas.dtrsm(1.0, step, y, side=1, lower=0, overwrite_b=1)
+        r = step @ r
+        factor = scaled_gram_factor(y)
+        if factor is not None and factor[2] >= min_rcond:
+            s = factor[0] * factor[1]
+            return Basis(s @ r, y, s)
+    q, r = np.linalg.qr(x)
+    return Basis(r, q, np.eye(k))
+
+
+def apply_basis(x: np.ndarray, basis: Basis, t: np.ndarray) -> np.ndarray:
+    """Q t for the ``basis_factor`` of ``x``: Y (S^-1 t)."""
+    y = x if basis.explicit is None else basis.explicit
+    return y @ solve_triangular(basis.last, t, lower=False, check_finite=False)
+
+
 def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """X = Q R with Q (m x k) orthonormal to working precision and R (k x k) upper.
 
-    CholeskyQR2 (two passes) when the column-scaled Gram factor has rcond >= 1e-6 (so
-    eps cond^2 < 1e-3 and the second pass restores orthogonality; Yamamoto et al.
-    2015), shifted CholeskyQR3 (a shifted pass, then two plain ones; Fukaya et al.
-    2020) below that, Householder QR (``numpy.linalg.qr``) when a pass breaks down.
-    Each pass is one Gram product and one in-place dtrsm (Q <- Q R^-1) on one copy of X.
+    ``basis_factor`` with the strictest threshold (rcond >= 0.5: Q'Q - I ~ 4 eps), its
+    Q = Y S^-1 then formed: CholeskyQR2 when the column-scaled Gram factor of X has
+    rcond >= 1e-6 (Yamamoto et al. 2015), shifted CholeskyQR3 below that (Fukaya et al.
+    2020), Householder QR when a pass breaks down. Each pass is one Gram product and one
+    in-place dtrsm on one copy of X.
 
     Parameters
     ----------
@@ -115,49 +185,7 @@ def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         return np.empty((m, 0)), np.empty((0, 0))
     if m < k:
         raise ValueError(f"thin_qr: expected a tall matrix (m >= k), got shape {x.shape}")
-    gram = x.T @ x
-    factor = scaled_gram_factor(x, gram)
-    passes = 2
-    if factor is None or factor[2] < 1e-6:
-        factor, passes = scaled_gram_factor(x, gram, shift=True), 3
-    q = np.array(x, dtype=float, order="F")
-    r = np.eye(k)
-    for done in range(passes):
-        if factor is None:
-            q, r = np.linalg.qr(x)
-            return q, r
-        step = factor[0] * factor[1]
-        q = blas.dtrsm(1.0, step, q, side=1, lower=0, overwrite_b=1)
-        r = step @ r
-        if done + 1 < passes:
-            factor = scaled_gram_factor(q)
-    return q, r
-
-
-def basis_factor(x: np.ndarray, *, min_rcond: float, gram: np.ndarray | None = None
-                 ) -> tuple[np.ndarray, np.ndarray | None]:
-    """R with X = Q R, and Q when it had to be formed.
-
-    Returns (R, None) when the column-scaled Gram factor has rcond >= ``min_rcond``
-    (Q = X R^-1 stays implicit), else (R, Q) from ``thin_qr``. A wide X (m < k) gets
-    Q = I, R = X. ``gram``: X'X when already computed.
-    """
-    m, k = x.shape
-    if k == 0:
-        return np.zeros((0, 0)), None
-    first = scaled_gram_factor(x, gram)
-    if first is not None and first[2] >= min_rcond:
-        r1, d, _ = first
-        return r1 * d, None
-    if m < k:
-        return np.array(x), np.eye(m)
-    q, r = thin_qr(x)
-    return r, q
-
-
-def apply_basis(x: np.ndarray, r: np.ndarray, q: np.ndarray | None, t: np.ndarray
-                ) -> np.ndarray:
-    """Q t for the basis of ``basis_factor`` (Q explicit, or X R^-1)."""
-    if q is not None:
-        return q @ t
-    return x @ solve_triangular(r, t, lower=False, check_finite=False)
+    basis = basis_factor(x, min_rcond=0.5)
+    y = np.array(x if basis.explicit is None else basis.explicit, dtype=float, order="F")
+    q = blas.dtrsm(1.0, basis.last, y, side=1, lower=0, overwrite_b=1)
+    return q, basis.r
