@@ -294,13 +294,14 @@ SCALES_NOISE, SCALES_TIME, NOISE_ONLY = 0, 1, 2
 
 
 @numba.njit(cache=True)
-def _step_derivatives(kinds, tau, a, q, drift, growth, da, dq):  # pragma: no cover
+def _step_derivatives(kinds, tau, a, q, drift, growth, da, dq, work):  # pragma: no cover
     """dA_i, dQ_i for every parameter at one step (module docstring, "Score").
 
     ``SCALES_NOISE`` (log s2): dA = 0, dQ = Q. ``SCALES_TIME`` (log l, in the l = 1
     coordinates with scaled gap tau): dA = -tau F A, dQ = -tau A q_c L L' A'.
     ``NOISE_ONLY`` (log tau2): dA = dQ = 0. Formed per step, so the filter keeps no
-    per-step derivative arrays (8 n m^2 bytes per parameter each).
+    per-step derivative arrays (8 n m^2 bytes per parameter each); ``work`` (m x m)
+    holds A q_c L L'.
     """
     m = a.shape[0]
     for j in range(kinds.shape[0]):
@@ -318,13 +319,12 @@ def _step_derivatives(kinds, tau, a, q, drift, growth, da, dq):  # pragma: no co
                     acc += drift[r, k] * a[k, c]
                     grown += a[r, k] * growth[k, c]
                 da[j, r, c] = -tau * acc
-                dq[j, r, c] = grown  # (A q_c L L')[r, c], finished below
+                work[r, c] = grown
         for r in range(m):
-            row = dq[j, r].copy()
             for c in range(m):
                 acc = 0.0
                 for k in range(m):
-                    acc += row[k] * a[c, k]
+                    acc += work[r, k] * a[c, k]
                 dq[j, r, c] = -tau * acc
 
 
@@ -343,6 +343,7 @@ def _sensitivity_pass(trans, noise, tau, kinds, drift, growth, pinf, dpinf, tau2
     npar = dr.shape[0]
     dtrans = np.empty((npar, m, m))
     dnoise = np.empty((npar, m, m))
+    work = np.empty((m, m))
     filt = pinf.copy()
     dfilt = dpinf.copy()
     pred = pinf.copy()
@@ -358,7 +359,7 @@ def _sensitivity_pass(trans, noise, tau, kinds, drift, growth, pinf, dpinf, tau2
     for i in range(n):
         if i > 0:
             a = trans[i]
-            _step_derivatives(kinds, tau[i], a, noise[i], drift, growth, dtrans, dnoise)
+            _step_derivatives(kinds, tau[i], a, noise[i], drift, growth, dtrans, dnoise, work)
             # P- = A P A' + Q; dP- = dA P A' + A dP A' + A P dA' + dQ
             for r in range(m):
                 for c in range(m):

@@ -469,9 +469,10 @@ def recompress(a: np.ndarray, b: np.ndarray, *, tol: float, gram_a: np.ndarray |
     rcond is high enough (``orth.rcond_for``) that the rounding of applying the implicit
     Q stays below tol / 10 and its loss of orthogonality below 1e-2 (which only scales
     the truncation estimate by 1 +- 1e-2: the kept product A' R_a^-1 (u_r s_r v_r')
-    R_b^-T B differs from A'B by Q_a (tail) Q_b'); otherwise Q is formed by CholeskyQR2
-    or Householder QR (``orth.basis_factor``). ``gram_a``, ``gram_b``: A A' and B B' when
-    ACA already formed them.
+    R_b^-T B differs from A'B by Q_a (tail) Q_b'); otherwise Cholesky QR passes form a
+    better conditioned Y with Q = Y S^-1, or Householder QR forms Q
+    (``orth.basis_factor``). ``gram_a``, ``gram_b``: A A' and B B' when ACA already
+    formed them.
     """
     k, m = a.shape
     n = b.shape[1]

@@ -100,9 +100,8 @@ def inverse_maps(g: np.ndarray, l22: np.ndarray, ra: np.ndarray, rb: np.ndarray
     matrices every product with W_p^-1 or W_p'^-1 is three (two) products with the
     bases and no triangular solve of the vectors' width (OpenBLAS's triangular solves
     with a small r x r factor run far below its matrix-product rate). Only r x r
-    inverses are formed; their
-    rounding is that of the substitutions they replace (Higham, *Accuracy and
-    Stability of Numerical Algorithms*, 2nd ed., 2002, sec. 14.2).
+    inverses are formed; their rounding is that of the substitutions they replace
+    (Higham, *Accuracy and Stability of Numerical Algorithms*, 2nd ed., 2002, sec. 14.2).
     """
     eye = np.eye(g.shape[0])
     l22_inv = solve_triangular(l22, eye, lower=True, check_finite=False)

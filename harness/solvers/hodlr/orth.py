@@ -20,8 +20,8 @@ get there, from cheap to robust:
 ``basis_factor`` picks the cheapest that keeps both effects below a caller-given
 level (``rcond_for``): it runs explicit passes only until the next one may stay
 implicit, so its Q is Y S^-1 with Y the last explicit matrix (``Basis``); all Gram
-factors go through ``scaled_gram_factor``, and all
-small dense SPD factorizations (leaf blocks, I - G'G) through ``cholesky_lower``.
+factors go through ``scaled_gram_factor``, and all small dense SPD factorizations
+(leaf blocks, I - G'G) through ``cholesky_lower``.
 """
 
 from __future__ import annotations
@@ -170,9 +170,10 @@ def thin_qr(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """X = Q R with Q (m x k) orthonormal to working precision and R (k x k) upper.
 
     ``basis_factor`` with the strictest threshold (rcond >= 0.5: Q'Q - I ~ 4 eps), its
-    Q = Y S^-1 then formed: CholeskyQR2 when the column-scaled Gram factor of X has
-    rcond >= 1e-6 (Yamamoto et al. 2015), shifted CholeskyQR3 below that (Fukaya et al.
-    2020), Householder QR when a pass breaks down. Each pass is one Gram product and one
+    Q = Y S^-1 then formed: one Cholesky QR pass when X is already that well
+    conditioned, CholeskyQR2 when its column-scaled Gram factor has rcond >= 1e-6
+    (Yamamoto et al. 2015), shifted CholeskyQR3 below that (Fukaya et al. 2020),
+    Householder QR when a pass breaks down. Each pass is one Gram product and one
     in-place dtrsm on one copy of X.
 
     Parameters
