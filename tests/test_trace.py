@@ -14,8 +14,11 @@ import scipy.linalg
 from threadpoolctl import threadpool_limits
 
 from harness.likelihood.trace import (
+    AffineForm,
+    AffineReduction,
     ExplicitOperators,
     FactorizationOperators,
+    declared_reduction,
     hutchinson,
     hutchpp,
     rademacher_probes,
@@ -145,3 +148,90 @@ def test_bad_probe_counts_refused(problem):
         hutchinson(_operators(problem), probes=1)
     with pytest.raises(ValueError, match="probes >= 6"):
         hutchpp(_operators(problem), probes=5)
+
+
+# -- parameters with derivatives affine in Sigma (harness.likelihood.trace.affine) -------
+# In ``problem`` Sigma = 1.5 R + 0.1 I, so dSigma/dlog s2 = Sigma - 0.1 I and
+# dSigma/dlog tau2 = 0.1 I: A = I - 0.1 Sigma^-1 and A = 0.1 Sigma^-1.
+REDUCTION = AffineReduction((AffineForm(1.0, -0.1), None, AffineForm(0.0, 0.1)))
+
+
+def _base_operators(problem, sqrt=True):
+    sigma, derivs, _, _ = problem
+    return FactorizationOperators(
+        DenseFactor(sigma, sqrt=sqrt), REDUCTION.base_matvec(lambda i, b: derivs[i] @ b),
+        REDUCTION.base_count, identity_slots=(0,))
+
+
+def test_affine_forms_of_the_problem_hold(problem):
+    # source: dense numpy algebra, Sigma_i = a Sigma + b I for the two affine parameters
+    sigma, derivs, _, _ = problem
+    for i, form in enumerate(REDUCTION.forms):
+        if form is not None:
+            np.testing.assert_allclose(derivs[i], form.sigma * sigma
+                                       + form.identity * np.eye(200), atol=1e-14)
+
+
+@pytest.mark.parametrize("sqrt", [True, False], ids=["symmetric", "nonsymmetric"])
+def test_reduced_hutchinson_equals_full_family(problem, sqrt):
+    # source: z'(a I + b B) z = a n + b z'Bz for Rademacher z (z'z = n): the reduced
+    # estimator is the full one, to rounding, for the same probes; so is the Fisher
+    # estimate, formed from the same products (Hutchinson 1989)
+    full = hutchinson(_operators(problem, sqrt), probes=24, rng=5, fisher=True)
+    reduced = hutchinson(_base_operators(problem, sqrt), probes=24, rng=5, fisher=True,
+                         reduction=REDUCTION)
+    np.testing.assert_allclose(reduced.estimate, full.estimate, rtol=1e-10)
+    np.testing.assert_allclose(reduced.stderr, full.stderr, rtol=1e-8)
+    np.testing.assert_allclose(reduced.fisher, full.fisher, rtol=1e-10)
+    assert reduced.estimate.shape == (3,) and reduced.symmetric is sqrt
+    # one derivative product per probe instead of three (the affine ones are free);
+    # the non-symmetric Fisher estimate takes the adjoint products as well
+    per_probe = 1 if sqrt else 2
+    assert reduced.matvecs == per_probe * 24 and full.matvecs == 3 * per_probe * 24
+    assert any("shared operator" in note for note in reduced.notes)
+
+
+@pytest.mark.parametrize("sqrt", [True, False], ids=["symmetric", "nonsymmetric"])
+def test_reduced_hutchpp_unbiased_and_exact_with_a_full_sketch(problem, sqrt):
+    # source: E[Hutch++ | S] = tr(A) for any sketch (Meyer et al. 2021, Algorithm 1;
+    # module docstring), and a sketch spanning R^n makes tr(Q'AQ) = tr(A) exactly
+    _, _, exact, fisher = problem
+    runs = [hutchpp(_base_operators(problem, sqrt), probes=12, rng=seed, fisher=True,
+                    reduction=REDUCTION) for seed in range(300)]
+    est = np.array([r.estimate for r in runs])
+    se_of_mean = est.std(axis=0, ddof=1) / np.sqrt(len(runs))
+    assert np.all(np.abs(est.mean(axis=0) - exact) < 3.0 * se_of_mean)
+    fis = np.array([r.fisher for r in runs])
+    fis_se = fis.std(axis=0, ddof=1) / np.sqrt(len(runs))
+    assert np.all(np.abs(fis.mean(axis=0) - fisher) < 3.5 * fis_se + 1e-12)
+    whole = hutchpp(_base_operators(problem, sqrt), probes=600, rng=1, reduction=REDUCTION)
+    np.testing.assert_allclose(whole.estimate, exact, rtol=1e-9)
+
+
+def test_reduction_needs_the_base_family(problem):
+    with pytest.raises(ValueError, match="base family of 2"):
+        hutchinson(_operators(problem), probes=8, rng=0, reduction=REDUCTION)
+    with pytest.raises(ValueError, match="at least one affine"):
+        AffineReduction((None, None))
+    with pytest.raises(ValueError, match="outside"):
+        FactorizationOperators(DenseFactor(problem[0]), lambda i, b: b, 2,
+                               identity_slots=(2,))
+
+
+class _Declares:
+    def __init__(self, answers):
+        self.answers = answers
+
+    def derivative_affine(self, i):
+        return self.answers[i]
+
+
+def test_declared_reduction_reads_and_checks_the_solver():
+    assert declared_reduction(object(), 3) is None
+    assert declared_reduction(_Declares([None, None]), 2) is None
+    got = declared_reduction(_Declares([(1, -0.5), None, np.array([0.0, 0.5])]), 3)
+    assert got is not None and got.forms[0] == AffineForm(1.0, -0.5)
+    assert got.others == (1,) and got.base_count == 2
+    for bad in ((1.0,), (1.0, float("nan")), "ab", 3.0):
+        with pytest.raises(ValueError, match=r"derivative_affine\(0\)"):
+            declared_reduction(_Declares([bad]), 1)

@@ -21,6 +21,10 @@ Exact traces form S_i = Sigma~^-1 Sigma~_i column by column from the solver's ow
 derivative products applied to the identity (the dense derivative blocks), so only the
 trace arithmetic is exact, not the compression. They need p + 1 dense n x n arrays and
 are refused above ``EXACT_TRACE_MAX_N``.
+
+Estimated traces share one operator, Sigma^-1, among the parameters whose derivative
+the factorization declares affine in Sigma (``derivative_affine``; the variance and
+the nugget: ``harness.likelihood.trace.affine``).
 """
 
 from __future__ import annotations
@@ -29,7 +33,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.likelihood.trace import FactorizationOperators, estimate_traces
+from harness.likelihood.trace import (
+    FactorizationOperators,
+    declared_reduction,
+    estimate_traces,
+)
 from harness.solvers.protocol import DifferentiableFactorization
 
 #: Largest n for exact traces (p + 1 dense n x n arrays: 240 MiB at n = 2,500, p = 4).
@@ -116,10 +124,16 @@ def trace_terms(factorization: DifferentiableFactorization, count: int, *, metho
         notes.append("traces exact: Sigma^-1 Sigma_i formed from the solver's derivative "
                      "products on the identity")
     else:
-        operators = FactorizationOperators(factorization, factorization.derivative_matvec,
-                                           count)
+        reduction = declared_reduction(factorization, count)
+        if reduction is None:
+            operators = FactorizationOperators(factorization, factorization.derivative_matvec,
+                                               count)
+        else:
+            operators = FactorizationOperators(
+                factorization, reduction.base_matvec(factorization.derivative_matvec),
+                reduction.base_count, identity_slots=(0,))
         est = estimate_traces(operators, method=method, probes=probes, rng=rng,
-                              fisher=fisher)
+                              fisher=fisher, reduction=reduction)
         traces, stderr, fisher_ml = est.estimate, est.stderr, est.fisher
         solves, matvecs, used_probes = est.solves, est.matvecs, est.probes
         notes.extend(est.notes)

@@ -226,6 +226,19 @@ class AdaptedFactorization:
             return self._checked("derivative_matvec", b, out)
         return self._dense_derivative_matvec(int(i), b)
 
+    def derivative_affine(self, i: int) -> object:
+        """The solver's own declaration (a, b) with Sigma~_i = a Sigma~ + b I, or None.
+
+        None whenever the derivative products are the generic dense ones: those are of
+        the exact kernel, not of the solver's Sigma~, so no identity with Sigma~ holds.
+        """
+        p = self.kernel.n_params
+        if not 0 <= int(i) < p:
+            raise IndexError(f"parameter index {i} out of range for {self.kernel.param_names}")
+        if self.has_derivatives and _has_method(self.inner, "derivative_affine"):
+            return self.inner.derivative_affine(int(i))  # type: ignore[attr-defined]
+        return None
+
     def _dense_derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray:
         n, p = self._n, self.kernel.n_params
         if n > self.max_dense_n:

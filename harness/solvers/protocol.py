@@ -20,6 +20,8 @@ OPTIONAL_METHODS: dict[str, str] = {
     "apply_sqrt": "W B (sampling from the model)",
     "solve_sqrt_transpose": "W^-T B (saves a product and a solve per trace probe block)",
     "derivative_matvec": "dSigma/dtheta_i @ B",
+    "derivative_affine": "(a, b) when dSigma~/dtheta_i = a Sigma~ + b I exactly, else None "
+                         "(such parameters share one trace estimate)",
     "ranks": "off-diagonal ranks per tree level",
 }
 

@@ -1,5 +1,6 @@
 """Stochastic trace estimation of tr(Sigma^-1 Sigma_i) and the Fisher information."""
 
+from harness.likelihood.trace.affine import AffineForm, AffineReduction, declared_reduction
 from harness.likelihood.trace.estimators import (
     TRACE_METHODS,
     TraceEstimate,
@@ -17,11 +18,14 @@ from harness.likelihood.trace.probes import rademacher_probes
 
 __all__ = [
     "TRACE_METHODS",
+    "AffineForm",
+    "AffineReduction",
     "ExplicitOperators",
     "FactorizationOperators",
     "OperatorFamily",
     "TraceEstimate",
     "Usage",
+    "declared_reduction",
     "estimate_traces",
     "hutchinson",
     "hutchpp",

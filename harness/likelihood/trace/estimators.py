@@ -46,6 +46,7 @@ from dataclasses import dataclass
 import numpy as np
 from threadpoolctl import threadpool_limits
 
+from harness.likelihood.trace.affine import AffineReduction
 from harness.likelihood.trace.operators import OperatorFamily
 from harness.likelihood.trace.probes import rademacher_probes
 
@@ -102,26 +103,54 @@ def _mean_and_stderr(samples: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return samples.mean(axis=-1), samples.std(axis=-1, ddof=1) / np.sqrt(k)
 
 
-def _fisher(operators: OperatorFamily, z: np.ndarray, az: np.ndarray
-            ) -> tuple[np.ndarray, np.ndarray]:
-    """1/2 mean of u_i' v_j (u = A' z, v = A z) and its standard error, symmetrized."""
+def _fisher(operators: OperatorFamily, z: np.ndarray, az: np.ndarray,
+            reduction: AffineReduction | None) -> tuple[np.ndarray, np.ndarray]:
+    """1/2 mean of u_i' v_j (u = A' z, v = A z) and its standard error, symmetrized
+    (over the full family: base products expanded by ``reduction`` when given)."""
     adj = az if operators.symmetric else operators.apply_all_adjoint(z)
+    if reduction is not None:
+        full = reduction.expand_products(z, az)
+        adj = full if operators.symmetric else reduction.expand_products(z, adj)
+        az = full
     samples = 0.5 * np.einsum("pnk,qnk->pqk", adj, az)
     samples = 0.5 * (samples + samples.transpose(1, 0, 2))
     return _mean_and_stderr(samples)
 
 
-def _check_family(operators: OperatorFamily, probes: int, minimum: int, method: str) -> None:
+def _check_family(operators: OperatorFamily, probes: int, minimum: int, method: str,
+                  reduction: AffineReduction | None) -> None:
     if int(probes) < minimum:
         raise ValueError(f"{method} needs probes >= {minimum} (for a standard error), "
                          f"got {probes}")
     if operators.count < 1:
         raise ValueError("the operator family is empty (no parameters)")
+    if reduction is not None and operators.count != reduction.base_count:
+        raise ValueError(f"the reduction needs a base family of {reduction.base_count} "
+                         f"operators, got {operators.count}")
+
+
+def _result(method: str, operators: OperatorFamily, estimate: np.ndarray,
+            stderr: np.ndarray, probes: int, start: tuple[int, int],
+            fisher: tuple[np.ndarray, np.ndarray] | None,
+            reduction: AffineReduction | None) -> TraceEstimate:
+    """The estimate over the full family (expanded when ``reduction`` is given)."""
+    notes = operators.notes
+    if reduction is not None:
+        estimate, stderr = reduction.expand_traces(estimate, stderr, operators.n)
+        notes = (*notes, "parameters with dSigma_i = a Sigma + b I estimated from one "
+                         "shared operator, Sigma^-1: t_i = a n + b tr(Sigma^-1)")
+    return TraceEstimate(
+        method=method, estimate=estimate, stderr=stderr, probes=probes,
+        solves=operators.usage.solves - start[0], matvecs=operators.usage.matvecs - start[1],
+        fisher=None if fisher is None else fisher[0],
+        fisher_stderr=None if fisher is None else fisher[1],
+        symmetric=operators.symmetric, notes=notes)
 
 
 def hutchinson(operators: OperatorFamily, *, probes: int = 64,
                rng: np.random.Generator | int | None = None,
-               fisher: bool = False) -> TraceEstimate:
+               fisher: bool = False,
+               reduction: AffineReduction | None = None) -> TraceEstimate:
     """Hutchinson's estimator with Rademacher probes for every operator of the family.
 
     t_i = (1/m) sum_j z_j' A_i z_j,  SE_i = sd_j(z_j' A_i z_j) / sqrt(m)
@@ -136,27 +165,25 @@ def hutchinson(operators: OperatorFamily, *, probes: int = 64,
         Source of the probes.
     fisher : bool
         Also estimate F_ij = 1/2 tr(A_i A_j) from the same probes.
+    reduction : AffineReduction, optional
+        ``operators`` is the base family of this reduction; results are for the full
+        family (``affine`` module).
     """
-    _check_family(operators, probes, 2, "hutchinson")
+    _check_family(operators, probes, 2, "hutchinson", reduction)
     m = int(probes)
     start = (operators.usage.solves, operators.usage.matvecs)
     z = rademacher_probes(operators.n, m, rng)
     az = operators.apply_all(z)
     samples = np.einsum("nk,pnk->pk", z, az)
     estimate, stderr = _mean_and_stderr(samples)
-    fisher_mean = fisher_se = None
-    if fisher:
-        fisher_mean, fisher_se = _fisher(operators, z, az)
-    return TraceEstimate(
-        method="hutchinson", estimate=estimate, stderr=stderr, probes=m,
-        solves=operators.usage.solves - start[0], matvecs=operators.usage.matvecs - start[1],
-        fisher=fisher_mean, fisher_stderr=fisher_se, symmetric=operators.symmetric,
-        notes=operators.notes)
+    fis = _fisher(operators, z, az, reduction) if fisher else None
+    return _result("hutchinson", operators, estimate, stderr, m, start, fis, reduction)
 
 
 def hutchpp(operators: OperatorFamily, *, probes: int = 64,
             rng: np.random.Generator | int | None = None,
-            fisher: bool = False) -> TraceEstimate:
+            fisher: bool = False,
+            reduction: AffineReduction | None = None) -> TraceEstimate:
     """Hutch++ (Meyer, Musco, Musco and Woodruff 2021, Algorithm 1) for every operator.
 
     With k = probes // 3: Q_i = orth(A_i S), t_i = tr(Q_i' A_i Q_i) + Hutchinson on
@@ -173,8 +200,10 @@ def hutchpp(operators: OperatorFamily, *, probes: int = 64,
     rng : Generator, int or None
     fisher : bool
         Also estimate F_ij = 1/2 tr(A_i A_j) from the Rademacher sketch block S.
+    reduction : AffineReduction, optional
+        As in ``hutchinson``.
     """
-    _check_family(operators, probes, 6, "hutchpp")
+    _check_family(operators, probes, 6, "hutchpp", reduction)
     k = int(probes) // 3
     gen = np.random.default_rng(rng)
     start = (operators.usage.solves, operators.usage.matvecs)
@@ -191,22 +220,20 @@ def hutchpp(operators: OperatorFamily, *, probes: int = 64,
     a_g = operators.apply_each(g_perp)
     samples = np.einsum("pnk,pnk->pk", g_perp, a_g)              # g' R g, R = P A P
     residual, stderr = _mean_and_stderr(samples)
-    fisher_mean = fisher_se = None
-    if fisher:
-        fisher_mean, fisher_se = _fisher(operators, s, a_s)
-    return TraceEstimate(
-        method="hutchpp", estimate=deterministic + residual, stderr=stderr, probes=3 * k,
-        solves=operators.usage.solves - start[0], matvecs=operators.usage.matvecs - start[1],
-        fisher=fisher_mean, fisher_stderr=fisher_se, symmetric=operators.symmetric,
-        notes=operators.notes)
+    fis = _fisher(operators, s, a_s, reduction) if fisher else None
+    return _result("hutchpp", operators, deterministic + residual, stderr, 3 * k, start, fis,
+                   reduction)
 
 
 def estimate_traces(operators: OperatorFamily, *, method: str, probes: int = 64,
                     rng: np.random.Generator | int | None = None,
-                    fisher: bool = False) -> TraceEstimate:
+                    fisher: bool = False,
+                    reduction: AffineReduction | None = None) -> TraceEstimate:
     """Dispatch to ``hutchinson`` or ``hutchpp`` by name."""
     if method == "hutchinson":
-        return hutchinson(operators, probes=probes, rng=rng, fisher=fisher)
+        return hutchinson(operators, probes=probes, rng=rng, fisher=fisher,
+                          reduction=reduction)
     if method == "hutchpp":
-        return hutchpp(operators, probes=probes, rng=rng, fisher=fisher)
+        return hutchpp(operators, probes=probes, rng=rng, fisher=fisher,
+                       reduction=reduction)
     raise ValueError(f"unknown trace estimator {method!r}; known: {', '.join(TRACE_METHODS)}")

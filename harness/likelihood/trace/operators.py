@@ -16,7 +16,7 @@ operation (``solve``, ``solve_sqrt``, ``solve_sqrt_transpose``, ``apply_sqrt``).
 
 from __future__ import annotations
 
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Collection, Sequence
 from dataclasses import dataclass
 from typing import Protocol, cast
 
@@ -116,6 +116,10 @@ class FactorizationOperators:
         Number of parameters p.
     symmetric : bool, optional
         Force the form; by default symmetric exactly when the square-root methods exist.
+    identity_slots : collection of int
+        Operators whose "derivative" is the identity (A_i = Sigma^-1, or W^-1 W^-T in
+        the symmetric form; ``affine`` module): never passed to ``derivative_matvec``
+        and not counted as derivative products.
 
     Notes
     -----
@@ -126,10 +130,15 @@ class FactorizationOperators:
     """
 
     def __init__(self, factorization: Factorization, derivative_matvec: DerivativeMatvec,
-                 count: int, *, symmetric: bool | None = None) -> None:
+                 count: int, *, symmetric: bool | None = None,
+                 identity_slots: Collection[int] = ()) -> None:
         self.factorization = factorization
         self.derivative_matvec = derivative_matvec
         self.count = int(count)
+        self.identity_slots = frozenset(int(i) for i in identity_slots)
+        if not self.identity_slots <= set(range(self.count)):
+            raise ValueError(f"identity_slots {sorted(self.identity_slots)} outside the "
+                             f"{self.count} operators")
         self.n = int(factorization.n)
         has_sqrt = (callable(getattr(factorization, "solve_sqrt", None))
                     and callable(getattr(factorization, "apply_sqrt", None)))
@@ -172,6 +181,9 @@ class FactorizationOperators:
     def _derivatives(self, blocks: np.ndarray) -> np.ndarray:
         out = np.empty_like(blocks)
         for i in range(blocks.shape[0]):
+            if i in self.identity_slots:
+                out[i] = blocks[i]
+                continue
             self.usage.matvecs += blocks.shape[2]
             out[i] = self.derivative_matvec(i, blocks[i])
         return out

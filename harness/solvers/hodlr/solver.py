@@ -133,6 +133,17 @@ class HodlrFactorization:
         return self._apply(b, lambda x: derivative_product(role, self.kernel, self._sigma,
                                                            deriv, x, threads=self._threads))
 
+    def derivative_affine(self, i: int) -> tuple[float, float] | None:
+        """(a, b) with dSigma~/dtheta_i = a Sigma~ + b I, exactly as ``derivative_matvec``
+        forms it: (1, -tau2) for the variance, (0, tau2) for the nugget; None for a
+        length scale (``derivatives`` module)."""
+        role = derivative_role(self.kernel, i)
+        if role.kind == "variance":
+            return 1.0, -float(self.kernel.nugget)
+        if role.kind == "nugget":
+            return 0.0, float(self.kernel.nugget)
+        return None
+
     # -- extras --------------------------------------------------------------------
     def compress_derivatives(self, indices: list[int] | None = None) -> None:
         """Compress the length-scale derivatives ``indices`` (all when None) now."""

@@ -1,0 +1,158 @@
+"""Parameters whose derivative is affine in Sigma share one trace estimate.
+
+For Sigma = s2 R + tau2 I with theta = (log s2, log l_1 .. log l_k, log tau2)
+(``harness.model.kernels.classes``) two derivatives need no product of their own:
+
+    dSigma/dlog s2   = Sigma - tau2 I     (a = 1, b = -tau2),
+    dSigma/dlog tau2 = tau2 I             (a = 0, b =  tau2).
+
+Whenever Sigma_i = a_i Sigma + b_i I,
+
+    A_i = Sigma^-1 Sigma_i = a_i I + b_i Sigma^-1,      tr(A_i) = a_i n + b_i tr(Sigma^-1),
+
+and in the symmetric form W^-1 Sigma_i W^-T = a_i I + b_i W^-1 W^-T (W^-1 Sigma W^-T = I
+for Sigma = W W'). So all such parameters are estimated from one base operator,
+B = Sigma^-1 (resp. W^-1 W^-T): the operator of a "derivative" equal to the identity,
+which costs solves but no derivative product. The estimator then runs on the base
+family (B, then the operators of the other parameters), and
+
+    t_i = a_i n + b_i t_B,      SE_i = |b_i| SE_B,
+
+exactly what the estimator gives on A_i itself when it is linear in the products
+(Hutchinson: z' A_i z = a_i z'z + b_i z'Bz with z'z = n for Rademacher z); Hutch++
+sketches B instead of A_i, another unbiased estimate of the same trace (the sketch
+only has to be independent of the residual probes; Meyer et al. 2021, Algorithm 1).
+The Fisher information is estimated from the full products a_i Z + b_i B Z, formed
+from the base products, so it is the estimator's own on the full family.
+
+Only a factorization that declares ``derivative_affine(i) -> (a_i, b_i)`` (or None) is
+treated this way: the identity has to hold for its own Sigma~ and its own derivative
+products, which only the solver can promise.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+DerivativeMatvec = Callable[[int, np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True)
+class AffineForm:
+    """Sigma_i = sigma * Sigma + identity * I."""
+
+    sigma: float
+    identity: float
+
+
+@dataclass(frozen=True)
+class AffineReduction:
+    """How the p parameters map onto the base operators of the estimator.
+
+    Attributes
+    ----------
+    forms : tuple of AffineForm or None
+        One per parameter; None where the derivative is not affine in Sigma.
+    """
+
+    forms: tuple[AffineForm | None, ...]
+
+    def __post_init__(self) -> None:
+        if not any(f is not None for f in self.forms):
+            raise ValueError("an affine reduction needs at least one affine parameter")
+
+    @property
+    def count(self) -> int:
+        """Number of parameters p."""
+        return len(self.forms)
+
+    @property
+    def others(self) -> tuple[int, ...]:
+        """Parameters that keep an operator of their own, in order (base slots 1..)."""
+        return tuple(i for i, f in enumerate(self.forms) if f is None)
+
+    @property
+    def base_count(self) -> int:
+        """Operators of the base family: B (slot 0) and one per other parameter."""
+        return 1 + len(self.others)
+
+    def base_matvec(self, derivative_matvec: DerivativeMatvec) -> DerivativeMatvec:
+        """The base family's derivative products: slot j >= 1 is parameter others[j - 1]
+        (slot 0, the identity, is never multiplied: ``FactorizationOperators``'s
+        ``identity_slots``)."""
+        others = self.others
+
+        def product(j: int, b: np.ndarray) -> np.ndarray:
+            if j == 0:
+                return b
+            return derivative_matvec(others[j - 1], b)
+
+        return product
+
+    def expand_traces(self, estimate: np.ndarray, stderr: np.ndarray, n: int
+                      ) -> tuple[np.ndarray, np.ndarray]:
+        """Traces and standard errors of the p parameters from the base family's."""
+        est = np.empty(self.count)
+        se = np.empty(self.count)
+        slot = {i: j + 1 for j, i in enumerate(self.others)}
+        for i, form in enumerate(self.forms):
+            if form is None:
+                est[i], se[i] = estimate[slot[i]], stderr[slot[i]]
+            else:
+                est[i] = form.sigma * n + form.identity * estimate[0]
+                se[i] = abs(form.identity) * stderr[0]
+        return est, se
+
+    def expand_products(self, z: np.ndarray, base: np.ndarray) -> np.ndarray:
+        """Products A_i Z (p, n, k) from Z (n, k) and the base products (base_count, n, k)."""
+        out = np.empty((self.count, *z.shape))
+        slot = {i: j + 1 for j, i in enumerate(self.others)}
+        for i, form in enumerate(self.forms):
+            if form is None:
+                out[i] = base[slot[i]]
+            else:
+                out[i] = form.identity * base[0]
+                if form.sigma != 0.0:
+                    out[i] += form.sigma * z
+        return out
+
+
+def declared_reduction(factorization: object, count: int) -> AffineReduction | None:
+    """The reduction a factorization declares through ``derivative_affine``, or None.
+
+    Raises
+    ------
+    ValueError
+        When ``derivative_affine(i)`` returns something other than None or two finite
+        numbers.
+    """
+    declare = getattr(factorization, "derivative_affine", None)
+    if not callable(declare):
+        return None
+    forms: list[AffineForm | None] = []
+    for i in range(int(count)):
+        got = declare(i)
+        if got is None:
+            forms.append(None)
+            continue
+        values = _two_numbers(got)
+        if values is None:
+            raise ValueError(f"derivative_affine({i}) must return None or two finite "
+                             f"numbers (a, b) with Sigma_i = a Sigma + b I, got {got!r}")
+        forms.append(AffineForm(*values))
+    if not any(f is not None for f in forms):
+        return None
+    return AffineReduction(tuple(forms))
+
+
+def _two_numbers(got: object) -> tuple[float, float] | None:
+    try:
+        values = np.asarray(got, dtype=np.float64)
+    except (TypeError, ValueError):
+        return None
+    if values.shape != (2,) or not np.all(np.isfinite(values)):
+        return None
+    return float(values[0]), float(values[1])
