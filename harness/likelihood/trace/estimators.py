@@ -214,11 +214,9 @@ def hutchpp(operators: OperatorFamily, *, probes: int = 64,
     # threads made it 10x slower (measured at n = 1,500, k = 20)
     with threadpool_limits(limits=1, user_api="blas"):
         q = np.stack([np.linalg.qr(block, mode="reduced")[0] for block in a_s])
-    a_q = operators.apply_each(q)
-    deterministic = np.einsum("pnk,pnk->p", q, a_q)              # tr(Q' A Q)
+    deterministic = operators.quadratic_each(q).sum(axis=1)      # tr(Q' A Q)
     g_perp = np.stack([g - q_i @ (q_i.T @ g) for q_i in q])      # (I - QQ') G
-    a_g = operators.apply_each(g_perp)
-    samples = np.einsum("pnk,pnk->pk", g_perp, a_g)              # g' R g, R = P A P
+    samples = operators.quadratic_each(g_perp)                   # g' R g, R = P A P
     residual, stderr = _mean_and_stderr(samples)
     fis = _fisher(operators, s, a_s, reduction) if fisher else None
     return _result("hutchpp", operators, deterministic + residual, stderr, 3 * k, start, fis,

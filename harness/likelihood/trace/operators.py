@@ -48,8 +48,8 @@ class OperatorFamily(Protocol):
         """A_i Z for every i, stacked (p, n, k), from one (n, k) block."""
         ...
 
-    def apply_each(self, blocks: np.ndarray) -> np.ndarray:
-        """A_i B_i for a stack of blocks (p, n, k)."""
+    def quadratic_each(self, blocks: np.ndarray) -> np.ndarray:
+        """b' A_i b for every column b of block i of a stack (p, n, k): shape (p, k)."""
         ...
 
     def apply_all_adjoint(self, z: np.ndarray) -> np.ndarray:
@@ -94,9 +94,10 @@ class ExplicitOperators:
         self.usage.matvecs += self.count * z.shape[1]
         return np.stack([m @ z for m in self.matrices])
 
-    def apply_each(self, blocks: np.ndarray) -> np.ndarray:
+    def quadratic_each(self, blocks: np.ndarray) -> np.ndarray:
         self.usage.matvecs += blocks.shape[0] * blocks.shape[2]
-        return np.stack([m @ b for m, b in zip(self.matrices, blocks, strict=True)])
+        return np.stack([np.sum(b * (m @ b), axis=0)
+                         for m, b in zip(self.matrices, blocks, strict=True)])
 
     def apply_all_adjoint(self, z: np.ndarray) -> np.ndarray:
         self.usage.matvecs += self.count * z.shape[1]
@@ -125,7 +126,7 @@ class FactorizationOperators:
     -----
     Symmetric form: A_i = W^-1 Sigma_i W^-T. One block Z gives all p products with one
     W^-T application (``apply_all``): X = W^-T Z, then Sigma_i X, then W^-1 on the
-    stacked columns. Non-symmetric form: A_i Z = Sigma^-1 (Sigma_i Z) with all p blocks
+    stacked columns. Quadratic forms need no W^-1: z' A_i z = x' Sigma_i x. Non-symmetric form: A_i Z = Sigma^-1 (Sigma_i Z) with all p blocks
     solved together; the adjoint is A_i' Z = Sigma_i Sigma^-1 Z.
     """
 
@@ -198,13 +199,17 @@ class FactorizationOperators:
         stack = self._derivatives(np.broadcast_to(z, (self.count, *z.shape)))
         return _split(self._solve(_join(stack)), self.count)
 
-    def apply_each(self, blocks: np.ndarray) -> np.ndarray:
+    def quadratic_each(self, blocks: np.ndarray) -> np.ndarray:
+        """Symmetric form: b' W^-1 Sigma_i W^-T b = x' Sigma_i x with x = W^-T b, so one
+        W^-T pass and the derivative products, no W^-1 pass; non-symmetric form:
+        b' Sigma^-1 (Sigma_i b)."""
         blocks = np.asarray(blocks, dtype=np.float64)
         parts = blocks.shape[0]
         if self.symmetric:
             x = _split(self._solve_sqrt_transpose(_join(blocks)), parts)
-            return _split(self._solve_sqrt(_join(self._derivatives(x))), parts)
-        return _split(self._solve(_join(self._derivatives(blocks))), parts)
+            return np.sum(x * self._derivatives(x), axis=1)
+        return np.sum(blocks * _split(self._solve(_join(self._derivatives(blocks))), parts),
+                      axis=1)
 
     def apply_all_adjoint(self, z: np.ndarray) -> np.ndarray:
         if self.symmetric:
