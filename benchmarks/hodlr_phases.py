@@ -11,6 +11,11 @@ truncations had to form an explicit orthogonal basis (``orth.basis_factor``) and
 thread-seconds, and the phase walls of ``factorize``. Seconds and units of the same-run
 unit (``machine_unit``).
 
+The factorization's floating-point work is counted from the level ranks
+(``factor_flops``) and set against the rate of the unit's own dpotrf (n^3 / 3 flops at
+n = 8,192): their ratio says how far the factorization phase is from running at
+LAPACK's dense rate on this machine.
+
 Usage::
 
     python benchmarks/hodlr_phases.py --n 131072 --tol 1e-6 1e-8 \
@@ -82,6 +87,25 @@ class BlockClock:
         return saved
 
 
+def factor_flops(n: int, leaf: int, ranks: list[tuple[float, int]]) -> float:
+    """Dominant flops of ``factor.factor_symmetric`` from (mean rank, max rank) per level.
+
+    Per node of level l with m rows and rank r (c = sum of the coarser levels' max
+    ranks, the ancestor columns): the Gram matrices of its two bases, m r^2; the
+    products U_a' X_a, U_b' X_b with the ancestor columns, 2 m r c; the update
+    X_b -= U_b C, m r c. Summed over a level's nodes (their m add up to n):
+    n (r^2 + 3 r c) with r the level's mean rank. The leaves' triangular solves on all
+    levels' columns add n * leaf * (sum of max ranks). Multiply-adds count as 2 flops;
+    second Cholesky QR passes are not counted, so this is a lower bound.
+    """
+    total = 0.0
+    coarser = 0
+    for mean, top in ranks:
+        total += n * (mean * mean + 3.0 * mean * coarser)
+        coarser += top
+    return total + n * leaf * coarser
+
+
 def run(n: int, tol: float) -> dict:
     kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
     points = np.random.default_rng(0).random((n, 2))
@@ -100,7 +124,10 @@ def run(n: int, tol: float) -> dict:
                        "max_aca_rank": max(clock.aca_rank[level]),
                        "max_rank": f.ranks[level].max})
     root = levels[0]
+    flops = factor_flops(n, 128, [(r.mean, r.max) for r in f.ranks])
     return {"n": n, "tol": tol, "phases": f.timings.to_dict(), "levels": levels,
+            "factor_flops": flops,
+            "factor_gflops_per_second": flops / f.timings.factor / 1e9,
             "root_seconds": root["aca_thread_seconds"] + root["truncation_thread_seconds"],
             "compression_thread_seconds": float(sum(row["aca_thread_seconds"]
                                                     + row["truncation_thread_seconds"]
@@ -118,7 +145,9 @@ def main(argv: list[str] | None = None) -> int:
     info = machine()
     unit = measure_unit()
     u = unit["seconds"]
-    print(f"unit: {unit['name']} = {u:.3f} s (load average {info['load_average']})")
+    unit_gflops = unit["n"] ** 3 / 3.0 / u / 1e9
+    print(f"unit: {unit['name']} = {u:.3f} s = {unit_gflops:.1f} GFlop/s "
+          f"(load average {info['load_average']})")
     factorize(np.random.default_rng(1).random((2000, 2)),
               Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2), None, tol=1e-6, rng=0)
     rows = []
@@ -127,19 +156,22 @@ def main(argv: list[str] | None = None) -> int:
             row = run(n, tol)
             p = row["phases"]
             row["units"] = {k: v / u for k, v in p.items()}
+            row["factor_rate_over_dpotrf"] = row["factor_gflops_per_second"] / unit_gflops
             print(f"n {n} tol {tol:g}: compress {p['compress']:.2f} s (root block "
                   f"{row['root_seconds']:.2f} s of one thread; all blocks "
                   f"{row['compression_thread_seconds']:.2f} thread-s; "
                   f"{row['explicit_bases']} explicit bases, "
                   f"{row['explicit_basis_thread_seconds']:.2f} thread-s), "
-                  f"factor {p['factor']:.2f} s", flush=True)
+                  f"factor {p['factor']:.2f} s ({row['factor_flops']:.3g} flops, "
+                  f"{row['factor_gflops_per_second']:.1f} GFlop/s = "
+                  f"{row['factor_rate_over_dpotrf']:.2f} of dpotrf's rate)", flush=True)
             rows.append(row)
     info["load_average_end"] = list(os.getloadavg())
     write_results(args.json, {"benchmark": "hodlr_phases", "schema_version": 1,
                               "command": "python benchmarks/hodlr_phases.py "
                                          + " ".join(argv or sys.argv[1:]),
                               "commit": commit(), "machine": info, "unit": unit,
-                              "rows": rows})
+                              "unit_gflops_per_second": unit_gflops, "rows": rows})
     return 0
 
 
