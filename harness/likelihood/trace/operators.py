@@ -126,8 +126,9 @@ class FactorizationOperators:
     -----
     Symmetric form: A_i = W^-1 Sigma_i W^-T. One block Z gives all p products with one
     W^-T application (``apply_all``): X = W^-T Z, then Sigma_i X, then W^-1 on the
-    stacked columns. Quadratic forms need no W^-1: z' A_i z = x' Sigma_i x. Non-symmetric form: A_i Z = Sigma^-1 (Sigma_i Z) with all p blocks
-    solved together; the adjoint is A_i' Z = Sigma_i Sigma^-1 Z.
+    stacked columns. Quadratic forms need no W^-1: z' A_i z = x' Sigma_i x.
+    Non-symmetric form: A_i Z = Sigma^-1 (Sigma_i Z) with all p blocks solved together;
+    the adjoint is A_i' Z = Sigma_i Sigma^-1 Z.
     """
 
     def __init__(self, factorization: Factorization, derivative_matvec: DerivativeMatvec,
