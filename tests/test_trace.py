@@ -218,20 +218,32 @@ def test_reduction_needs_the_base_family(problem):
                                identity_slots=(2,))
 
 
-class _Declares:
-    def __init__(self, answers):
-        self.answers = answers
+class _Declares(DenseFactor):
+    """The problem's dense factor with given derivative_affine answers."""
+
+    def __init__(self, problem, answers):
+        super().__init__(problem[0])
+        self.derivs, self.answers = problem[1], answers
+
+    def matvec(self, b):
+        return self.sigma @ b
+
+    def derivative_matvec(self, i, b):
+        return self.derivs[i] @ b
 
     def derivative_affine(self, i):
         return self.answers[i]
 
 
-def test_declared_reduction_reads_and_checks_the_solver():
-    assert declared_reduction(object(), 3) is None
-    assert declared_reduction(_Declares([None, None]), 2) is None
-    got = declared_reduction(_Declares([(1, -0.5), None, np.array([0.0, 0.5])]), 3)
-    assert got is not None and got.forms[0] == AffineForm(1.0, -0.5)
+def test_declared_reduction_reads_and_checks_the_solver(problem):
+    assert declared_reduction(DenseFactor(problem[0]), 3) is None
+    assert declared_reduction(_Declares(problem, [None] * 3), 3) is None
+    got = declared_reduction(_Declares(problem, [(1, -0.1), None, np.array([0.0, 0.1])]), 3)
+    assert got is not None and got.forms == REDUCTION.forms
     assert got.others == (1,) and got.base_count == 2
     for bad in ((1.0,), (1.0, float("nan")), "ab", 3.0):
-        with pytest.raises(ValueError, match=r"derivative_affine\(0\)"):
-            declared_reduction(_Declares([bad]), 1)
+        with pytest.raises(ValueError, match=r"derivative_affine\(0\) must return"):
+            declared_reduction(_Declares(problem, [bad, None, None]), 3)
+    # a declaration its own products contradict (the nugget's sign flipped) is refused
+    with pytest.raises(ValueError, match=r"derivative_affine\(2\) declares .* wrong"):
+        declared_reduction(_Declares(problem, [None, None, (0.0, -0.1)]), 3)
