@@ -5,7 +5,10 @@ drawn as white noise; ``evaluate_likelihood`` with Hutch++ (64 products per para
 factorization included, median of ``--repeats`` in a fresh subprocess; then the time
 per column of one W^-T pass with 21, 42 and 84 columns (the factor's passes are memory-
 bound: wider blocks cost less per column, which is why the estimator batches its
-quadratic forms). State space: 1D
+quadratic forms); and the Hutchinson estimate (16 probes) of tr(W^-1 Sigma~ W^-T) - n,
+the gap in the identity that lets the variance and nugget share one trace operator
+(``harness.likelihood.trace.affine``), to set beside the traces' standard errors.
+State space: 1D
 uniform points, Matern 3/2, log-likelihood + score by the analytic sensitivity
 recursions and, for comparison, by finite differences. Seconds and units of the same-run
 unit (one dpotrf at n = 8,192, ``machine_unit``).
@@ -50,8 +53,13 @@ for k in (21, 42, 84):
     t = time.perf_counter()
     f.solve_sqrt_transpose(b)
     per_column[str(k)] = (time.perf_counter() - t) / k
+z = rng.integers(0, 2, size=(n, 16)) * 2.0 - 1.0
+gap = np.sum(z * (f.solve_sqrt(f.matvec(f.solve_sqrt_transpose(z))) - z), axis=0)
 print(json.dumps({"seconds": [w["total"] for w in walls], "phases": walls,
                   "loglik": ev.loglik, "solves": ev.solves, "matvecs": ev.matvecs,
+                  "trace_stderr": ev.trace_stderr.tolist(),
+                  "shared_operator_gap": {"mean": float(gap.mean()),
+                                          "stderr": float(gap.std(ddof=1) / 4.0)},
                   "solve_sqrt_transpose_seconds_per_column": per_column}))
 """
 
