@@ -14,11 +14,14 @@ unit (``machine_unit``).
 The factorization's floating-point work is counted from the level ranks
 (``factor_flops``) and set against the rate of the unit's own dpotrf (n^3 / 3 flops at
 n = 8,192): their ratio says how far the factorization phase is from running at
-LAPACK's dense rate on this machine.
+LAPACK's dense rate on this machine. ``floor_units`` is what the two phases would take
+at these ranks if the factorization ran at that rate and the compression's thread-
+seconds were split evenly over the two threads: a floor for any implementation of this
+method (same ranks, same compression work), in units.
 
 Usage::
 
-    python benchmarks/hodlr_phases.py --n 131072 --tol 1e-6 1e-8 \
+    python benchmarks/hodlr_phases.py --n 16000 131072 --tol 1e-6 1e-8 \
         --json benchmarks/results/hodlr_phases.json
 """
 
@@ -157,6 +160,11 @@ def main(argv: list[str] | None = None) -> int:
             p = row["phases"]
             row["units"] = {k: v / u for k, v in p.items()}
             row["factor_rate_over_dpotrf"] = row["factor_gflops_per_second"] / unit_gflops
+            factor_floor = row["factor_flops"] / (unit_gflops * 1e9)
+            compress_floor = row["compression_thread_seconds"] / 2.0
+            row["floor_units"] = {"factor_at_dpotrf_rate": factor_floor / u,
+                                  "compression_evenly_split": compress_floor / u,
+                                  "total": (factor_floor + compress_floor) / u}
             print(f"n {n} tol {tol:g}: compress {p['compress']:.2f} s (root block "
                   f"{row['root_seconds']:.2f} s of one thread; all blocks "
                   f"{row['compression_thread_seconds']:.2f} thread-s; "
@@ -164,7 +172,9 @@ def main(argv: list[str] | None = None) -> int:
                   f"{row['explicit_basis_thread_seconds']:.2f} thread-s), "
                   f"factor {p['factor']:.2f} s ({row['factor_flops']:.3g} flops, "
                   f"{row['factor_gflops_per_second']:.1f} GFlop/s = "
-                  f"{row['factor_rate_over_dpotrf']:.2f} of dpotrf's rate)", flush=True)
+                  f"{row['factor_rate_over_dpotrf']:.2f} of dpotrf's rate); floor "
+                  f"{row['floor_units']['total']:.2f} units, measured "
+                  f"{row['units']['total']:.2f}", flush=True)
             rows.append(row)
     info["load_average_end"] = list(os.getloadavg())
     write_results(args.json, {"benchmark": "hodlr_phases", "schema_version": 1,
