@@ -76,16 +76,21 @@ def _operators(problem, sqrt=True):
 @pytest.mark.parametrize("estimator", [hutchinson, hutchpp])
 def test_unbiased_over_seeds(problem, estimator, sqrt):
     # source: E[z'Az] = tr(A) (Hutchinson 1989); E[Hutch++ | S] = tr(A) (module docstring)
-    _, _, exact, fisher = problem
     runs = [estimator(_operators(problem, sqrt), probes=12, rng=seed, fisher=True)
             for seed in range(300)]
+    _assert_unbiased(runs, problem)
+    assert runs[0].symmetric is sqrt
+
+
+def _assert_unbiased(runs, problem):
+    """Means over seeds within 3 (traces) and 3.5 (Fisher) standard errors of exact."""
+    _, _, exact, fisher = problem
     est = np.array([r.estimate for r in runs])
     se_of_mean = est.std(axis=0, ddof=1) / np.sqrt(len(runs))
     assert np.all(np.abs(est.mean(axis=0) - exact) < 3.0 * se_of_mean)
     fis = np.array([r.fisher for r in runs])
     fis_se = fis.std(axis=0, ddof=1) / np.sqrt(len(runs))
     assert np.all(np.abs(fis.mean(axis=0) - fisher) < 3.5 * fis_se + 1e-12)
-    assert runs[0].symmetric is sqrt
 
 
 def test_hutchinson_rademacher_variance_formula(problem):
@@ -195,15 +200,10 @@ def test_reduced_hutchinson_equals_full_family(problem, sqrt):
 def test_reduced_hutchpp_unbiased_and_exact_with_a_full_sketch(problem, sqrt):
     # source: E[Hutch++ | S] = tr(A) for any sketch (Meyer et al. 2021, Algorithm 1;
     # module docstring), and a sketch spanning R^n makes tr(Q'AQ) = tr(A) exactly
-    _, _, exact, fisher = problem
     runs = [hutchpp(_base_operators(problem, sqrt), probes=12, rng=seed, fisher=True,
                     reduction=REDUCTION) for seed in range(300)]
-    est = np.array([r.estimate for r in runs])
-    se_of_mean = est.std(axis=0, ddof=1) / np.sqrt(len(runs))
-    assert np.all(np.abs(est.mean(axis=0) - exact) < 3.0 * se_of_mean)
-    fis = np.array([r.fisher for r in runs])
-    fis_se = fis.std(axis=0, ddof=1) / np.sqrt(len(runs))
-    assert np.all(np.abs(fis.mean(axis=0) - fisher) < 3.5 * fis_se + 1e-12)
+    _assert_unbiased(runs, problem)
+    exact = problem[2]
     whole = hutchpp(_base_operators(problem, sqrt), probes=600, rng=1, reduction=REDUCTION)
     np.testing.assert_allclose(whole.estimate, exact, rtol=1e-9)
 
