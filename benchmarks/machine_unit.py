@@ -99,9 +99,17 @@ def machine() -> dict:
 
 
 def commit() -> str | None:
+    """HEAD's hash, with "+uncommitted" when tracked files outside benchmarks/results
+    differ from it (the run then measured code that no commit holds)."""
     proc = subprocess.run(["git", "rev-parse", "HEAD"], capture_output=True, text=True,
                           check=False)
-    return proc.stdout.strip() or None
+    head = proc.stdout.strip()
+    if not head:
+        return None
+    status = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no", "--",
+                             ".", ":(exclude)benchmarks/results"],
+                            capture_output=True, text=True, check=False)
+    return head + "+uncommitted" if status.stdout.strip() else head
 
 
 def write_results(path: str, payload: dict) -> None:
