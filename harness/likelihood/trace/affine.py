@@ -11,9 +11,12 @@ Whenever Sigma_i = a_i Sigma + b_i I,
     A_i = Sigma^-1 Sigma_i = a_i I + b_i Sigma^-1,      tr(A_i) = a_i n + b_i tr(Sigma^-1),
 
 and in the symmetric form W^-1 Sigma_i W^-T = a_i I + b_i W^-1 W^-T (W^-1 Sigma W^-T = I
-for Sigma = W W'). So all such parameters are estimated from one base operator,
-B = Sigma^-1 (resp. W^-1 W^-T): the operator of a "derivative" equal to the identity,
-which costs solves but no derivative product. The estimator then runs on the base
+for Sigma = W W'; where the factor reproduces the Sigma~ of the solver's products only
+to some E = W W' - Sigma~, t_i moves by a_i tr(W^-1 E W^-T), which
+``benchmarks/likelihood_scaling.py`` estimates for the HODLR factor). So all such
+parameters are estimated from one base operator, B = Sigma^-1 (resp. W^-1 W^-T): the
+operator of a "derivative" equal to the identity, which costs solves but no derivative
+product. The estimator then runs on the base
 family (B, then the operators of the other parameters), and
 
     t_i = a_i n + b_i t_B,      SE_i = |b_i| SE_B,
