@@ -14,10 +14,8 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import os
-import sys
 
-from machine_unit import commit, machine, measure_unit, median, run_child, write_results
+from machine_unit import machine, measure_unit, median, run_child, write_run
 
 _CHILD = r"""
 import json, sys, time
@@ -64,12 +62,7 @@ def main(argv: list[str] | None = None) -> int:
             print(f"n {n}: panel {panel:.2f} s, one dpotrf {one:.2f} s, ratio {panel / one:.3f}",
                   flush=True)
         rows.append(row)
-    info["load_average_end"] = list(os.getloadavg())
-    write_results(args.json, {"benchmark": "dense_panel", "schema_version": 1,
-                              "command": "python benchmarks/dense_panel.py "
-                                         + " ".join(argv or sys.argv[1:]),
-                              "commit": commit(), "machine": info, "unit": unit, "rows": rows})
-    print(f"wrote {args.json}")
+    write_run(args.json, "dense_panel", argv, info, unit=unit, rows=rows)
     return 0
 
 

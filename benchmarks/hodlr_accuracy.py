@@ -22,7 +22,7 @@ import argparse
 import time
 
 import numpy as np
-from machine_unit import commit, machine, write_results
+from machine_unit import machine, write_run
 
 from harness.geometry.pointsets import uniform
 from harness.model.kernels import Matern32
@@ -89,13 +89,8 @@ def main(argv: list[str] | None = None) -> int:
               f"{row['median_abs_loglik_error']['smooth field']:.3g} nat; "
               f"||S - S~||_2 / ||S||_2 {row['median_relative_spectral_error']:.3g}",
               flush=True)
-    write_results(args.json, {
-        "benchmark": "hodlr_accuracy", "schema_version": 1,
-        "command": "python benchmarks/hodlr_accuracy.py "
-                   + " ".join(argv or __import__("sys").argv[1:]),
-        "commit": commit(), "machine": info, "n": args.n, "seeds": args.seeds,
-        "exact_loglik": exact, "rows": rows})
-    print(f"wrote {args.json}")
+    write_run(args.json, "hodlr_accuracy", argv, info, n=args.n, seeds=args.seeds,
+              exact_loglik=exact, rows=rows)
     return 0
 
 

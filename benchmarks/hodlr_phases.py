@@ -29,13 +29,11 @@ from __future__ import annotations
 
 import argparse
 import math
-import os
-import sys
 import time
 from collections import defaultdict
 
 import numpy as np
-from machine_unit import commit, machine, measure_unit, write_results
+from machine_unit import machine, measure_unit, write_run
 
 import harness.solvers.hodlr.aca as aca
 import harness.solvers.hodlr.entries as entries
@@ -176,12 +174,8 @@ def main(argv: list[str] | None = None) -> int:
                   f"{row['floor_units']['total']:.2f} units, measured "
                   f"{row['units']['total']:.2f}", flush=True)
             rows.append(row)
-    info["load_average_end"] = list(os.getloadavg())
-    write_results(args.json, {"benchmark": "hodlr_phases", "schema_version": 1,
-                              "command": "python benchmarks/hodlr_phases.py "
-                                         + " ".join(argv or sys.argv[1:]),
-                              "commit": commit(), "machine": info, "unit": unit,
-                              "unit_gflops_per_second": unit_gflops, "rows": rows})
+    write_run(args.json, "hodlr_phases", argv, info, unit=unit,
+              unit_gflops_per_second=unit_gflops, rows=rows)
     return 0
 
 

@@ -21,7 +21,7 @@ from __future__ import annotations
 import argparse
 
 import numpy as np
-from machine_unit import commit, machine, measure_unit, median, run_child, write_results
+from machine_unit import machine, measure_unit, median, run_child, write_run
 
 from harness.analysis.scaling import fit_power_law
 
@@ -169,13 +169,8 @@ def main(argv: list[str] | None = None) -> int:
     if fresh:
         print(f"fresh process first-call overhead: hodlr {fresh['hodlr']['overhead']:.2f} s, "
               f"assemble_lower {fresh['assemble_lower']['overhead']:.2f} s")
-    info["load_average_end"] = list(__import__("os").getloadavg())
-    write_results(args.json, {"benchmark": "hodlr_scaling", "schema_version": 1,
-                              "command": "python benchmarks/hodlr_scaling.py "
-                                         + " ".join(argv or __import__("sys").argv[1:]),
-                              "commit": commit(), "machine": info, "unit": unit,
-                              "rows": rows, "exponents": fits, "fresh_process": fresh})
-    print(f"wrote {args.json}")
+    write_run(args.json, "hodlr_scaling", argv, info, unit=unit, rows=rows, exponents=fits,
+              fresh_process=fresh)
     return 0
 
 

@@ -31,12 +31,10 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import os
-import sys
 import time
 
 import numpy as np
-from machine_unit import commit, machine, measure_unit, median, write_results
+from machine_unit import machine, measure_unit, median, write_run
 from threadpoolctl import threadpool_limits
 
 import harness.solvers.hodlr.compressed as compressed
@@ -180,14 +178,8 @@ def main(argv: list[str] | None = None) -> int:
                   f"(factor {row['median_factor_seconds']:.2f} s)", flush=True)
     part_times = parts(args.repeats, args.operator_n)
     print(part_times)
-    info["load_average_end"] = list(os.getloadavg())
-    write_results(args.json, {"benchmark": "hodlr_variants", "schema_version": 1,
-                              "command": "python benchmarks/hodlr_variants.py "
-                                         + " ".join(argv or sys.argv[1:]),
-                              "commit": commit(), "machine": info, "unit": unit, "n": args.n,
-                              "seeds": args.seeds, "exact_loglik": exact,
-                              "variants": results, "parts": part_times})
-    print(f"wrote {args.json}")
+    write_run(args.json, "hodlr_variants", argv, info, unit=unit, n=args.n, seeds=args.seeds,
+              exact_loglik=exact, variants=results, parts=part_times)
     return 0
 
 

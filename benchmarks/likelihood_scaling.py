@@ -22,10 +22,8 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import os
-import sys
 
-from machine_unit import commit, machine, measure_unit, median, run_child, write_results
+from machine_unit import machine, measure_unit, median, run_child, write_run
 
 _HODLR = r"""
 import json, sys, time
@@ -122,13 +120,7 @@ def main(argv: list[str] | None = None) -> int:
                 print(f"state space n {n} ({method}): {sec:.2f} s = {sec / u:.3f} units",
                       flush=True)
         rows.append(row)
-    info["load_average_end"] = list(os.getloadavg())
-    write_results(args.json, {"benchmark": "likelihood_scaling", "schema_version": 1,
-                              "command": "python benchmarks/likelihood_scaling.py "
-                                         + " ".join(argv or sys.argv[1:]),
-                              "commit": commit(), "machine": info, "unit": unit,
-                              "rows": rows})
-    print(f"wrote {args.json}")
+    write_run(args.json, "likelihood_scaling", argv, info, unit=unit, rows=rows)
     return 0
 
 

@@ -117,3 +117,16 @@ def write_results(path: str, payload: dict) -> None:
     with open(path, "w") as fh:
         json.dump(payload, fh, indent=1)
         fh.write("\n")
+
+
+def write_run(path: str, benchmark: str, argv: list[str] | None, info: dict,
+              **fields: object) -> None:
+    """Write the results file of ``benchmarks/<benchmark>.py``: its name, the schema
+    version, the command line that ran it, ``commit()``, the machine (``info`` with the
+    load average at the end of the run), then ``fields`` in order."""
+    machine_now = {**info, "load_average_end": list(os.getloadavg())}
+    write_results(path, {"benchmark": benchmark, "schema_version": 1,
+                         "command": f"python benchmarks/{benchmark}.py "
+                                    + " ".join(argv or sys.argv[1:]),
+                         "commit": commit(), "machine": machine_now, **fields})
+    print(f"wrote {path}")
