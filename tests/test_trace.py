@@ -163,9 +163,7 @@ REDUCTION = AffineReduction((AffineForm(1.0, -0.1), None, AffineForm(0.0, 0.1)))
 
 def _base_operators(problem, sqrt=True):
     sigma, derivs, _, _ = problem
-    return FactorizationOperators(
-        DenseFactor(sigma, sqrt=sqrt), REDUCTION.base_matvec(lambda i, b: derivs[i] @ b),
-        REDUCTION.base_count, identity_slots=(0,))
+    return REDUCTION.base_family(DenseFactor(sigma, sqrt=sqrt), lambda i, b: derivs[i] @ b)
 
 
 def test_affine_forms_of_the_problem_hold(problem):
@@ -240,7 +238,7 @@ def test_declared_reduction_reads_and_checks_the_solver(problem):
     assert declared_reduction(_Declares(problem, [None] * 3), 3) is None
     got = declared_reduction(_Declares(problem, [(1, -0.1), None, np.array([0.0, 0.1])]), 3)
     assert got is not None and got.forms == REDUCTION.forms
-    assert got.others == (1,) and got.base_count == 2
+    assert got.others == (1,) and got.base_count == 2 and got.slots == (0, 1, 0)
     for bad in ((1.0,), (1.0, float("nan")), "ab", 3.0):
         with pytest.raises(ValueError, match=r"derivative_affine\(0\) must return"):
             declared_reduction(_Declares(problem, [bad, None, None]), 3)

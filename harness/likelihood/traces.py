@@ -125,13 +125,10 @@ def trace_terms(factorization: DifferentiableFactorization, count: int, *, metho
                      "products on the identity")
     else:
         reduction = declared_reduction(factorization, count)
-        if reduction is None:
-            operators = FactorizationOperators(factorization, factorization.derivative_matvec,
-                                               count)
-        else:
-            operators = FactorizationOperators(
-                factorization, reduction.base_matvec(factorization.derivative_matvec),
-                reduction.base_count, identity_slots=(0,))
+        operators = (FactorizationOperators(factorization, factorization.derivative_matvec,
+                                            count) if reduction is None
+                     else reduction.base_family(factorization,
+                                                factorization.derivative_matvec))
         est = estimate_traces(operators, method=method, probes=probes, rng=rng,
                               fisher=fisher, reduction=reduction)
         traces, stderr, fisher_ml = est.estimate, est.stderr, est.fisher

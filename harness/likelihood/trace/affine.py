@@ -37,15 +37,13 @@ Rademacher vector z: ||Sigma_i z - a_i Sigma z - b_i z|| must stay within
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
+from harness.likelihood.trace.operators import DerivativeMatvec, FactorizationOperators
 from harness.likelihood.trace.probes import rademacher_probes
-from harness.solvers.protocol import DifferentiableFactorization
-
-DerivativeMatvec = Callable[[int, np.ndarray], np.ndarray]
+from harness.solvers.protocol import DifferentiableFactorization, Factorization
 
 #: Relative residual allowed for a declared Sigma_i = a Sigma + b I on one probe vector
 #: (common practice: far above rounding, which is what an exact identity leaves, 1e-13
@@ -92,28 +90,32 @@ class AffineReduction:
         """Operators of the base family: B (slot 0) and one per other parameter."""
         return 1 + len(self.others)
 
-    def base_matvec(self, derivative_matvec: DerivativeMatvec) -> DerivativeMatvec:
-        """The base family's derivative products: slot j >= 1 is parameter others[j - 1]
-        (slot 0, the identity, is never multiplied: ``FactorizationOperators``'s
-        ``identity_slots``)."""
+    @property
+    def slots(self) -> tuple[int, ...]:
+        """Each parameter's base slot: 0 (B) for an affine one, 1.. for the others."""
+        own = {i: j + 1 for j, i in enumerate(self.others)}
+        return tuple(own.get(i, 0) for i in range(self.count))
+
+    def base_family(self, factorization: Factorization,
+                    derivative_matvec: DerivativeMatvec) -> FactorizationOperators:
+        """The family the estimator runs on: B = Sigma^-1 (slot 0, a "derivative" equal
+        to the identity, never multiplied) and the other parameters' operators."""
         others = self.others
 
         def product(j: int, b: np.ndarray) -> np.ndarray:
-            if j == 0:
-                return b
             return derivative_matvec(others[j - 1], b)
 
-        return product
+        return FactorizationOperators(factorization, product, self.base_count,
+                                      identity_slots=(0,))
 
     def expand_traces(self, estimate: np.ndarray, stderr: np.ndarray, n: int
                       ) -> tuple[np.ndarray, np.ndarray]:
         """Traces and standard errors of the p parameters from the base family's."""
         est = np.empty(self.count)
         se = np.empty(self.count)
-        slot = {i: j + 1 for j, i in enumerate(self.others)}
-        for i, form in enumerate(self.forms):
+        for i, (form, slot) in enumerate(zip(self.forms, self.slots, strict=True)):
             if form is None:
-                est[i], se[i] = estimate[slot[i]], stderr[slot[i]]
+                est[i], se[i] = estimate[slot], stderr[slot]
             else:
                 est[i] = form.sigma * n + form.identity * estimate[0]
                 se[i] = abs(form.identity) * stderr[0]
@@ -122,10 +124,9 @@ class AffineReduction:
     def expand_products(self, z: np.ndarray, base: np.ndarray) -> np.ndarray:
         """Products A_i Z (p, n, k) from Z (n, k) and the base products (base_count, n, k)."""
         out = np.empty((self.count, *z.shape))
-        slot = {i: j + 1 for j, i in enumerate(self.others)}
-        for i, form in enumerate(self.forms):
+        for i, (form, slot) in enumerate(zip(self.forms, self.slots, strict=True)):
             if form is None:
-                out[i] = base[slot[i]]
+                out[i] = base[slot]
             else:
                 out[i] = form.identity * base[0]
                 if form.sigma != 0.0:
