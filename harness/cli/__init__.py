@@ -1,8 +1,8 @@
 """The ``covaudit`` command line: one module per verb, registered in ``VERBS``.
 
 Each verb module offers ``add_parser(subparsers)`` and ``run(args) -> int`` (the exit
-code). Exit codes: 0 success, 1 a finding the caller asked to fail on (regression,
-unsafe tolerance), 2 bad input or an error.
+code). The exit codes are ``harness.infra.exit_codes.ExitCode`` (one table, listed in the
+README and in DEVELOPERS.md).
 """
 
 from __future__ import annotations
@@ -14,15 +14,12 @@ import sys
 from collections.abc import Sequence
 
 from harness._version import __version__
+from harness.infra.exit_codes import ExitCode
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
 VERBS: tuple[str, ...] = (
     "check", "demo", "evaluate", "run", "cases", "report", "compare", "export",
 )
-
-EXIT_OK = 0
-EXIT_FINDING = 1
-EXIT_ERROR = 2
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -49,7 +46,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return int(module.run(args))
     except KeyboardInterrupt:
         print("covaudit: interrupted", file=sys.stderr)
-        return 130
+        return ExitCode.INTERRUPTED
 
 
 if __name__ == "__main__":

@@ -7,6 +7,8 @@ import json
 import sys
 from typing import Any
 
+from harness.infra.exit_codes import ExitCode
+
 
 def add_parser(subparsers: Any) -> argparse.ArgumentParser:
     parser = subparsers.add_parser(
@@ -34,7 +36,7 @@ def run(args: argparse.Namespace) -> int:
         case = load_case(args.casefile)
     except CaseFileError as exc:
         print(f"covaudit cases: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.ERROR
     tasks = select_tasks(case.tasks(), args.only)
     budget = case.memory_budget or default_memory_budget()
     rate = None if args.no_probe else measure_dense_rate(rng=0)
@@ -56,7 +58,7 @@ def run(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps({"case": case.name, "tasks": rows, "estimate": grid.to_dict()},
                          indent=1))
-        return 0
+        return ExitCode.OK
     width = max([len(r["label"]) for r in rows] + [5])
     print(f"{case.name}: {len(rows)} tasks ({case.source})")
     print(f"{'key':16}  {'label':{width}}  {'est. time':>10}  {'est. memory':>11}  reference")
@@ -72,4 +74,4 @@ def run(args: argparse.Namespace) -> int:
     print(f"estimated total: {grid.total_seconds:.3g} s serial, start-up (compilation) "
           f"{grid.startup_seconds:.2g} s included; {basis}. An estimate: on a loaded "
           "machine expect up to twice as long (see harness.grid.cases.cost)")
-    return 0
+    return ExitCode.OK

@@ -37,6 +37,7 @@ from harness.cli.flag_types import (
     positive_int,
 )
 from harness.cli.params import ParamSyntaxError, parse_params
+from harness.infra.exit_codes import ExitCode
 from harness.model import MEAN_MODELS
 from harness.model.json_values import json_text as strict_json
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
@@ -290,10 +291,10 @@ def run(args: argparse.Namespace) -> int:
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
             OSError, SolverRuntimeError) as exc:
         print(f"covaudit check: error: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.ERROR
     print(json_text(result) if args.json else summary(result))
     for warning in result.warnings if args.json else ():
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
     for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
         print(line, file=sys.stderr if args.json else sys.stdout)
-    return 0 if result.recommended_tolerance is not None else 1
+    return ExitCode.OK if result.recommended_tolerance is not None else ExitCode.FINDING

@@ -19,9 +19,9 @@ from harness.analysis.regression import (
     parse_check,
     write_comparison,
 )
+from harness.infra.exit_codes import ExitCode
 from harness.report import write_report
 
-EXIT_OK, EXIT_FINDING, EXIT_ERROR = 0, 1, 2
 SHOWN = 20
 
 
@@ -58,12 +58,12 @@ def run(args: argparse.Namespace) -> int:
         new = load_run(args.new)
     except (CheckSyntaxError, RunDirError) as exc:
         print(f"covaudit compare: {exc}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     checks = default_checks(accuracy_only=args.accuracy_only, overrides=overrides)
     if args.allow_missing and args.fail_on_missing:
         print("covaudit compare: --allow-missing and --fail-on-missing contradict each "
               "other; give one", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     comparison = compare_runs(baseline, new, checks=checks,
                               allow_missing=args.allow_missing,
                               speed_across_machines=args.speed_across_machines)
@@ -73,7 +73,7 @@ def run(args: argparse.Namespace) -> int:
             write_report(new.path, comparison=comparison)
         except OSError as exc:
             print(f"covaudit compare: cannot write into {new.path}: {exc}", file=sys.stderr)
-            return EXIT_ERROR
+            return ExitCode.ERROR
     print(f"{comparison.paired} of {comparison.baseline_tasks} baseline task(s) paired "
           f"(on {comparison.pair_column}); {len(comparison.findings)} regression(s); "
           f"{len(comparison.missing)} missing, {len(comparison.extra)} new; "
@@ -92,5 +92,5 @@ def run(args: argparse.Namespace) -> int:
     for key in comparison.missing[:SHOWN]:
         print(f"  missing from NEW: {key}")
     if comparison.regressed:
-        return EXIT_FINDING
-    return EXIT_OK
+        return ExitCode.FINDING
+    return ExitCode.OK

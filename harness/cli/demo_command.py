@@ -21,6 +21,7 @@ from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_dem
 from harness.check.pipeline import holdout_indices
 from harness.cli.check_command import summary, write_outputs
 from harness.cli.flag_types import int_range
+from harness.infra.exit_codes import ExitCode
 
 DEMO_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
 
@@ -59,7 +60,7 @@ def run(args: argparse.Namespace) -> int:
                           data.n, fraction=options.holdout, seed=options.seed))
     except (ValueError, MemoryError, np.linalg.LinAlgError, OSError) as exc:
         print(f"covaudit demo: error: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.ERROR
     finally:
         progress.close()
     print(summary(result))
@@ -69,4 +70,4 @@ def run(args: argparse.Namespace) -> int:
             "demo.html", "demo.json", "demo-data/soil_moisture.csv",
             "demo-data/soil_moisture.md")]):
         print(line)
-    return 0
+    return ExitCode.OK

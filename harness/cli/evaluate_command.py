@@ -23,6 +23,7 @@ from harness.cli.flag_types import (
 from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.geometry.spread import spread_warnings
 from harness.grid.runner.child_call import ChildCrashed, ChildTimeout, call_in_child
+from harness.infra.exit_codes import ExitCode
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
@@ -174,11 +175,11 @@ def run(args: argparse.Namespace) -> int:
                                            options=options)
     except (ChildCrashed, ChildTimeout) as exc:
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.ERROR
     except (DataFileError, KernelParameterError, ParamSyntaxError, EvaluationError,
             MemoryError, np.linalg.LinAlgError, ValueError) as exc:
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)
-        return 2
+        return ExitCode.ERROR
     result: dict[str, Any] = {
         "n": obs.n, "d": int(obs.points.shape[1]), "kernel": kernel.family,
         "params": kernel.natural_params(), "param_names": list(kernel.param_names),
@@ -206,5 +207,5 @@ def run(args: argparse.Namespace) -> int:
     if result.get("converged") is False:
         for note in outcome.notes:
             print(f"covaudit evaluate: unresolved: {note}", file=sys.stderr)
-        return 1
-    return 0
+        return ExitCode.FINDING
+    return ExitCode.OK

@@ -7,9 +7,8 @@ import sys
 
 from harness.analysis.load import RunDirError
 from harness.cli.flag_types import float_range, nonnegative_int
+from harness.infra.exit_codes import ExitCode
 from harness.report.export import export_methods
-
-EXIT_OK, EXIT_ERROR = 0, 2
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParser:
@@ -31,12 +30,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
 def run(args: argparse.Namespace) -> int:
     if not 0 < args.level < 1:
         print(f"covaudit export: --level must lie in (0, 1), got {args.level}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     try:
         result = export_methods(args.run_dir, to=args.to, seed=args.seed, level=args.level)
     except (RunDirError, OSError) as exc:
         print(f"covaudit export: {exc}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     for path in result.files:
         print(f"wrote {path}")
-    return EXIT_OK
+    return ExitCode.OK

@@ -8,10 +8,9 @@ import sys
 from harness.analysis.load import RunDirError, load_run
 from harness.audit.verdict import ThresholdError, Thresholds
 from harness.cli.flag_types import float_range, positive_float
+from harness.infra.exit_codes import ExitCode
 from harness.report import write_report
 from harness.report.run_report import thresholds_for
-
-EXIT_OK, EXIT_FINDING, EXIT_ERROR = 0, 1, 2
 
 
 def add_threshold_options(parser: argparse.ArgumentParser) -> None:
@@ -57,6 +56,6 @@ def run(args: argparse.Namespace) -> int:
         path = write_report(args.run_dir, out=args.out, thresholds=thresholds)
     except (RunDirError, ThresholdError, ValueError, OSError) as exc:
         print(f"covaudit report: {exc}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     print(f"wrote {path}")
-    return EXIT_OK
+    return ExitCode.OK

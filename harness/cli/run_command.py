@@ -12,10 +12,10 @@ from pathlib import Path
 from typing import Any
 
 from harness.cli.flag_types import float_range, int_range
+from harness.infra.exit_codes import ExitCode
 
 logger = logging.getLogger(__name__)
 
-EXIT_OK, EXIT_FINDING, EXIT_ERROR, EXIT_INTERRUPTED = 0, 1, 2, 130
 #: Most local workers accepted (a typo guard, far above any machine's cores).
 MAX_WORKERS = 4096
 
@@ -92,14 +92,14 @@ def run(args: argparse.Namespace) -> int:
         case = load_case(args.casefile)
     except CaseFileError as exc:
         print(f"covaudit run: {exc}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     if args.reference is not None:
         case = dataclasses.replace(case, references=REFERENCE_ORDERS[args.reference])
     tasks = select_tasks(case.tasks(), args.only)
     if not tasks:
         print(f"covaudit run: no task of {args.casefile} matches --only {args.only}",
               file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     if args.out:
         out = Path(args.out)
     else:
@@ -113,13 +113,13 @@ def run(args: argparse.Namespace) -> int:
         store.prepare()
     except OutputDirectoryError as exc:
         print(f"covaudit run: {exc.strerror}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     try:
         backend = make_backend(workers=args.workers, dask_local=args.dask_local,
                                scheduler=args.scheduler)
     except (ValueError, OSError) as exc:
         print(f"covaudit run: {exc}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     from harness.cli.progress import GridProgress, wrote_lines
 
     progress = GridProgress()
@@ -132,11 +132,11 @@ def run(args: argparse.Namespace) -> int:
         progress.close()
         print(f"covaudit run: interrupted; finished tasks are kept in {out}; run the same "
               "command again to resume", file=sys.stderr)
-        return EXIT_INTERRUPTED
+        return ExitCode.INTERRUPTED
     except OutputDirectoryError as exc:
         progress.close()
         print(f"covaudit run: {exc.strerror}", file=sys.stderr)
-        return EXIT_ERROR
+        return ExitCode.ERROR
     finally:
         backend.close()
     progress.close()
@@ -158,7 +158,7 @@ def run(args: argparse.Namespace) -> int:
         print(line)
     print(f"wrote task records under {out / 'tasks'} ({summary.ran} new, "
           f"{summary.timed} timed)")
-    return EXIT_FINDING if summary.failed or summary.timing_failed else EXIT_OK
+    return ExitCode.FINDING if summary.failed or summary.timing_failed else ExitCode.OK
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -169,7 +169,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     try:
         return run(parser.parse_args(argv))
     except KeyboardInterrupt:
-        return EXIT_INTERRUPTED
+        return ExitCode.INTERRUPTED
 
 
 if __name__ == "__main__":
