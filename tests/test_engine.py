@@ -12,8 +12,8 @@ import math
 import numpy as np
 import pytest
 
-from harness.audit.engine import (
-    LADDER_FACTOR,
+from harness.audit.engine import LADDER_FACTOR
+from harness.audit.rule import (
     LADDER_REASON,
     UNCONVERGED_REASON,
     ReferenceInfo,

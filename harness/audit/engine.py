@@ -1,34 +1,10 @@
-"""The audit engine's rule: metric -> tolerance verdict -> recommendation.
+"""The audit engine: every tolerance of a solver on one dataset, over the solver's seeds,
+against one reference, judged and recommended by the rule of ``harness.audit.rule``.
 
-Every verb that judges tolerances (``check``, every ``run`` task, the run-level verdicts of
-``harness.audit.verdict``) goes through these functions, so they give the same verdict on
-the same numbers.
-
-Metric rule (DESIGN section 7). A metric's error e is measured with an uncertainty: a
-standard error s (stochastic trace estimates, an operator reference's Monte Carlo
-corrections; 0 for a dense reference) and a deterministic bound b (e.g. a CG residual
-bound; 0 when exact). Against a limit c:
-
-* ``safe``       when |e| + 2 s + b <= c;
-* ``unsafe``     when |e| - 2 s - b >  c;
-* ``unresolved`` otherwise, and whenever e or s is not a finite number (not measured).
-
-The factor 2 is the usual two-sided ~95% normal interval (common practice).
-
-Tolerance rule. A tolerance is ``safe`` when every limited metric is safe on every seed of
-the solver's randomness (the worst seed decides), the solver finished on every seed, and
-the reference is certified and exact (dense, structured or operator): a ladder reference
-(the solver at a tighter tolerance) is extra evidence only, so a ladder-only verdict is at
-best ``unresolved``. Any unsafe metric on any seed, or a solver failure, makes it
-``unsafe``. A fit that did not converge does not change the status but every verdict says
-it was measured at an unconverged estimate.
-
-Recommendation rule: the loosest tolerance that is safe and has no unsafe or unresolved
-tighter tolerance. A ladder whose statuses are not monotone (a looser tolerance safe above
-a tighter one that is not) is reported as non-monotone.
-
-Limits 0.1 nat, 0.1 SE and 0.05 predictive SD are common practice chosen for covaudit,
-not a published standard (``harness.audit.verdict.Thresholds``).
+``check`` and every ``run`` task go through the rule's functions (``judge_metric``,
+``tolerance_verdict``, ``recommend``), so they give the same verdict on the same numbers.
+The rule, its statuses and its limits live in ``harness.audit.rule`` (DEVELOPERS.md, "The
+verdict rule"); this module measures and pairs.
 """
 
 from __future__ import annotations
@@ -37,36 +13,35 @@ import math
 import statistics
 import time
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import TYPE_CHECKING, Protocol, runtime_checkable
 
 import numpy as np
 
 from harness.audit.metric_values import MetricValue
+from harness.audit.rule import (
+    LadderRecommendation,
+    MetricJudgement,
+    ReferenceInfo,
+    Thresholds,
+    ToleranceVerdict,
+    judge_metric,
+    number_or_none,
+    recommend,
+    tolerance_verdict,
+    worst,
+)
 from harness.audit.solver_seeds import seeded_options
-from harness.grid.tasks import ALL_REFERENCE_KINDS, AuditSettings
+from harness.grid.tasks import AuditSettings
 from harness.model.kernels import Kernel
 
 if TYPE_CHECKING:
     from harness.audit.sides import KrigingSide, Side
-    from harness.audit.verdict import Thresholds
     from harness.solvers.registry import ResolvedSolver
 
-#: Verdict values, from best to worst severity order used by "the worst seed decides".
-SAFE, UNRESOLVED, UNSAFE = "safe", "unresolved", "unsafe"
-STATUSES: tuple[str, ...] = (SAFE, UNRESOLVED, UNSAFE)
-_SEVERITY = {SAFE: 0, UNRESOLVED: 1, UNSAFE: 2}
-#: Half-width of the uncertainty interval in standard errors (common practice).
-SE_MULTIPLIER = 2.0
-#: Reference kinds the engine accepts; ``ladder`` is never the sole basis of ``safe``.
-EXACT_REFERENCES: frozenset[str] = frozenset({"dense", "statespace", "kronecker", "operator"})
-REFERENCE_KINDS: tuple[str, ...] = ALL_REFERENCE_KINDS
 #: The ladder reference is the solver at tol / LADDER_FACTOR unless set otherwise (the
 #: case files' and tasks' default, ``AuditSettings.ladder_factor``).
 LADDER_FACTOR: float = AuditSettings.ladder_factor
-UNCONVERGED_REASON = "measured at an unconverged estimate (the fit did not converge)"
-LADDER_REASON = ("ladder reference only (the solver at a tighter tolerance): extra "
-                 "evidence, never the sole basis of safe")
 
 
 @dataclass(frozen=True)
@@ -80,261 +55,6 @@ class ReferenceValue:
     value: float
     se: float = 0.0
     bound: float = 0.0
-
-
-@dataclass(frozen=True)
-class ReferenceInfo:
-    """What a verdict needs to know about the reference it was measured against."""
-
-    kind: str
-    certified: bool
-    description: str = ""
-
-    def __post_init__(self) -> None:
-        if self.kind not in REFERENCE_KINDS:
-            raise ValueError(f"reference kind {self.kind!r}: expected one of "
-                             f"{', '.join(REFERENCE_KINDS)}")
-
-    @property
-    def exact(self) -> bool:
-        return self.kind in EXACT_REFERENCES
-
-    def to_dict(self) -> dict[str, object]:
-        return {"kind": self.kind, "certified": self.certified, "exact": self.exact,
-                "description": self.description}
-
-
-@dataclass(frozen=True)
-class MetricJudgement:
-    """One limited metric on one seed: |error|, its uncertainty, the limit and status."""
-
-    metric: str
-    value: float
-    se: float
-    bound: float
-    limit: float
-    status: str
-    reason: str
-
-    @property
-    def upper(self) -> float:
-        """|e| + 2 s + b, the value that must stay within the limit for ``safe``."""
-        return abs(self.value) + SE_MULTIPLIER * self.se + self.bound
-
-    def to_dict(self) -> dict[str, object]:
-        return {"metric": self.metric, "value": _num(self.value), "se": _num(self.se),
-                "bound": _num(self.bound), "limit": self.limit, "status": self.status,
-                "reason": self.reason}
-
-
-def _num(value: float) -> float | None:
-    return float(value) if isinstance(value, int | float) and math.isfinite(value) else None
-
-
-def judge_metric(metric: str, error: float, limit: float, *, se: float = 0.0,
-                 bound: float = 0.0) -> MetricJudgement:
-    """The metric rule of the module docstring."""
-    values = (error, se, bound)
-    if not all(isinstance(v, int | float) and math.isfinite(v) for v in values):
-        return MetricJudgement(metric, float(error), float(se), float(bound), limit,
-                               UNRESOLVED, f"{metric}: not measured (value {error!r}, "
-                                           f"SE {se!r})")
-    e, s, b = abs(float(error)), float(se), float(bound)
-    band = f"{e:.3g} +- {SE_MULTIPLIER:g}x{s:.2g}" + (f" + {b:.2g}" if b else "")
-    if e + SE_MULTIPLIER * s + b <= limit:
-        return MetricJudgement(metric, float(error), s, b, limit, SAFE,
-                               f"{metric}: {band} <= {limit:g}")
-    if e - SE_MULTIPLIER * s - b > limit:
-        return MetricJudgement(metric, float(error), s, b, limit, UNSAFE,
-                               f"{metric}: {band} > {limit:g}")
-    return MetricJudgement(metric, float(error), s, b, limit, UNRESOLVED,
-                           f"{metric}: {band} straddles the limit {limit:g} "
-                           "(uncertainty too large to decide)")
-
-
-def worst(judgements: Sequence[MetricJudgement]) -> MetricJudgement:
-    """The worst of several seeds' judgements of one metric (severity, then |e| + 2 s + b;
-    an unmeasured value counts as worse than any measured one of the same status)."""
-    if not judgements:
-        raise ValueError("worst(): no judgements (a metric measured on zero seeds)")
-
-    def key(j: MetricJudgement) -> tuple[int, float]:
-        upper = j.upper
-        return _SEVERITY[j.status], upper if math.isfinite(upper) else math.inf
-
-    return max(judgements, key=key)
-
-
-@dataclass(frozen=True)
-class Spread:
-    """min / median / max of one metric over the solver's seeds."""
-
-    metric: str
-    minimum: float
-    median: float
-    maximum: float
-    seeds: int
-
-    def to_dict(self) -> dict[str, object]:
-        return {"min": _num(self.minimum), "median": _num(self.median),
-                "max": _num(self.maximum), "seeds": self.seeds}
-
-
-def spread(metric: str, values: Sequence[float]) -> Spread:
-    """Spread of |value| over seeds (non-finite values make every statistic NaN)."""
-    vals = [abs(float(v)) for v in values]
-    if not vals or not all(math.isfinite(v) for v in vals):
-        nan = math.nan
-        return Spread(metric, nan, nan, nan, len(vals))
-    return Spread(metric, min(vals), statistics.median(vals), max(vals), len(vals))
-
-
-@dataclass(frozen=True)
-class ToleranceVerdict:
-    """The verdict of one tolerance over all seeds of the solver's randomness."""
-
-    tol: float
-    status: str
-    reasons: tuple[str, ...]
-    metrics: tuple[MetricJudgement, ...]      # the worst seed of each limited metric
-    spread: Mapping[str, Spread]
-    seeds: int
-    failures: tuple[str, ...]
-    reference: ReferenceInfo
-    fit_converged: bool = True
-
-    @property
-    def safe(self) -> bool:
-        return self.status == SAFE
-
-    def to_dict(self) -> dict[str, object]:
-        return {"tol": self.tol, "status": self.status, "reasons": list(self.reasons),
-                "metrics": [m.to_dict() for m in self.metrics],
-                "spread": {k: v.to_dict() for k, v in self.spread.items()},
-                "seeds": self.seeds, "failures": list(self.failures),
-                "reference": self.reference.to_dict(), "fit_converged": self.fit_converged}
-
-
-def tolerance_verdict(tol: float, per_seed: Sequence[Sequence[MetricJudgement]], *,
-                      reference: ReferenceInfo, failures: Sequence[str] = (),
-                      required: Sequence[str] = (), fit_converged: bool = True,
-                      info: Mapping[str, Sequence[float]] | None = None) -> ToleranceVerdict:
-    """The tolerance rule of the module docstring.
-
-    Parameters
-    ----------
-    tol : float
-    per_seed : sequence of sequences of MetricJudgement
-        For each seed that finished, its judgement of every limited metric.
-    reference : ReferenceInfo
-    failures : sequence of str
-        Why a seed did not finish (solver errors); any failure makes the tolerance unsafe.
-    required : sequence of str
-        Limited metrics that must be present on every seed; a missing one is unresolved.
-    fit_converged : bool
-    info : mapping, optional
-        Further per-seed values (information only) whose spread is reported.
-    """
-    reasons: list[str] = []
-    by_metric: dict[str, list[MetricJudgement]] = {}
-    for seed_metrics in per_seed:
-        for j in seed_metrics:
-            by_metric.setdefault(j.metric, []).append(j)
-    for name in required:
-        have = len(by_metric.get(name, []))
-        if have < len(per_seed) or not per_seed:
-            by_metric.setdefault(name, []).append(judge_metric(name, math.nan, math.inf))
-    worst_each = tuple(worst(js) for _, js in sorted(by_metric.items()))
-    statuses = [j.status for j in worst_each]
-    if failures:
-        status = UNSAFE
-        reasons.extend(f"solver failed: {f}" for f in failures)
-    elif not per_seed:
-        status = UNRESOLVED
-        reasons.append("no seed finished: nothing was measured")
-    elif not worst_each:
-        status = UNRESOLVED
-        reasons.append("no limited metric was measured")
-    elif UNSAFE in statuses:
-        status = UNSAFE
-    elif UNRESOLVED in statuses:
-        status = UNRESOLVED
-    else:
-        status = SAFE
-    reasons.extend(j.reason + (f" (worst of {len(by_metric[j.metric])} seeds)"
-                               if len(by_metric[j.metric]) > 1 else "")
-                   for j in worst_each if j.status != SAFE or status == SAFE)
-    if not reference.certified and status == SAFE:
-        status = UNRESOLVED
-        reasons.append(f"reference {reference.kind} is not certified")
-    if not reference.exact and status == SAFE:
-        status = UNRESOLVED
-        reasons.append(LADDER_REASON)
-    if not fit_converged:
-        reasons.append(UNCONVERGED_REASON)
-    spreads = {name: spread(name, [j.value for j in js]) for name, js in by_metric.items()
-               if any(math.isfinite(j.value) for j in js)}
-    for name, values in (info or {}).items():
-        spreads[name] = spread(name, values)
-    return ToleranceVerdict(tol=float(tol), status=status, reasons=tuple(reasons),
-                            metrics=worst_each, spread=spreads, seeds=len(per_seed),
-                            failures=tuple(failures), reference=reference,
-                            fit_converged=fit_converged)
-
-
-@dataclass(frozen=True)
-class LadderRecommendation:
-    """The recommendation rule's answer for one ladder of tolerances.
-
-    ``tol`` is None when no tolerance qualifies. ``monotone`` is False when a looser
-    tolerance is safe above a tighter one that is not (listed in ``non_monotone``).
-    """
-
-    tol: float | None
-    monotone: bool
-    non_monotone: tuple[float, ...]
-    reason: str
-    statuses: Mapping[float, str] = field(default_factory=dict)
-
-    def to_dict(self) -> dict[str, object]:
-        return {"tol": self.tol, "monotone": self.monotone,
-                "non_monotone": list(self.non_monotone), "reason": self.reason,
-                "statuses": {repr(k): v for k, v in self.statuses.items()}}
-
-
-def recommend(statuses: Mapping[float, str]) -> LadderRecommendation:
-    """The loosest safe tolerance with no unsafe or unresolved tighter tolerance.
-
-    ``statuses`` maps tolerance -> status; any status other than ``safe`` (``unsafe``,
-    ``unresolved``, ``failed``) blocks every looser tolerance.
-    """
-    ordered = sorted(statuses.items())                 # tightest first
-    best: float | None = None
-    blocked_at: float | None = None
-    blocked_status = ""
-    stray: list[float] = []
-    for tol, status in ordered:
-        if status == SAFE:
-            if blocked_at is None:
-                best = tol
-            else:
-                stray.append(tol)
-        elif blocked_at is None:
-            blocked_at, blocked_status = tol, status
-    monotone = not stray
-    if best is None:
-        reason = ("no tolerance qualifies: the tightest, "
-                  f"{ordered[0][0]:g}, is {ordered[0][1]}" if ordered else
-                  "no tolerance was audited")
-    else:
-        reason = "loosest safe tolerance with every tighter one safe"
-        if blocked_at is not None:
-            reason += f" (the next looser, {blocked_at:g}, is {blocked_status})"
-    if not monotone:
-        reason += ("; non-monotone ladder: " + ", ".join(f"{t:g}" for t in stray)
-                   + f" safe above {blocked_at:g} ({blocked_status}); not recommended")
-    return LadderRecommendation(tol=best, monotone=monotone, non_monotone=tuple(stray),
-                                reason=reason, statuses=dict(statuses))
 
 
 # -- the audit of a ladder of tolerances on one dataset ----------------------------------
@@ -432,12 +152,12 @@ class SeedAudit:
     error: str = ""
 
     def to_dict(self) -> dict[str, object]:
-        return {"index": self.index, "seed": self.seed, "loglik": _num(self.loglik),
-                "metrics": {m.name: _num(m.value) for m in self.metrics},
-                "uncertainty": {m.name: _num(m.uncertainty or 0.0) for m in self.metrics
+        return {"index": self.index, "seed": self.seed, "loglik": number_or_none(self.loglik),
+                "metrics": {m.name: number_or_none(m.value) for m in self.metrics},
+                "uncertainty": {m.name: number_or_none(m.uncertainty or 0.0) for m in self.metrics
                                 if m.threshold is not None},
                 "status": {j.metric: j.status for j in self.judgements},
-                "seconds": _num(self.seconds), "nbytes": self.nbytes,
+                "seconds": number_or_none(self.seconds), "nbytes": self.nbytes,
                 "notes": list(self.notes), "error": self.error or None}
 
 
@@ -582,7 +302,6 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     ladder at best unresolved, unconverged fit stated); the recommendation follows
     ``recommend``.
     """
-    from harness.audit.verdict import Thresholds
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
     from harness.solvers.registry import SolverRuntimeError
 

@@ -20,8 +20,8 @@ import numpy as np
 from harness.audit.metric_values import MetricValue
 from harness.audit.metrics import kriging_errors, microergodic_shift, score_errors
 from harness.audit.metrics.efficiency import prediction_efficiency
+from harness.audit.rule import Thresholds
 from harness.audit.sides import KrigingSide, Side
-from harness.audit.verdict import Thresholds
 from harness.model.kernels import Kernel, smoothness
 
 

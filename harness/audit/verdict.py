@@ -1,7 +1,7 @@
 """Is a tolerance safe for a dataset? Verdicts with their evidence, and a recommendation.
 
-A tolerance is *safe* for a dataset (DESIGN section 7) when, over every task of that
-dataset and tolerance,
+A tolerance is *safe* for a dataset (``harness.audit.rule``; DEVELOPERS.md, "The verdict
+rule") when, over every task of that dataset and tolerance,
 
 - |log-likelihood error| <= 0.1 nat,
 - every implied parameter shift |(F^-1 (g~ - g))_i| / SE_i <= 0.1,
@@ -11,10 +11,10 @@ dataset and tolerance,
 
 These limits are common practice chosen for this tool, not a published standard; every one
 is configurable through ``Thresholds`` (case file ``[verdict]`` table or CLI options).
-The rule is the audit engine's (``harness.audit.engine``), the same as ``check``'s: every
-finished task of a tolerance is one seed and the worst decides; a metric that was not
-measured, an uncertified reference or a ladder-only reference makes the verdict
-``unresolved`` rather than safe. The recommendation is the loosest safe tolerance with no
+The rule is ``harness.audit.rule``'s, the same as ``check``'s: every finished task of a
+tolerance is one seed and the worst decides; a metric that was not measured, an
+uncertified reference or a ladder-only reference makes the verdict ``unresolved`` rather
+than safe. The recommendation is the loosest safe tolerance with no
 unsafe or unresolved tighter one (a non-monotone ladder is reported as such), with its
 speed-up in median total time over the dense solver (over the tightest tolerance when no
 dense timing exists).
@@ -28,27 +28,26 @@ the estimator's reported standard error is too small.
 from __future__ import annotations
 
 import math
-import tomllib
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field, fields, replace
-from pathlib import Path
-from typing import Any
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
 from scipy import stats
 
-from harness.audit.engine import (
+from harness.audit.rule import (
     EXACT_REFERENCES,
     SAFE,
     UNRESOLVED,
     UNSAFE,
     MetricJudgement,
     ReferenceInfo,
+    Thresholds,
     judge_metric,
     tolerance_verdict,
 )
-from harness.audit.engine import recommend as engine_recommend
+from harness.audit.rule import ThresholdError as ThresholdError
+from harness.audit.rule import recommend as engine_recommend
 
 #: Columns that identify a dataset (the problem the solver is asked to solve).
 DATASET_COLUMNS: tuple[str, ...] = ("case", "kernel", "shape", "n", "d", "geometry", "mean",
@@ -59,96 +58,6 @@ COMMON_PRACTICE = ("common practice chosen for covaudit, not a published standar
                    "set your own limits where your application requires")
 LAPACK_BASIS = ("the pass ratio of LAPACK's own test suite (scaled residual < 30), "
                 "adopted here as common practice")
-
-
-class ThresholdError(ValueError):
-    """A threshold setting is unknown or not a positive number."""
-
-
-@dataclass(frozen=True)
-class Thresholds:
-    """Limits for a safe tolerance and for a calibrated trace estimator (all common practice).
-
-    Attributes
-    ----------
-    loglik_nats : float
-        Largest |log-likelihood error| in nats.
-    param_shift_se : float
-        Largest implied parameter shift in standard errors.
-    kriging_mean_sd : float
-        Largest kriging mean error in predictive standard deviations.
-    certificate_max : float
-        Largest scaled Cholesky residual of a certified dense reference.
-    trace_z_limit : float
-        |z| counted as inside.
-    trace_min_fraction : float
-        Smallest acceptable fraction of z-scores inside +-trace_z_limit.
-    trace_alpha : float
-        Significance level of the one-sided binomial test.
-    """
-
-    loglik_nats: float = 0.1
-    param_shift_se: float = 0.1
-    kriging_mean_sd: float = 0.05
-    certificate_max: float = 30.0
-    trace_z_limit: float = 2.0
-    trace_min_fraction: float = 0.8
-    trace_alpha: float = 0.05
-
-    def __post_init__(self) -> None:
-        for f in fields(self):
-            value = getattr(self, f.name)
-            if isinstance(value, bool) or not isinstance(value, int | float) \
-                    or not math.isfinite(value) or value <= 0:
-                raise ThresholdError(f"threshold {f.name}: expected a positive number, "
-                                     f"got {value!r}")
-        for name in ("trace_min_fraction", "trace_alpha"):
-            if getattr(self, name) >= 1:
-                raise ThresholdError(f"threshold {name}: expected a value below 1, got "
-                                     f"{getattr(self, name)!r}")
-
-    @classmethod
-    def from_mapping(cls, table: Mapping[str, Any], *, source: str = "[verdict]"
-                     ) -> Thresholds:
-        """Build from a mapping such as a case file's ``[verdict]`` table."""
-        known = {f.name for f in fields(cls)}
-        unknown = sorted(set(table) - known)
-        if unknown:
-            raise ThresholdError(f"{source}: unknown setting(s) {', '.join(unknown)}; "
-                                 f"known: {', '.join(sorted(known))}")
-        return cls(**{k: table[k] for k in table})
-
-    @classmethod
-    def from_case_file(cls, path: str | Path) -> Thresholds:
-        """Read the ``[verdict]`` table of a TOML case file (defaults when it has none)."""
-        p = Path(path)
-        try:
-            data = tomllib.loads(p.read_text(encoding="utf-8"))
-        except (OSError, tomllib.TOMLDecodeError) as exc:
-            raise ThresholdError(f"{p}: cannot read the case file ({exc})") from exc
-        return cls.from_case_text_table(data.get("verdict", {}), source=f"{p} [verdict]")
-
-    @classmethod
-    def from_case_text(cls, text: str) -> Thresholds:
-        """Read the ``[verdict]`` table from case file text (as stored in run.json)."""
-        try:
-            data = tomllib.loads(text)
-        except tomllib.TOMLDecodeError as exc:
-            raise ThresholdError(f"case file text in run.json: not TOML ({exc})") from exc
-        return cls.from_case_text_table(data.get("verdict", {}), source="case file [verdict]")
-
-    @classmethod
-    def from_case_text_table(cls, table: object, *, source: str) -> Thresholds:
-        if not isinstance(table, Mapping):
-            raise ThresholdError(f"{source}: expected a table, got {type(table).__name__}")
-        return cls.from_mapping(table, source=source)
-
-    def with_overrides(self, **values: float | None) -> Thresholds:
-        """A copy with the given settings replaced (None leaves a setting as it is)."""
-        return replace(self, **{k: v for k, v in values.items() if v is not None})
-
-    def to_dict(self) -> dict[str, float]:
-        return {f.name: getattr(self, f.name) for f in fields(self)}
 
 
 @dataclass(frozen=True)
@@ -173,7 +82,7 @@ class Evidence:
 class Verdict:
     """Whether one (dataset, solver, tolerance) is safe: ``safe``, ``unsafe``,
     ``unresolved`` (not measured, uncertainty too large, reference not certified or the
-    ladder only; ``harness.audit.engine``) or ``failed`` (no task finished)."""
+    ladder only; ``harness.audit.rule``) or ``failed`` (no task finished)."""
 
     dataset: Mapping[str, object]
     solver: str
@@ -296,7 +205,7 @@ def _reference_info(ok: pd.DataFrame, certificate: Evidence) -> ReferenceInfo:
 
 def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
                        ok: pd.DataFrame, failed: int, th: Thresholds) -> Verdict:
-    """One (dataset, solver, tolerance) by the engine's rule (``harness.audit.engine``):
+    """One (dataset, solver, tolerance) by the rule (``harness.audit.rule``):
     each finished task is one seed, the worst decides; failed tasks keep it from safe."""
     per_task = []
     for _, row in ok.iterrows():

@@ -22,8 +22,8 @@ from typing import Any
 import numpy as np
 
 from harness.audit.engine import LADDER_FACTOR
+from harness.audit.rule import Thresholds
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
-from harness.audit.verdict import Thresholds
 from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
 from harness.check.check_records import CheckResult
 from harness.check.datafile import DataFileError, load_observations

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from harness.audit.verdict import Thresholds
+from harness.audit.rule import Thresholds
 from harness.check import CheckOptions, run_check, validate
 from harness.check.datafile import observations_from_arrays
 from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_demo

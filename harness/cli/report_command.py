@@ -6,7 +6,7 @@ import argparse
 import sys
 
 from harness.analysis.load import RunDirError, load_run
-from harness.audit.verdict import ThresholdError, Thresholds
+from harness.audit.rule import ThresholdError, Thresholds
 from harness.cli.flag_types import float_range, positive_float
 from harness.infra.exit_codes import ExitCode
 from harness.report import write_report

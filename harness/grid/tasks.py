@@ -29,6 +29,7 @@ from typing import Any
 
 import numpy as np
 
+from harness.audit.rule import REFERENCE_KINDS as RULE_REFERENCE_KINDS
 from harness.model.json_values import canonical_json
 
 #: Names of the child streams of a task's data SeedSequence, in spawn order.
@@ -50,13 +51,14 @@ UNPAIRED_FIELDS: tuple[str, ...] = (
 #: stored; leaving them out keeps earlier run directories resumable).
 UNKEYED_FIELDS: tuple[str, ...] = ("timeout",)
 
-#: Reference kinds in decreasing trust (DESIGN section 4); ``ladder`` is the stand-in.
+#: The default reference order of a case file, in decreasing trust (DEVELOPERS.md, "The
+#: reference order"); ``ladder`` is the stand-in.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
-#: Every kind a case file or ``run --reference`` may name: the default order plus the
-#: exact operator (``harness.references.operator``), which is opt-in because it costs
-#: O(n^2) per product (and keeps the default order, hence earlier task keys, unchanged).
-ALL_REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "operator",
-                                        "ladder")
+#: Every kind a case file or ``run --reference`` may name (``harness.audit.rule``): the
+#: default order plus the exact operator (``harness.references.operator``), which is opt-in
+#: because it costs O(n^2) per product (and keeps the default order, hence earlier task
+#: keys, unchanged).
+ALL_REFERENCE_KINDS: tuple[str, ...] = RULE_REFERENCE_KINDS
 
 
 def _digest(value: Any) -> str:

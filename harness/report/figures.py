@@ -16,7 +16,7 @@ from matplotlib.figure import Figure
 from matplotlib.ticker import NullFormatter
 
 from harness.analysis.scaling_table import ScalingRow, solver_label
-from harness.audit.verdict import Thresholds
+from harness.audit.rule import Thresholds
 from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
 
 METRIC_TITLES: dict[str, str] = {

@@ -27,7 +27,8 @@ from harness.analysis.scaling_table import (
     scaling_rows,
     solver_label,
 )
-from harness.audit.verdict import COMMON_PRACTICE, ThresholdError, Thresholds, VerdictSet, judge
+from harness.audit.rule import ThresholdError, Thresholds
+from harness.audit.verdict import COMMON_PRACTICE, VerdictSet, judge
 from harness.report import figures
 from harness.report.condense import collapse_notes
 from harness.report.labels import TERMS
