@@ -1,7 +1,11 @@
 """Load one run directory (``results.csv``, ``timings.csv``, ``run.json``) into frames.
 
 The loader is tolerant of what the analysis can live without and strict about what it
-cannot: a missing or malformed ``results.csv`` or ``run.json`` raises ``RunDirError``
+cannot. Tables are verified before they are trusted (``harness.grid.store.table_check``):
+a ``results.csv`` cut off mid-line, or one that disagrees with ``run.json`` or the task
+records, is rebuilt from the records with a warning (also kept in ``RunData.notes``), or
+refused with repair instructions when the records cannot rebuild it; a half row is never
+read. A missing or malformed ``results.csv`` or ``run.json`` raises ``RunDirError``
 naming the file; a missing ``timings.csv`` gives an empty timing frame and a note (the
 bootstrap intervals and significance tests then say they are unavailable). Columns of
 ``RESULT_COLUMNS`` absent from an older file are added as missing values, so every
@@ -10,6 +14,7 @@ consumer can index them.
 
 from __future__ import annotations
 
+import io
 import json
 import logging
 from dataclasses import dataclass, field
@@ -25,6 +30,7 @@ from harness.grid.store.columns import (
     SCHEMA_VERSION,
     TIMING_COLUMNS,
 )
+from harness.grid.store.table_check import TableCheckError, trusted_results, trusted_timings
 
 logger = logging.getLogger(__name__)
 
@@ -80,9 +86,12 @@ class RunData:
                 "timing_rows": int(len(self.timings)), "notes": list(self.notes)}
 
 
-def _read_csv(path: Path, *, dtype: type[str] | dict[str, Any] | None = None) -> pd.DataFrame:
+def _read_csv(path: Path, *, dtype: type[str] | dict[str, Any] | None = None,
+              text: str | None = None) -> pd.DataFrame:
+    """``path`` as a frame (``text``, when given, is read in place of the file)."""
+    source: Path | io.StringIO = path if text is None else io.StringIO(text)
     try:
-        return pd.read_csv(path, dtype=dtype, keep_default_na=True)
+        return pd.read_csv(source, dtype=dtype, keep_default_na=True)
     except pd.errors.EmptyDataError as exc:
         raise RunDirError(f"{path}: the file is empty (expected a CSV header line)") from exc
     except (pd.errors.ParserError, UnicodeDecodeError, ValueError) as exc:
@@ -122,7 +131,14 @@ def _read_timings(path: Path, notes: list[str]) -> pd.DataFrame:
         notes.append(f"{TIMINGS_FILE} not found: bootstrap intervals and speed "
                      "significance tests are unavailable")
         return empty
-    frame = _read_csv(path, dtype={"key": str, "phase": str})
+    try:
+        checked = trusted_timings(path.parent)
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RunDirError(f"{path}: cannot be read ({exc})") from None
+    if checked.notice:
+        _warn_once(checked.notice)
+        notes.append(checked.notice)
+    frame = _read_csv(path, dtype={"key": str, "phase": str}, text=checked.text)
     absent = [c for c in TIMING_COLUMNS if c not in frame.columns]
     if absent:
         raise RunDirError(f"{path}: missing column(s) {', '.join(absent)}; expected "
@@ -155,6 +171,17 @@ def _read_meta(path: Path) -> dict[str, Any]:
     return meta
 
 
+#: Warnings already given in this process (a command may load one run more than once).
+_WARNED: set[str] = set()
+
+
+def _warn_once(message: str) -> None:
+    """Log ``message`` as a warning the first time this process meets it."""
+    if message not in _WARNED:
+        _WARNED.add(message)
+        logger.warning("%s", message)
+
+
 def load_run(run_dir: str | Path) -> RunData:
     """Read a run directory.
 
@@ -181,10 +208,21 @@ def load_run(run_dir: str | Path) -> RunData:
     results_path = path / RESULTS_FILE
     if not results_path.is_file():
         raise RunDirError(f"{results_path}: not found (a run writes it as tasks finish)")
-    results = _coerce_results(_read_csv(results_path, dtype=str), results_path, notes)
-    timings = _read_timings(path / TIMINGS_FILE, notes)
     meta = _read_meta(path / RUN_FILE)
+    try:
+        checked = trusted_results(path, meta)
+    except TableCheckError as exc:
+        raise RunDirError(str(exc)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RunDirError(f"{results_path}: cannot be read ({exc})") from None
+    if checked.notice:
+        _warn_once(checked.notice)
+        notes.append(checked.notice)
+    results = _coerce_results(_read_csv(results_path, dtype=str, text=checked.text),
+                              results_path, notes)
+    timings = _read_timings(path / TIMINGS_FILE, notes)
     for note in notes:
-        logger.info("%s: %s", path, note)
+        if note not in _WARNED:
+            logger.info("%s: %s", path, note)
     return RunData(path=path, results=results.reset_index(drop=True), timings=timings,
                    meta=meta, notes=tuple(notes))

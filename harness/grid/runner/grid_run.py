@@ -33,8 +33,9 @@ from harness.grid.runner.backend import Backend
 from harness.grid.runner.deadlines import task_timeout as timeout_of
 from harness.grid.runner.jobs import Job
 from harness.grid.store.environment import environment
-from harness.grid.store.run_directory import RunStore
+from harness.grid.store.run_directory import OutputDirectoryError, RunStore
 from harness.grid.store.run_lock import RunLock
+from harness.grid.store.table_check import RESULTS_ROWS_KEY
 from harness.grid.store.task_records import is_complete, new_record, now
 from harness.grid.tasks import Task
 
@@ -75,10 +76,17 @@ class RunSummary:
     interrupted: bool
     seconds: float
     failures: tuple[str, ...] = field(default_factory=tuple)
+    kept_failures: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def has_failures(self) -> bool:
+        """Whether a task (or its timing) failed or timed out, now or in an earlier run."""
+        return bool(self.failed or self.timing_failed or self.kept_failures)
 
     def to_dict(self) -> dict[str, Any]:
         out = dict(self.__dict__)
         out["failures"] = list(self.failures)
+        out["kept_failures"] = list(self.kept_failures)
         return out
 
 
@@ -223,6 +231,42 @@ def plan(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
     return accuracy, timing, done, kept
 
 
+def kept_failures(tasks: Sequence[Task], existing: Mapping[str, Mapping[str, Any]], *,
+                  redo_failed: bool) -> tuple[str, ...]:
+    """One line per failure of an earlier run that this run keeps (not ``redo_failed``).
+
+    Parameters
+    ----------
+    tasks : sequence of Task
+        The tasks of this run.
+    existing : mapping
+        The records on disk, by key.
+    redo_failed : bool
+        Whether this run redoes failed tasks and timings (then nothing is kept).
+
+    Returns
+    -------
+    tuple of str
+        ``label: ErrorType: message (an earlier run; --redo-failed redoes it)``.
+    """
+    if redo_failed:
+        return ()
+    lines = []
+    for task in tasks:
+        record = existing.get(task.key)
+        if record is None or is_complete(record):
+            continue
+        if record.get("status") == "failed":
+            error, what = record.get("error") or {}, ""
+        elif record.get("timing_status") == "failed":
+            error, what = record.get("timing_error") or {}, " (timing)"
+        else:
+            continue
+        lines.append(f"{record.get('label', task.label)}{what}: {error.get('type')}: "
+                     f"{error.get('message')} (an earlier run; --redo-failed redoes it)")
+    return tuple(lines)
+
+
 def run_grid(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
              redo_failed: bool = False, progress: ProgressCallback | None = None,
              case_file: str | None = None, case_text: str | None = None,
@@ -267,7 +311,8 @@ def _run_locked(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
     store.write_run(run_info)
     recorder = _Recorder(store, by_key, backend, progress, existing)
     store.write_tables(existing.values())
-    interrupted = False
+    kept_lines = kept_failures(tasks, existing, redo_failed=redo_failed)
+    interrupted = unwritable = False
     try:
         if accuracy:
             if progress is not None:
@@ -285,15 +330,21 @@ def _run_locked(tasks: Sequence[Task], store: RunStore, backend: Backend, *,
     except KeyboardInterrupt:
         interrupted = True
         raise
+    except OutputDirectoryError:
+        unwritable = True  # the tables and run.json would fail the same way
+        raise
     finally:
-        store.write_tables()
-        c = recorder.counts
-        summary = RunSummary(
-            tasks=len(tasks), already_done=done, kept_failed=kept, ran=c["ran"], ok=c["ok"],
-            failed=c["failed"], skipped=c["skipped"], timed=c["timed"],
-            timing_failed=c["timing_failed"], interrupted=interrupted,
-            seconds=time.perf_counter() - start, failures=tuple(recorder.failures))
-        run_info.update({"finished": now(), "status": "interrupted" if interrupted
-                         else "complete", "summary": summary.to_dict()})
-        store.write_run(run_info)
+        if not unwritable:
+            rows = store.write_tables()
+            c = recorder.counts
+            summary = RunSummary(
+                tasks=len(tasks), already_done=done, kept_failed=kept, ran=c["ran"],
+                ok=c["ok"], failed=c["failed"], skipped=c["skipped"], timed=c["timed"],
+                timing_failed=c["timing_failed"], interrupted=interrupted,
+                seconds=time.perf_counter() - start, failures=tuple(recorder.failures),
+                kept_failures=kept_lines)
+            run_info.update({"finished": now(), "status": "interrupted" if interrupted
+                             else "complete", "summary": summary.to_dict(),
+                             RESULTS_ROWS_KEY: rows})
+            store.write_run(run_info)
     return summary

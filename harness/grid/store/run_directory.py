@@ -14,6 +14,7 @@ Unreadable task files (truncated, not JSON, unknown schema) are skipped with a
 from __future__ import annotations
 
 import errno
+import hashlib
 import json
 import shutil
 import warnings
@@ -36,6 +37,8 @@ _SAFE_CHARACTERS = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWX
                              "0123456789._-+")
 #: Longest directory name made from a case name (common file-system limits are 255 bytes).
 MAX_COMPONENT_LENGTH = 100
+#: Hexadecimal digits of the hash that keeps non-ASCII case names apart.
+NAME_HASH_LENGTH = 8
 
 
 def safe_path_component(name: str, *, fallback: str = "run") -> str:
@@ -47,15 +50,28 @@ def safe_path_component(name: str, *, fallback: str = "run") -> str:
     starts with a dot, is at most
     ``MAX_COMPONENT_LENGTH`` characters, and is ``fallback`` when nothing is left.
 
+    A name holding characters outside ASCII (``"测试"``, ``"Zürich"``) would lose them,
+    and two such names could meet in one folder, so it gets ``-`` and a short hash of the
+    full name appended (``NAME_HASH_LENGTH`` hexadecimal digits of its SHA-256). ASCII
+    names keep the plain form, so the folders of existing runs stay where they were.
+
     >>> safe_path_component("../../etc/passwd")
     'etc_passwd'
+    >>> safe_path_component("测试")
+    'run-6aa8f49c'
     """
     text = "".join(c if c in _SAFE_CHARACTERS else "_" for c in str(name))
     text = text.strip("._-")
     while ".." in text:
         text = text.replace("..", "_")
-    text = text[:MAX_COMPONENT_LENGTH].strip("._-")
-    return text or fallback
+    tag = "" if str(name).isascii() else "-" + name_digest(str(name))
+    text = text[:MAX_COMPONENT_LENGTH - len(tag)].strip("._-")
+    return (text or fallback) + tag
+
+
+def name_digest(name: str) -> str:
+    """The first ``NAME_HASH_LENGTH`` hexadecimal digits of the SHA-256 of ``name`` (UTF-8)."""
+    return hashlib.sha256(name.encode("utf-8")).hexdigest()[:NAME_HASH_LENGTH]
 
 
 class CorruptRecordWarning(UserWarning):
@@ -107,7 +123,34 @@ class RunStore:
         return self.tasks_dir / f"{key}.json"
 
     def write_record(self, record: Mapping[str, Any]) -> Path:
-        return atomic_write_json(self.record_path(record["key"]), dict(record))
+        """Store one task record atomically (``OutputDirectoryError`` when it cannot)."""
+        path = self.record_path(record["key"])
+        try:
+            return atomic_write_json(path, dict(record))
+        except OSError as exc:
+            raise self.write_error(path, exc) from None
+
+    def saved_records(self) -> int:
+        """Task record files on disk (temporary files not counted)."""
+        if not self.tasks_dir.is_dir():
+            return 0
+        return sum(1 for p in self.tasks_dir.glob("*.json")
+                   if not p.name.startswith(TEMP_PREFIX))
+
+    def write_error(self, path: Path, exc: OSError) -> OutputDirectoryError:
+        """``exc``, met writing ``path``, as one line: the path, the cause, what is kept and
+        how to resume."""
+        if exc.errno in (errno.ENOSPC, errno.EDQUOT):
+            cause = "the disk is full"
+        elif exc.errno == errno.EROFS:
+            cause = "the file system is read-only"
+        else:
+            cause = f"{exc.strerror or exc}"
+        return OutputDirectoryError(
+            exc.errno, f"cannot write {str(path)!r}: {cause}; the {self.saved_records()} task "
+                       f"record(s) saved before it are kept in {str(self.tasks_dir)!r}; free "
+                       "space or make the directory writable, then run the same command "
+                       "again to resume (finished tasks are not redone)")
 
     def read_record(self, key: str) -> dict[str, Any] | None:
         path = self.record_path(key)
@@ -154,8 +197,13 @@ class RunStore:
 
     # -- run-level files ---------------------------------------------------------------
     def write_run(self, info: Mapping[str, Any]) -> Path:
+        """Store ``run.json`` atomically (``OutputDirectoryError`` when it cannot)."""
         body = {"schema": RUN_SCHEMA, "schema_version": RUN_SCHEMA_VERSION, **info}
-        return atomic_write_json(self.path / "run.json", body)
+        path = self.path / "run.json"
+        try:
+            return atomic_write_json(path, body)
+        except OSError as exc:
+            raise self.write_error(path, exc) from None
 
     def read_run(self) -> dict[str, Any] | None:
         path = self.path / "run.json"
@@ -174,10 +222,20 @@ class RunStore:
             return None
         return data
 
-    def write_tables(self, records: Iterable[Mapping[str, Any]] | None = None) -> None:
-        """Rewrite results.csv and timings.csv from the records (atomically)."""
+    def write_tables(self, records: Iterable[Mapping[str, Any]] | None = None) -> int:
+        """Rewrite results.csv and timings.csv from the records (atomically).
+
+        Returns the number of rows of results.csv; raises ``OutputDirectoryError`` when a
+        table cannot be written.
+        """
         records = list(self.records().values() if records is None else records)
-        atomic_write_text(self.path / "results.csv", results_frame(records).to_csv(index=False))
-        atomic_write_text(self.path / "timings.csv", timings_frame(records).to_csv(index=False))
+        tables = ((self.path / "results.csv", results_frame(records)),
+                  (self.path / "timings.csv", timings_frame(records)))
+        for path, frame in tables:
+            try:
+                atomic_write_text(path, frame.to_csv(index=False))
+            except OSError as exc:
+                raise self.write_error(path, exc) from None
+        return len(records)
 
 
