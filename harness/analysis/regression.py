@@ -41,6 +41,7 @@ import pandas as pd
 from scipy import stats
 
 from harness.analysis.load import RunData
+from harness.audit.metric_names import metric as metric_by_name
 from harness.grid.store.columns import ACCURACY_COLUMNS, PHASES
 from harness.model.json_values import json_text
 
@@ -149,7 +150,7 @@ def parse_check(spec: str) -> Check:
     if len(parts) not in (2, 3) or not parts[1].lower().endswith("x"):
         raise CheckSyntaxError(f"--fail-on {spec!r}: expected METRIC:FACTORx[:FLOOR], "
                                "e.g. logdet_abs_err:2x or t_factor:1.25x")
-    metric = parts[0].strip()
+    metric = _contract_column(parts[0].strip())
     try:
         factor = float(parts[1][:-1])
         floor = float(parts[2]) if len(parts) == 3 else None
@@ -168,6 +169,16 @@ def parse_check(spec: str) -> Check:
         return SpeedCheck(metric, factor)
     known = ", ".join(sorted(ACCURACY_COLUMNS) + sorted(COST_METRICS))
     raise CheckSyntaxError(f"--fail-on {spec!r}: unknown metric {metric!r}; known: {known}")
+
+
+def _contract_column(name: str) -> str:
+    """The results column a gate argument names: a metric's canonical name or any of its
+    old names (``harness.audit.metric_names``) reads its contract column, which every
+    stored run holds; other names are kept as given."""
+    try:
+        return metric_by_name(name).column
+    except KeyError:
+        return name
 
 
 def default_checks(*, accuracy_only: bool = False,

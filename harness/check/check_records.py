@@ -6,6 +6,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
+from harness.audit.metric_names import canonical_name
 from harness.audit.metric_values import MetricValue, _num
 
 __all__ = ["CheckResult", "MetricValue", "RefitResult", "ToleranceResult"]
@@ -15,7 +16,7 @@ __all__ = ["CheckResult", "MetricValue", "RefitResult", "ToleranceResult"]
 class ToleranceResult:
     """The verdict for one tolerance.
 
-    ``status`` is the engine's verdict (``harness.audit.engine``: ``safe``, ``unsafe`` or
+    ``status`` is the engine's verdict (``harness.audit.rule``: ``safe``, ``unsafe`` or
     ``unresolved``, with ``reasons``); ``safe`` is ``status == "safe"``. ``metrics`` hold
     the value of the seed that decides each limited metric; ``seeds`` every seed's values
     and ``spread`` their min / median / max. ``error`` holds the reason when the solver
@@ -45,8 +46,9 @@ class ToleranceResult:
                                "status": self.status or ("safe" if self.safe else "unsafe"),
                                "reasons": list(self.reasons), "seeds": list(self.seeds),
                                "spread": self.spread}
-        for m in self.metrics:
+        for m in self.metrics:   # under its own name and its canonical one (both kept)
             out[m.name] = m.to_dict()
+            out.setdefault(canonical_name(m.name), out[m.name])
         return out
 
 

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from harness.audit.metric_names import canonical_name
+
 
 @dataclass(frozen=True)
 class MetricLabel:
@@ -67,6 +69,12 @@ COLUMN_LABELS: dict[str, MetricLabel] = {m.key: m for m in (
                 "pay at this size"),
 )}
 
+#: Labels under each metric's canonical name (``harness.audit.metric_names``), taken from
+#: the label of one of its old names.
+_BY_CANONICAL: dict[str, MetricLabel] = {
+    canonical_name(key): label for key, label in {**COLUMN_LABELS, **METRIC_LABELS}.items()
+    if canonical_name(key) != key}
+
 #: Further terms the reports use, for the README glossary and the report's notes.
 TERMS: dict[str, str] = {
     "DPOT01": "the scaled residual ||Sigma - L L'||_1 / (n ||Sigma||_1 eps) that LAPACK's "
@@ -85,6 +93,9 @@ TERMS: dict[str, str] = {
 
 
 def metric_label(key: str) -> MetricLabel:
-    """The label of ``key``; an unknown key is shown as itself."""
-    return METRIC_LABELS.get(key) or COLUMN_LABELS.get(key) or MetricLabel(
-        key, key, key, "")
+    """The label of ``key`` (any name of a metric, ``harness.audit.metric_names``); an
+    unknown key is shown as itself."""
+    found = METRIC_LABELS.get(key) or COLUMN_LABELS.get(key)
+    if found is None and key in _BY_CANONICAL:
+        found = _BY_CANONICAL[key]
+    return found or MetricLabel(key, key, key, "")

@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from harness.audit.metric_names import METRICS
 from harness.grid.store.columns import PHASES, RESULT_COLUMNS
 from harness.grid.tasks import pair_key_of
 
@@ -120,6 +121,8 @@ def contract_fields(row: Mapping[str, Any], record: Mapping[str, Any]) -> dict[s
     for phase in PHASES:
         for suffix, stat in (("", "median"), ("_min", "min"), ("_iqr", "iqr")):
             out[f"t_{phase}{suffix}"] = row.get(f"time_{phase}_{stat}")
+    for name in METRICS:        # each metric also under its canonical name (both kept)
+        out[name.canonical] = out.get(name.column)
     return out
 
 
