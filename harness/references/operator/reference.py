@@ -34,6 +34,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from harness.likelihood.trace.probes import rademacher_probes
 from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
@@ -44,7 +45,6 @@ from harness.references.operator.products import KernelOperator
 from harness.references.operator.schedule import DEFAULT_TILE
 from harness.references.operator.score_traces import (
     preconditioner_traces,
-    rademacher,
     trace_difference_samples,
 )
 from harness.solvers.protocol import Factorization
@@ -316,7 +316,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         se_l = float("inf")
         while probes < max_probes:
             count = min(probe_batch, max_probes - probes)
-            z = rademacher(n, count, probe_rng)
+            z = rademacher_probes(n, count, probe_rng)
             slq = slq_logdet(apply_c, z, max_steps=lanczos_steps, step_tol=lanczos_tol)
             iterations += int(slq.steps.max())
             lanczos_ok = lanczos_ok and bool(slq.converged.all())

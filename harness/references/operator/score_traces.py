@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harness.likelihood.trace.probes import rademacher_probes
 from harness.references.operator.products import KernelOperator
 from harness.solvers.protocol import Factorization
 
@@ -33,11 +34,6 @@ class PreconditionerTraces:
     probes: int
     available: bool
     message: str | None
-
-
-def rademacher(n: int, count: int, rng: np.random.Generator) -> np.ndarray:
-    """n x count matrix of independent +-1 entries."""
-    return rng.choice(np.array([-1.0, 1.0]), size=(n, count))
 
 
 def _preconditioner_quadratics(preconditioner: Factorization, z: np.ndarray,
@@ -62,7 +58,7 @@ def preconditioner_traces(preconditioner: Factorization, n_params: int, *, probe
     samples = []
     try:
         for start in range(0, probes, batch):
-            z = rademacher(n, min(batch, probes - start), rng)
+            z = rademacher_probes(n, min(batch, probes - start), rng)
             samples.append(_preconditioner_quadratics(preconditioner, z, n_params))
     except Exception as exc:  # a plugin's optional member may refuse (size, kernel)
         return PreconditionerTraces(zero, zero, 0, False,
