@@ -248,6 +248,7 @@ def test_operator_option_errors(datafile, capsys):
 
 
 def test_operator_on_a_local_dask_cluster(datafile, capsys):
+    pytest.importorskip("distributed")  # the dask extra, as in the other Dask tests
     path, _ = datafile
     assert main(["evaluate", str(path), *BASE, "--json", "--solver", "operator",
                  "--no-score"]) == 0

@@ -2,10 +2,19 @@
 
 Every problem is reported with the file, the column and, for bad values, the 1-based
 data row numbers (the header is row 0), so users can fix the file.
+
+A CSV file whose header holds no comma but one of ``;``, tab or ``|`` is read with that
+separator (``csv.Sniffer`` on the file's start), and with a decimal comma when its
+numbers are written ``0,5``; a warning says so, since a file meant for another program
+may need a look.
 """
 
 from __future__ import annotations
 
+import csv
+import gzip
+import logging
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -13,6 +22,13 @@ import numpy as np
 import pandas as pd
 
 _MAX_ROWS_LISTED = 10
+#: Separators tried besides the comma, and how a warning names them.
+OTHER_SEPARATORS = {";": "';'", "\t": "a tab", "|": "'|'"}
+#: Characters of a file's start read to guess its separator.
+_SAMPLE_CHARACTERS = 65536
+_DECIMAL_COMMA = re.compile(r"(?:^|[;\t|])\s*-?\d+,\d+(?:[eE][-+]?\d+)?\s*(?=$|[;\t|])")
+
+logger = logging.getLogger(__name__)
 
 
 class DataFileError(ValueError):
@@ -55,6 +71,71 @@ def _rows_text(rows: np.ndarray) -> str:
     return listed + more
 
 
+@dataclass(frozen=True)
+class CsvDialect:
+    """How a CSV file is written: its field separator and decimal mark.
+
+    Attributes
+    ----------
+    separator : str
+        ``,`` (the default), ``;``, a tab or ``|``.
+    decimal : str
+        ``.`` or, in a file not separated by commas, ``,``.
+    """
+
+    separator: str = ","
+    decimal: str = "."
+
+    @property
+    def is_default(self) -> bool:
+        return self.separator == "," and self.decimal == "."
+
+    def describe(self) -> str:
+        """The dialect in words, for a warning."""
+        words = f"fields separated by {OTHER_SEPARATORS.get(self.separator, repr(self.separator))}"
+        return words + (" and a decimal comma" if self.decimal == "," else "")
+
+
+def _sample(path: Path, *, gzipped: bool) -> str:
+    opener = gzip.open if gzipped else open
+    with opener(path, "rt", encoding="utf-8", errors="replace") as handle:
+        return str(handle.read(_SAMPLE_CHARACTERS))
+
+
+def sniff_dialect(path: Path, *, gzipped: bool = False) -> CsvDialect:
+    """The separator and decimal mark of a CSV file whose header holds no comma.
+
+    Parameters
+    ----------
+    path : Path
+        A CSV file (gzipped when ``gzipped``).
+    gzipped : bool
+        Whether the file is gzip-compressed.
+
+    Returns
+    -------
+    CsvDialect
+        The default (comma, decimal point) unless the header has no comma and
+        ``csv.Sniffer`` finds one of ``OTHER_SEPARATORS`` in the file's start.
+    """
+    try:
+        sample = _sample(path, gzipped=gzipped)
+    except (OSError, EOFError):
+        return CsvDialect()
+    header = sample.split("\n", 1)[0]
+    if "," in header or not any(sep in header for sep in OTHER_SEPARATORS):
+        return CsvDialect()
+    try:
+        separator = csv.Sniffer().sniff(sample, delimiters="".join(OTHER_SEPARATORS)).delimiter
+    except csv.Error:
+        return CsvDialect()
+    if separator not in header:
+        return CsvDialect()
+    rows = sample.splitlines()[1:50]
+    decimal = "," if any(_DECIMAL_COMMA.search(row) for row in rows) else "."
+    return CsvDialect(separator=separator, decimal=decimal)
+
+
 def read_table(path: str | Path) -> pd.DataFrame:
     """A CSV (``.csv``, ``.txt``, optionally gzipped) or Parquet (``.parquet``, ``.pq``) file."""
     path = Path(path)
@@ -65,7 +146,12 @@ def read_table(path: str | Path) -> pd.DataFrame:
         if suffixes and suffixes[-1] in (".parquet", ".pq"):
             frame = pd.read_parquet(path)
         elif suffixes and (suffixes[-1] in (".csv", ".txt") or suffixes[-2:] == [".csv", ".gz"]):
-            frame = pd.read_csv(path)
+            dialect = sniff_dialect(path, gzipped=suffixes[-1] == ".gz")
+            frame = pd.read_csv(path, sep=dialect.separator, decimal=dialect.decimal)
+            if not dialect.is_default:
+                logger.warning("%s: read as a file with %s (its header has no comma); "
+                               "columns: %s", path, dialect.describe(),
+                               ", ".join(map(str, frame.columns)))
         else:
             raise DataFileError(
                 f"{path}: unrecognised file type {''.join(suffixes) or '(no extension)'}; "
@@ -85,7 +171,10 @@ def read_table(path: str | Path) -> pd.DataFrame:
 def _numeric_column(frame: pd.DataFrame, name: str, path: Path) -> np.ndarray:
     if name not in frame.columns:
         present = ", ".join(map(str, frame.columns))
-        raise DataFileError(f"{path}: no column {name!r}; columns present: {present}")
+        hint = next((f"; the header seems to use {word} between fields: save the file with "
+                     "commas between fields and a decimal point"
+                     for sep, word in OTHER_SEPARATORS.items() if sep in present), "")
+        raise DataFileError(f"{path}: no column {name!r}; columns present: {present}{hint}")
     column = frame[name]
     converted = pd.to_numeric(column, errors="coerce")
     bad = converted.isna() & column.notna()

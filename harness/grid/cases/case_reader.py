@@ -68,6 +68,9 @@ SOLVER_KEYS = ("name", "tolerances", "options", "max_n")
 TRACE_METHODS = ("exact", "hutchinson", "hutchpp")
 GENERATOR_NAMES = (*GENERATORS, "tensor_grid")
 
+#: How the tensor-grid problem names the power a size must be, by dimension.
+_POWER_NAMES = {1: "first power", 2: "square", 3: "cube"}
+
 _TOML_POSITION = re.compile(r"\(at line (\d+), column (\d+)\)")
 
 #: resolve(name) -> (canonical name, version); raises an exception naming the problem.
@@ -228,15 +231,16 @@ def _pointset(check: Checker, path: str, table: dict[str, Any], base: Path
     check.finish_table(table, path, POINTSET_KEYS)
     generator = check.take_str(table, "generator", path, choices=GENERATOR_NAMES)
     file = check.take_str(table, "file", path)
-    sizes = check.take_list(table, "sizes", path, item=check.positive_int,
-                            required=file is None)
+    sized = check.take_items(table, "sizes", path, item=check.positive_int,
+                             required=file is None)
+    sizes = [n for _, n in sized]
     if "generator" in table and "file" in table:
         check.problem(path, "give either 'generator' or 'file', not both")
     if "generator" not in table and "file" not in table:
         check.problem(path, "give a 'generator' (one of "
                             f"{', '.join(GENERATOR_NAMES)}) or a data 'file'")
     if file is not None:
-        return _file_pointset(check, path, table, base, file, sizes)
+        return _file_pointset(check, path, table, base, file, sized)
     dims = check.take_list(table, "dims", path,
                            item=lambda v, p: check.positive_int(v, p, maximum=3), default=[2])
     options = _generator_options(check, path, generator, table.get("options")) if generator \
@@ -244,19 +248,19 @@ def _pointset(check: Checker, path: str, table: dict[str, Any], base: Path
     if generator == "sorted_1d" and any(d != 1 for d in dims):
         check.problem(f"{path}.dims", f"generator 'sorted_1d' makes 1D points; got dims {dims}")
     if generator == "tensor_grid":
-        for i, n in enumerate(sizes):
+        for where, n in sized:
             for d in dims:
                 if not is_perfect_power(n, d):
-                    check.problem(f"{path}.sizes[{i}]",
-                                  f"a tensor grid in {d}D needs a perfect {d}-th power, got {n} "
-                                  f"(nearest: {round(n ** (1 / d)) ** d})")
+                    check.problem(where, f"a tensor grid in {d}D needs a perfect "
+                                         f"{_POWER_NAMES.get(d, f'{d}-th power')}, got {n} "
+                                         f"(nearest: {round(n ** (1 / d)) ** d})")
     name = check.take_str(table, "name", path, default=generator or "points") or "points"
     spec = PointSetSpec(name=name, generator=generator, options=options)
     return PointSetEntry(spec=spec, sizes=tuple(sizes), dims=tuple(dims))
 
 
 def _file_pointset(check: Checker, path: str, table: dict[str, Any], base: Path, file: str,
-                   sizes: list[int]) -> PointSetEntry | None:
+                   sized: list[tuple[str, int]]) -> PointSetEntry | None:
     from harness.check.datafile import DataFileError, read_table
 
     columns = check.take_list(table, "columns", path, item=check.string, required=True,
@@ -279,10 +283,10 @@ def _file_pointset(check: Checker, path: str, table: dict[str, Any], base: Path,
     if not 1 <= len(columns) <= 3:
         check.problem(f"{path}.columns", f"expected 1 to 3 coordinate columns, got {columns}")
     rows = len(frame)
-    sizes = sizes or [rows]
-    for i, n in enumerate(sizes):
+    for where, n in sized:
         if n > rows:
-            check.problem(f"{path}.sizes[{i}]", f"{n} exceeds the {rows} rows of {file!r}")
+            check.problem(where, f"{n} exceeds the {rows} rows of {file!r}")
+    sizes = [n for _, n in sized] or [rows]
     name = check.take_str(table, "name", path, default=location.stem) or location.stem
     spec = PointSetSpec(name=name, file=str(location.resolve()), columns=tuple(columns),
                         value_column=values)
@@ -309,11 +313,12 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
             ) -> SolverEntry | None:
     check.finish_table(table, path, SOLVER_KEYS)
     name = check.take_str(table, "name", path, required=True)
-    tolerances = check.take_list(table, "tolerances", path, item=check.positive_number)
-    for k, tol in enumerate(tolerances or ()):
-        if isinstance(tol, float) and not tol < 1.0:
-            check.problem(f"{path}.tolerances[{k}]", f"expected a tolerance in (0, 1), got "
-                                                     f"{tol!r}")
+    tolerances = []
+    for where, tol in check.take_items(table, "tolerances", path, item=check.positive_number):
+        if tol < 1.0:
+            tolerances.append(tol)
+        else:
+            check.problem(where, f"expected a tolerance in (0, 1), got {tol!r}")
     max_n = table.get("max_n")
     if max_n is not None:
         max_n = check.positive_int(max_n, f"{path}.max_n")

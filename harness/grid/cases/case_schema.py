@@ -128,7 +128,18 @@ class Checker:
                   required: bool = False, scalar_ok: bool = True,
                   nonempty: bool = True) -> list[Any]:
         """A list (a lone scalar counts as a one-item list when ``scalar_ok``), each item
-        checked by ``item(value, path) -> value or _MISSING``."""
+        checked by ``item(value, path) -> value or _MISSING``; items that fail are left
+        out, so use ``take_items`` when later checks must name an item's place."""
+        return [value for _, value in self.take_items(
+            table, key, path, item=item, default=default, required=required,
+            scalar_ok=scalar_ok, nonempty=nonempty)]
+
+    def take_items(self, table: Mapping[str, Any], key: str, path: str, *,
+                   item: Callable[[Any, str], Any], default: Sequence[Any] | None = None,
+                   required: bool = False, scalar_ok: bool = True,
+                   nonempty: bool = True) -> list[tuple[str, Any]]:
+        """As ``take_list``, each item that passed with its key path in the file
+        (``solvers[0].tolerances[1]``), so a later problem names the item where it is."""
         full = f"{path}.{key}" if path else key
         value = self.take(table, key, path, required=required,
                           default=None if default is None else list(default))
@@ -144,9 +155,10 @@ class Checker:
             return []
         out = []
         for i, entry in enumerate(value):
-            checked = item(entry, f"{full}[{i}]")
+            where = f"{full}[{i}]"
+            checked = item(entry, where)
             if checked is not _MISSING:
-                out.append(checked)
+                out.append((where, checked))
         return out
 
     # -- item checkers for take_list ---------------------------------------------------------

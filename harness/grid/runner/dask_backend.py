@@ -9,6 +9,9 @@ scheduler then reports the task as ``KilledWorker`` once it has killed
 ``distributed.scheduler.allowed-failures`` + 1 workers. A LocalCluster started here
 sets that to 0, so a crashing job fails at once; a joined scheduler keeps its own setting.
 Timing jobs (concurrency 1) are submitted one at a time.
+
+Without Dask, or with a scheduler that does not answer, the backend is not made: a
+one-line ``harness.grid.runner.dask_check.DaskUnavailableError`` says why.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ from collections.abc import Sequence
 from typing import Any
 
 from harness.grid.runner.backend import OutcomeCallback
+from harness.grid.runner.dask_check import connect_scheduler, import_distributed
 from harness.grid.runner.jobs import Job, crash_outcome, execute
 
 
@@ -29,15 +33,16 @@ class DaskBackend:
 
     def __init__(self, *, local_workers: int | None = None, address: str | None = None,
                  processes: bool = True) -> None:
-        import dask
-        from distributed import Client, LocalCluster
-
         if (local_workers is None) == (address is None):
             raise ValueError("give exactly one of local_workers (--dask-local N) and address "
                              "(--scheduler ADDRESS)")
+        distributed = import_distributed(
+            option="--scheduler" if address is not None else "--dask-local")
+        import dask
+
         self._cluster = None
         if address is not None:
-            self.client = Client(address, timeout="30s")
+            self.client = connect_scheduler(address)
             self.shared = True
             self.address = address
             info = self.client.scheduler_info()
@@ -47,10 +52,10 @@ class DaskBackend:
             if local_workers is None or local_workers < 1:
                 raise ValueError(f"--dask-local must be >= 1, got {local_workers}")
             with dask.config.set({"distributed.scheduler.allowed-failures": 0}):
-                self._cluster = LocalCluster(
+                self._cluster = distributed.LocalCluster(
                     n_workers=local_workers, threads_per_worker=1, processes=processes,
                     memory_limit=0, dashboard_address=None, silence_logs=logging.ERROR)
-                self.client = Client(self._cluster)
+                self.client = distributed.Client(self._cluster)
             self.shared = False
             self.address = self._cluster.scheduler_address
             self.workers = local_workers
