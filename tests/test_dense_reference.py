@@ -18,8 +18,8 @@ from harness.references import (
     dense_evaluate,
     dense_kriging,
 )
-from harness.references import cholesky as cholesky_module
-from harness.references.cholesky import blocked_cholesky
+from harness.linalg import dense_cholesky as cholesky_module
+from harness.linalg import tiled_cholesky
 
 
 @pytest.fixture(scope="module")
@@ -163,8 +163,8 @@ def test_certificate_detects_a_corrupted_factor(problem):
 
 
 def _corrupting_cholesky(a, **options):
-    """The real panel factorization, then one entry of the factor off by 1e-9 relative."""
-    info = blocked_cholesky(a, **options)
+    """The real tiled factorization, then one entry of the factor off by 1e-9 relative."""
+    info = tiled_cholesky(a, **options)
     a[7, 2] *= 1.0 + 1e-9
     return info
 
@@ -175,7 +175,7 @@ def test_failed_certificate_is_an_error(problem, monkeypatch, method, words):
     # The factorization itself is corrupted after the probes of the randomized
     # certificate were taken from the assembled matrix: both certificates must see it.
     points, _ = problem
-    monkeypatch.setattr(cholesky_module, "blocked_cholesky", _corrupting_cholesky)
+    monkeypatch.setattr(cholesky_module, "tiled_cholesky", _corrupting_cholesky)
     with pytest.raises(CertificateError, match=f"failed its certificate.*{words}"):
         DenseCholesky(points[:50], Matern32(1.0, 0.2, 0.05), certificate_method=method)
 
@@ -195,33 +195,6 @@ def test_memory_budget_refuses_before_assembly():
 def test_mismatched_lengths_are_refused():
     with pytest.raises(ValueError, match="3 rows but values have 2"):
         dense_evaluate(np.zeros((3, 2)), np.zeros(2), Matern32(1.0, 0.3, 0.1))
-
-
-def test_blocked_cholesky_equals_numpy_across_panels():
-    # numpy.linalg.cholesky as the outside check; panel 64 forces many panels and a
-    # ragged last one (n = 300).
-    pts = np.random.default_rng(9).random((300, 2))
-    sigma = Matern32(1.0, 0.2, 0.05).covariance(pts)
-    a = np.asfortranarray(np.tril(sigma) + np.triu(np.full_like(sigma, 7.0), k=1))
-    assert blocked_cholesky(a, panel=64) == 0
-    np.testing.assert_allclose(np.tril(a), np.linalg.cholesky(sigma), rtol=1e-10, atol=1e-12)
-    assert np.all(np.triu(a, 1) == np.triu(np.full_like(a, 7.0), 1))  # upper left alone
-    bad = np.asfortranarray(-np.eye(200))
-    assert blocked_cholesky(bad, panel=64) == 1
-
-
-def test_blocked_cholesky_dsyrk_path_equals_scipy_cho_factor():
-    # the panel path (dsyrk on diagonal blocks, dgemm below) against scipy.linalg.cho_factor
-    # (LAPACK dpotrf in one call), with a ragged last panel
-    import scipy.linalg
-
-    pts = np.random.default_rng(3).random((1000, 2))
-    sigma = Matern32(1.0, 0.1, 1e-2).covariance(pts)
-    for panel in (128, 300, 999):
-        a = np.asfortranarray(np.tril(sigma))
-        assert blocked_cholesky(a, panel=panel) == 0
-        expected = np.tril(scipy.linalg.cho_factor(sigma, lower=True)[0])
-        np.testing.assert_allclose(a, expected, rtol=1e-10, atol=1e-13)
 
 
 @pytest.mark.parametrize("relative", [0.0, 1e-13, 1e-11, 1e-9, 1e-7])

@@ -288,7 +288,7 @@ def _operator_reference(task: Task, data: TaskData, kernel: Kernel,
 def choose_reference(task: Task, data: TaskData, kernel: Kernel, solver: Any,
                      streams: dict[str, np.random.Generator]) -> tuple[Reference, list[str]]:
     """The first reference in ``task.references`` that applies, with why others did not."""
-    from harness.references.budget import DenseBudgetError, check_dense_budget
+    from harness.linalg.dense_budget import DenseBudgetError, check_dense_budget
 
     declined: list[str] = []
     n, d = data.points.shape
@@ -386,7 +386,7 @@ def audit_accuracy(task: Task) -> dict[str, Any]:
     exception is a failure of the task.
     """
     from harness.likelihood import evaluate_likelihood, kriging
-    from harness.references.budget import default_memory_budget
+    from harness.linalg.dense_budget import default_memory_budget
 
     if task.time_budget is not None:
         budget = task.memory_budget or default_memory_budget()

@@ -600,7 +600,7 @@ def plan_fit(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
              n_starts: int, memory_budget: int | None, time_budget: float) -> FitPlan:
     """Dense when the dense likelihood, score and Fisher information fit the memory
     budget and the estimated dense fit fits ``time_budget`` seconds; compressed else."""
-    from harness.references.budget import DenseBudgetError, check_dense_budget
+    from harness.linalg.dense_budget import DenseBudgetError, check_dense_budget
 
     n = y.size
     try:

@@ -72,7 +72,7 @@ from harness.check.fitting import (
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
 from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
-from harness.references.budget import check_dense_budget
+from harness.linalg.dense_budget import check_dense_budget
 from harness.solvers.plugins import SolverLoadError
 from harness.solvers.protocol import Factorization
 from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver

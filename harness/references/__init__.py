@@ -1,12 +1,12 @@
 """Exact references: dense Cholesky (certified) and structured references."""
 
-from harness.references.budget import (
+from harness.linalg.dense_budget import (
     DenseBudgetError,
     default_memory_budget,
     dense_bytes_needed,
     largest_dense_n,
 )
-from harness.references.cholesky import (
+from harness.linalg.dense_cholesky import (
     CERTIFICATE_THRESHOLD,
     CertificateError,
     DenseCholesky,

@@ -22,7 +22,7 @@ from harness.model.evaluation import KrigingPrediction, ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
-from harness.references.cholesky import _BLOCK, DenseCholesky
+from harness.linalg.dense_cholesky import _BLOCK, DenseCholesky
 
 __all__ = ["DenseCholesky", "dense_evaluate", "dense_kriging"]
 

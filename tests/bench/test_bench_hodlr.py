@@ -15,7 +15,7 @@ import pytest
 
 from harness.analysis.scaling import fit_power_law
 from harness.model.kernels import Matern32, assemble_lower
-from harness.references.cholesky import blocked_cholesky
+from harness.linalg import tiled_cholesky
 from harness.solvers.hodlr import factorize
 
 KERNEL = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
@@ -28,10 +28,10 @@ def _points(n: int) -> np.ndarray:
 def _dense_seconds(points: np.ndarray) -> float:
     t = time.perf_counter()
     a = assemble_lower(KERNEL, points)
-    # one threaded dpotrf call segfaults at n = 16,000 here (OpenBLAS 0.3.30): the panel
-    # factorization of the dense reference (0.78 of one call's time at 12,288,
-    # benchmarks/results/dense_panel.json)
-    info = blocked_cholesky(a)
+    # one threaded dpotrf call segfaults at n = 16,000 on some machines (OpenBLAS 0.3.30):
+    # the tiled factorization of the dense reference (harness.linalg.tile_bounds;
+    # its speed against dpotrf is in benchmarks/results/dense_tiled.json)
+    info = tiled_cholesky(a)
     elapsed = time.perf_counter() - t
     if info != 0:
         raise np.linalg.LinAlgError(f"dense dpotrf failed with info={info}")

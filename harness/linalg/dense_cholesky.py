@@ -1,11 +1,12 @@
 """Dense Cholesky factorization of Sigma in float64, with a residual certificate.
 
-Sigma = L L' is assembled (lower triangle, Fortran order) and factored in place by
-column panels (``blocked_cholesky``: LAPACK dpotrf on the diagonal blocks, BLAS dtrsm
-and dsyrk on the rest, through the array's leading dimension); nothing else of size
-n x n is held. Two certificates of the residual E = L L' - Sigma, both compared with
-LAPACK's test threshold 30 (``TESTING/dtest.in``), both raising ``CertificateError``
-at or above it:
+Sigma = L L' is assembled (lower triangle, Fortran order) and factored in place by tiles
+(``harness.linalg.tiled_cholesky``: no BLAS or LAPACK call ever sees an operand above
+``tile_bounds.MAX_OPERAND_ELEMENTS`` entries, the shape that crashes the threaded BLAS
+of this build); nothing else of size n x n is held. Its solves, products and inverse
+go through the same tiles (``harness.linalg.tiled_triangular``). Two certificates of the
+residual E = L L' - Sigma, both compared with LAPACK's test threshold 30
+(``TESTING/dtest.in``), both raising ``CertificateError`` at or above it:
 
 * ``"randomized"`` (default): an upper bound on the scaled residual of LAPACK's test
   routine DPOT01 (LAPACK 3 ``TESTING/LIN/dpot01.f``), from k Gaussian probe vectors
@@ -18,8 +19,8 @@ at or above it:
 
   is at least the DPOT01 ratio with that probability (k = 4: 1 - 1e-4). E Z costs
   two triangular products L (L' Z) after the factorization and one symmetric product
-  Sigma [Z, 1] (BLAS dsymm) of the assembled matrix before it: O(n^2) per probe, no
-  extra n x n memory, no kernel evaluation.
+  Sigma [Z, 1] of the assembled matrix before it: O(n^2) per probe, no extra n x n
+  memory, no kernel evaluation.
 * ``"dpot01"``: the full ratio ||Sigma - L L'||_1 / (n ||Sigma||_1 eps), formed by
   column blocks (about one more factorization and one more assembly).
 """
@@ -30,16 +31,15 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.linalg
-from scipy.linalg import blas, lapack
 
-from harness.model.kernels import Kernel, assemble_lower
-from harness.references.budget import check_dense_budget
-from harness.references.inplace_blas import (
-    potrf_lower,
-    syrk_lower_update,
-    trsm_right_lower_transpose,
+from harness.linalg.dense_budget import check_dense_budget
+from harness.linalg.tiled_cholesky import (
+    symmetrize_from_lower,
+    tiled_cholesky,
+    tiled_inverse_from_cholesky,
 )
+from harness.linalg.tiled_triangular import lower_multiply, lower_solve, symmetric_multiply
+from harness.model.kernels import Kernel, assemble_lower
 
 CERTIFICATE_THRESHOLD = 30.0
 _BLOCK = 1024
@@ -53,58 +53,10 @@ class SingularCovarianceError(np.linalg.LinAlgError):
     """Sigma is not numerically positive definite."""
 
 
-#: Panel width of ``blocked_cholesky`` (common practice: a few hundred columns keep the
-#: diagonal dpotrf small and the trailing dsyrk large; at n = 12,288 it took 0.78 of
-#: one dpotrf call's time here, ``benchmarks/results/dense_panel.json``).
-CHOLESKY_PANEL = 512
 #: Probe vectors of the randomized certificate (failure probability 10^-k).
 CERTIFICATE_PROBES = 4
 #: Certificate methods accepted by ``DenseCholesky``.
 CERTIFICATE_METHODS = ("randomized", "dpot01")
-
-
-def blocked_cholesky(a: np.ndarray, *, panel: int = CHOLESKY_PANEL) -> int:
-    """Lower Cholesky factor of a Fortran-ordered SPD array, in place, by column panels.
-
-    Right-looking blocked algorithm (Golub and Van Loan, *Matrix Computations*, 4th ed.,
-    Algorithm 4.2.10, "block Cholesky"): for each panel K, A_KK = L_KK L_KK' (LAPACK
-    dpotrf on the diagonal block), L_RK = A_RK L_KK^-T (BLAS dtrsm) for the rows R
-    below it, and the trailing matrix A_RR -= L_RK L_RK' by one symmetric rank-k update
-    (BLAS dsyrk, lower triangle only), so the flop count is the n^3 / 3 of one dpotrf.
-    Every call works on the array itself through its leading dimension
-    (``inplace_blas``): no block is copied and nothing of size n is allocated. LAPACK is
-    only ever called on panel x panel blocks: one dpotrf call on the whole matrix
-    crashed inside OpenBLAS 0.3.30's threaded dpotrf at n = 26,100 on this machine
-    (segmentation fault; one thread, or n <= 8,192, ran fine). Only the lower triangle
-    is read and written: the strict upper triangle is left as it was (zero for an array
-    from ``assemble_lower``, whose untouched pages read as zero; writing zeros there
-    was about 1.9 s of page faults at n = 16,000: the dense row of
-    ``benchmarks/results/hodlr_scaling.json`` went from 11.96 to 10.07 s, as committed
-    in 6c678ff, on a machine where the file's unit was 1.3 s).
-
-    Parameters
-    ----------
-    a : ndarray, shape (n, n), Fortran order, float64
-    panel : int
-        Panel width (default ``CHOLESKY_PANEL``).
-
-    Returns
-    -------
-    int
-        0 on success, else the 1-based column at which the matrix is not positive definite.
-    """
-    if panel < 1:
-        raise ValueError(f"panel must be a positive integer, got {panel!r}")
-    n = a.shape[0]
-    for k0 in range(0, n, panel):
-        k1 = min(n, k0 + panel)
-        info = potrf_lower(a, (k0, k1))
-        if info != 0:
-            return k0 + info if info > 0 else info
-        if k1 < n:
-            trsm_right_lower_transpose(a, (k0, k1), (k1, n))
-            syrk_lower_update(a, (k1, n), (k0, k1))
-    return 0
 
 
 def _duplicate_count(points: np.ndarray) -> int:
@@ -138,15 +90,14 @@ class _ProbeProducts:
         n = lower.shape[0]
         z = np.asfortranarray(np.column_stack([rng.standard_normal((n, probes)),
                                                np.ones(n)]))
-        product = blas.dsymm(1.0, lower, z, lower=1)
+        product = symmetric_multiply(lower, z)
         norm = max(float(np.abs(product[:, -1]).max()), float(np.diagonal(lower).max()))
         return cls(np.asfortranarray(z[:, :-1]), np.asfortranarray(product[:, :-1]), norm)
 
     def ratio(self, factor: np.ndarray) -> float:
         """sqrt(n) 10 sqrt(2/pi) max_i ||L (L' z_i) - Sigma z_i|| / (n ||Sigma||_1 eps)."""
         n = factor.shape[0]
-        product = blas.dtrmm(1.0, factor, blas.dtrmm(1.0, factor, self.z, lower=1,
-                                                     trans_a=1), lower=1)
+        product = lower_multiply(factor, lower_multiply(factor, self.z, transpose=True))
         product -= self.sigma_z
         residual = float(np.sqrt((product * product).sum(axis=0)).max())
         eps = np.finfo(float).eps
@@ -162,7 +113,7 @@ class DenseCholesky:
     points : ndarray, shape (n, d)
     kernel : Kernel
     memory_budget : int, optional
-        Bytes allowed (default ``harness.references.budget.default_memory_budget()``).
+        Bytes allowed (default ``harness.linalg.dense_budget.default_memory_budget()``).
     certify : bool
         Compute the certificate and raise ``CertificateError`` when it is >= 30.
     certificate_method : {"randomized", "dpot01"}
@@ -214,7 +165,7 @@ class DenseCholesky:
                                                     rng=self._rng)
             self.seconds["certify"] = time.perf_counter() - start
         start = time.perf_counter()
-        info = blocked_cholesky(factor)
+        info = tiled_cholesky(factor)
         self.seconds["factor"] = time.perf_counter() - start
         if info > 0:
             raise SingularCovarianceError(self._singular_message(info))
@@ -329,36 +280,29 @@ class DenseCholesky:
         return (b[:, None] if vector else b), vector
 
     def solve(self, b: np.ndarray) -> np.ndarray:
-        """Sigma^-1 b by two triangular solves (``dpotrs``)."""
-        cols, vector = self._columns(b)
-        x, info = lapack.dpotrs(self.factor, cols, lower=1)
-        return x[:, 0] if vector else x
+        """Sigma^-1 b = L^-T (L^-1 b), by tiles."""
+        self._columns(b)
+        return lower_solve(self.factor, lower_solve(self.factor, b), transpose=True)
 
     def solve_sqrt(self, b: np.ndarray) -> np.ndarray:
         """L^-1 b."""
-        cols, vector = self._columns(b)
-        x = scipy.linalg.solve_triangular(self.factor, cols, lower=True, check_finite=False)
-        return x[:, 0] if vector else x
+        self._columns(b)
+        return lower_solve(self.factor, b)
 
     def solve_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
         """L^-T b."""
-        cols, vector = self._columns(b)
-        x = scipy.linalg.solve_triangular(self.factor, cols, lower=True, trans="T",
-                                          check_finite=False)
-        return x[:, 0] if vector else x
+        self._columns(b)
+        return lower_solve(self.factor, b, transpose=True)
 
     def apply_sqrt(self, b: np.ndarray) -> np.ndarray:
         """L b."""
-        cols, vector = self._columns(b)
-        x = blas.dtrmm(1.0, self.factor, np.asfortranarray(cols), lower=1)
-        return x[:, 0] if vector else x
+        self._columns(b)
+        return lower_multiply(self.factor, b)
 
     def matvec(self, b: np.ndarray) -> np.ndarray:
         """L (L' b), which equals Sigma b to rounding once the certificate passed."""
-        cols, vector = self._columns(b)
-        y = blas.dtrmm(1.0, self.factor, np.asfortranarray(cols), lower=1, trans_a=1)
-        x = blas.dtrmm(1.0, self.factor, y, lower=1)
-        return x[:, 0] if vector else x
+        self._columns(b)
+        return lower_multiply(self.factor, lower_multiply(self.factor, b, transpose=True))
 
     def derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray:
         """dSigma/dtheta_i @ b, assembling row blocks of the derivative on the fly."""
@@ -371,15 +315,11 @@ class DenseCholesky:
         return out[:, 0] if vector else out
 
     def inverse(self) -> np.ndarray:
-        """Sigma^-1 as a full symmetric array (a second n x n allocation; ``dpotri``)."""
-        inv, info = lapack.dpotri(self.factor, lower=1, overwrite_c=0)
+        """Sigma^-1 as a full symmetric array (a second n x n allocation; tiled dpotri)."""
+        inv = np.array(self.factor, order="F", copy=True)
+        info = tiled_inverse_from_cholesky(inv)
         if info != 0:
-            raise SingularCovarianceError(f"dpotri failed with info = {info}")
-        inv = np.asarray(inv)
-        for j0 in range(0, self.n, _BLOCK):
-            j1 = min(self.n, j0 + _BLOCK)
-            diag = inv[j0:j1, j0:j1]
-            upper = np.triu_indices(j1 - j0, k=1)
-            diag[upper] = diag.T[upper]
-            inv[j0:j1, j1:] = inv[j1:, j0:j1].T
+            raise SingularCovarianceError(f"the inverse of the Cholesky factor failed: "
+                                          f"zero pivot at column {info}")
+        symmetrize_from_lower(inv)
         return inv
