@@ -61,7 +61,7 @@ def runs(tmp_path_factory):
     out = {}
     for reference in ("dense", "operator"):
         rc = main(["run", str(case), "--out", str(base / reference), "--reference", reference])
-        assert rc in (0, 1)
+        assert rc in (0, 3)  # 3: a task failed (listed)
         out[reference] = pd.read_csv(base / reference / "results.csv")
     return out
 

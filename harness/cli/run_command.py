@@ -25,7 +25,8 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
         "run", help="run a case grid (resumable)",
         description="Run every task of a case file and store the results in a run directory. "
                     "Rerunning with the same --out skips finished tasks. Exit 0 when every "
-                    "task finished or was skipped, 1 when some failed, 2 on bad input.")
+                    "task finished or was skipped, 3 when a task failed or timed out (in this "
+                    "run or kept from an earlier one; all are listed), 2 on bad input.")
     add_arguments(parser)
     return parser
 
@@ -144,7 +145,7 @@ def run(args: argparse.Namespace) -> int:
           f"{summary.ran} run ({summary.ok} ok, {summary.failed} failed, {summary.skipped} "
           f"skipped), {summary.timed} timed, {summary.kept_failed} earlier failures kept; "
           f"{summary.seconds:.1f} s -> {out}")
-    for line in summary.failures:
+    for line in (*summary.failures, *summary.kept_failures):
         print(f"  failed: {line}")
     try:
         report = _write_report(out)
@@ -158,7 +159,7 @@ def run(args: argparse.Namespace) -> int:
         print(line)
     print(f"wrote task records under {out / 'tasks'} ({summary.ran} new, "
           f"{summary.timed} timed)")
-    return ExitCode.FINDING if summary.failed or summary.timing_failed else ExitCode.OK
+    return ExitCode.SOLVER_FAILED if summary.has_failures else ExitCode.OK
 
 
 def main(argv: Sequence[str] | None = None) -> int:
