@@ -2,11 +2,11 @@
 
 For a lower-triangular L (or a symmetric matrix stored in its lower triangle) in a
 Fortran-ordered n x n array and right-hand sides B (n x k), these compute L^-1 B,
-L^-T B, L B, L' B and A B with every BLAS operand within
-``tile_bounds.MAX_OPERAND_ELEMENTS`` entries: L is read in ``tile`` x ``tile`` tiles and
-B in chunks of ``tile`` columns, so no operand exceeds ``tile``^2 entries. They are block forward and back substitution and block products
-(Golub and Van Loan, *Matrix Computations*, 4th ed., section 3.1.4), with the same flop
-counts as one dtrsm, dtrmm or dsymm call.
+L^-T B, L B, L' B and A B with no BLAS operand above ``tile``^2 entries (at most
+``tile_bounds.MAX_OPERAND_ELEMENTS``): L is read in ``tile`` x ``tile`` tiles and B in
+chunks of ``tile`` columns. They are block forward and back substitution and block
+products (Golub and Van Loan, *Matrix Computations*, 4th ed., section 3.1.4), with the
+same flop counts as one dtrsm, dtrmm or dsymm call.
 """
 
 from __future__ import annotations

@@ -14,8 +14,8 @@ import numpy as np
 import pytest
 
 from harness.analysis.scaling import fit_power_law
-from harness.model.kernels import Matern32, assemble_lower
 from harness.linalg import tiled_cholesky
+from harness.model.kernels import Matern32, assemble_lower
 from harness.solvers.hodlr import factorize
 
 KERNEL = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
