@@ -1,7 +1,7 @@
 """The audit engine's rule (metric -> tolerance -> recommendation) and the solver seeds.
 
-The rule is covaudit's own (DESIGN section 7); the expected values below follow from its
-definition: safe when |e| + 2 SE <= limit, unsafe when |e| - 2 SE > limit, else
+The rule is covaudit's own (DEVELOPERS.md, The verdict rule); the expected values below
+follow from its definition: safe when |e| + 2 SE <= limit, unsafe when |e| - 2 SE > limit, else
 unresolved; the worst seed decides; the ladder is never the sole basis of safe.
 """
 

@@ -16,7 +16,8 @@ def test_declarations_cover_every_field_and_theta(cls):
     kernel = make_kernel(cls.family, {"lengthscale": 0.3, "nugget": 0.1, "nu": 1.5}
                          if cls.family == "matern" else
                          {"lengthscale": 0.3, "nugget": 0.1})
-    # theta holds exactly the non-shape parameters, on the log scale (DESIGN section 3).
+    # theta holds exactly the non-shape parameters, on the log scale (DEVELOPERS.md,
+    # How to add a kernel).
     fitted = [s.name for s in cls.PARAMETERS if not s.shape]
     assert fitted == ["variance", "lengthscale", "nugget"]
     assert kernel.param_names == ("log_variance", "log_lengthscale", "log_nugget")

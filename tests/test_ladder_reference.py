@@ -1,4 +1,5 @@
-"""The tolerance ladder (DESIGN section 7) as the reference when nothing exact is allowed."""
+"""The tolerance ladder (DEVELOPERS.md, The reference order) as the reference when
+nothing exact is allowed."""
 
 from __future__ import annotations
 

@@ -1,8 +1,8 @@
 """The package layout shows the pipeline: stage packages only, one name per module.
 
-The rules are the project's own (DESIGN.md section 2, STYLE.md): no loose modules at the
-top of ``harness/`` besides the package's entry points, and no two modules or packages
-sharing a name, so a name means one concept across the tree.
+The rules are the project's own (DEVELOPERS.md, Architecture and Conventions): no loose
+modules at the top of ``harness/`` besides the package's entry points, and no two modules
+or packages sharing a name, so a name means one concept across the tree.
 """
 
 from collections import defaultdict
@@ -12,8 +12,8 @@ import harness
 
 PACKAGE = Path(harness.__file__).parent
 TOP_LEVEL_MODULES = {"__init__.py", "__main__.py", "_version.py"}
-STAGES = {"model", "geometry", "references", "solvers", "likelihood", "audit", "grid",
-          "analysis", "check", "report", "cli"}
+STAGES = {"infra", "model", "geometry", "references", "solvers", "likelihood", "audit",
+          "grid", "analysis", "check", "report", "cli"}
 
 
 def _python_files() -> list[Path]:
@@ -52,7 +52,7 @@ def test_the_version_has_one_source():
 
 
 def test_references_never_import_the_solvers_they_judge():
-    # DESIGN section 2: a shared bug would hide itself. Only the protocol (a type) may be
+    # DEVELOPERS.md, Architecture: a shared bug would hide itself. Only the protocol (a type) may be
     # imported; a solver reaches a reference as a preconditioner argument.
     import ast
 

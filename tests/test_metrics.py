@@ -30,7 +30,8 @@ def test_scalar_error_closed_form():
 
 def test_score_errors_with_diagonal_fisher_closed_form():
     # F = diag(f): dtheta_i = e_i / f_i, SE_i = 1 / sqrt(f_i), so shift_se_i = e_i / sqrt(f_i)
-    # = fisher_units_i, and 1/2 dtheta' F dtheta = 1/2 sum e_i^2 / f_i (DESIGN section 4).
+    # = fisher_units_i, and 1/2 dtheta' F dtheta = 1/2 sum e_i^2 / f_i
+    # (harness/audit/metrics/score_errors.py).
     f = np.array([4.0, 25.0, 100.0])
     g = np.array([1.0, -2.0, 3.0])
     e = np.array([0.2, -0.5, 1.0])

@@ -28,7 +28,8 @@ def _hodlr(tol: float, err: float, t: float, **extra: object) -> dict:
 
 
 def test_safe_unsafe_and_boundary():
-    # Limits 0.1 nat / 0.1 SE / 0.05 SD (DESIGN section 7); a value equal to a limit passes.
+    # Limits 0.1 nat / 0.1 SE / 0.05 SD (DEVELOPERS.md, The verdict rule); a value equal to
+    # a limit passes.
     vs = judge(_rows([_hodlr(1e-2, 0.5, 1.0), _hodlr(1e-4, 0.1, 2.0), _hodlr(1e-6, 1e-4, 3.0)]))
     status = {v.tol: v.status for v in vs.verdicts}
     assert status == {1e-2: "unsafe", 1e-4: "safe", 1e-6: "safe"}

@@ -11,7 +11,7 @@ so the same base seed and index give the same factorization, hence the same numb
 every verb, and different indices give statistically independent streams.
 
 The seed reaches the factory as the keyword option it declares by name: ``rng`` (the
-built-in solver, the DESIGN section 6 protocol) or ``seed``. A factory that declares
+built-in solver; DEVELOPERS.md, "How to add a solver plugin") or ``seed``. A factory that declares
 neither is treated as deterministic and gets no seed (a catch-all ``**options`` is not a
 declaration: the example plugin refuses unknown options).
 """

@@ -8,7 +8,7 @@ and bold), a legend of every label (``harness.report.labels``), figures, then th
 the spread over seeds and the notes. Rendered with jinja2 and ``autoescape=True``. The
 report states that the thresholds are common practice, not a published standard, and
 that the audit checks numerical agreement with the exact model, not whether the model
-suits the data (DESIGN sections 7 and 9).
+suits the data (DEVELOPERS.md, "The verdict rule"; README, "Cautions").
 """
 
 from __future__ import annotations

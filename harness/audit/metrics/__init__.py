@@ -1,4 +1,5 @@
-"""Accuracy metrics of a solver under test against an exact reference (DESIGN section 4)."""
+"""Accuracy metrics of a solver under test against an exact reference (DEVELOPERS.md,
+"How to add a metric")."""
 
 from harness.audit.metrics.factor_error import (
     FactorizationError,

@@ -1,8 +1,8 @@
 """Score errors in statistical units: Fisher units, implied parameter shifts, nats.
 
 At the maximum the exact score is zero, so a relative score error means nothing there
-(DESIGN section 4). Errors are put on the scale of the data's information instead. With
-e = g~ - g the score error and F the expected Fisher information:
+(DEVELOPERS.md, "How to add a metric"). Errors are put on the scale of the data's
+information instead. With e = g~ - g the score error and F the expected Fisher information:
 
 * Fisher units: e_i / sqrt(F_ii), the error in standard deviations of the score
   component (Var g_i = F_ii under the model; Cox and Hinkley 1974, *Theoretical
