@@ -22,7 +22,7 @@ from harness.cli.flag_types import (
 )
 from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.geometry.spread import spread_warnings
-from harness.grid.runner.child_call import ChildCrashed, ChildTimeout, call_in_child
+from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
 from harness.infra.exit_codes import ExitCode
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors

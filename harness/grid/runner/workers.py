@@ -24,14 +24,12 @@ for crash records.
 from __future__ import annotations
 
 import contextlib
-import ctypes
 import multiprocessing
 import os
 import shutil
 import signal
 import sys
 import tempfile
-import threading
 import time
 from collections import deque
 from collections.abc import Sequence
@@ -42,32 +40,7 @@ from typing import Any
 
 from harness.grid.runner.backend import OutcomeCallback
 from harness.grid.runner.jobs import Job, crash_outcome, execute
-
-#: Lines of a dead worker's standard error kept in its task's failure record.
-STDERR_TAIL_LINES = 12
-#: Seconds between the watchdog's checks that the parent is alive.
-WATCHDOG_SECONDS = 1.0
-_PR_SET_PDEATHSIG = 1
-#: A worker's first message: imports done, a job's timeout may start counting.
-READY = "ready"
-
-
-def die_with_parent(parent: int) -> None:
-    """Ask for SIGKILL when the parent dies (Linux) and start the orphan watchdog."""
-    if sys.platform.startswith("linux"):
-        with contextlib.suppress(OSError, AttributeError):
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
-    if os.getppid() != parent:  # the parent died before prctl took effect
-        os._exit(1)
-
-    def watch() -> None:
-        while True:
-            time.sleep(WATCHDOG_SECONDS)
-            if os.getppid() != parent:
-                os._exit(1)
-
-    threading.Thread(target=watch, name="covaudit-parent-watchdog", daemon=True).start()
+from harness.infra.child_process import READY, die_with_parent, signal_description, stderr_tail
 
 
 def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
@@ -93,31 +66,6 @@ def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
         outcome = execute(job)
         sys.stderr.flush()
         conn.send(outcome)
-
-
-#: Lines of faulthandler's report that say nothing about the task (module lists and the
-#: frames of the worker machinery itself).
-_NOISE = ("Extension modules:", "multiprocessing/", "harness/grid/runner/", "<string>\", line")
-
-
-def stderr_tail(text: str, *, lines: int = STDERR_TAIL_LINES) -> list[str]:
-    """The last ``lines`` informative lines of a dead worker's standard error."""
-    kept = [line.rstrip() for line in text.splitlines()
-            if line.strip() and not any(noise in line for noise in _NOISE)]
-    return kept[-lines:]
-
-
-def signal_description(exitcode: int | None) -> str:
-    """``killed by signal 6 (SIGABRT)`` for a negative exit code, else the exit status."""
-    if exitcode is None:
-        return "still running"
-    if exitcode < 0:
-        try:
-            name = signal.Signals(-exitcode).name
-        except ValueError:
-            name = "unknown signal"
-        return f"killed by signal {-exitcode} ({name})"
-    return f"exited with status {exitcode}"
 
 
 @dataclass

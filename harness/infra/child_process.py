@@ -1,0 +1,208 @@
+"""Run one function in a child process, so that a native crash or a hang in it is reported.
+
+``call_in_child(fn, *args, timeout=..., what=..., **kwargs)`` runs ``fn`` in a fresh
+``spawn`` process and returns its result or re-raises its exception here. When the child
+dies (os.abort, a segmentation fault inside a native library, os._exit, the out-of-memory
+killer) it raises ``ChildCrashed`` with the signal or exit status and the last lines the
+child wrote to standard error (faulthandler's report included); past ``timeout`` seconds
+the child is killed and ``ChildTimeout`` is raised (counted from the moment the child has
+started, so start-up is not charged to the call). ``fn`` and its arguments must be
+picklable (a module-level function), and so must its result: only results cross the
+boundary.
+
+Children die with their parent: on Linux each asks the kernel for SIGKILL when its parent
+dies (``prctl(PR_SET_PDEATHSIG)``, prctl(2)), and everywhere a watchdog thread exits the
+child when its parent process changes (an orphan is re-parented). Children ignore SIGINT,
+so Ctrl-C reaches only the parent, which stops them. ``spawn``, not ``fork``: numba's and
+OpenMP's thread pools are not safe across ``fork``.
+
+Test hook: a child whose ``stage`` equals the environment variable
+``COVAUDIT_TEST_CRASH_STAGE`` kills itself with SIGSEGV before calling ``fn``, so tests
+can inject a native crash into a real stage of a real command.
+
+This module is infrastructure: it imports nothing from the rest of ``harness``.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import ctypes
+import multiprocessing
+import os
+import signal
+import sys
+import tempfile
+import threading
+import time
+from collections.abc import Callable
+from multiprocessing.connection import Connection, wait
+from pathlib import Path
+from typing import Any
+
+#: Lines of a dead child's standard error kept in its failure record.
+STDERR_TAIL_LINES = 12
+#: Seconds between the watchdog's checks that the parent is alive.
+WATCHDOG_SECONDS = 1.0
+_PR_SET_PDEATHSIG = 1
+#: A child's first message: imports done, a call's timeout may start counting.
+READY = "ready"
+#: Environment variable naming the stage whose child crashes on purpose (tests only).
+CRASH_STAGE_VARIABLE = "COVAUDIT_TEST_CRASH_STAGE"
+
+
+def die_with_parent(parent: int) -> None:
+    """Ask for SIGKILL when the parent dies (Linux) and start the orphan watchdog."""
+    if sys.platform.startswith("linux"):
+        with contextlib.suppress(OSError, AttributeError):
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGKILL), 0, 0, 0)
+    if os.getppid() != parent:  # the parent died before prctl took effect
+        os._exit(1)
+
+    def watch() -> None:
+        while True:
+            time.sleep(WATCHDOG_SECONDS)
+            if os.getppid() != parent:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="covaudit-parent-watchdog", daemon=True).start()
+
+
+
+#: Lines of faulthandler's report that say nothing about the task (module lists and the
+#: frames of the worker machinery itself).
+_NOISE = ("Extension modules:", "multiprocessing/", "harness/grid/runner/", "harness/infra/",
+          "<string>\", line")
+
+
+def stderr_tail(text: str, *, lines: int = STDERR_TAIL_LINES) -> list[str]:
+    """The last ``lines`` informative lines of a dead worker's standard error."""
+    kept = [line.rstrip() for line in text.splitlines()
+            if line.strip() and not any(noise in line for noise in _NOISE)]
+    return kept[-lines:]
+
+
+def signal_description(exitcode: int | None) -> str:
+    """``killed by signal 6 (SIGABRT)`` for a negative exit code, else the exit status."""
+    if exitcode is None:
+        return "still running"
+    if exitcode < 0:
+        try:
+            name = signal.Signals(-exitcode).name
+        except ValueError:
+            name = "unknown signal"
+        return f"killed by signal {-exitcode} ({name})"
+    return f"exited with status {exitcode}"
+
+
+class ChildCrashed(RuntimeError):
+    """The child process died before returning (``signal``, ``exitcode``, ``stderr_tail``)."""
+
+    def __init__(self, message: str, *, exitcode: int | None, stderr_tail: list[str]) -> None:
+        super().__init__(message)
+        self.exitcode = exitcode
+        self.signal = -exitcode if exitcode is not None and exitcode < 0 else None
+        self.stderr_tail = stderr_tail
+
+
+class ChildTimeout(TimeoutError):
+    """The child ran past its timeout and was stopped."""
+
+
+def _child(conn: Connection, stderr_path: str, parent: int, stage: str | None,
+           fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any]) -> None:
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    die_with_parent(parent)
+    fd = os.open(stderr_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
+    os.dup2(fd, 2)
+    os.close(fd)
+    import faulthandler
+
+    faulthandler.enable(file=sys.stderr)
+    conn.send(READY)
+    if stage is not None and os.environ.get(CRASH_STAGE_VARIABLE) == stage:
+        sys.stderr.write(f"{CRASH_STAGE_VARIABLE}={stage}: crashing on purpose\n")
+        sys.stderr.flush()
+        os.kill(os.getpid(), signal.SIGSEGV)
+    try:
+        result: tuple[bool, Any] = (True, fn(*args, **kwargs))
+    except BaseException as exc:  # noqa: BLE001 - every exception goes back to the parent
+        result = (False, exc)
+    sys.stderr.flush()
+    try:
+        conn.send(result)
+    except Exception as exc:  # noqa: BLE001 - an unpicklable result or exception
+        conn.send((False, RuntimeError(f"{type(result[1]).__name__}: {result[1]} "
+                                       f"(could not be sent back: {exc})")))
+
+
+def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = None,
+                  what: str = "the call", stage: str | None = None, **kwargs: Any) -> Any:
+    """``fn(*args, **kwargs)`` in a child process (module docstring).
+
+    ``what`` names the work in error messages (``"the solver plugin 'pkg.mod:f'"``);
+    ``stage`` names it for the crash-injection hook of the tests.
+    """
+    context = multiprocessing.get_context("spawn")
+    with tempfile.TemporaryDirectory(prefix="covaudit-child-") as folder:
+        stderr_path = Path(folder) / "stderr"
+        stderr_path.touch()
+        parent_conn, child_conn = context.Pipe(duplex=False)
+        process = context.Process(target=_child, daemon=True,
+                                  args=(child_conn, str(stderr_path), os.getpid(), stage, fn,
+                                        args, kwargs))
+        process.start()
+        child_conn.close()
+        deadline = None  # counts from the child's READY (start-up is not the call's time)
+        try:
+            while True:
+                left = None if deadline is None else max(0.0, deadline - time.monotonic())
+                ready = wait([parent_conn, process.sentinel], timeout=left)
+                if parent_conn in ready:
+                    try:
+                        message = parent_conn.recv()
+                    except (EOFError, OSError):
+                        break
+                    if message == READY:
+                        deadline = None if timeout is None else time.monotonic() + timeout
+                        continue
+                    ok, value = message
+                    process.join(timeout=10)
+                    _pass_on(stderr_path)
+                    if ok:
+                        return value
+                    raise value
+                if process.sentinel in ready:
+                    break
+                if deadline is not None and time.monotonic() >= deadline:
+                    process.kill()
+                    process.join(timeout=5)
+                    _pass_on(stderr_path)
+                    raise ChildTimeout(f"{what} ran longer than {timeout:g} s and was stopped "
+                                       "(--task-timeout allows longer)")
+        finally:
+            with contextlib.suppress(OSError):
+                parent_conn.close()
+            if process.is_alive():
+                process.kill()
+                process.join(timeout=5)
+        process.join(timeout=5)
+        text = _pass_on(stderr_path, echo=False)
+        lines = stderr_tail(text)
+        message = (f"{what} {signal_description(process.exitcode)} in its child process "
+                   "(a native crash: os.abort, a segmentation fault, os._exit or the "
+                   "out-of-memory killer)")
+        if lines:
+            message += "; last standard-error lines:\n" + "\n".join(f"  | {x}" for x in lines)
+        raise ChildCrashed(message, exitcode=process.exitcode, stderr_tail=lines)
+
+
+def _pass_on(path: Path, *, echo: bool = True) -> str:
+    try:
+        text = path.read_text(encoding="utf-8", errors="replace")
+    except OSError:
+        return ""
+    if text and echo:
+        sys.stderr.write(text)
+        sys.stderr.flush()
+    return text
