@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import sys
 import time
 from pathlib import Path
 
@@ -81,7 +82,7 @@ def test_serial_grid_survives_abort_and_hang(tmp_path, plugin_dir):
     out = tmp_path / "run"
     done = covaudit(["run", str(case), "--out", str(out), "--task-timeout", "4"],
                     plugin_dir=plugin_dir, cwd=tmp_path, timeout=150)
-    assert done.returncode == 1, done.stderr
+    assert done.returncode == 3, done.stderr
     records = _records(out)
     assert records["dense"]["status"] == "ok"
     aborted = records["fault_plugin:abort"]["error"]
@@ -102,7 +103,7 @@ def test_processes_grid_times_out_a_hang(tmp_path, plugin_dir):
     out = tmp_path / "run"
     done = covaudit(["run", str(case), "--out", str(out), "--workers", "2",
                      "--task-timeout", "4"], plugin_dir=plugin_dir, cwd=tmp_path, timeout=150)
-    assert done.returncode == 1, done.stderr
+    assert done.returncode == 3, done.stderr
     records = _records(out)
     assert records["dense"]["status"] == "ok"
     assert records["fault_plugin:hang"]["error"]["type"] == "TaskTimeout"
@@ -306,6 +307,9 @@ CASES: list[tuple[str, int, str]] = [
     ("run {case:timeout=0}", 2, "timing.timeout"),
     ('run {case:timeout="abc"}', 2, "timing.timeout"),
     ("run {case:timingkey=bogus}", 2, "bogus"),
+    # The second problem of a list was reported at the first's index.
+    ("run {case:tol=-1,2}", 2, "solvers[0].tolerances[1]: expected a tolerance in (0, 1)"),
+    ("run {case:grid=0,30}", 2, "pointsets[0].sizes[1]: a tensor grid in 2D needs a perfect"),
     ("run {case:broken}", 2, "case file"),
     ("run {case:empty}", 2, "case file"),
     ("run {case} --only nomatch", 2, "matches --only"),
@@ -347,10 +351,14 @@ def inputs(tmp_path_factory, plugin_dir):
         assert main(["run", str(case), "--out", str(run)]) == 0
     files["run"] = str(run)
     frame = pd.read_csv(run / "results.csv", dtype=str)
+    with pytest.MonkeyPatch.context() as mp:  # a run of the first task only
+        mp.setenv("NUMBA_DISABLE_JIT", "1")
+        assert main(["run", str(case), "--out", str(root / "halfrun"),
+                     "--only", frame["key"].iloc[0]]) == 0
+    files["halfrun"] = str(root / "halfrun")
     for name, edit in (
             ("other", lambda f: f.assign(pair_key="x" + f["pair_key"], key="x" + f["key"])),
-            ("nanrun", lambda f: f.assign(loglik_abs_err="nan")),
-            ("halfrun", lambda f: f.iloc[:1])):
+            ("nanrun", lambda f: f.assign(loglik_abs_err="nan"))):
         target = root / name
         target.mkdir()
         for extra in ("run.json", "timings.csv"):
@@ -373,6 +381,7 @@ _CASE_VARIANTS = {
     "timeout=0": dict(extra="timeout = 0\n"),
     'timeout="abc"': dict(extra='timeout = "abc"\n'),
     "timingkey=bogus": dict(extra="bogus = 1\n"),
+    "tol=-1,2": dict(solvers='[[solvers]]\nname = "hodlr"\ntolerances = [-1e-4, 2.0]\n'),
 }
 
 
@@ -382,6 +391,8 @@ def _case_file(root: Path, variant: str) -> str:
         path.write_text("name = 'x'\n[[pointsets]\n")
     elif variant == "empty":
         path.write_text("")
+    elif variant == "grid=0,30":
+        path.write_text(case_text(sizes="[0, 30]").replace('"uniform"', '"tensor_grid"'))
     elif variant == "kernel=gausian":
         path.write_text(case_text().replace('family = "exponential"', 'family = "gausian"'))
     else:
@@ -419,3 +430,254 @@ def test_bad_input_table(template, code, phrase, inputs, capsys, monkeypatch):
 
 def test_the_table_is_large_enough():
     assert len(CASES) >= 100
+
+
+# -- issue 23: files verified, unique folders, the environment, failures listed --------
+
+def _cut_mid_line(path: Path) -> bytes:
+    """Cut ``path`` in the middle of its last data row; return the bytes left."""
+    text = path.read_bytes()
+    last = text.rstrip(b"\n").rfind(b"\n") + 1
+    cut = text[:last + (len(text) - last) // 2]
+    path.write_bytes(cut)
+    return cut
+
+
+def _copy_run(source: str, target: Path) -> Path:
+    import shutil
+
+    shutil.copytree(source, target)
+    return target
+
+
+def test_a_results_table_cut_mid_line_is_rebuilt_from_the_task_records(tmp_path, inputs,
+                                                                       plugin_dir):
+    # A results.csv cut off mid-line was read as data: compare paired a half row and
+    # dropped tasks, report and export counted too few.
+    cut = _copy_run(inputs["run"], tmp_path / "cut")
+    records = sorted(p.name for p in (cut / "tasks").glob("*.json"))
+    left = _cut_mid_line(cut / "results.csv")
+    for argv, phrase in ((["compare", inputs["run"], str(cut), "--no-report",
+                           "--accuracy-only"], "2 of 2 baseline task(s) paired"),
+                         (["report", str(cut)], "report.html"),
+                         (["export", str(cut), "--to", str(tmp_path / "export")],
+                          "scaling.md")):
+        done = covaudit(argv, plugin_dir=plugin_dir, cwd=tmp_path)
+        assert done.returncode == 0, done.stderr
+        assert phrase in done.stdout
+        assert f"{cut / 'results.csv'}: its last line is cut off" in done.stderr
+        assert "rebuilt from the 2 task records" in done.stderr
+        assert "Traceback" not in done.stderr
+    assert "0 missing" in covaudit(["compare", inputs["run"], str(cut), "--no-report",
+                                    "--accuracy-only"], plugin_dir=plugin_dir,
+                                   cwd=tmp_path).stdout
+    # nothing lost: the records are all there and the damaged file is left as it was
+    assert sorted(p.name for p in (cut / "tasks").glob("*.json")) == records
+    assert (cut / "results.csv").read_bytes() == left
+
+
+@pytest.mark.parametrize("verb", ["compare", "report", "export"])
+def test_a_cut_results_table_without_records_is_refused_with_repair_advice(
+        verb, tmp_path, inputs, capsys, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    cut = _copy_run(inputs["run"], tmp_path / "cut")
+    import shutil
+
+    shutil.rmtree(cut / "tasks")
+    left = _cut_mid_line(cut / "results.csv")
+    argv = {"compare": ["compare", inputs["run"], str(cut), "--no-report"],
+            "report": ["report", str(cut)],
+            "export": ["export", str(cut), "--to", str(tmp_path / "export")]}[verb]
+    assert main(argv) == 2
+    err = capsys.readouterr().err
+    assert f"{cut / 'results.csv'}: its last line is cut off" in err
+    assert "no task records" in err and "to repair it" in err
+    assert len(err.strip().splitlines()) == 1
+    assert (cut / "results.csv").read_bytes() == left
+    assert not (tmp_path / "export").exists() or not any((tmp_path / "export").iterdir())
+
+
+def test_a_results_table_short_of_run_json_is_not_trusted(tmp_path, inputs, capsys):
+    # Complete lines, but fewer rows than run.json says the run wrote (cut at a line end).
+    short = _copy_run(inputs["run"], tmp_path / "short")
+    lines = (short / "results.csv").read_text().splitlines(keepends=True)
+    (short / "results.csv").write_text("".join(lines[:2]))
+    data = __import__("harness.analysis.load", fromlist=["load_run"]).load_run(short)
+    assert len(data.results) == 2
+    assert any("where run.json says the run wrote 2" in note for note in data.notes)
+    import shutil
+
+    shutil.rmtree(short / "tasks")
+    assert main(["report", str(short)]) == 2
+    assert "run.json says the run wrote 2" in capsys.readouterr().err
+
+
+def test_non_ascii_case_names_get_their_own_folders(tmp_path, monkeypatch, capsys):
+    # Two case names of non-ASCII letters only both wrote to reports/run.
+    monkeypatch.chdir(tmp_path)
+    monkeypatch.setenv("NUMBA_DISABLE_JIT", "1")
+    folders: dict[str, set[str]] = {}
+    for name in ("测试", "实验", "smoke_ascii"):
+        case = tmp_path / "case.toml"
+        case.write_text(case_text(name=name), encoding="utf-8")
+        seen = set(os.listdir(tmp_path / "reports")) if (tmp_path / "reports").is_dir() \
+            else set()
+        assert main(["run", str(case)]) == 0
+        folders[name] = set(os.listdir(tmp_path / "reports")) - seen
+    capsys.readouterr()
+    assert len(folders["测试"]) == len(folders["实验"]) == 1
+    assert folders["测试"] != folders["实验"]
+    assert all(f.startswith("run-") for f in folders["测试"] | folders["实验"])
+    assert folders["smoke_ascii"] == {"smoke_ascii"}  # ASCII names keep today's folder
+    # ... so an existing run resumes there, and a non-ASCII one resumes in its own
+    for name in ("smoke_ascii", "测试"):
+        (tmp_path / "case.toml").write_text(case_text(name=name), encoding="utf-8")
+        assert main(["run", str(tmp_path / "case.toml")]) == 0
+        assert "1 already done" in capsys.readouterr().out
+    assert len(list((tmp_path / "reports").iterdir())) == 3
+
+
+def _first_run(tmp_path: Path, monkeypatch) -> tuple[Path, Path, dict[str, bytes]]:
+    """A finished one-task run, and its records as bytes (to check nothing is lost)."""
+    monkeypatch.setenv("NUMBA_DISABLE_JIT", "1")
+    case = tmp_path / "case.toml"
+    case.write_text(case_text(sizes="[30, 40]"))
+    out = tmp_path / "run"
+    assert main(["run", str(case), "--out", str(out), "--only", "uniform-n30-*"]) == 0
+    return case, out, {p.name: p.read_bytes() for p in (out / "tasks").iterdir()}
+
+
+def test_run_without_dask_names_the_extra_and_resumes(tmp_path, monkeypatch, capsys):
+    case, out, before = _first_run(tmp_path, monkeypatch)
+    assert len(before) == 1
+    capsys.readouterr()
+    with monkeypatch.context() as mp:
+        mp.setitem(sys.modules, "distributed", None)  # as if the extra were not installed
+        assert main(["run", str(case), "--out", str(out), "--dask-local", "2"]) == 2
+        err = capsys.readouterr().err
+        assert len(err.strip().splitlines()) == 1, err
+        assert "--dask-local" in err and 'pip install "covaudit[dask]"' in err
+        from harness.grid.runner.dask_check import DaskUnavailableError, check_dask_options
+
+        with pytest.raises(DaskUnavailableError, match="--scheduler needs Dask"):
+            check_dask_options(dask_local=None, scheduler="tcp://127.0.0.1:8786")
+    assert {p.name: p.read_bytes() for p in (out / "tasks").iterdir()} == before
+    assert main(["run", str(case), "--out", str(out)]) == 0
+    assert "1 already done, 1 run" in capsys.readouterr().out
+
+
+def test_an_unreachable_scheduler_gives_the_address_and_timeout(tmp_path, monkeypatch,
+                                                               capsys):
+    pytest.importorskip("distributed")
+    import socket
+
+    from harness.grid.runner import dask_check
+
+    case, out, before = _first_run(tmp_path, monkeypatch)
+    capsys.readouterr()
+    with socket.socket() as probe:  # a port nothing listens on
+        probe.bind(("127.0.0.1", 0))
+        address = f"tcp://127.0.0.1:{probe.getsockname()[1]}"
+    monkeypatch.setattr(dask_check, "SCHEDULER_TIMEOUT_S", 2.0)
+    start = time.monotonic()
+    assert main(["run", str(case), "--out", str(out), "--scheduler", address]) == 2
+    assert time.monotonic() - start < 30
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1, err
+    assert f"--scheduler {address}" in err and "within 2 s" in err
+    with pytest.raises(dask_check.DaskUnavailableError, match="within 2 s"):
+        dask_check.check_dask_options(dask_local=None, scheduler=address)
+    assert {p.name: p.read_bytes() for p in (out / "tasks").iterdir()} == before
+
+
+def test_a_full_disk_mid_run_names_the_path_and_what_was_kept(tmp_path, monkeypatch,
+                                                              capsys):
+    # A full disk mid-run ended in a chained traceback naming no path.
+    import errno
+
+    from harness.grid.store import run_directory
+
+    case, out, before = _first_run(tmp_path, monkeypatch)
+    real = run_directory.atomic_write_json
+
+    def full_disk(path, value):
+        if Path(path).parent.name == "tasks" and Path(path).name not in before:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real(path, value)
+
+    capsys.readouterr()
+    with monkeypatch.context() as mp:
+        mp.setattr(run_directory, "atomic_write_json", full_disk)
+        assert main(["run", str(case), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1, err
+    assert str(out / "tasks") in err and "the disk is full" in err
+    assert "1 task record(s) saved before it are kept" in err
+    assert "run the same command again" in err
+    assert {p.name: p.read_bytes() for p in (out / "tasks").iterdir()
+            if not p.name.startswith(".")} == before
+    assert main(["run", str(case), "--out", str(out)]) == 0  # resumes once there is room
+    assert "1 already done, 1 run" in capsys.readouterr().out
+
+
+def test_an_unwritable_output_is_refused_before_any_work(tmp_path, monkeypatch, capsys):
+    # Tests run as root, where a read-only mode does not stop writes: a path under a
+    # regular file cannot be created by anyone.
+    monkeypatch.setenv("NUMBA_DISABLE_JIT", "1")
+    case = tmp_path / "case.toml"
+    case.write_text(case_text())
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a directory\n")
+    out = blocker / "run"
+    start = time.monotonic()
+    assert main(["run", str(case), "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1, err
+    assert str(out) in err and "--out" in err
+    assert time.monotonic() - start < 10  # refused before any task ran
+    assert blocker.read_text() == "not a directory\n"
+
+
+def test_a_rerun_lists_the_failures_it_keeps(tmp_path, plugin_dir):
+    # A rerun of a run with failed tasks exited 0 and did not list them; a run whose
+    # tasks timed out exited 0 too.
+    case = tmp_path / "case.toml"
+    case.write_text(case_text(solvers='[[solvers]]\nname = "dense"\n'
+                              + plugin_solvers("hang")))
+    out = tmp_path / "run"
+    argv = ["run", str(case), "--out", str(out), "--task-timeout", "3"]
+    first = covaudit(argv, plugin_dir=plugin_dir, cwd=tmp_path, timeout=150)
+    assert first.returncode == 3, first.stderr
+    assert "failed: " in first.stdout and "TaskTimeout" in first.stdout
+    again = covaudit(argv, plugin_dir=plugin_dir, cwd=tmp_path, timeout=150)
+    assert again.returncode == 3, again.stderr
+    listed = [line for line in again.stdout.splitlines() if "failed: " in line]
+    assert len(listed) == 1 and "fault_plugin:hang" in listed[0]
+    assert "TaskTimeout" in listed[0] and "--redo-failed" in listed[0]
+    assert "1 already done" in again.stdout and "1 earlier failures kept" in again.stdout
+    assert len(list((out / "tasks").glob("*.json"))) == 2
+
+
+def test_a_semicolon_separated_file_is_read_and_said_so(tmp_path, capsys, caplog,
+                                                       monkeypatch):
+    # "no column x; columns present: x;y;v" gave no hint about the separator.
+    monkeypatch.setenv("NUMBA_DISABLE_JIT", "1")
+    plain = write_data(tmp_path / "plain.csv")
+    semi = tmp_path / "semicolon.csv"
+    semi.write_text(plain.read_text().replace(",", ";").replace(".", ","))
+    argv = ["evaluate", "--coords", "x,y", "--value", "z", "--kernel", "exponential",
+            "--param", "lengthscale=0.3", "--param", "nugget=1e-3", "--json"]
+    assert main([argv[0], str(plain), *argv[1:]]) == 0
+    expected = json.loads(capsys.readouterr().out)
+    with caplog.at_level("WARNING"):
+        assert main([argv[0], str(semi), *argv[1:]]) == 0
+    got = json.loads(capsys.readouterr().out)
+    assert got["loglik"] == pytest.approx(expected["loglik"], rel=1e-12)
+    assert f"{semi}: read as a file with fields separated by ';' and a decimal comma" \
+        in caplog.text
+    from harness.check.datafile import DataFileError, load_observations
+
+    odd = tmp_path / "mixed.csv"  # a header with a comma is read with commas: the hint
+    odd.write_text("x;y,z\n0.1;0.2,1.0\n")
+    with pytest.raises(DataFileError, match="seems to use ';' between fields"):
+        load_observations(odd, coords=["x"], value="z")
