@@ -502,7 +502,9 @@ def test_a_results_table_short_of_run_json_is_not_trusted(tmp_path, inputs, caps
     short = _copy_run(inputs["run"], tmp_path / "short")
     lines = (short / "results.csv").read_text().splitlines(keepends=True)
     (short / "results.csv").write_text("".join(lines[:2]))
-    data = __import__("harness.analysis.load", fromlist=["load_run"]).load_run(short)
+    from harness.analysis.load import load_run
+
+    data = load_run(short)
     assert len(data.results) == 2
     assert any("where run.json says the run wrote 2" in note for note in data.notes)
     import shutil

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 import shutil
 from pathlib import Path
@@ -175,3 +176,37 @@ def test_atomic_files_get_the_umask_mode(tmp_path):
     mask = os.umask(0)
     os.umask(mask)
     assert path.stat().st_mode & 0o777 == 0o666 & ~mask
+
+
+def test_complete_rows_keep_quoted_line_ends_and_drop_a_cut_row(tmp_path):
+    from harness.grid.store.table_check import complete_rows
+
+    path = tmp_path / "t.csv"
+    path.write_text('key,notes\nk1,"two\nlines, quoted"\nk2,plain\n')
+    table = complete_rows(path)
+    assert table.keys == ("k1", "k2") and not table.damage
+    path.write_text('key,notes\nk1,"two\nlines"\nk2,"cut inside\n')
+    table = complete_rows(path)
+    assert table.keys == ("k1",) and "line 4" in table.damage[0]
+    path.write_text("key,notes\nk1,a\nk2,b,extra\nk3")
+    table = complete_rows(path)
+    assert table.keys == ("k1",)
+    assert "cut off" in table.damage[0] and "line 3" in table.damage[1]
+
+
+def test_a_stale_results_table_is_rebuilt_from_the_records(tmp_path):
+    # The table names tasks the records do not, or misses some: the records decide.
+    from harness.grid.store.table_check import RESULTS_ROWS_KEY, trusted_results
+
+    store = RunStore(tmp_path)
+    store.prepare()
+    for key in ("k1", "k2"):
+        record = new_record(key, key, {"n": 10, "solver": "s"}, status="ok", started="t")
+        store.write_record(record)
+    rows = store.write_tables()
+    assert rows == 2 and trusted_results(tmp_path, {RESULTS_ROWS_KEY: 2}).notice is None
+    store.write_record(new_record("k3", "k3", {"n": 10, "solver": "s"}, status="ok",
+                                  started="t"))
+    checked = trusted_results(tmp_path, {})
+    assert "1 of the 3 task records in tasks/ have no row" in (checked.notice or "")
+    assert len(pd.read_csv(io.StringIO(checked.text))) == 3
