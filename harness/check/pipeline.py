@@ -69,10 +69,11 @@ from harness.check.fitting import (
     plan_fit,
     standard_errors,
 )
+from harness.infra.option_specs import HOLDOUT_FRACTION, LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
+from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
 from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
-from harness.linalg.dense_budget import check_dense_budget
 from harness.solvers.plugins import SolverLoadError
 from harness.solvers.protocol import Factorization
 from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver
@@ -196,8 +197,8 @@ def split_holdout(n: int, fraction: float, rng: np.random.Generator
                   ) -> tuple[np.ndarray, np.ndarray]:
     """Random (conditioning, holdout) index arrays, holdout of round(fraction n) >= 5
     points (the kriging evaluation; the fit and every other metric use all points)."""
-    if not 0.0 < fraction <= 0.5:
-        raise CheckError(f"--holdout: expected a fraction in (0, 0.5], got {fraction!r}")
+    if (core := HOLDOUT_FRACTION.problem(fraction)) is not None:
+        raise CheckError(f"--holdout: {core}")
     m = max(5, int(round(fraction * n)))
     perm = rng.permutation(n)
     return np.sort(perm[m:]), np.sort(perm[:m])
@@ -352,12 +353,16 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     say: Progress = progress or (lambda _msg: None)
     start = time.perf_counter()
     tols = tuple(sorted({float(t) for t in options.tolerances}, reverse=True))
-    if not tols or any(not 0 < t < 1 for t in tols):
-        raise CheckError(f"--tolerances: expected numbers in (0, 1), got {options.tolerances}")
-    if isinstance(options.solver_seeds, bool) or not isinstance(options.solver_seeds, int) \
-            or not 1 <= options.solver_seeds <= 100:
-        raise CheckError(f"--solver-seeds: expected an integer in 1..100, got "
-                         f"{options.solver_seeds!r}")
+    if not tols:
+        raise CheckError(f"--tolerances: expected at least one tolerance, got "
+                         f"{options.tolerances}")
+    for core in (TOLERANCE.problem(t) for t in options.tolerances):
+        if core is not None:
+            raise CheckError(f"--tolerances: {core}")
+    if (core := SOLVER_SEEDS.problem(options.solver_seeds)) is not None:
+        raise CheckError(f"--solver-seeds: {core}")
+    if (core := LADDER_FACTOR.problem(options.ladder_factor)) is not None:
+        raise CheckError(f"--ladder-factor: {core}")
     if not (math.isfinite(options.fit_time_budget) and options.fit_time_budget > 0):
         raise CheckError(f"--fit-time-budget: expected a positive number of seconds, got "
                          f"{options.fit_time_budget!r}")

@@ -31,13 +31,21 @@ from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
 from harness.cli.flag_types import (
     float_range,
-    int_range,
     nonnegative_int,
     positive_float,
     positive_int,
 )
 from harness.cli.params import ParamSyntaxError, parse_params
+from harness.infra.child_process import StageCrashed
 from harness.infra.exit_codes import ExitCode
+from harness.infra.option_specs import (
+    HOLDOUT_FRACTION,
+    PROBES,
+    SOLVER_SEEDS,
+    TOLERANCE,
+    OptionError,
+)
+from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
 from harness.model import MEAN_MODELS
 from harness.model.json_values import json_text as strict_json
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
@@ -76,13 +84,13 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
                    help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
     p.add_argument("--holdout",
-                   type=float_range("--holdout", 0.0, 1.0, low_open=True, high_open=True),
+                   type=HOLDOUT_FRACTION.argparse_type(),
                    default=0.1,
                    help="fraction held out for kriging (default 0.1)")
     p.add_argument("--drop-missing", action="store_true", help="drop rows with NaN/inf")
     p.add_argument("--average-duplicates", action="store_true",
                    help="average values at repeated locations")
-    p.add_argument("--probes", type=positive_int("--probes"), default=16,
+    p.add_argument("--probes", type=PROBES.argparse_type(), default=16,
                    help="probe vectors of the score-difference estimate")
     p.add_argument("--dense-fit-max-n", type=positive_int("--dense-fit-max-n"), default=None,
                    help="optional cap on n for the dense fit (default: the memory budget "
@@ -95,7 +103,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--solver", default="hodlr",
                    help="solver under test: hodlr, an entry-point name, or "
                         "package.module:factory (same registry as run)")
-    p.add_argument("--solver-seeds", type=int_range("--solver-seeds", 1, 1000),
+    p.add_argument("--solver-seeds", type=SOLVER_SEEDS.argparse_type(),
                    default=DEFAULT_SOLVER_SEEDS, metavar="K",
                    help="seeds of the solver's randomness per tolerance; the worst decides "
                         f"(default {DEFAULT_SOLVER_SEEDS})")
@@ -103,7 +111,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="auto (dense within the memory budget, operator beyond), dense, "
                         "operator, or ladder (extra evidence only)")
     p.add_argument("--ladder-factor",
-                   type=float_range("--ladder-factor", 1.0, None, low_open=True),
+                   type=LADDER_FACTOR_SPEC.argparse_type(),
                    default=LADDER_FACTOR,
                    help=f"ladder reference: the solver at tol / factor (default "
                         f"{LADDER_FACTOR:g})")
@@ -121,13 +129,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
 
 def _tolerances(text: str) -> tuple[float, ...]:
     try:
-        values = tuple(float(v) for v in text.split(",") if v.strip())
-    except ValueError:
-        raise CheckError(f"--tolerances {text!r}: expected comma-separated numbers, "
-                         "e.g. 1e-2,1e-4,1e-6") from None
-    if not values or any(not (math.isfinite(v) and 0 < v < 1) for v in values):
-        raise CheckError(f"--tolerances {text!r}: every tolerance must lie in (0, 1)")
-    return values
+        return tuple(float(v) for v in TOLERANCE.parse_list(text, where="--tolerances"))
+    except OptionError as exc:
+        raise CheckError(str(exc)) from None
 
 
 def options_from_args(args: argparse.Namespace) -> CheckOptions:

@@ -24,6 +24,7 @@ from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.geometry.spread import spread_warnings
 from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
 from harness.infra.exit_codes import ExitCode
+from harness.infra.option_specs import PROBES, TOLERANCE
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
@@ -52,14 +53,14 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "package.module:factory")
     p.add_argument("--separable", action="store_true",
                    help="product of 1D kernels along the axes (needed by --solver kronecker)")
-    p.add_argument("--tol", type=tolerance("--tol"), default=1e-8,
+    p.add_argument("--tol", type=TOLERANCE.argparse_type(), default=1e-8,
                    help="compression tolerance (hodlr, plugins)")
     p.add_argument("--leaf-size", type=int_range("--leaf-size", 2, 2**20), default=128,
                    help="cluster-tree leaf size (hodlr)")
     p.add_argument("--trace", choices=("exact", "hutchinson", "hutchpp"), default=None,
                    help="trace estimator for the score (default: exact for dense, "
                         "hutchpp for compressed solvers)")
-    p.add_argument("--probes", type=positive_int("--probes"), default=64,
+    p.add_argument("--probes", type=PROBES.argparse_type(), default=64,
                    help="probe vectors for trace estimates (--solver operator: the probe "
                         "budget for log det and traces)")
     p.add_argument("--preconditioner", default="hodlr", metavar="NAME|pkg.mod:factory",

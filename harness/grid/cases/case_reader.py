@@ -54,6 +54,7 @@ from harness.grid.cases.case_schema import Checker
 from harness.grid.cases.problems import CaseFileError, CaseProblem
 from harness.grid.cases.units import parse_bytes
 from harness.grid.tasks import ALL_REFERENCE_KINDS, METRIC_GROUPS, REFERENCE_KINDS, PointSetSpec
+from harness.infra.option_specs import LADDER_FACTOR, PROBES, TOLERANCE
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError, make_kernel
 from harness.model.mean import MEAN_MODELS
 
@@ -144,7 +145,9 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
     trace = _subtable(check, doc, "trace", ("method", "probes"))
     trace_method = check.take_str(trace, "method", "trace", default="hutchpp",
                                   choices=TRACE_METHODS) or "hutchpp"
-    probes = check.take_int(trace, "probes", "trace", default=32, minimum=1)
+    probes = check.take_int(trace, "probes", "trace", default=32)
+    if not check.spec("trace.probes", PROBES, probes):
+        probes = 32
 
     metrics = _subtable(check, doc, "metrics",
                         ("compute", "holdout", "perturbation", "power_iterations"))
@@ -169,9 +172,10 @@ def case_from_text(text: str, *, file: str, base: Path, default_name: str,
     reference = _subtable(check, doc, "reference", ("order", "ladder_factor", "sample_tol"))
     order = check.take_list(reference, "order", "reference", item=check.choice(ALL_REFERENCE_KINDS),
                             default=list(REFERENCE_KINDS))
-    ladder_factor = check.take_number(reference, "ladder_factor", "reference", default=100.0)
-    if ladder_factor is not None and ladder_factor <= 1:
-        check.problem("reference.ladder_factor", f"expected a number > 1, got {ladder_factor!r}")
+    ladder_factor = check.take_number(reference, "ladder_factor", "reference", default=100.0,
+                                      positive=False)
+    if ladder_factor is not None:
+        check.spec("reference.ladder_factor", LADDER_FACTOR, ladder_factor)
     sample_tol = check.take_number(reference, "sample_tol", "reference", default=1e-10)
 
     budget = _subtable(check, doc, "budget", ("memory", "time"))
@@ -314,11 +318,9 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
     check.finish_table(table, path, SOLVER_KEYS)
     name = check.take_str(table, "name", path, required=True)
     tolerances = []
-    for where, tol in check.take_items(table, "tolerances", path, item=check.positive_number):
-        if tol < 1.0:
-            tolerances.append(tol)
-        else:
-            check.problem(where, f"expected a tolerance in (0, 1), got {tol!r}")
+    for _where, tol in check.take_items(table, "tolerances", path,
+                                        item=check.spec_item(TOLERANCE)):
+        tolerances.append(float(tol))
     max_n = table.get("max_n")
     if max_n is not None:
         max_n = check.positive_int(max_n, f"{path}.max_n")

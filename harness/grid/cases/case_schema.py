@@ -13,6 +13,7 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 from typing import Any
 
 from harness.grid.cases.problems import CaseProblem, unknown_key_message
+from harness.infra.option_specs import OptionSpec
 
 _MISSING = object()
 
@@ -42,6 +43,20 @@ class Checker:
 
     def problem(self, path: str, message: str) -> None:
         self.problems.append(CaseProblem(self.file, path, message))
+
+    def spec(self, path: str, spec: OptionSpec, value: object) -> bool:
+        """Record the core message of ``spec`` (``harness.infra.option_specs``) for a bad
+        ``value`` at ``path``; True when the value is valid."""
+        core = spec.problem(value)
+        if core is not None:
+            self.problem(path, core)
+        return core is None
+
+    def spec_item(self, spec: OptionSpec) -> Callable[[Any, str], Any]:
+        """A ``take_items`` item check through ``spec`` (its core message on a bad item)."""
+        def check(value: Any, full: str) -> Any:
+            return value if self.spec(full, spec, value) else _MISSING
+        return check
 
     # -- generic -----------------------------------------------------------------------
     def finish_table(self, table: Mapping[str, Any], path: str, valid: Iterable[str]) -> None:
