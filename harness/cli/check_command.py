@@ -36,7 +36,6 @@ from harness.cli.flag_types import (
     positive_int,
 )
 from harness.cli.params import ParamSyntaxError, parse_params
-from harness.infra.child_process import StageCrashed
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,
