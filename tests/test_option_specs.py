@@ -32,7 +32,7 @@ SMOKE = (ROOT / "cases" / "smoke.toml").read_text(encoding="utf-8")
 #: (spec, CLI verb and flag or None, case-file (table, key) or None, pipeline field or
 #: None, bad values); each option exists in at least two of the three.
 OPTIONS = [
-    (SOLVER_SEEDS, ("check", "--solver-seeds"), None, "solver_seeds", [0, 101, 1000]),
+    (SOLVER_SEEDS, ("check", "--solver-seeds"), None, "solver_seeds", [0, 1001, -5]),
     (HOLDOUT_FRACTION, ("check", "--holdout"), None, "holdout", [0.0, 0.6, 1.5]),
     (TOLERANCE, ("check", "--tolerances"), ("solvers", "tolerances"), "tolerances",
      [0.0, 1.0, 2.0, -1e-3]),
@@ -110,7 +110,7 @@ def test_same_core_message_everywhere(spec: OptionSpec, cli: tuple[str, str] | N
 
 
 def test_valid_values_pass_unchanged() -> None:
-    assert SOLVER_SEEDS.parse("100") == 100
+    assert SOLVER_SEEDS.parse("1000") == 1000
     assert HOLDOUT_FRACTION.parse("0.5") == 0.5
     assert TOLERANCE.parse_list("1e-2, 1e-8", where="--tolerances") == (1e-2, 1e-8)
     assert LADDER_FACTOR.validate(100, where="x") == 100.0
@@ -119,7 +119,7 @@ def test_valid_values_pass_unchanged() -> None:
 def test_text_that_is_no_number_is_shown_as_given() -> None:
     with pytest.raises(OptionError) as info:
         SOLVER_SEEDS.parse("three")
-    assert info.value.core == "expected an integer in [1, 100], got 'three'"
+    assert info.value.core == "expected an integer in [1, 1000], got 'three'"
 
 
 def test_a_list_of_values_against_an_interval_for_knob_declarations() -> None:

@@ -6,7 +6,7 @@ command line takes its ``argparse`` type from the spec (``OptionSpec.argparse_ty
 case-file reader and the pipeline call ``OptionSpec.validate`` with where the value came
 from, so one bad value gives the same core message whichever way it arrives:
 
-    --solver-seeds: expected an integer in [1, 100], got 0
+    --solver-seeds: expected an integer in [1, 1000], got 0
     case.toml:reference.ladder_factor: expected a number > 1, got 0.5
 
 The constraints follow the model of scikit-learn's declared ``_parameter_constraints``
@@ -46,16 +46,18 @@ class OptionError(ValueError):
 class Interval:
     """Numbers (``kind`` int or float) between ``low`` and ``high`` (None: unbounded).
 
-    ``closed`` says which ends belong to the interval, as in scikit-learn's ``Interval``.
+    ``closed`` says which ends belong to the interval, as in scikit-learn's ``Interval``;
+    ``noun`` names a value in messages (default "an integer" or "a number").
     """
 
     kind: type
     low: float | None
     high: float | None
     closed: Closed = "both"
+    noun: str | None = None
 
     def describe(self) -> str:
-        noun = "an integer" if self.kind is int else "a number"
+        noun = self.noun or ("an integer" if self.kind is int else "a number")
         low_in = self.closed in ("both", "left")
         high_in = self.closed in ("both", "right")
         if self.low is not None and self.high is not None:
@@ -184,7 +186,7 @@ def check_values(values: Iterable[object], interval: Interval, *, where: str
 
 #: Seeds of the solver's randomness per tolerance (``check --solver-seeds``).
 SOLVER_SEEDS = OptionSpec(
-    "solver_seeds", int, Interval(int, 1, 100), 3,
+    "solver_seeds", int, Interval(int, 1, 1000), 3,
     "seeds of the solver's randomness per tolerance; the worst decides")
 #: Fraction of the points held out for the kriging evaluation (``check --holdout``).
 HOLDOUT_FRACTION = OptionSpec(
@@ -193,7 +195,8 @@ HOLDOUT_FRACTION = OptionSpec(
 #: A compression tolerance (``--tolerances``, ``evaluate --tol``, a case file's
 #: ``[[solvers]] tolerances``).
 TOLERANCE = OptionSpec(
-    "tolerance", float, Interval(float, 0.0, 1.0, closed="neither"), 1e-8,
+    "tolerance", float, Interval(float, 0.0, 1.0, closed="neither", noun="a tolerance"),
+    1e-8,
     "compression tolerance")
 #: The ladder reference is the solver at tol / ladder_factor.
 LADDER_FACTOR = OptionSpec(
