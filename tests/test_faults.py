@@ -117,10 +117,11 @@ def test_evaluate_reports_a_crashing_plugin(tmp_path, plugin_dir, capsys, monkey
     data = write_data(tmp_path / "data.csv")
     base = ["evaluate", str(data), "--coords", "x,y", "--value", "z", "--kernel",
             "exponential", "--param", "lengthscale=0.3", "--param", "nugget=1e-3"]
-    assert main([*base, "--solver", "fault_plugin:abort"]) == 2
+    # exit 3: the solver under test failed (the exit-code table)
+    assert main([*base, "--solver", "fault_plugin:abort"]) == 3
     err = capsys.readouterr().err
     assert "SIGABRT" in err and "about to abort" in err
-    assert main([*base, "--solver", "fault_plugin:hang", "--task-timeout", "2"]) == 2
+    assert main([*base, "--solver", "fault_plugin:hang", "--task-timeout", "2"]) == 3
     assert "ran longer than 2 s" in capsys.readouterr().err
 
 

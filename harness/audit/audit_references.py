@@ -4,7 +4,8 @@ Each gives ``ReferenceSides`` at a tolerance: the likelihood pieces of all n poi
 kriging of the held-out points conditioned on the other points, a Sigma product on those
 points and the reference log-likelihood's own standard error (0 when exact).
 
-* ``DenseReference``: the certified dense Cholesky (DESIGN section 4, item 1), the same
+* ``DenseReference``: the certified dense Cholesky (first in the reference order of
+  DEVELOPERS.md), the same
   at every tolerance; certified when the scaled residual of both factorizations (all
   points, the kriging conditioning points) is below LAPACK's pass ratio 30.
 * ``LadderReference``: the solver under test at tol / ladder factor, seed index 0: a
@@ -23,6 +24,7 @@ from collections.abc import Mapping
 
 import numpy as np
 
+from harness.audit.dense_sides import DenseSides, dense_sides
 from harness.audit.engine import (
     AuditData,
     ReferenceInfo,
@@ -32,7 +34,9 @@ from harness.audit.engine import (
 )
 from harness.audit.sides import KrigingSide, evaluate_side, kriging_side
 from harness.audit.solver_seeds import seeded_options, solver_seed
-from harness.references import CERTIFICATE_THRESHOLD, DenseCholesky
+from harness.infra.child_process import run_stage
+from harness.references import CERTIFICATE_THRESHOLD
+from harness.references.operator.products import KernelOperator
 from harness.solvers.registry import ResolvedSolver
 
 OPERATOR_MODULE = "harness.references.operator"
@@ -49,30 +53,36 @@ def operator_available() -> bool:
         return False
 
 
+#: What to try when the dense reference crashes (the one-line message of ``run_stage``).
+DENSE_CRASH_ADVICE = ("fewer BLAS threads (OPENBLAS_NUM_THREADS=1), a smaller "
+                      "--memory-budget, or --reference operator (the exact operator)")
+
+
 class DenseReference:
-    """The certified dense Cholesky of all points and of the kriging conditioning points."""
+    """The certified dense Cholesky of all points and of the kriging conditioning points.
+
+    The factorizations run in a child process (``harness.infra.child_process``): a native
+    crash in the BLAS becomes ``StageCrashed`` naming the stage and n, not a dead
+    process. The Sigma product on the conditioning points (the efficiency criteria) is
+    the exact product from kernel entries (``KernelOperator``), not the factor.
+    """
 
     def __init__(self, data: AuditData, *, memory_budget: int | None = None) -> None:
-        x, kernel = data.points, data.kernel
-        train = data.train
-        chol = DenseCholesky(x, kernel, memory_budget=memory_budget)
-        cert_full = float(chol.certificate if chol.certificate is not None else np.nan)
-        full = evaluate_side("dense", chol, x, data.y, kernel, mean=data.mean,
-                             probes=data.probes,
-                             factor_seconds=chol.seconds["assemble"] + chol.seconds["factor"])
-        del chol
-        chol_t = DenseCholesky(x[train], kernel, memory_budget=memory_budget)
-        cert_t = float(chol_t.certificate if chol_t.certificate is not None else np.nan)
-        ks = kriging_side("dense", chol_t, x[train], data.y[train], kernel, x[data.holdout],
-                          mean=data.mean)
+        sides: DenseSides = run_stage(
+            dense_sides, data.points, data.y, data.kernel, mean=data.mean,
+            holdout=data.holdout, probes=data.probes, memory_budget=memory_budget,
+            stage="the dense reference", n=int(data.y.size), advice=DENSE_CRASH_ADVICE)
+        cert_full, cert_t = sides.certificate_full, sides.certificate_train
         self.certificate = max(cert_full, cert_t)
         certified = bool(cert_full < CERTIFICATE_THRESHOLD and cert_t < CERTIFICATE_THRESHOLD)
         self.info = ReferenceInfo(
             "dense", certified,
             f"dense Cholesky, scaled residual {cert_full:.3g} (all points), {cert_t:.3g} "
             f"(kriging conditioning points); passes below {CERTIFICATE_THRESHOLD:g}")
-        self._sides = ReferenceSides(full=full, kriging=ks, train_matvec=chol_t.matvec,
-                                     loglik_seconds=full.loglik_seconds)
+        train_product = KernelOperator(data.points[data.train], data.kernel, progress=False)
+        self._sides = ReferenceSides(full=sides.full, kriging=sides.kriging,
+                                     train_matvec=train_product.matvec,
+                                     loglik_seconds=sides.full.loglik_seconds)
 
     def sides(self, tol: float) -> ReferenceSides:
         return self._sides

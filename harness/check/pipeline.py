@@ -37,6 +37,7 @@ import numpy as np
 from harness.analysis.scaling import extrapolate, fit_power_law
 from harness.audit import engine as audit_engine
 from harness.audit.audit_references import (
+    DENSE_CRASH_ADVICE,
     DenseReference,
     LadderReference,
     OperatorReference,
@@ -69,6 +70,7 @@ from harness.check.fitting import (
     plan_fit,
     standard_errors,
 )
+from harness.infra.child_process import run_stage
 from harness.infra.option_specs import HOLDOUT_FRACTION, LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
@@ -256,9 +258,12 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
         tol_se = options.score_tol_se or DENSE_SCORE_TOL_SE
         say(f"fitting by dense L-BFGS-B + Fisher scoring at n = {n:,} "
             f"({plan.estimated_seconds:.3g} s estimated)")
-        fit = fit_dense(x, y, template, mean=options.mean, starts=starts, bounds=bounds,
-                        memory_budget=options.memory_budget, max_iter=options.fit_max_iter,
-                        max_steps=options.fit_max_steps, score_tol_se=tol_se)
+        # in a child process: a native crash in the BLAS is a one-line error, not a death
+        fit = run_stage(fit_dense, x, y, template, mean=options.mean, starts=starts,
+                        bounds=bounds, memory_budget=options.memory_budget,
+                        max_iter=options.fit_max_iter, max_steps=options.fit_max_steps,
+                        score_tol_se=tol_se, stage="the dense fit", n=n,
+                        advice=DENSE_CRASH_ADVICE)
         fisher = np.asarray(fit.fisher)
     else:
         tol_se = options.score_tol_se or COMPRESSED_SCORE_TOL_SE
@@ -293,9 +298,11 @@ def _fixed(x: np.ndarray, y: np.ndarray, options: CheckOptions, d: int) -> _Fit:
     kernel.check_dimension(d)
     notes: list[str] = []
     if _dense_fits(y.size, options.memory_budget, fisher=True, n_params=kernel.n_params):
-        fisher = np.asarray(dense_evaluate(x, y, kernel, mean=options.mean, score=False,
-                                           fisher=True, certify=False,
-                                           memory_budget=options.memory_budget).fisher)
+        evaluation = run_stage(dense_evaluate, x, y, kernel, mean=options.mean, score=False,
+                               fisher=True, certify=False, memory_budget=options.memory_budget,
+                               stage="the dense Fisher information", n=int(y.size),
+                               advice=DENSE_CRASH_ADVICE)
+        fisher = np.asarray(evaluation.fisher)
     else:
         fisher = np.asarray(CompressedEngine(x, y, kernel, mean=options.mean,
                                              tol=min(options.tolerances),

@@ -36,6 +36,7 @@ from harness.cli.flag_types import (
     positive_int,
 )
 from harness.cli.params import ParamSyntaxError, parse_params
+from harness.infra.child_process import StageCrashed
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,
@@ -292,7 +293,7 @@ def run(args: argparse.Namespace) -> int:
             data.n, fraction=args.holdout, seed=args.seed))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
-            OSError, SolverRuntimeError) as exc:
+            OSError, SolverRuntimeError, StageCrashed) as exc:
         print(f"covaudit check: error: {exc}", file=sys.stderr)
         return ExitCode.ERROR
     print(json_text(result) if args.json else summary(result))

@@ -31,7 +31,9 @@ from harness.model.json_values import to_jsonable
 from harness.model.kernels import KERNELS, KernelParameterError
 
 #: Built-in references and solvers evaluated in this process; anything else is a plugin.
-IN_PROCESS_SOLVERS = frozenset({"dense", "statespace", "kronecker", "hodlr", "operator"})
+#: Solvers evaluated in this process; every other one (plugins, and ``dense``, whose BLAS
+#: can crash natively at large n) runs in a child process, so a crash or a hang is reported.
+IN_PROCESS_SOLVERS = frozenset({"statespace", "kronecker", "hodlr", "operator"})
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -162,21 +164,22 @@ def run(args: argparse.Namespace) -> int:
         if args.solver != "operator" and (args.dask_local is not None
                                           or args.scheduler is not None):
             raise EvaluationError("--dask-local and --scheduler apply to --solver operator")
-        if args.solver not in IN_PROCESS_SOLVERS:  # plugins (module:factory or entry
-            # points) run in a child process, so a crash or a hang is reported
+        if args.solver not in IN_PROCESS_SOLVERS:
+            what = ("the dense solver" if args.solver == "dense"
+                    else f"the solver plugin {args.solver!r}")
             outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
                                     kernel, mean=args.mean, reml=args.reml,
                                     score=not args.no_score, fisher=args.fisher,
                                     options=options, timeout=args.task_timeout,
-                                    what=f"the solver plugin {args.solver!r}")
+                                    what=f"{what} at n = {obs.n:,}", stage=what)
         else:
             outcome = evaluate_with_solver(args.solver, obs.points, obs.values, kernel,
                                            mean=args.mean, reml=args.reml,
                                            score=not args.no_score, fisher=args.fisher,
                                            options=options)
-    except (ChildCrashed, ChildTimeout) as exc:
+    except (ChildCrashed, ChildTimeout) as exc:  # the solver under test failed
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)
-        return ExitCode.ERROR
+        return ExitCode.SOLVER_FAILED
     except (DataFileError, KernelParameterError, ParamSyntaxError, EvaluationError,
             MemoryError, np.linalg.LinAlgError, ValueError) as exc:
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)

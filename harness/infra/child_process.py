@@ -206,3 +206,38 @@ def _pass_on(path: Path, *, echo: bool = True) -> str:
         sys.stderr.write(text)
         sys.stderr.flush()
     return text
+
+
+class StageCrashed(RuntimeError):
+    """A stage of the harness's own computation crashed or hung in its child process.
+
+    The message is one line: the stage, n, how the child died and what to try.
+    """
+
+    def __init__(self, message: str, *, stage: str, n: int, cause: str) -> None:
+        super().__init__(message)
+        self.stage, self.n, self.cause = stage, n, cause
+
+
+def run_stage(fn: Callable[..., Any], *args: Any, stage: str, n: int, advice: str,
+              timeout: float | None = None, **kwargs: Any) -> Any:
+    """``fn(*args, **kwargs)`` in a child process; a crash or hang becomes ``StageCrashed``.
+
+    Parameters
+    ----------
+    stage : str
+        What the call computes, as the user reads it (``"the dense reference"``); also
+        the name the crash-injection hook matches (module docstring).
+    n : int
+        The problem size, quoted in the message.
+    advice : str
+        What to try, quoted after "try" (``"OPENBLAS_NUM_THREADS=1, ..."``).
+    """
+    try:
+        return call_in_child(fn, *args, timeout=timeout, what=stage, stage=stage, **kwargs)
+    except ChildCrashed as exc:
+        cause = signal_description(exc.exitcode)
+    except ChildTimeout:
+        cause = f"ran longer than {timeout:g} s and was stopped"
+    raise StageCrashed(f"{stage} at n = {n:,} {cause} in its child process (nothing of it "
+                       f"was kept); try {advice}", stage=stage, n=n, cause=cause)

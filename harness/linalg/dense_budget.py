@@ -58,6 +58,16 @@ def largest_dense_n(budget: int, *, score: bool = False, fisher: bool = False,
     return n
 
 
+def _what(score: bool, fisher: bool, n_params: int) -> str:
+    """Which dense computation a budget message is about (its n x n arrays differ)."""
+    if fisher:
+        return (f"the dense Fisher information (factor, inverse and {n_params} derivative "
+                "products, n x n each)")
+    if score:
+        return "the dense log-likelihood with score (factor and inverse, n x n each)"
+    return "the dense factorization (one n x n factor)"
+
+
 def check_dense_budget(n: int, *, budget: int | None, score: bool = False,
                        fisher: bool = False, n_params: int = 0) -> int:
     """Raise ``DenseBudgetError`` when a dense evaluation at n would exceed the budget.
@@ -70,7 +80,8 @@ def check_dense_budget(n: int, *, budget: int | None, score: bool = False,
     if needed > limit:
         fits = largest_dense_n(limit, score=score, fisher=fisher, n_params=n_params)
         raise DenseBudgetError(
-            f"dense reference at n = {n:,} needs about {needed / 2**30:.2f} GiB "
+            f"{_what(score, fisher, n_params)} at n = {n:,} needs about "
+            f"{needed / 2**30:.2f} GiB "
             f"but the memory budget is {limit / 2**30:.2f} GiB (largest n that fits: {fits:,}). "
             "Use a structured reference (--solver statespace for 1D Matern 1/2, 3/2, 5/2; "
             "--solver kronecker for separable kernels on tensor grids), audit on a spatial "

@@ -18,11 +18,11 @@ import time
 
 import numpy as np
 
+from harness.linalg.dense_cholesky import _BLOCK, DenseCholesky
 from harness.model.evaluation import KrigingPrediction, ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
-from harness.linalg.dense_cholesky import _BLOCK, DenseCholesky
 
 __all__ = ["DenseCholesky", "dense_evaluate", "dense_kriging"]
 

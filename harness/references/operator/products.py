@@ -31,9 +31,9 @@ import numba
 import numpy as np
 from threadpoolctl import threadpool_limits
 
+from harness.linalg.dense_budget import default_memory_budget
 from harness.model.kernels import Kernel
 from harness.model.kernels.rows import COORD, SLOPE, VALUE, family_code
-from harness.linalg.dense_budget import default_memory_budget
 from harness.references.operator.product_progress import product_bar
 from harness.references.operator.schedule import DEFAULT_TILE, TilePlan, column_chunk, plan_tiles
 from harness.references.operator.tile_entries import fill_tile
