@@ -41,6 +41,8 @@ BUILTIN_SOLVERS: dict[str, tuple[str, str, str]] = {
               "dense Cholesky in float64, certified (tol ignored)"),
     "hodlr": ("harness.solvers.hodlr", "factorize",
               "hierarchical off-diagonal low-rank factorization (built-in)"),
+    "vecchia": ("harness.solvers.vecchia", "factorize",
+                "KL-minimizing sparse inverse Cholesky / Vecchia (built-in; knob rho)"),
 }
 
 
