@@ -85,7 +85,8 @@ def supernode_pass(xs, family, shape, s2, tau2, ls_modes, has_nugget,
     derivatives; has_nugget : whether log tau2 is a parameter (the last);
     member_ptr, members, set_ptr, set_rows, col_ptr : ``supernodes.Supernodes``.
     Outputs: u_vals (nnz), du_vals (p, nnz), uy (n, c) = U'Y, quad (n_sn, p, c, c),
-    trace (n_sn, p) = sum r_i, fisher (n_sn, p, p), diag (n) = u_kk, status (n_sn) =
+    trace (n_sn, p) = sum r_i, fisher (n_sn, p, p) (empty quad: U'Y only, no derivative
+    blocks), diag (n) = u_kk, status (n_sn) =
     ``OK`` or the failing place in the supernode's set.
     """
     n_sn = member_ptr.shape[0] - 1
@@ -93,7 +94,7 @@ def supernode_pass(xs, family, shape, s2, tau2, ls_modes, has_nugget,
     nls = ls_modes.shape[0]
     p = 1 + nls + (1 if has_nugget else 0)
     nc = ydata.shape[1]
-    deriv = want_du or want_stats
+    deriv = want_du or (want_stats and quad.shape[0] > 0)
     for s in numba.prange(n_sn):
         a0 = set_ptr[s]
         m = set_ptr[s + 1] - a0
