@@ -13,12 +13,6 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 SEARCHED = ("harness", "tests", "benchmarks")
 OUTSIDE = re.compile(r"DESIGN|STYLE\.md")
-#: Files whose owners are rewriting them now; their citations go with that change
-#: (remove an entry as soon as its file is clean: the test then keeps it clean).
-PENDING: frozenset[str] = frozenset({
-    "harness/audit/audit_references.py",
-    "tests/test_cli_evaluate.py",
-})
 
 
 def _citations() -> list[str]:
@@ -38,7 +32,7 @@ def _citations() -> list[str]:
 
 
 def test_no_citation_of_documents_outside_the_repository() -> None:
-    offenders = [c for c in _citations() if c.split(":", 1)[0] not in PENDING]
+    offenders = _citations()
     assert offenders == [], "cite DEVELOPERS.md or a module instead:\n" + "\n".join(offenders)
 
 

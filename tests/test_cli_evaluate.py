@@ -167,7 +167,8 @@ def test_kronecker_needs_a_grid_and_separable(datafile, capsys):
 
 def test_hodlr_and_plugin_through_the_cli(datafile, capsys, monkeypatch):
     # The compressed solver at a tight tolerance reproduces the certified dense value
-    # (tolerance-to-error relation: DESIGN section 5, common practice 1e-10 -> ~1e-8 rel).
+    # (tolerance-to-error relation of the built-in HODLR solver, README "What the tolerance
+    # means"; common practice 1e-10 -> ~1e-8 rel).
     path, _ = datafile
     assert main(["evaluate", str(path), *BASE, "--json"]) == 0
     dense = json.loads(capsys.readouterr().out)

@@ -244,7 +244,7 @@ CASES: list[tuple[str, int, str]] = [
     *_flag_cases(EVAL, "--probes", ("0", "-3", "1.5", "many"), "an integer >= 1"),
     *_flag_cases(EVAL, "--seed", ("-1", "0.5", "nan"), "an integer >= 0"),
     *_flag_cases(EVAL, "--task-timeout", ("0", "-2", "nan", "inf"), "in (0, 604800]"),
-    *_flag_cases(CHECK, "--holdout", ("0", "1", "-0.1", "nan"), "in (0, 1)"),
+    *_flag_cases(CHECK, "--holdout", ("0", "1", "-0.1", "nan"), "in (0, 0.5]"),
     *_flag_cases(CHECK, "--probes", ("0", "x"), "an integer >= 1"),
     *_flag_cases(CHECK, "--dense-fit-max-n", ("0", "-10"), "an integer >= 1"),
     *_flag_cases(CHECK, "--fit-time-budget", ("0", "-5", "nan"), "a number > 0"),

@@ -12,7 +12,7 @@ import harness
 
 PACKAGE = Path(harness.__file__).parent
 TOP_LEVEL_MODULES = {"__init__.py", "__main__.py", "_version.py"}
-STAGES = {"infra", "model", "geometry", "references", "solvers", "likelihood", "audit",
+STAGES = {"infra", "linalg", "model", "geometry", "references", "solvers", "likelihood", "audit",
           "grid", "analysis", "check", "report", "cli"}
 
 

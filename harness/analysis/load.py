@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from harness.audit.metric_names import with_canonical_columns
 from harness.grid.store.columns import (
     OPTIONAL_COLUMNS,
     RESULT_COLUMNS,
@@ -224,5 +225,7 @@ def load_run(run_dir: str | Path) -> RunData:
     for note in notes:
         if note not in _WARNED:
             logger.info("%s: %s", path, note)
+    # runs written before the canonical metric names gain their columns
+    results = with_canonical_columns(results)
     return RunData(path=path, results=results.reset_index(drop=True), timings=timings,
                    meta=meta, notes=tuple(notes))

@@ -130,8 +130,9 @@ class OperatorReference:
     score of all points with their SEs and CG bound, kriging of the held-out points
     conditioned on the other points with CG bounds.
 
-    The built-in solver at ``preconditioner_tol`` only *preconditions* it (DESIGN
-    section 2: it changes iteration counts and SEs, never the expected answer).
+    The built-in solver at ``preconditioner_tol`` only *preconditions* it (the wall
+    between references and solvers, DEVELOPERS.md "Architecture": it changes iteration
+    counts and SEs, never the expected answer).
     Certified when every CG and Lanczos run converged and the CG bounds are rigorous
     (a nugget gives lambda_min >= nugget).
     """

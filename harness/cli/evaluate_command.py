@@ -22,6 +22,7 @@ from harness.cli.flag_types import (
 )
 from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.geometry.spread import spread_warnings
+from harness.grid.runner.dask_check import check_dask_options
 from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import PROBES, TOLERANCE
@@ -161,6 +162,7 @@ def run(args: argparse.Namespace) -> int:
             preconditioner=args.preconditioner, preconditioner_tol=args.preconditioner_tol,
             se_target=args.se_target, dask_local=args.dask_local, scheduler=args.scheduler,
         )
+        check_dask_options(dask_local=args.dask_local, scheduler=args.scheduler)
         if args.solver != "operator" and (args.dask_local is not None
                                           or args.scheduler is not None):
             raise EvaluationError("--dask-local and --scheduler apply to --solver operator")

@@ -30,7 +30,7 @@ MAX_OPERAND_ELEMENTS = 2**20
 #: Rows (and columns) of a square tile: TILE^2 <= MAX_OPERAND_ELEMENTS.
 TILE = 1024
 #: Columns of a Cholesky panel (the inner dimension of the trailing updates).
-PANEL = 256
+PANEL = 512
 
 
 def tile_ranges(n: int, size: int) -> list[tuple[int, int]]:
