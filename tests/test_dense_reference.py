@@ -8,6 +8,8 @@ import scipy.stats
 from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process import kernels as sk
 
+from harness.linalg import dense_cholesky as cholesky_module
+from harness.linalg import tiled_cholesky
 from harness.model import design_matrix
 from harness.model.kernels import Exponential, Gaussian, Matern32, Matern52
 from harness.references import (
@@ -18,8 +20,6 @@ from harness.references import (
     dense_evaluate,
     dense_kriging,
 )
-from harness.linalg import dense_cholesky as cholesky_module
-from harness.linalg import tiled_cholesky
 
 
 @pytest.fixture(scope="module")
