@@ -1,54 +1,133 @@
-"""Slow benchmark: ``check`` on fields' CO2 data (26,633 satellite soundings, lon/lat) at
-fixed parameters with the dense reference; prints the time and peak memory.
+"""Slow benchmark: the plain user command ``covaudit check`` on open data, with defaults.
 
-Run: ``python benchmarks/co2_check.py [--params variance=..]``. Needs about 12 GiB for
-the dense factor and its inverse-free score pieces; refuses (exit 2) when the budget is
-short. The data come from Debian's r-cran-fields, fetched by ``tests/opendata.py``.
+The data are the CO2 example of the fields R package (26,633 satellite soundings of the
+column CO2 concentration, longitude/latitude in degrees), read from Debian's
+r-cran-fields by ``tests/opendata.py`` and written to a CSV outside the repository. The
+script then runs, as a user would,
+
+    covaudit check co2.csv --coords lon,lat --value co2_ppm --coord-system lonlat
+
+in a child process with the machine's default BLAS threads, and records the exit code,
+the wall time (also in units of the same-run dpotrf at n = 8,192), the peak resident
+memory (of the largest process, and of the whole process tree sampled every 0.5 s), the
+reference, the fit's convergence, each tolerance's verdict and the recommendation.
+
+Run: ``python benchmarks/co2_check.py --json benchmarks/results/co2_check.json``
 """
 
 from __future__ import annotations
 
 import argparse
+import json
 import resource
+import subprocess
 import sys
+import threading
 import time
 import warnings
 from pathlib import Path
 
+import pandas as pd
+import psutil
+from machine_unit import machine, measure_unit, write_run
+
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
-from opendata import fetch_rda  # noqa: E402
+from opendata import cache_dir, fetch_rda  # noqa: E402
 
-from harness.check import CheckOptions, run_check, validate  # noqa: E402
-from harness.check.datafile import observations_from_arrays  # noqa: E402
-from harness.cli.check_command import summary  # noqa: E402
-from harness.cli.params import parse_params  # noqa: E402
+COMMAND = ["check", "co2.csv", "--coords", "lon,lat", "--value", "co2_ppm",
+           "--coord-system", "lonlat"]
 
 
-def main() -> int:
-    parser = argparse.ArgumentParser(description=__doc__)
-    parser.add_argument("--params", nargs="+",
-                        default=["variance=4", "lengthscale=800", "nugget=0.5"],
-                        help="fixed parameters (chordal km)")
-    parser.add_argument("--kernel", default="matern32")
-    parser.add_argument("--tolerances", default="1e-4,1e-6,1e-8")
-    args = parser.parse_args()
+def write_data(folder: Path) -> Path:
+    """The CO2 data as the CSV a user would have: lon, lat, co2_ppm."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         co2 = fetch_rda("fields", "CO2")["CO2"]
-    obs = observations_from_arrays(co2["lon.lat"], co2["y"], source="fields CO2")
-    data = validate(obs, coord_system="lonlat", average_duplicates=True)
-    options = CheckOptions(kernel=args.kernel, fixed_params=parse_params(args.params),
-                           tolerances=tuple(float(t) for t in args.tolerances.split(",")),
-                           holdout=0.02, refit=False, dense_fit_max_n=0)
+    lonlat = pd.DataFrame(co2["lon.lat"]).to_numpy(dtype=float)
+    frame = pd.DataFrame({"lon": lonlat[:, 0], "lat": lonlat[:, 1],
+                          "co2_ppm": pd.Series(co2["y"]).to_numpy(dtype=float)})
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / "co2.csv"
+    frame.to_csv(path, index=False)
+    return path
+
+
+class TreeMemory:
+    """The peak of the summed resident memory of a process and its descendants."""
+
+    def __init__(self, pid: int, *, every: float = 0.5) -> None:
+        self.peak = 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._watch, args=(pid, every), daemon=True)
+        self._thread.start()
+
+    def _watch(self, pid: int, every: float) -> None:
+        try:
+            root = psutil.Process(pid)
+        except psutil.NoSuchProcess:
+            return
+        while not self._stop.is_set():
+            try:
+                procs = [root, *root.children(recursive=True)]
+                total = 0
+                for p in procs:
+                    try:
+                        total += p.memory_info().rss
+                    except psutil.Error:
+                        pass
+                self.peak = max(self.peak, total)
+            except psutil.Error:
+                return
+            self._stop.wait(every)
+
+    def stop(self) -> int:
+        self._stop.set()
+        self._thread.join(timeout=5)
+        return self.peak
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__,
+                                     formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser.add_argument("--json", default="benchmarks/results/co2_check.json")
+    parser.add_argument("--unit-repeats", type=int, default=3)
+    args = parser.parse_args(argv)
+    info = machine()
+    unit = measure_unit(args.unit_repeats)
+    print(f"unit: {unit['seconds']:.2f} s", flush=True)
+    work = cache_dir() / "co2-check"
+    data = write_data(work)
+    out = work / "out"
+    argv_run = [sys.executable, "-m", "harness", *COMMAND, "--out", str(out)]
     start = time.perf_counter()
-    result = run_check(data, options, source="fields CO2",
-                       progress=lambda m: print(f"  .. {m}", file=sys.stderr))
+    proc = subprocess.Popen(argv_run, cwd=data.parent, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    memory = TreeMemory(proc.pid)
+    stdout, stderr = proc.communicate()
     seconds = time.perf_counter() - start
-    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20
-    print(summary(result))
-    print(f"  CO2: n = {result.n:,}, reference {result.reference}, {seconds:.0f} s, "
-          f"peak resident memory {peak:.2f} GiB")
+    tree_peak = memory.stop()
+    largest = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
+    print(stdout)
+    print(stderr[-3000:], file=sys.stderr)
+    result: dict = {"command": "covaudit " + " ".join(COMMAND), "exit_code": proc.returncode,
+                    "seconds": seconds, "units": seconds / unit["seconds"],
+                    "peak_rss_largest_process_gib": largest / 2**30,
+                    "peak_rss_process_tree_gib": tree_peak / 2**30,
+                    "stderr_tail": stderr.strip().splitlines()[-12:]}
+    report = out / "check.json"
+    if report.is_file():
+        check = json.loads(report.read_text())
+        result.update({
+            "n": check.get("n"), "reference": check.get("reference"),
+            "fit_converged": check.get("fit_converged"),
+            "fit_plan": (check.get("fit") or {}).get("plan"),
+            "recommended_tolerance": check.get("recommended_tolerance"),
+            "speedup": check.get("speedup"),
+            "verdicts": {repr(t["tol"]): t.get("status") for t in check.get("tolerances", [])},
+            "warnings": check.get("warnings"),
+        })
+    write_run(args.json, "co2_check", argv, info, unit=unit, result=result)
     return 0
 
 

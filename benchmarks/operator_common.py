@@ -8,12 +8,12 @@ that figures taken on a shared machine can be compared as ratios.
 from __future__ import annotations
 
 import json
-import time
 from pathlib import Path
 from typing import Any
 
 import numba
 import numpy as np
+from machine_unit import run_child
 from threadpoolctl import threadpool_info
 
 from harness.grid.store.environment import cpu_description, library_versions
@@ -21,19 +21,34 @@ from harness.grid.store.environment import cpu_description, library_versions
 RESULTS = Path(__file__).resolve().parent / "results"
 
 
-def cholesky_unit(repeats: int = 3) -> dict[str, Any]:
-    """Median seconds of ``cho_factor`` on an 8,192 x 8,192 SPD matrix."""
-    from scipy.linalg import cho_factor
+_UNIT_CHILD = r"""
+import json, sys, time
+import numpy as np
+from scipy.linalg import cho_factor
+n, repeats = int(sys.argv[1]), int(sys.argv[2])
+rng = np.random.default_rng(0)
+a = rng.standard_normal((n, 512))
+spd = a @ a.T / 512 + np.eye(n)
+times = []
+for _ in range(repeats):
+    start = time.perf_counter()
+    cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
+    times.append(time.perf_counter() - start)
+print(json.dumps({"seconds": times}))
+"""
 
+
+def cholesky_unit(repeats: int = 3) -> dict[str, Any]:
+    """Median seconds of ``cho_factor`` on an 8,192 x 8,192 SPD matrix.
+
+    Measured in a child process (``machine_unit.run_child``): one threaded dpotrf call
+    can crash natively in some BLAS builds, and a crash must not take the benchmark down.
+    """
     n = 8192
-    rng = np.random.default_rng(0)
-    a = rng.standard_normal((n, 512))
-    spd = a @ a.T / 512 + np.eye(n)
-    times = []
-    for _ in range(repeats):
-        start = time.perf_counter()
-        cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
-        times.append(time.perf_counter() - start)
+    out = run_child(_UNIT_CHILD, str(n), str(repeats))
+    if "error" in out:
+        raise RuntimeError(f"unit measurement (cho_factor at n = {n}) failed: {out['error']}")
+    times = out["seconds"]
     return {"n": n, "median_seconds": float(np.median(times)), "seconds": times,
             "repeats": repeats,
             "what": "scipy.linalg.cho_factor (LAPACK dpotrf) at n = 8192, default BLAS threads"}
