@@ -14,6 +14,12 @@ points and the reference log-likelihood's own standard error (0 when exact).
 * ``OperatorReference``: the exact operator (``harness.references.operator``), when
   installed (``operator_available``); it reports values with standard errors and CG
   bounds (``ReferenceValues``), not a factorization.
+* ``StructuredReference``: the exact state-space (Kalman) or Kronecker reference, as
+  values (log-likelihood and score, exact); neither offers kriging at held-out data
+  points, so the kriging metric is not measured against them.
+
+``build_reference`` builds the kind that ``harness.audit.reference_choice`` chose, for
+``check`` and for every ``run`` task alike.
 """
 
 from __future__ import annotations
@@ -27,11 +33,14 @@ import numpy as np
 from harness.audit.dense_sides import DenseSides, dense_sides
 from harness.audit.engine import (
     AuditData,
+    PairedReference,
     ReferenceInfo,
     ReferenceSides,
     ReferenceValue,
     ReferenceValues,
+    ValueReference,
 )
+from harness.audit.reference_choice import OPERATOR_PRECONDITIONER_TOL
 from harness.audit.sides import KrigingSide, evaluate_side, kriging_side
 from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.infra.child_process import run_stage
@@ -40,9 +49,6 @@ from harness.references.operator.products import KernelOperator
 from harness.solvers.registry import ResolvedSolver
 
 OPERATOR_MODULE = "harness.references.operator"
-#: Tolerance of the built-in solver preconditioning the operator reference (it changes
-#: iteration counts and standard errors only, never the answer); ``check`` and ``run``.
-OPERATOR_PRECONDITIONER_TOL = 1e-10
 
 
 def operator_available() -> bool:
@@ -61,17 +67,24 @@ DENSE_CRASH_ADVICE = ("fewer BLAS threads (OPENBLAS_NUM_THREADS=1), a smaller "
 class DenseReference:
     """The certified dense Cholesky of all points and of the kriging conditioning points.
 
-    The factorizations run in a child process (``harness.infra.child_process``): a native
-    crash in the BLAS becomes ``StageCrashed`` naming the stage and n, not a dead
-    process. The Sigma product on the conditioning points (the efficiency criteria) is
-    the exact product from kernel entries (``KernelOperator``), not the factor.
+    With ``isolate`` (``check``) the factorizations run in a child process
+    (``harness.infra.child_process``): a native crash in the BLAS becomes
+    ``StageCrashed`` naming the stage and n, not a dead process. A ``run`` task passes
+    ``isolate=False``: its worker process is already that boundary. The Sigma product on
+    the conditioning points (the efficiency criteria) is the exact product from kernel
+    entries (``KernelOperator``), not the factor.
     """
 
-    def __init__(self, data: AuditData, *, memory_budget: int | None = None) -> None:
-        sides: DenseSides = run_stage(
-            dense_sides, data.points, data.y, data.kernel, mean=data.mean,
-            holdout=data.holdout, probes=data.probes, memory_budget=memory_budget,
-            stage="the dense reference", n=int(data.y.size), advice=DENSE_CRASH_ADVICE)
+    def __init__(self, data: AuditData, *, memory_budget: int | None = None,
+                 isolate: bool = True) -> None:
+        sides: DenseSides = (
+            run_stage(dense_sides, data.points, data.y, data.kernel, mean=data.mean,
+                      holdout=data.holdout, probes=data.probes, memory_budget=memory_budget,
+                      stage="the dense reference", n=int(data.y.size),
+                      advice=DENSE_CRASH_ADVICE)
+            if isolate else
+            dense_sides(data.points, data.y, data.kernel, mean=data.mean,
+                        holdout=data.holdout, probes=data.probes, memory_budget=memory_budget))
         cert_full, cert_t = sides.certificate_full, sides.certificate_train
         self.certificate = max(cert_full, cert_t)
         certified = bool(cert_full < CERTIFICATE_THRESHOLD and cert_t < CERTIFICATE_THRESHOLD)
@@ -183,3 +196,60 @@ class OperatorReference:
 
     def values(self) -> ReferenceValues:
         return self._values
+
+
+class StructuredReference:
+    """An exact structured reference as values: the state-space (Kalman) likelihood and
+    score for 1D points and a half-integer Matern kernel, or the Kronecker ones for a
+    tensor grid and a separable kernel. Exact (standard errors 0) and certified; no
+    kriging at held-out data points (the kriging metric is not measured)."""
+
+    def __init__(self, kind: str, data: AuditData, *, probes: int = 64) -> None:
+        self.probes = int(probes)
+        t0 = time.perf_counter()
+        if kind == "statespace":
+            from harness.references.statespace import StateSpaceReference
+
+            ev = StateSpaceReference(data.points, data.kernel).evaluate(
+                data.y, mean=data.mean, score=True)
+            what = "Kalman filter (exact)"
+        elif kind == "kronecker":
+            from harness.references.kronecker import KroneckerReference
+
+            ev = KroneckerReference(data.points, data.kernel).evaluate(  # type: ignore[arg-type]
+                data.y, mean=data.mean, score=True)
+            what = "Kronecker eigen-decomposition (exact)"
+        else:
+            raise ValueError(f"{kind!r} is no structured reference kind")
+        self.info = ReferenceInfo(kind, True, f"{what}; no kriging at held-out points")
+        self._values = ReferenceValues(
+            loglik=ReferenceValue(float(ev.loglik)), score=np.asarray(ev.score, dtype=float),
+            score_se=np.zeros(data.kernel.n_params), krige_mean=None, krige_mean_bound=None,
+            krige_var=None, loglik_seconds=time.perf_counter() - t0)
+
+    def values(self) -> ReferenceValues:
+        return self._values
+
+
+def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
+                    solver_options: Mapping[str, object], base_seed: int,
+                    memory_budget: int | None, ladder_factor: float, probes: int,
+                    leaf_size: int = 128, isolate: bool = True
+                    ) -> PairedReference | ValueReference:
+    """The engine's reference of ``kind`` (``harness.audit.reference_choice``) on ``data``.
+
+    ``isolate`` runs the dense reference's factorizations in a child process (``check``;
+    a ``run`` task's worker is already one). ``probes`` sets the operator's and the
+    structured references' Hutch++ probes of the solver's score (at least 64).
+    """
+    if kind == "dense":
+        return DenseReference(data, memory_budget=memory_budget, isolate=isolate)
+    if kind in ("statespace", "kronecker"):
+        return StructuredReference(kind, data, probes=max(64, probes))
+    if kind == "operator":
+        return OperatorReference(data, base_seed=base_seed, probes=max(64, probes),
+                                 leaf_size=leaf_size, memory_budget=memory_budget)
+    if kind == "ladder":
+        return LadderReference(data, solver, factor=ladder_factor, base_seed=base_seed,
+                               options=solver_options)
+    raise ValueError(f"reference kind {kind!r}: no engine reference")

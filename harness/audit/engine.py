@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Protocol, runtime_checkable
 
 import numpy as np
 
+from harness.audit.metric_names import canonical_name
 from harness.audit.metric_values import MetricValue
 from harness.audit.rule import (
     LadderRecommendation,
@@ -32,16 +33,17 @@ from harness.audit.rule import (
     worst,
 )
 from harness.audit.solver_seeds import seeded_options
-from harness.grid.tasks import AuditSettings
+from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
 from harness.model.kernels import Kernel
 
 if TYPE_CHECKING:
     from harness.audit.sides import KrigingSide, Side
+    from harness.audit.task_metrics import DetailRequest
     from harness.solvers.registry import ResolvedSolver
 
 #: The ladder reference is the solver at tol / LADDER_FACTOR unless set otherwise (the
-#: case files' and tasks' default, ``AuditSettings.ladder_factor``).
-LADDER_FACTOR: float = AuditSettings.ladder_factor
+#: default of ``check --ladder-factor`` and of a case file's ``[reference] ladder_factor``).
+LADDER_FACTOR: float = float(LADDER_FACTOR_SPEC.default)
 
 
 @dataclass(frozen=True)
@@ -63,7 +65,9 @@ class AuditData:
     """One dataset at the parameters under audit.
 
     ``holdout`` indexes the kriging points; kriging conditions on the other points, every
-    other metric uses all n points.
+    other metric uses all n points. ``fisher`` (the unit of the parameter shifts) is None
+    when no Fisher information is at hand (a grid task on the exact operator): the shift
+    is then not measured and the verdict says so.
     """
 
     points: np.ndarray
@@ -71,7 +75,7 @@ class AuditData:
     kernel: Kernel
     mean: str
     holdout: np.ndarray
-    fisher: np.ndarray
+    fisher: np.ndarray | None
     probes: np.ndarray
 
     @property
@@ -107,19 +111,21 @@ class PairedReference(Protocol):
 
 @dataclass(frozen=True)
 class ReferenceValues:
-    """A value reference's numbers (the exact operator), each with its uncertainty.
+    """A value reference's numbers (the exact operator, the structured references), each
+    with its uncertainty.
 
     ``loglik`` carries its SE and deterministic bound; ``score_se`` the score's SE;
     ``krige_mean_bound`` a bound on each kriging mean's error; the kriging is of the
-    held-out points conditioned on the other points.
+    held-out points conditioned on the other points (None when the reference offers no
+    kriging: the kriging metric is then not measured).
     """
 
     loglik: ReferenceValue
     score: np.ndarray
     score_se: np.ndarray
-    krige_mean: np.ndarray
-    krige_mean_bound: np.ndarray
-    krige_var: np.ndarray
+    krige_mean: np.ndarray | None
+    krige_mean_bound: np.ndarray | None
+    krige_var: np.ndarray | None
     loglik_seconds: float
 
 
@@ -133,7 +139,7 @@ class ValueReference(Protocol):
 
 
 @runtime_checkable
-class _HasValues(Protocol):
+class HasValues(Protocol):
     def values(self) -> ReferenceValues: ...
 
 
@@ -171,6 +177,24 @@ class ToleranceAudit:
     speedup: float | None           # reference log-likelihood time / ``seconds``
     nbytes: int
 
+    def to_dict(self, reference: str) -> dict[str, object]:
+        """The JSON form of a tolerance in ``check --json`` and in a grid task's record:
+        status, reasons, every seed, the spread, and each deciding metric under its own
+        name and its canonical one (``harness.audit.metric_names``)."""
+        v = self.verdict
+        out: dict[str, object] = {
+            "tol": v.tol, "safe": v.safe, "reference": reference,
+            "seconds": number_or_none(self.seconds),
+            "speedup": None if self.speedup is None else number_or_none(self.speedup),
+            "nbytes": self.nbytes, "error": "; ".join(v.failures) or None,
+            "status": v.status, "reasons": list(v.reasons),
+            "seeds": [s.to_dict() for s in self.seeds],
+            "spread": {k: s.to_dict() for k, s in v.spread.items()}}
+        for m in self.worst_metrics():
+            out[m.name] = m.to_dict()
+            out.setdefault(canonical_name(m.name), out[m.name])
+        return out
+
     def worst_metrics(self) -> tuple[MetricValue, ...]:
         """Per metric, the value of the seed that decides (limited) or the largest."""
         by_name: dict[str, list[tuple[SeedAudit, MetricValue]]] = {}
@@ -200,6 +224,13 @@ class EngineResult:
     recommendation: LadderRecommendation
     seeds: tuple[int, ...]
     solver: str
+    #: A grid task's detailed metric groups (``harness.audit.task_metrics``), else None.
+    detail: dict[str, object] | None = None
+
+
+def _judge(metrics: Sequence[MetricValue]) -> tuple[MetricJudgement, ...]:
+    return tuple(judge_metric(m.name, m.value, m.threshold, se=m.uncertainty or 0.0)
+                 for m in metrics if m.threshold is not None)
 
 
 def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: ResolvedSolver,
@@ -229,10 +260,8 @@ def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: Reso
     metrics += kriging_metrics(ks, ref.kriging, cross=cross,
                                sigma_times_weights=np.asarray(ref.train_matvec(ks.weights)),
                                variance=kernel.variance, thresholds=thresholds)
-    judgements = tuple(judge_metric(m.name, m.value, m.threshold, se=m.uncertainty or 0.0)
-                       for m in metrics if m.threshold is not None)
     return SeedAudit(index=index, seed=seed, loglik=side.loglik, metrics=tuple(metrics),
-                     judgements=judgements, seconds=side.loglik_seconds, nbytes=nbytes,
+                     judgements=_judge(metrics), seconds=side.loglik_seconds, nbytes=nbytes,
                      notes=notes)
 
 
@@ -268,22 +297,23 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     e_se = np.sqrt(ref.score_se ** 2 + solver_se ** 2)
     metrics.extend(shift_metrics(e, e_se, kernel=kernel, fisher=data.fisher,
                                  thresholds=thresholds))
-    fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
-    ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
-                      x[data.holdout], mean=data.mean)
-    del fac_t
-    sd = np.sqrt(np.maximum(ref.krige_var, 1e-300))
-    z = np.abs(ks.mean - ref.krige_mean) / sd
-    worst_i = int(np.argmax(z + ref.krige_mean_bound / sd))
-    metrics.append(MetricValue("kriging_mean_sd", float(z[worst_i]), thresholds.kriging_mean_sd,
-                               uncertainty=float(ref.krige_mean_bound[worst_i] / sd[worst_i])
-                               / 2.0,
-                               note="largest |m~ - m| / sqrt(v) at held-out points, "
-                                    "conditioned on the other points (operator CG bound)"))
-    judgements = tuple(judge_metric(m.name, m.value, m.threshold, se=m.uncertainty or 0.0)
-                       for m in metrics if m.threshold is not None)
+    if ref.krige_mean is not None and ref.krige_var is not None:
+        fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
+        ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
+                          x[data.holdout], mean=data.mean)
+        del fac_t
+        bound = (np.zeros_like(ref.krige_var) if ref.krige_mean_bound is None
+                 else ref.krige_mean_bound)
+        sd = np.sqrt(np.maximum(ref.krige_var, 1e-300))
+        z = np.abs(ks.mean - ref.krige_mean) / sd
+        worst_i = int(np.argmax(z + bound / sd))
+        metrics.append(MetricValue(
+            "kriging_mean_sd", float(z[worst_i]), thresholds.kriging_mean_sd,
+            uncertainty=float(bound[worst_i] / sd[worst_i]) / 2.0,
+            note="largest |m~ - m| / sqrt(v) at held-out points, conditioned on the other "
+                 "points (operator CG bound)"))
     return SeedAudit(index=index, seed=seed, loglik=ev.loglik, metrics=tuple(metrics),
-                     judgements=judgements, seconds=seconds, nbytes=nbytes, notes=notes)
+                     judgements=_judge(metrics), seconds=seconds, nbytes=nbytes, notes=notes)
 
 
 #: Limited metrics every seed must measure (a missing one makes the verdict unresolved).
@@ -294,13 +324,17 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                      reference: PairedReference | ValueReference, *, seeds: Sequence[int],
                      solver_options: Mapping[str, object] | None = None,
                      thresholds: Thresholds | None = None, fit_converged: bool = True,
-                     progress: Callable[[str], None] | None = None) -> EngineResult:
+                     progress: Callable[[str], None] | None = None,
+                     detail: DetailRequest | None = None) -> EngineResult:
     """Audit ``tolerances`` of ``solver`` on ``data`` against ``reference`` over ``seeds``
     of the solver's randomness (``harness.audit.solver_seeds``), and recommend one.
 
-    Each tolerance gets a ``ToleranceVerdict`` (module docstring: worst seed decides,
-    ladder at best unresolved, unconverged fit stated); the recommendation follows
-    ``recommend``.
+    The one entry of the audit: ``check`` calls it with a user's data at the fitted (or
+    fixed) parameters, every ``run`` task with its generated (or file) data at the task's
+    parameters and its one tolerance. Each tolerance gets a ``ToleranceVerdict`` (module
+    docstring: worst seed decides, ladder at best unresolved, unconverged fit stated); the
+    recommendation follows ``recommend``. ``detail`` (a grid task) adds the task's
+    detailed metric groups (``harness.audit.task_metrics``) to the result.
     """
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
     from harness.solvers.registry import SolverRuntimeError
@@ -315,7 +349,7 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
         failures: list[str] = []
         ref: ReferenceSides | ReferenceValues | None
         try:
-            ref = (reference.values() if isinstance(reference, _HasValues)
+            ref = (reference.values() if isinstance(reference, HasValues)
                    else reference.sides(tol))
         except (SolverRuntimeError, SolverOutputError, np.linalg.LinAlgError) as exc:
             failures.append(f"the {reference.info.kind} reference failed at tol {tol:g}: {exc}")
@@ -347,5 +381,11 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                                      speedup=speedup,
                                      nbytes=max((r.nbytes for r in rows), default=0)))
     rec = recommend({a.verdict.tol: a.verdict.status for a in audits})
+    body = None
+    if detail is not None:
+        from harness.audit.task_metrics import group_metrics
+
+        body = group_metrics(detail)
     return EngineResult(reference=reference.info, tolerances=tuple(audits),
-                        recommendation=rec, seeds=tuple(seeds), solver=solver.name)
+                        recommendation=rec, seeds=tuple(seeds), solver=solver.name,
+                        detail=body)

@@ -37,7 +37,7 @@ def score_difference(test: Side, ref: Side, probes: np.ndarray
     return 0.5 * (test.quad - ref.quad) - 0.5 * trace, 0.5 * trace_se
 
 
-def likelihood_metrics(test: Side, ref: Side, *, kernel: Kernel, fisher: np.ndarray,
+def likelihood_metrics(test: Side, ref: Side, *, kernel: Kernel, fisher: np.ndarray | None,
                        probes: np.ndarray, thresholds: Thresholds,
                        reference_loglik_se: float = 0.0) -> list[MetricValue]:
     """Log-likelihood error and implied parameter shifts of ``test`` against ``ref`` on
@@ -52,14 +52,17 @@ def likelihood_metrics(test: Side, ref: Side, *, kernel: Kernel, fisher: np.ndar
     return metrics
 
 
-def shift_metrics(e: np.ndarray, e_se: np.ndarray, *, kernel: Kernel, fisher: np.ndarray,
-                  thresholds: Thresholds) -> list[MetricValue]:
+def shift_metrics(e: np.ndarray, e_se: np.ndarray, *, kernel: Kernel,
+                  fisher: np.ndarray | None, thresholds: Thresholds) -> list[MetricValue]:
     """Implied parameter shift F^-1 e in SE units from a score error e with per-component
-    standard errors e_se (independent), and the microergodic shift (information).
+    standard errors e_se (independent), and the microergodic shift (information); none
+    without a Fisher information (the shift is then not measured).
 
     Var((F^-1 e)_i) = (F^-1 diag(e_se^2) F^-1)_ii (linear propagation of independent
     errors; common practice).
     """
+    if fisher is None:
+        return []
     errs = score_errors(e, np.zeros_like(e), fisher, kernel.param_names)
     f_inv = np.linalg.inv(0.5 * (fisher + fisher.T))
     se = np.sqrt(np.diag(f_inv))

@@ -10,11 +10,12 @@
    (``fixed_params``). A fit that does not converge is a top-level warning and every
    verdict says so.
 2. Fisher information at the estimate (the unit of the shift metrics, and the SEs).
-3. Reference (``reference``): ``dense`` (certified dense Cholesky), ``ladder`` (the
-   solver at tol / ``ladder_factor``: extra evidence only, verdicts at best unresolved)
-   or ``operator`` (``harness.references.operator``, when installed); ``auto`` is dense
-   within the memory budget, the operator reference beyond (the ladder, with a warning,
-   while the operator reference is not installed).
+3. Reference (``reference``), chosen by the selector that ``run`` uses too
+   (``harness.audit.reference_choice``): ``auto`` is the first of dense (within the
+   memory budget), statespace (1D points, half-integer Matern), operator (when
+   installed) that applies, the ladder with a warning when none does; ``dense``,
+   ``statespace`` and ``operator`` ask for one kind; ``ladder`` (the solver at tol /
+   ``ladder_factor``) is extra evidence only, verdicts at best unresolved.
 4. The audit engine (``harness.audit.engine.audit_tolerances``): every tolerance of the
    solver under test (``solver``: a registry name or ``package.module:factory``, through
    the same registry and plugin adapter as ``run``) on ``solver_seeds`` seeds of its
@@ -38,12 +39,25 @@ from harness.analysis.scaling import extrapolate, fit_power_law
 from harness.audit import engine as audit_engine
 from harness.audit.audit_references import (
     DENSE_CRASH_ADVICE,
-    DenseReference,
-    LadderReference,
     OperatorReference,
+    build_reference,
     operator_available,
 )
-from harness.audit.engine import AuditData, EngineResult, ToleranceAudit
+from harness.audit.audit_sampling import AUDIT_STREAMS, audit_streams, holdout_size, split_points
+from harness.audit.engine import (
+    AuditData,
+    EngineResult,
+    HasValues,
+    PairedReference,
+    ToleranceAudit,
+    ValueReference,
+)
+from harness.audit.reference_choice import (
+    AUTO_ORDER,
+    NoReference,
+    ReferenceProblem,
+    select_reference,
+)
 from harness.audit.sides import rademacher
 from harness.audit.solver_seeds import (
     DEFAULT_SOLVER_SEEDS,
@@ -71,7 +85,7 @@ from harness.check.fitting import (
     standard_errors,
 )
 from harness.infra.child_process import run_stage
-from harness.infra.option_specs import HOLDOUT_FRACTION, LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
+from harness.infra.option_specs import LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
@@ -81,9 +95,12 @@ from harness.solvers.protocol import Factorization
 from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver
 
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
-REFERENCE_CHOICES = ("auto", "dense", "operator", "ladder")
+REFERENCE_CHOICES = ("auto", "dense", "statespace", "operator", "ladder")
 DEFAULT_FIT_TIME_BUDGET = 600.0
 Progress = Callable[[str], None]
+#: What a speedup is measured against, by reference kind (the ladder: the solver itself).
+SPEEDUP_OVER = {"dense": "dense", "operator": "the exact operator",
+                "statespace": "the Kalman filter"}
 
 
 @dataclass(frozen=True)
@@ -136,7 +153,7 @@ class CheckOptions:
     solver_seeds : int
         Seeds of the solver's randomness per tolerance.
     reference : str
-        ``auto``, ``dense``, ``operator`` or ``ladder``.
+        ``auto``, ``dense``, ``statespace``, ``operator`` or ``ladder``.
     ladder_factor : float
         The ladder reference is the solver at tol / ladder_factor.
     """
@@ -180,14 +197,14 @@ def _template(options: CheckOptions, d: int) -> Kernel:
     return make_kernel(options.kernel, params)
 
 
-#: Child streams of ``default_rng(seed)`` a check uses, in spawn order.
-CHECK_STREAMS: tuple[str, ...] = ("split", "fit", "probes", "growth")
+#: Child streams of ``default_rng(seed)`` a check uses, in spawn order (the engine's,
+#: ``harness.audit.audit_sampling``: a grid task draws its holdout and probes the same way).
+CHECK_STREAMS: tuple[str, ...] = AUDIT_STREAMS
 
 
 def check_streams(seed: int) -> dict[str, np.random.Generator]:
     """The check's random streams by name: one child of ``default_rng(seed)`` each."""
-    children = np.random.default_rng(seed).spawn(len(CHECK_STREAMS))
-    return dict(zip(CHECK_STREAMS, children, strict=True))
+    return audit_streams(seed)
 
 
 def holdout_indices(n: int, *, fraction: float, seed: int) -> np.ndarray:
@@ -199,11 +216,11 @@ def split_holdout(n: int, fraction: float, rng: np.random.Generator
                   ) -> tuple[np.ndarray, np.ndarray]:
     """Random (conditioning, holdout) index arrays, holdout of round(fraction n) >= 5
     points (the kriging evaluation; the fit and every other metric use all points)."""
-    if (core := HOLDOUT_FRACTION.problem(fraction)) is not None:
-        raise CheckError(f"--holdout: {core}")
-    m = max(5, int(round(fraction * n)))
-    perm = rng.permutation(n)
-    return np.sort(perm[m:]), np.sort(perm[:m])
+    try:
+        size = holdout_size(n, fraction)
+    except ValueError as exc:
+        raise CheckError(f"--holdout: {exc}") from None
+    return split_points(n, size, rng)
 
 
 def _dense_fits(n: int, budget: int | None, *, fisher: bool = False, n_params: int = 0
@@ -313,34 +330,39 @@ def _fixed(x: np.ndarray, y: np.ndarray, options: CheckOptions, d: int) -> _Fit:
                                        "converged": None}, notes, True)
 
 
-def _reference_kind(options: CheckOptions, n: int, n_params: int) -> tuple[str, list[str]]:
-    """The reference kind to use and warnings about the choice."""
+def _reference_kind(options: CheckOptions, points: np.ndarray, kernel: Kernel
+                    ) -> tuple[str, list[str]]:
+    """The reference kind to use (``harness.audit.reference_choice``, the selector of
+    ``run`` too) and warnings about the choice."""
     if options.reference not in REFERENCE_CHOICES:
         raise CheckError(f"--reference {options.reference!r}: choose one of "
                          f"{', '.join(REFERENCE_CHOICES)}")
-    dense_ok = _dense_fits(n, options.memory_budget)
-    if options.reference == "dense":
-        if not dense_ok:
-            raise CheckError(f"--reference dense: n = {n:,} is beyond the dense memory "
-                             "budget; use --reference auto, operator or ladder, or raise "
-                             "--memory-budget")
-        return "dense", []
-    if options.reference == "operator" or (options.reference == "auto" and not dense_ok):
-        if not operator_available():
-            if options.reference == "operator":
-                raise CheckError("--reference operator: the exact operator reference "
-                                 "(harness.references.operator) is not available in this "
-                                 "installation yet; use --reference dense (within the "
-                                 "memory budget) or ladder")
-            return "ladder", [f"n = {n:,} is beyond the dense memory budget and the exact "
-                              "operator reference is not installed: the tolerance ladder "
-                              "is the only reference, so no verdict can be better than "
-                              "unresolved"]
-        return "operator", []
+    n = int(points.shape[0])
     if options.reference == "ladder":
         return "ladder", ["--reference ladder: the ladder is extra evidence only, so no "
                           "verdict can be better than unresolved"]
-    return "dense", []
+    problem = ReferenceProblem(n=n, d=int(points.shape[1]), kernel=kernel,
+                               memory_budget=options.memory_budget,
+                               operator_installed=operator_available())
+    allowed = AUTO_ORDER if options.reference == "auto" else (options.reference,)
+    try:
+        return select_reference(problem, allowed=allowed).kind, []
+    except NoReference as exc:
+        if options.reference == "dense":
+            raise CheckError(f"--reference dense: n = {n:,} is beyond the dense memory "
+                             "budget; use --reference auto, operator or ladder, or raise "
+                             "--memory-budget") from None
+        if options.reference == "operator":
+            raise CheckError("--reference operator: the exact operator reference "
+                             "(harness.references.operator) is not available in this "
+                             "installation yet; use --reference dense (within the "
+                             "memory budget) or ladder") from None
+        if options.reference != "auto":
+            raise CheckError(f"--reference {options.reference}: "
+                             + "; ".join(exc.declined)) from None
+    return "ladder", [f"n = {n:,} is beyond the dense memory budget and no exact structured "
+                      "or operator reference applies: the tolerance ladder is the only "
+                      "reference, so no verdict can be better than unresolved"]
 
 
 def _row(audit: ToleranceAudit, reference: str) -> ToleranceResult:
@@ -394,7 +416,7 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     kernel, fisher = fitted.kernel, fitted.fisher
     notes.extend(fitted.notes)
     se = standard_errors(kernel, fisher)
-    kind, ref_warnings = _reference_kind(options, y.size, kernel.n_params)
+    kind, ref_warnings = _reference_kind(options, x, kernel)
     warnings.extend(ref_warnings)
     audit_data = AuditData(points=x, y=y, kernel=kernel, mean=options.mean, holdout=hold,
                            fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng))
@@ -405,25 +427,16 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                      "deterministic, audited on one seed (more would repeat it)")
         seeds = seeds[:1]
     growth: dict[str, Any] = {}
-    reference: DenseReference | LadderReference | OperatorReference
-    if kind == "dense":
-        say(f"dense reference at n = {y.size:,}")
-        reference = DenseReference(audit_data, memory_budget=options.memory_budget)
-        speedup_over = "dense"
-    elif kind == "operator":
-        say(f"exact operator reference at n = {y.size:,}")
-        reference = OperatorReference(audit_data, base_seed=options.seed,
-                                      probes=max(64, options.probes),
-                                      leaf_size=options.leaf_size,
-                                      memory_budget=options.memory_budget)
-        speedup_over = "the exact operator"
-        if not reference.info.certified:
-            warnings.append("the exact operator reference is not certified (" +
-                            "; ".join(reference.messages) + "): no verdict can be safe")
-    else:
-        reference = LadderReference(audit_data, solver, factor=options.ladder_factor,
-                                    base_seed=options.seed, options=solver_options)
-        speedup_over = f"{solver.name} at tol / {options.ladder_factor:g}"
+    say(f"{kind} reference at n = {y.size:,}")
+    reference = build_reference(kind, audit_data, solver=solver, solver_options=solver_options,
+                                base_seed=options.seed, memory_budget=options.memory_budget,
+                                ladder_factor=options.ladder_factor, probes=options.probes,
+                                leaf_size=options.leaf_size)
+    speedup_over = SPEEDUP_OVER.get(kind, f"{solver.name} at tol / {options.ladder_factor:g}")
+    if isinstance(reference, OperatorReference) and not reference.info.certified:
+        warnings.append("the exact operator reference is not certified (" +
+                        "; ".join(reference.messages) + "): no verdict can be safe")
+    if kind == "ladder":
         growth = _growth(x, y, kernel, options, solver, growth_rng, say)
     notes.append(f"reference: {reference.info.description}")
     result: EngineResult = audit_engine.audit_tolerances(
@@ -434,21 +447,15 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     rec = result.recommendation
     if not rec.monotone:
         warnings.append("non-monotone tolerance ladder: " + rec.reason)
-    ref_k = (reference.kriging if isinstance(reference, OperatorReference)
-             else reference.sides(tols[-1]).kriging)
-    resid = y[hold] - ref_k.mean
-    obs_var = ref_k.variance + kernel.nugget
-    holdout_info = {"points": int(hold.size), "rmse": float(np.sqrt(np.mean(resid ** 2))),
-                    "mean_z2": float(np.mean(resid ** 2 / obs_var)),
-                    "coverage95": float(np.mean(np.abs(resid) <= 1.96 * np.sqrt(obs_var))),
-                    "reference": kind, "conditioned_on": int(train.size)}
+    holdout_info = _holdout_info(reference, tols[-1], y, hold, kernel.nugget)
+    holdout_info.update(reference=kind, conditioned_on=int(train.size))
     best = next((r for r in rows if r.tol == rec.tol), None)
     refit = None
     if best is not None and options.refit and fitted.fit is not None:
         say(f"end-to-end refit with {solver.name} tol {best.tol:g}")
         refit = _refit(x, y, template, fitted.fit, best.tol, options, solver,
                        se.log_se, fisher)
-    loglik = (reference.values().loglik.value if isinstance(reference, OperatorReference)
+    loglik = (reference.values().loglik.value if isinstance(reference, HasValues)
               else reference.sides(tols[-1]).full.loglik)
     if fitted.fit is not None and fitted.fit.engine == "dense":
         loglik = fitted.fit.loglik
@@ -468,6 +475,24 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         solver=solver.to_dict() | {"options": dict(solver_options)},
         solver_seeds=seeds, warnings=tuple(warnings), recommendation=rec.to_dict(),
         fit_converged=fitted.converged, reference_detail=reference.info.to_dict())
+
+
+def _holdout_info(reference: PairedReference | ValueReference, tol: float, y: np.ndarray,
+                  hold: np.ndarray, nugget: float) -> dict[str, Any]:
+    """How the reference's kriging predicts the held-out values (none from a structured
+    reference, which offers no kriging)."""
+    if isinstance(reference, OperatorReference):
+        mean, variance = reference.kriging.mean, reference.kriging.variance
+    elif isinstance(reference, HasValues):
+        return {"points": int(hold.size), "rmse": None, "mean_z2": None, "coverage95": None}
+    else:
+        side = reference.sides(tol).kriging
+        mean, variance = side.mean, side.variance
+    resid = y[hold] - mean
+    obs_var = variance + nugget
+    return {"points": int(hold.size), "rmse": float(np.sqrt(np.mean(resid ** 2))),
+            "mean_z2": float(np.mean(resid ** 2 / obs_var)),
+            "coverage95": float(np.mean(np.abs(resid) <= 1.96 * np.sqrt(obs_var)))}
 
 
 def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,

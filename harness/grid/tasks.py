@@ -116,6 +116,16 @@ class PointSetSpec:
                    value_column=data.get("value_column"))
 
 
+@dataclass(frozen=True)
+class TaskPoints:
+    """A task's points, its new kriging points, and observed values (a data file's value
+    column; None when y is drawn)."""
+
+    points: np.ndarray
+    new_points: np.ndarray
+    observed: np.ndarray | None
+
+
 @dataclass(frozen=True, kw_only=True)
 class AuditSettings:
     """What to measure and how: the settings a case file gives every task of its grid.
@@ -275,6 +285,58 @@ class Task(AuditSettings):
         return {"pointset": self.pointset.to_dict(), "n": self.n, "d": self.d,
                 "kernel": self.kernel, "kernel_params": dict(self.kernel_params),
                 "separable": self.separable, "mean": self.mean, "holdout": self.holdout}
+
+    def time_budget_problem(self) -> str | None:
+        """Why the task is over its time budget (``budget.time``), or None."""
+        if self.time_budget is None:
+            return None
+        from harness.grid.cases.cost import estimate_cost
+        from harness.linalg.dense_budget import default_memory_budget
+
+        cost = estimate_cost(self, dense_limit_bytes=self.memory_budget
+                             or default_memory_budget())
+        if cost.seconds > self.time_budget:
+            return (f"estimated {cost.seconds:.3g} s exceeds the time budget of "
+                    f"{self.time_budget:g} s (budget.time)")
+        return None
+
+    def load_points(self, streams: Mapping[str, np.random.Generator]) -> TaskPoints:
+        """The task's points, its new kriging points and (from a data file's value
+        column) the observed values, from the ``points`` and ``holdout`` streams."""
+        spec = self.pointset
+        if spec.file is not None:
+            from harness.check.datafile import read_table
+
+            frame = read_table(spec.file)
+            coords = frame[list(spec.columns)].to_numpy(dtype=float)
+            values = (frame[spec.value_column].to_numpy(dtype=float) if spec.value_column
+                      else None)
+            rows = (np.arange(coords.shape[0]) if self.n >= coords.shape[0]
+                    else np.sort(streams["points"].choice(coords.shape[0], self.n,
+                                                          replace=False)))
+            points = coords[rows]
+            low, high = points.min(axis=0), points.max(axis=0)
+            new = low + (high - low) * streams["holdout"].random((self.holdout,
+                                                                 points.shape[1]))
+            return TaskPoints(points, new, None if values is None else values[rows])
+        options = dict(spec.options)
+        if spec.generator == "tensor_grid":
+            from harness.geometry.pointsets import tensor_grid
+            from harness.grid.cases.case_grid import grid_side
+
+            extent = options.get("extent")
+            points = tensor_grid((grid_side(self.n, self.d),) * self.d, extent=extent)
+            span = np.asarray(extent if extent is not None else (1.0,) * self.d, dtype=float)
+            return TaskPoints(points, span * streams["holdout"].random((self.holdout, self.d)),
+                              None)
+        if spec.generator is None:
+            raise ValueError(f"point set {spec.name!r} names neither a generator nor a file")
+        from harness.geometry.pointsets import generate
+
+        points = generate(spec.generator, self.n, self.d, rng=streams["points"], **options)
+        new = generate(spec.generator, self.holdout, self.d, rng=streams["holdout"],
+                       **options)
+        return TaskPoints(points, new, None)
 
     def streams(self) -> dict[str, np.random.Generator]:
         """Independent generators named by ``STREAMS`` (see module docstring)."""
