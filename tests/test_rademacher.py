@@ -1,4 +1,4 @@
-"""One Rademacher generator: ``harness.likelihood.trace.probes.rademacher_probes``.
+"""One Rademacher generator: ``harness.linalg.rademacher.rademacher_probes``.
 
 The trace estimators, the exact-operator reference and the audit's probe block all draw
 their +-1 probes through it, so one seed gives one probe block everywhere.
@@ -12,10 +12,11 @@ from pathlib import Path
 import numpy as np
 
 from harness.audit import sides
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.likelihood.trace import probes
+from harness.linalg.rademacher import rademacher_probes
 
 HARNESS = Path(__file__).resolve().parents[1] / "harness"
-HOME = HARNESS / "likelihood" / "trace" / "probes.py"
+HOME = HARNESS / "linalg" / "rademacher.py"
 GENERATOR = re.compile(r"integers\(\s*0\s*,\s*2\b|choice\([^)]*-1(\.0)?\s*,\s*1")
 
 
@@ -26,6 +27,7 @@ def test_no_second_generator_in_harness() -> None:
              if GENERATOR.search(line)]
     assert found == []
     assert sides.rademacher is rademacher_probes
+    assert probes.rademacher_probes is rademacher_probes  # the trace estimators' import path
 
 
 def test_same_entries_as_the_former_generators() -> None:

@@ -28,8 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness.likelihood import kriging
-from harness.likelihood.trace.probes import rademacher_probes
 from harness.likelihood.whitening import fit_mean
+from harness.linalg.rademacher import rademacher_probes
 from harness.model import design_matrix
 from harness.model.kernels import Kernel
 from harness.references import DenseCholesky
@@ -70,7 +70,7 @@ class KrigingSide:
     weights: np.ndarray                # (n_train, m)
 
 
-#: The one Rademacher generator (``harness.likelihood.trace.probes``) under the name the
+#: The one Rademacher generator (``harness.linalg.rademacher``) under the name the
 #: check pipeline imports; it draws the same entries from the same generator as before.
 rademacher = rademacher_probes
 

@@ -11,8 +11,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.check.datafile import Observations
 from harness.geometry.geodesy import CoordinateError, check_lonlat, lonlat_to_chordal
+from harness.infra.data_files import Observations
 
 #: Fewest observations a check accepts: with fewer, the Fisher information of 3-4
 #: covariance parameters is too poorly determined for SE-scaled metrics (covaudit's

@@ -35,7 +35,6 @@ from typing import Any
 
 import numpy as np
 
-from harness.analysis.scaling import extrapolate, fit_power_law
 from harness.audit import engine as audit_engine
 from harness.audit.audit_references import (
     DENSE_CRASH_ADVICE,
@@ -89,6 +88,7 @@ from harness.infra.option_specs import LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
+from harness.model.power_law import extrapolate, fit_power_law
 from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
 from harness.solvers.plugins import SolverLoadError
 from harness.solvers.protocol import Factorization

@@ -26,7 +26,6 @@ from harness.audit.rule import Thresholds
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
 from harness.check.check_records import CheckResult
-from harness.check.datafile import DataFileError, load_observations
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
 from harness.cli.flag_types import (
@@ -37,6 +36,7 @@ from harness.cli.flag_types import (
 )
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.infra.child_process import StageCrashed
+from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,

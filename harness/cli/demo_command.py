@@ -16,11 +16,11 @@ import numpy as np
 
 from harness.audit.rule import Thresholds
 from harness.check import CheckOptions, run_check, validate
-from harness.check.datafile import observations_from_arrays
 from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_demo
 from harness.check.pipeline import holdout_indices
 from harness.cli.check_command import summary, write_outputs
 from harness.cli.flag_types import int_range
+from harness.infra.data_files import observations_from_arrays
 from harness.infra.exit_codes import ExitCode
 
 DEMO_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)

@@ -12,7 +12,6 @@ from typing import Any
 import numpy as np
 
 from harness.audit.named_evaluation import EvaluationError, SolverOptions, evaluate_with_solver
-from harness.check.datafile import DataFileError, load_observations
 from harness.cli.flag_types import (
     float_range,
     int_range,
@@ -24,6 +23,7 @@ from harness.cli.params import ParamSyntaxError, kernel_from_options
 from harness.geometry.spread import spread_warnings
 from harness.grid.runner.dask_check import check_dask_options
 from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
+from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import PROBES, TOLERANCE
 from harness.model import MEAN_MODELS

@@ -20,6 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harness.geometry.point_arrays import finite_points
+
 
 class TreeError(ValueError):
     """Invalid input to the cluster tree (points, leaf size)."""
@@ -105,13 +107,7 @@ def build_tree(points: np.ndarray, *, leaf_size: int = 128) -> ClusterTree:
     -------
     ClusterTree
     """
-    x = np.asarray(points, dtype=float)
-    if x.ndim == 1:
-        x = x[:, None]
-    if x.ndim != 2 or x.shape[0] < 1:
-        raise TreeError(f"points: expected an (n, d) array with n >= 1, got shape {x.shape}")
-    if not np.all(np.isfinite(x)):
-        raise TreeError("points: all coordinates must be finite")
+    x = finite_points(points, error=TreeError)
     if int(leaf_size) != leaf_size or leaf_size < 2:
         raise TreeError(f"leaf_size must be an integer >= 2, got {leaf_size!r}")
     n = x.shape[0]

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 
+from harness.linalg.dense_cholesky import DenseCholesky
 from harness.model.kernels import Kernel
 
 
 def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = None, *,
               tol: float | None = None, memory_budget: int | None = None,
-              certify: bool = True) -> object:
-    """Dense Cholesky of Sigma(theta) = L L' (``harness.references.dense_reference.DenseCholesky``).
+              certify: bool = True) -> DenseCholesky:
+    """Dense Cholesky of Sigma(theta) = L L' (``harness.linalg.dense_cholesky.DenseCholesky``).
 
     Parameters
     ----------
@@ -26,7 +27,5 @@ def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = Non
     certify : bool
         Check LAPACK's scaled residual (DPOT01) and raise when it fails.
     """
-    from harness.references.dense_reference import DenseCholesky
-
     model = kernel if theta is None else kernel.with_theta(theta)
     return DenseCholesky(points, model, memory_budget=memory_budget, certify=certify)

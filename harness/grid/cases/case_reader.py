@@ -265,7 +265,7 @@ def _pointset(check: Checker, path: str, table: dict[str, Any], base: Path
 
 def _file_pointset(check: Checker, path: str, table: dict[str, Any], base: Path, file: str,
                    sized: list[tuple[str, int]]) -> PointSetEntry | None:
-    from harness.check.datafile import DataFileError, read_table
+    from harness.infra.data_files import DataFileError, read_table
 
     columns = check.take_list(table, "columns", path, item=check.string, required=True,
                               scalar_ok=False)

@@ -14,7 +14,7 @@ from harness.likelihood.trace.operators import (
     OperatorFamily,
     Usage,
 )
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.linalg.rademacher import rademacher_probes
 
 __all__ = [
     "TRACE_METHODS",

@@ -42,7 +42,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness.likelihood.trace.operators import DerivativeMatvec, FactorizationOperators
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.linalg.rademacher import rademacher_probes
 from harness.solvers.protocol import DifferentiableFactorization, Factorization
 
 #: Relative residual allowed for a declared Sigma_i = a Sigma + b I on one probe vector

@@ -48,7 +48,7 @@ from threadpoolctl import threadpool_limits
 
 from harness.likelihood.trace.affine import AffineReduction
 from harness.likelihood.trace.operators import OperatorFamily
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.linalg.rademacher import rademacher_probes
 
 TRACE_METHODS = ("hutchinson", "hutchpp")
 

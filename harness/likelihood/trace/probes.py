@@ -1,25 +1,9 @@
-"""Random probe vectors for stochastic trace estimation."""
+"""Random probe vectors for stochastic trace estimation (``harness.linalg.rademacher``).
 
-from __future__ import annotations
+The generator lives below the likelihood and the references, which both draw probes; this
+module keeps the import path of the trace estimators.
+"""
 
-import numpy as np
+from harness.linalg.rademacher import rademacher_probes
 
-
-def rademacher_probes(n: int, m: int, rng: np.random.Generator | int | None = None
-                      ) -> np.ndarray:
-    """An (n, m) block of independent Rademacher entries (+1 or -1, each with probability 1/2).
-
-    Rademacher probes give the smallest variance among i.i.d. probe distributions with
-    E[z z'] = I (Hutchinson 1989, Commun. Statist. Simul. Comput. 18, 1059-1076).
-
-    Parameters
-    ----------
-    n, m : int
-        Rows (the matrix order) and number of probes.
-    rng : Generator, int or None
-        Passed to ``numpy.random.default_rng``.
-    """
-    if n < 1 or m < 1:
-        raise ValueError(f"probe block needs n >= 1 and m >= 1, got n = {n}, m = {m}")
-    gen = np.random.default_rng(rng)
-    return gen.integers(0, 2, size=(n, m)).astype(float) * 2.0 - 1.0
+__all__ = ["rademacher_probes"]

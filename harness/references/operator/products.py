@@ -33,10 +33,10 @@ from threadpoolctl import threadpool_limits
 
 from harness.linalg.dense_budget import default_memory_budget
 from harness.model.kernels import Kernel
-from harness.model.kernels.rows import COORD, SLOPE, VALUE, family_code
+from harness.model.kernels.rows import family_code
 from harness.references.operator.product_progress import product_bar
 from harness.references.operator.schedule import DEFAULT_TILE, TilePlan, column_chunk, plan_tiles
-from harness.references.operator.tile_entries import fill_tile
+from harness.references.operator.tile_entries import fill_tile, kernel_modes
 
 #: Fraction of the available memory one product may use when no budget is given.
 DEFAULT_PRODUCT_FRACTION = 0.25
@@ -58,42 +58,6 @@ def _round_product(family, xs, shape, scale, modes, b, out, starts, first, secon
             out[mi, i0:i1] += np.dot(tile, b[j0:j1])
             if ti != tj:
                 out[mi, j0:j1] += np.dot(tile.T, b[i0:i1])
-
-
-@numba.njit(parallel=True, cache=True)
-def _row_block_product(family, xs, shape, scale, modes, b, out, starts, row_tiles):
-    """out[m, rows of tile t] = sum_J K_m[t, J] B[J] for the given row tiles, J ascending.
-
-    Used by the distributed path: no symmetry across row blocks, so each tile is evaluated
-    from both sides; the column order is fixed, so a row block's result does not depend
-    on the thread count either.
-    """
-    m = starts.shape[0] - 1
-    for q in numba.prange(row_tiles.shape[0]):
-        ti = row_tiles[q]
-        i0 = starts[ti]
-        i1 = starts[ti + 1]
-        for tj in range(m):
-            j0 = starts[tj]
-            j1 = starts[tj + 1]
-            tile = np.empty((i1 - i0, j1 - j0))
-            for mi in range(modes.shape[0]):
-                fill_tile(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
-                out[mi, i0:i1] += np.dot(tile, b[j0:j1])
-
-
-def kernel_modes(kernel: Kernel, which: tuple[int, ...]) -> np.ndarray:
-    """Compiled entry modes for the parameters ``which`` (-1: the value s2 R)."""
-    k = len(kernel.lengthscale)
-    modes = []
-    for i in which:
-        if i in (-1, 0):
-            modes.append(VALUE)
-        elif 1 <= i <= k:
-            modes.append(SLOPE if kernel.isotropic else COORD + (i - 1))
-        else:
-            raise ValueError(f"parameter {i} has no kernel-entry mode (nugget is diagonal)")
-    return np.asarray(modes, dtype=np.int64)
 
 
 def _as_block(b: np.ndarray, n: int) -> tuple[np.ndarray, bool]:
@@ -241,24 +205,3 @@ class KernelOperator:
                 out[mi, rows] += tile @ part[cols]
                 if ti != tj:
                     out[mi, cols] += tile.T @ part[rows]
-
-
-def row_block_products(scaled: np.ndarray, kernel: Kernel, part: np.ndarray,
-                       which: tuple[int, ...], starts: np.ndarray, row_tiles: np.ndarray
-                       ) -> np.ndarray:
-    """Rows of the given tiles of K_m B for each mode (a worker's share; no nugget).
-
-    Returns an array (len(which), rows in those tiles, k) in the order of ``row_tiles``.
-    """
-    n = scaled.shape[0]
-    out = np.zeros((len(which), n, part.shape[1]))
-    if not kernel.compiled:
-        raise ValueError(f"distributed products need a compiled kernel family; "
-                         f"{kernel.family!r} has none (run it serially)")
-    with threadpool_limits(limits=1, user_api="blas"):
-        _row_block_product(family_code(kernel.family), scaled, kernel.shape_value,
-                           kernel.variance, kernel_modes(kernel, which), part, out, starts,
-                           np.asarray(row_tiles, dtype=np.int64))
-    rows = np.concatenate([np.arange(starts[t], starts[t + 1]) for t in row_tiles])
-    return out[:, rows]
-

@@ -34,7 +34,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.linalg.rademacher import rademacher_probes
 from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from harness.likelihood.trace.probes import rademacher_probes
+from harness.linalg.rademacher import rademacher_probes
 from harness.references.operator.products import KernelOperator
 from harness.solvers.protocol import Factorization
 

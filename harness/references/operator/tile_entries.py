@@ -26,6 +26,7 @@ import math
 import numba
 import numpy as np
 
+from harness.model.kernels import Kernel
 from harness.model.kernels.rows import COORD, SLOPE, VALUE, fill_block
 
 _SAFE = {"nnan", "ninf", "nsz", "arcp", "contract", "afn"}   # no "reassoc"
@@ -145,4 +146,18 @@ def fill_tile(family, xs, ys, shape, scale, mode, out):
                     row[j] = 0.0
 
 
-__all__ = ["COORD", "FAST_FAMILIES", "SLOPE", "VALUE", "fill_tile"]
+def kernel_modes(kernel: Kernel, which: tuple[int, ...]) -> np.ndarray:
+    """Compiled entry modes for the parameters ``which`` (-1: the value s2 R)."""
+    k = len(kernel.lengthscale)
+    modes = []
+    for i in which:
+        if i in (-1, 0):
+            modes.append(VALUE)
+        elif 1 <= i <= k:
+            modes.append(SLOPE if kernel.isotropic else COORD + (i - 1))
+        else:
+            raise ValueError(f"parameter {i} has no kernel-entry mode (nugget is diagonal)")
+    return np.asarray(modes, dtype=np.int64)
+
+
+__all__ = ["COORD", "FAST_FAMILIES", "SLOPE", "VALUE", "fill_tile", "kernel_modes"]
