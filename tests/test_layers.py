@@ -35,23 +35,13 @@ PACKAGE = ROOT / "harness"
 #: ``if TYPE_CHECKING:`` imports exempted from a contract (importer -> imported). None today.
 TYPE_CHECKING_EXEMPT: frozenset[str] = frozenset()
 
-#: Known upward imports and loops in the modules the unified audit engine (issue 21, item 1)
-#: is rewriting; that change removes them. Delete each entry here and in ``pyproject.toml``
-#: when its import is gone (``harness.infra.data_files`` is the data-file reader below the
-#: grid and the audit).
+#: Known loops in modules of the unified audit engine (issue 21, item 1), which its owner
+#: removes. Delete each entry here and in ``pyproject.toml`` when its import is gone
+#: (import-linter then fails on an exemption that matches nothing).
 PENDING: frozenset[str] = frozenset({
-    # upward: audit -> grid, audit -> check, grid -> check
-    "harness.audit.engine -> harness.grid.tasks",
-    "harness.audit.task_audit -> harness.grid.tasks",
-    "harness.audit.task_audit -> harness.grid.cases.cost",
-    "harness.audit.task_audit -> harness.grid.cases.case_grid",
-    "harness.audit.task_audit -> harness.check.datafile",
-    "harness.grid.tasks -> harness.check.datafile",
-    # loops (besides the upward imports above, which close loops with audit):
-    # grid.tasks <-> grid.cases, audit.task_references <-> audit.audit_references
+    # loop: grid.tasks <-> grid.cases (the cases import Task and AuditSettings)
     "harness.grid.tasks -> harness.grid.cases.cost",
     "harness.grid.tasks -> harness.grid.cases.case_grid",
-    "harness.audit.task_references -> harness.audit.audit_references",
 })
 
 
