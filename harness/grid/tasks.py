@@ -305,7 +305,7 @@ class Task(AuditSettings):
         column) the observed values, from the ``points`` and ``holdout`` streams."""
         spec = self.pointset
         if spec.file is not None:
-            from harness.check.datafile import read_table
+            from harness.infra.data_files import read_table
 
             frame = read_table(spec.file)
             coords = frame[list(spec.columns)].to_numpy(dtype=float)
