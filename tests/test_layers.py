@@ -11,9 +11,8 @@ inside functions and methods, and under ``if TYPE_CHECKING:``. Three contracts:
 - ``no-loops``: no import cycle among the modules of any package of ``harness``.
 
 No import is exempted from a contract unless it is listed below: ``TYPE_CHECKING_EXEMPT``
-(imports needed only for annotations) and ``PENDING`` (known upward imports in modules that
-are being rewritten, to be deleted from this list and from ``pyproject.toml`` when that
-change lands).
+(imports needed only for annotations; none today) and the references' import of the
+solver protocol.
 """
 
 from __future__ import annotations
@@ -38,11 +37,6 @@ TYPE_CHECKING_EXEMPT: frozenset[str] = frozenset()
 #: Known loops in modules of the unified audit engine (issue 21, item 1), which its owner
 #: removes. Delete each entry here and in ``pyproject.toml`` when its import is gone
 #: (import-linter then fails on an exemption that matches nothing).
-PENDING: frozenset[str] = frozenset({
-    # loop: grid.tasks <-> grid.cases (the cases import Task and AuditSettings)
-    "harness.grid.tasks -> harness.grid.cases.cost",
-    "harness.grid.tasks -> harness.grid.cases.case_grid",
-})
 
 
 def _contracts() -> list[dict[str, object]]:
@@ -65,7 +59,7 @@ def test_only_listed_imports_are_exempted() -> None:
     ignored = {str(line) for contract in _contracts()
                for line in contract.get("ignore_imports", [])}  # type: ignore[attr-defined]
     protocol = {"harness.references.** -> harness.solvers.protocol"}
-    assert ignored == TYPE_CHECKING_EXEMPT | PENDING | protocol
+    assert ignored == TYPE_CHECKING_EXEMPT | protocol
 
 
 def test_the_layers_name_every_stage_package() -> None:

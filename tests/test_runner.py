@@ -229,6 +229,17 @@ def test_beyond_the_dense_budget_without_another_reference_is_skipped(tmp_path):
         assert "dense" in record["skip_reason"] and "at n = 80 needs" in record["skip_reason"]
 
 
+def test_over_the_time_budget_is_skipped_by_the_runner(tmp_path):
+    # the runner skips a task whose cost estimate (grid/cases/cost.py) exceeds budget.time
+    text = GRID.replace("[timing]", '[budget]\ntime = 1e-9\n[timing]\nenabled = false\n#')
+    tasks = _case(tmp_path, text).tasks()
+    store = RunStore(tmp_path / "out")
+    summary = run_grid(tasks, store, SerialBackend())
+    assert (summary.skipped, summary.failed) == (2, 0)
+    for record in store.records().values():
+        assert "exceeds the time budget of 1e-09 s (budget.time)" in record["skip_reason"]
+
+
 def test_serial_runs_in_one_reused_child_process(tmp_path, plugin_dir):
     # Issue 12: serial means one at a time, not in-process; the worker is reused, so the
     # start-up (imports) is paid once, not per task.

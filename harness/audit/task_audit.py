@@ -53,7 +53,6 @@ class GridTask(AuditTask, Protocol):
     def repeats(self) -> int: ...
     @property
     def warmup(self) -> int: ...
-    def time_budget_problem(self) -> str | None: ...
     def load_points(self, streams: Mapping[str, np.random.Generator]) -> _Points: ...
     def streams(self) -> dict[str, np.random.Generator]: ...
 
@@ -86,8 +85,6 @@ def audit_accuracy(task: GridTask) -> dict[str, Any]:
     Raises ``TaskSkipped`` when the task cannot be audited as configured; any other
     exception is a failure of the task.
     """
-    if (problem := task.time_budget_problem()) is not None:
-        raise TaskSkipped(problem)
     clock = time.perf_counter()
     streams = task.streams()
     solver = _resolve(task)

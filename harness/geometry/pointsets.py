@@ -91,6 +91,15 @@ def tensor_grid(shape: Sequence[int], *, extent: Sequence[float] | None = None) 
     return np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, len(shape))
 
 
+def grid_side(n: int, d: int) -> int:
+    """The side k of a tensor grid of n = k^d points; ValueError when n is not a d-th power."""
+    side = round(n ** (1.0 / d))
+    for k in (-1, 0, 1):
+        if side + k > 0 and (side + k) ** d == n:
+            return side + k
+    raise ValueError(f"n = {n} is not a perfect {d}-th power; a tensor grid needs one")
+
+
 def stretched(n: int, d: int = 2, *, aspect: float = 10.0, rng: RngLike = None) -> np.ndarray:
     """Uniform points in a rectangle [0, aspect] x [0, 1] (x [0, 1]): a long thin domain."""
     if d < 2:

@@ -286,20 +286,6 @@ class Task(AuditSettings):
                 "kernel": self.kernel, "kernel_params": dict(self.kernel_params),
                 "separable": self.separable, "mean": self.mean, "holdout": self.holdout}
 
-    def time_budget_problem(self) -> str | None:
-        """Why the task is over its time budget (``budget.time``), or None."""
-        if self.time_budget is None:
-            return None
-        from harness.grid.cases.cost import estimate_cost
-        from harness.linalg.dense_budget import default_memory_budget
-
-        cost = estimate_cost(self, dense_limit_bytes=self.memory_budget
-                             or default_memory_budget())
-        if cost.seconds > self.time_budget:
-            return (f"estimated {cost.seconds:.3g} s exceeds the time budget of "
-                    f"{self.time_budget:g} s (budget.time)")
-        return None
-
     def load_points(self, streams: Mapping[str, np.random.Generator]) -> TaskPoints:
         """The task's points, its new kriging points and (from a data file's value
         column) the observed values, from the ``points`` and ``holdout`` streams."""
@@ -321,8 +307,7 @@ class Task(AuditSettings):
             return TaskPoints(points, new, None if values is None else values[rows])
         options = dict(spec.options)
         if spec.generator == "tensor_grid":
-            from harness.geometry.pointsets import tensor_grid
-            from harness.grid.cases.case_grid import grid_side
+            from harness.geometry.pointsets import grid_side, tensor_grid
 
             extent = options.get("extent")
             points = tensor_grid((grid_side(self.n, self.d),) * self.d, extent=extent)

@@ -111,9 +111,3 @@ def is_perfect_power(n: int, d: int) -> bool:
     return any((side + k) ** d == n for k in (-1, 0, 1) if side + k > 0)
 
 
-def grid_side(n: int, d: int) -> int:
-    side = round(n ** (1.0 / d))
-    for k in (-1, 0, 1):
-        if side + k > 0 and (side + k) ** d == n:
-            return side + k
-    raise ValueError(f"n = {n} is not a perfect {d}-th power; a tensor grid needs one")

@@ -255,3 +255,16 @@ def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
                                                       for t in tasks) else 0.0
     return GridEstimate(tasks=estimates, startup_seconds=startup, rate=flops_per_second,
                         measured=measured, contention=max(1.0, float(load_factor)))
+
+
+def time_budget_problem(task: Task) -> str | None:
+    """Why ``task`` is over its time budget (``budget.time``) by ``estimate_cost``, or None."""
+    if task.time_budget is None:
+        return None
+    from harness.linalg.dense_budget import default_memory_budget
+
+    cost = estimate_cost(task, dense_limit_bytes=task.memory_budget or default_memory_budget())
+    if cost.seconds > task.time_budget:
+        return (f"estimated {cost.seconds:.3g} s exceeds the time budget of "
+                f"{task.time_budget:g} s (budget.time)")
+    return None

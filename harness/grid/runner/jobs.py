@@ -65,6 +65,7 @@ def execute(job: Mapping[str, Any]) -> dict[str, Any]:
     """Run one job (a ``Job.to_dict()``) and return its outcome (module docstring)."""
     from harness.audit.task_audit import TaskSkipped, audit_accuracy, audit_timing
     from harness.audit.timing import thread_settings
+    from harness.grid.cases.cost import time_budget_problem
     from harness.grid.tasks import Task
 
     started = now()
@@ -74,6 +75,8 @@ def execute(job: Mapping[str, Any]) -> dict[str, Any]:
         task = Task.from_dict(job["task"])
         stage = job["stage"]
         if stage in ("accuracy", "accuracy+timing"):
+            if (problem := time_budget_problem(task)) is not None:
+                raise TaskSkipped(problem)
             with limited_threads(1):
                 outcome["environment"] = {"threads": thread_settings()}
                 outcome["result"] = audit_accuracy(task)
