@@ -108,8 +108,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="seeds of the solver's randomness per tolerance; the worst decides "
                         f"(default {DEFAULT_SOLVER_SEEDS})")
     p.add_argument("--reference", choices=REFERENCE_CHOICES, default="auto",
-                   help="auto (dense within the memory budget, operator beyond), dense, "
-                        "operator, or ladder (extra evidence only)")
+                   help="auto (the first that applies: dense within the memory budget, "
+                        "statespace for 1D half-integer Matern data, the exact operator), "
+                        "dense, statespace, operator, or ladder (extra evidence only)")
     p.add_argument("--ladder-factor",
                    type=LADDER_FACTOR_SPEC.argparse_type(),
                    default=LADDER_FACTOR,
