@@ -168,7 +168,6 @@ def main(argv: list[str] | None = None) -> int:
     info = machine()
     unit = measure_unit(args.repeats)
     u = unit["seconds"]
-    acc = accuracy(args.accuracy_n, args.seeds, not args.no_extend) if args.seeds else None
     speed = []
     for n in args.speed_n:
         t = time.perf_counter()
@@ -181,6 +180,9 @@ def main(argv: list[str] | None = None) -> int:
                 out[key.replace("seconds", "units")] = out[key] / u
         print(n, out, flush=True)
         speed.append(out)
+    # after the speed children: a child forked from a parent that held the dense
+    # matrices inherits its resident-set high-water mark (ru_maxrss)
+    acc = accuracy(args.accuracy_n, args.seeds, not args.no_extend) if args.seeds else None
     exponent = None
     ok = [s for s in speed if "first_loglik_seconds" in s and s["n"] >= 65536]
     if len(ok) >= 2:
