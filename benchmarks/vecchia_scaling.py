@@ -18,7 +18,7 @@ one pass. The unit is one dpotrf at n = 8,192 in the same run (``machine_unit``)
 
 Usage::
 
-    flock /tmp/covaudit-bench.lock python benchmarks/vecchia_scaling.py \
+    python benchmarks/vecchia_scaling.py \
         --accuracy-n 16384 --seeds 5 --speed-n 65536 131072 1048576 \
         --json benchmarks/results/vecchia_scaling.json
 """

@@ -158,38 +158,35 @@ def _need(condition: bool, routine: str, what: str) -> None:
         raise ValueError(f"{routine}: {what}")
 
 
+def _square_lapack(routine: str, call: Callable[..., None], a: Tile,
+                   *flags: str) -> int:
+    """One LAPACK call on the lower triangle of the square tile ``a``; LAPACK's ``info``."""
+    m, k = a.shape
+    _need(m == k, routine, f"tile must be square, got {a.shape}")
+    _admit(routine, a)
+    info = ctypes.c_int(0)
+    call(_char("L"), *(_char(f) for f in flags), _ref(_int(m)), a.pointer(), a.lead(),
+         _ref(info))
+    return int(info.value)
+
+
 def potrf_lower(a: Tile) -> int:
     """Lower Cholesky factor of the square tile ``a``, in place (LAPACK dpotrf).
 
     Returns LAPACK's ``info``: 0, or the 1-based column of the tile where it is not
     positive definite. The strict upper triangle of the tile is not referenced.
     """
-    m, k = a.shape
-    _need(m == k, "dpotrf", f"tile must be square, got {a.shape}")
-    _admit("dpotrf", a)
-    info = ctypes.c_int(0)
-    _DPOTRF(_char("L"), _ref(_int(m)), a.pointer(), a.lead(), _ref(info))
-    return int(info.value)
+    return _square_lapack("dpotrf", _DPOTRF, a)
 
 
 def trtri_lower(a: Tile) -> int:
     """Inverse of the lower triangle of the square tile ``a``, in place (LAPACK dtrtri)."""
-    m, k = a.shape
-    _need(m == k, "dtrtri", f"tile must be square, got {a.shape}")
-    _admit("dtrtri", a)
-    info = ctypes.c_int(0)
-    _DTRTRI(_char("L"), _char("N"), _ref(_int(m)), a.pointer(), a.lead(), _ref(info))
-    return int(info.value)
+    return _square_lapack("dtrtri", _DTRTRI, a, "N")
 
 
 def lauum_lower(a: Tile) -> int:
     """lower(a) <- L' L with L = lower(a), in place (LAPACK dlauum)."""
-    m, k = a.shape
-    _need(m == k, "dlauum", f"tile must be square, got {a.shape}")
-    _admit("dlauum", a)
-    info = ctypes.c_int(0)
-    _DLAUUM(_char("L"), _ref(_int(m)), a.pointer(), a.lead(), _ref(info))
-    return int(info.value)
+    return _square_lapack("dlauum", _DLAUUM, a)
 
 
 def gemm(c: Tile, a: Tile, b: Tile, *, alpha: float = 1.0, beta: float = 1.0,

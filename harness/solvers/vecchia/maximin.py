@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numba
 import numpy as np
 
+from harness.geometry.point_arrays import finite_points
 from harness.solvers.vecchia.kdtree import LEAF, STACK, box_sq_dist, build_kdtree, sq_dist
 
 
@@ -173,14 +174,7 @@ def maximin_order(points: np.ndarray) -> MaximinOrder:
     -------
     MaximinOrder
     """
-    x = np.asarray(points, dtype=float)
-    if x.ndim == 1:
-        x = x[:, None]
-    if x.ndim != 2 or x.shape[0] < 1:
-        raise ValueError(f"points: expected an (n, d) array with n >= 1, got {x.shape}")
-    if not np.all(np.isfinite(x)):
-        raise ValueError("points: all coordinates must be finite")
-    x = np.ascontiguousarray(x)
+    x = np.ascontiguousarray(finite_points(points))
     first = int(np.argmin(((x - x.mean(axis=0)) ** 2).sum(axis=1)))
     perm, lengths, nearest = _maximin(x, first)
     return MaximinOrder(perm=perm, lengths=lengths, nearest=nearest)

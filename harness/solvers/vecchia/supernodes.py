@@ -88,45 +88,39 @@ def _assign(ptr: np.ndarray, rows: np.ndarray, lengths: np.ndarray, lam: float) 
     return group
 
 
+@numba.njit(cache=True)
+def _shared_set(ptr: np.ndarray, rows: np.ndarray, member_ptr: np.ndarray,
+                members: np.ndarray, s: int) -> np.ndarray:
+    """The sorted union of supernode s's members and their conditioning rows."""
+    total = 0
+    for a in range(member_ptr[s], member_ptr[s + 1]):
+        k = members[a]
+        total += ptr[k + 1] - ptr[k] + 1
+    buf = np.empty(total, np.int64)
+    c = 0
+    for a in range(member_ptr[s], member_ptr[s + 1]):
+        k = members[a]
+        for e in range(ptr[k], ptr[k + 1]):
+            buf[c] = rows[e]
+            c += 1
+        buf[c] = k
+        c += 1
+    return np.unique(buf)
+
+
 @numba.njit(parallel=True, cache=True)
 def _sets(ptr: np.ndarray, rows: np.ndarray, member_ptr: np.ndarray,
           members: np.ndarray) -> tuple:
     n_sn = member_ptr.shape[0] - 1
     sizes = np.zeros(n_sn + 1, np.int64)
     for s in numba.prange(n_sn):
-        total = 0
-        for a in range(member_ptr[s], member_ptr[s + 1]):
-            k = members[a]
-            total += ptr[k + 1] - ptr[k] + 1
-        buf = np.empty(total, np.int64)
-        c = 0
-        for a in range(member_ptr[s], member_ptr[s + 1]):
-            k = members[a]
-            for e in range(ptr[k], ptr[k + 1]):
-                buf[c] = rows[e]
-                c += 1
-            buf[c] = k
-            c += 1
-        sizes[s + 1] = np.unique(buf).shape[0]
+        sizes[s + 1] = _shared_set(ptr, rows, member_ptr, members, s).shape[0]
     set_ptr = np.cumsum(sizes)
     set_rows = np.empty(set_ptr[n_sn], np.int32)
     n = ptr.shape[0] - 1
     col_len = np.zeros(n + 1, np.int64)
     for s in numba.prange(n_sn):
-        total = 0
-        for a in range(member_ptr[s], member_ptr[s + 1]):
-            k = members[a]
-            total += ptr[k + 1] - ptr[k] + 1
-        buf = np.empty(total, np.int64)
-        c = 0
-        for a in range(member_ptr[s], member_ptr[s + 1]):
-            k = members[a]
-            for e in range(ptr[k], ptr[k + 1]):
-                buf[c] = rows[e]
-                c += 1
-            buf[c] = k
-            c += 1
-        u = np.unique(buf)
+        u = _shared_set(ptr, rows, member_ptr, members, s)
         t = 0
         for a in range(u.shape[0]):
             set_rows[set_ptr[s] + a] = u[a]
