@@ -104,9 +104,22 @@ class ChildCrashed(RuntimeError):
         self.signal = -exitcode if exitcode is not None and exitcode < 0 else None
         self.stderr_tail = stderr_tail
 
+    @property
+    def cause(self) -> str:
+        """How the child ended, in a few words: ``crashed with signal 11 (SIGSEGV)``, or
+        ``exited with status 0 without returning a result`` (``os._exit``, ``sys.exit``
+        in a thread, the out-of-memory killer's relatives)."""
+        if self.signal is not None:
+            return "crashed with " + signal_description(self.exitcode).removeprefix("killed by ")
+        return f"{signal_description(self.exitcode)} without returning a result"
+
 
 class ChildTimeout(TimeoutError):
-    """The child ran past its timeout and was stopped."""
+    """The child ran past its timeout (``timeout`` seconds) and was stopped."""
+
+    def __init__(self, message: str, *, timeout: float | None) -> None:
+        super().__init__(message)
+        self.timeout = timeout
 
 
 def _child(conn: Connection, stderr_path: str, parent: int, stage: str | None,
@@ -137,18 +150,22 @@ def _child(conn: Connection, stderr_path: str, parent: int, stage: str | None,
 
 
 def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = None,
-                  what: str = "the call", stage: str | None = None, **kwargs: Any) -> Any:
+                  what: str = "the call", stage: str | None = None,
+                  timeout_option: str = "--task-timeout", daemon: bool = True,
+                  **kwargs: Any) -> Any:
     """``fn(*args, **kwargs)`` in a child process (module docstring).
 
     ``what`` names the work in error messages (``"the solver plugin 'pkg.mod:f'"``);
-    ``stage`` names it for the crash-injection hook of the tests.
+    ``stage`` names it for the crash-injection hook of the tests; ``timeout_option`` is
+    the option a timeout message points to. ``daemon=False`` lets the child start
+    processes of its own (a local Dask cluster); it still dies with its parent.
     """
     context = multiprocessing.get_context("spawn")
     with tempfile.TemporaryDirectory(prefix="covaudit-child-") as folder:
         stderr_path = Path(folder) / "stderr"
         stderr_path.touch()
         parent_conn, child_conn = context.Pipe(duplex=False)
-        process = context.Process(target=_child, daemon=True,
+        process = context.Process(target=_child, daemon=daemon,
                                   args=(child_conn, str(stderr_path), os.getpid(), stage, fn,
                                         args, kwargs))
         process.start()
@@ -179,7 +196,7 @@ def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = No
                     process.join(timeout=5)
                     _pass_on(stderr_path)
                     raise ChildTimeout(f"{what} ran longer than {timeout:g} s and was stopped "
-                                       "(--task-timeout allows longer)")
+                                       f"({timeout_option} allows longer)", timeout=timeout)
         finally:
             with contextlib.suppress(OSError):
                 parent_conn.close()
