@@ -80,11 +80,13 @@ class DenseReference:
         sides: DenseSides = (
             run_stage(dense_sides, data.points, data.y, data.kernel, mean=data.mean,
                       holdout=data.holdout, probes=data.probes, memory_budget=memory_budget,
-                      stage="the dense reference", n=int(data.y.size),
+                      variance_at=data.variance_positions, stage="the dense reference",
+                      n=int(data.y.size),
                       advice=DENSE_CRASH_ADVICE)
             if isolate else
             dense_sides(data.points, data.y, data.kernel, mean=data.mean,
-                        holdout=data.holdout, probes=data.probes, memory_budget=memory_budget))
+                        holdout=data.holdout, probes=data.probes, memory_budget=memory_budget,
+                        variance_at=data.variance_positions))
         cert_full, cert_t = sides.certificate_full, sides.certificate_train
         self.certificate = max(cert_full, cert_t)
         certified = bool(cert_full < CERTIFICATE_THRESHOLD and cert_t < CERTIFICATE_THRESHOLD)
@@ -131,7 +133,7 @@ class LadderReference:
         fac_t = self.solver.factorize(x[train], kernel, kernel.theta, tol=tight,
                                       **self.options)
         ks = kriging_side(f"{self.solver.name} {tight:g}", fac_t, x[train], d.y[train],
-                          kernel, x[d.holdout], mean=d.mean)
+                          kernel, x[d.holdout], mean=d.mean, variance_at=d.variance_positions)
         out = ReferenceSides(full=full, kriging=ks, train_matvec=fac_t.matvec,
                              loglik_seconds=full.loglik_seconds)
         self._cache[tight] = out
@@ -171,6 +173,7 @@ class OperatorReference:
                                 **opts)
         kr = operator_kriging(x[train], data.y[train], kernel, x[data.holdout],
                               mean=data.mean, preconditioner=pre_t,
+                              variance_at=data.variance_positions,
                               memory_budget=memory_budget, progress=False)
         del pre_t
         certified = bool(ev.converged and kr.converged and kr.rigorous
@@ -192,7 +195,7 @@ class OperatorReference:
             krige_mean=np.asarray(kr.mean), krige_mean_bound=np.asarray(kr.mean_bound),
             krige_var=np.asarray(kr.variance), loglik_seconds=seconds)
         self.kriging = KrigingSide("operator", np.asarray(kr.mean), np.asarray(kr.variance),
-                                   np.empty((0, 0)))
+                                   data.variance_positions)
 
     def values(self) -> ReferenceValues:
         return self._values
@@ -201,8 +204,12 @@ class OperatorReference:
 class StructuredReference:
     """An exact structured reference as values: the state-space (Kalman) likelihood and
     score for 1D points and a half-integer Matern kernel, or the Kronecker ones for a
-    tensor grid and a separable kernel. Exact (standard errors 0) and certified; no
-    kriging at held-out data points (the kriging metric is not measured)."""
+    tensor grid and a separable kernel. Exact (standard errors 0) and certified. The
+    state-space kind also kriges the held-out points exactly, by the Rauch-Tung-Striebel
+    smoother over all points with the held-out ones as missing observations
+    (``harness.references.statespace_kriging``); the Kronecker kind offers no kriging at
+    held-out data points (the kriging metric is then not measured).
+    """
 
     def __init__(self, kind: str, data: AuditData, *, probes: int = 64) -> None:
         self.probes = int(probes)
@@ -213,22 +220,73 @@ class StructuredReference:
             ev = StateSpaceReference(data.points, data.kernel).evaluate(
                 data.y, mean=data.mean, score=True)
             what = "Kalman filter (exact)"
+            seconds = time.perf_counter() - t0
+            kriging = _smoother_values(data)
         elif kind == "kronecker":
             from harness.references.kronecker import KroneckerReference
 
             ev = KroneckerReference(data.points, data.kernel).evaluate(  # type: ignore[arg-type]
                 data.y, mean=data.mean, score=True)
             what = "Kronecker eigen-decomposition (exact)"
+            seconds = time.perf_counter() - t0
+            kriging = None
         else:
             raise ValueError(f"{kind!r} is no structured reference kind")
-        self.info = ReferenceInfo(kind, True, f"{what}; no kriging at held-out points")
+        krige_what = ("; kriging by the Rauch-Tung-Striebel smoother (exact)"
+                      if kriging is not None else "; no kriging at held-out points")
+        self.info = ReferenceInfo(kind, True, what + krige_what)
+        krige_mean, krige_var = (None, None) if kriging is None else kriging
         self._values = ReferenceValues(
             loglik=ReferenceValue(float(ev.loglik)), score=np.asarray(ev.score, dtype=float),
-            score_se=np.zeros(data.kernel.n_params), krige_mean=None, krige_mean_bound=None,
-            krige_var=None, loglik_seconds=time.perf_counter() - t0)
+            score_se=np.zeros(data.kernel.n_params), krige_mean=krige_mean,
+            krige_mean_bound=None if krige_mean is None else np.zeros_like(krige_mean),
+            krige_var=krige_var, loglik_seconds=seconds)
+        entry = {"kind": kind, "certified": True, "exact": True, "description": what}
+        self.by_metric: dict[str, dict[str, object]] = {
+            "loglik": dict(entry), "score": dict(entry),
+            "kriging": (entry | {"description": "Rauch-Tung-Striebel smoother (exact)",
+                                 **_kriging_counts(data)}
+                        if kriging is not None else
+                        {"kind": None, "certified": False, "exact": False,
+                         "description": f"the {kind} reference offers no kriging at "
+                                        "held-out points: not measured"})}
 
     def values(self) -> ReferenceValues:
         return self._values
+
+
+def _smoother_values(data: AuditData) -> tuple[np.ndarray, np.ndarray]:
+    """The state-space reference's kriging: means at every held-out point, variances at
+    the variance points, conditioned on the other points."""
+    from harness.references.statespace_kriging import smoother_kriging
+
+    train = data.train
+    kr = smoother_kriging(data.points[train], data.y[train], data.kernel,
+                          data.points[data.holdout], mean=data.mean)
+    return np.asarray(kr.mean), np.asarray(kr.variance)[data.variance_positions]
+
+
+def _kriging_counts(data: AuditData) -> dict[str, object]:
+    return {"n_holdout": int(np.asarray(data.holdout).size),
+            "n_variance_points": int(data.variance_positions.size)}
+
+
+#: The metric groups ``reference_by_metric`` reports.
+METRIC_GROUPS: tuple[str, ...] = ("loglik", "score", "kriging")
+
+
+def reference_by_metric(reference: PairedReference | ValueReference, data: AuditData
+                        ) -> dict[str, dict[str, object]]:
+    """Which reference served which metric group (``METRIC_GROUPS``), each with its
+    detail (``ReferenceInfo.to_dict``) and, for kriging, the counts used: one reference
+    for all three, except where the reference says otherwise (``by_metric``: the
+    state-space and Kronecker references)."""
+    own = getattr(reference, "by_metric", None)
+    if own is not None:
+        return {name: dict(entry) for name, entry in own.items()}
+    entry = reference.info.to_dict()
+    return {"loglik": dict(entry), "score": dict(entry),
+            "kriging": entry | _kriging_counts(data)}
 
 
 def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,

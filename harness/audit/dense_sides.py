@@ -9,7 +9,7 @@ boundary, never an n x n factor. This module imports little, so the child starts
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -30,12 +30,14 @@ class DenseSides:
 
 def dense_sides(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
                 holdout: np.ndarray, probes: np.ndarray,
-                memory_budget: int | None) -> DenseSides:
+                memory_budget: int | None, variance_at: np.ndarray | None = None
+                ) -> DenseSides:
     """The dense reference's quantities: all points, then the kriging conditioning points
-    (all but ``holdout``), kriging at the held-out points.
+    (all but ``holdout``), kriging at the held-out points: means at every one, variances
+    at ``variance_at`` (positions among them; default every one).
 
-    Runs in a child process (``DenseReference``); the kriging weights of the reference
-    are not used by any metric, so they are left out of what crosses the boundary.
+    Runs in a child process (``DenseReference``); only means and variances cross the
+    boundary.
     """
     x = points
     train = np.setdiff1d(np.arange(y.size), holdout)
@@ -46,8 +48,8 @@ def dense_sides(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
     del chol
     chol_t = DenseCholesky(x[train], kernel, memory_budget=memory_budget)
     cert_t = float(chol_t.certificate if chol_t.certificate is not None else np.nan)
-    ks = kriging_side("dense", chol_t, x[train], y[train], kernel, x[holdout], mean=mean)
-    return DenseSides(full, replace(ks, weights=np.empty((0, ks.mean.size))), cert_full,
-                      cert_t)
+    ks = kriging_side("dense", chol_t, x[train], y[train], kernel, x[holdout], mean=mean,
+                      variance_at=variance_at)
+    return DenseSides(full, ks, cert_full, cert_t)
 
 

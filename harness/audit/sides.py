@@ -12,9 +12,12 @@ quantities at the same theta, the same data and the same probe vectors Z:
   trace, so the compression error of the score is resolved far below the estimator
   noise of a trace estimate made on its own;
 * kriging (``kriging_side``): a second factorization of the points *other than* the
-  held-out ones, at the same parameters, predicts at the held-out points (mean, latent
-  variance) with the universal-kriging weights needed by the loss-of-efficiency
-  criteria (``efficiency``). The likelihood pieces use all n points.
+  held-out ones, at the same parameters, predicts at the held-out points: means at every
+  one, latent variances at a subset (``AuditData.variance_at``), both through
+  ``harness.likelihood.kriging`` at bounded memory. The loss-of-efficiency criteria
+  (``efficiency``) need the universal-kriging weights of the variance points; they are
+  formed 64 columns at a time (``predictor_mse``), never as one n x m array. The
+  likelihood pieces use all n points.
 
 For the dense reference the derivative products Sigma_i [a, Z] come from one pass over
 row blocks of the kernel's derivative blocks (all parameters at once).
@@ -23,14 +26,17 @@ row blocks of the kernel's derivative blocks (all parameters at once).
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 
+from harness.audit.metrics.efficiency import predictor_mse_terms
 from harness.likelihood import kriging
 from harness.likelihood.whitening import fit_mean
 from harness.linalg.rademacher import rademacher_probes
 from harness.model import design_matrix
+from harness.model.cross_tiles import column_blocks
 from harness.model.kernels import Kernel
 from harness.references import DenseCholesky
 from harness.solvers.protocol import Factorization
@@ -62,12 +68,16 @@ class Side:
 
 @dataclass(frozen=True)
 class KrigingSide:
-    """Kriging at the held-out points from a factorization of the other points."""
+    """Kriging at the held-out points from a factorization of the other points.
+
+    ``mean`` has one entry per held-out point, ``variance`` one per entry of
+    ``variance_at`` (positions among the held-out points).
+    """
 
     name: str
-    mean: np.ndarray
-    variance: np.ndarray
-    weights: np.ndarray                # (n_train, m)
+    mean: np.ndarray                   # (m,)
+    variance: np.ndarray               # (len(variance_at),)
+    variance_at: np.ndarray            # (v,) int
 
 
 #: The one Rademacher generator (``harness.linalg.rademacher``) under the name the
@@ -93,7 +103,8 @@ def kriging_weights(fac: Factorization, points: np.ndarray, kernel: Kernel, new_
     """Universal-kriging weights lambda (n x m) of the factorization's model.
 
     lambda = Sigma^-1 k* + Sigma^-1 F (F' Sigma^-1 F)^-1 (f* - F' Sigma^-1 k*)
-    (Cressie 1993, eq. 3.4.59; the second term vanishes for the zero mean).
+    (Cressie 1993, eq. 3.4.59; the second term vanishes for the zero mean). An n x m
+    array: callers pass at most ``TILE_COLUMNS`` new points (``predictor_mse``).
     """
     cross = kernel.cross_covariance(points, new_points)
     lam = np.asarray(fac.solve(cross))
@@ -104,6 +115,27 @@ def kriging_weights(fac: Factorization, points: np.ndarray, kernel: Kernel, new_
         u = design_matrix(new_points, mean).T - design.T @ lam
         lam = lam + sf @ np.linalg.solve(gram, u)
     return lam
+
+
+def predictor_mse(fac: Factorization, points: np.ndarray, kernel: Kernel,
+                  new_points: np.ndarray, *, mean: str,
+                  matvec: Callable[[np.ndarray], np.ndarray]) -> np.ndarray:
+    """E_at: the mean squared error, under the model whose Sigma product is ``matvec``,
+    of the kriging predictor with ``fac``'s weights, at each new point.
+
+    E_at = c00 - 2 lambda' c + lambda' Sigma lambda (``harness.audit.metrics.efficiency``),
+    with lambda from ``kriging_weights`` and c = k(X, x*), ``TILE_COLUMNS`` new points at
+    a time, so that no n x m array is formed.
+    """
+    new = np.asarray(new_points, dtype=float)
+    new = new[:, None] if new.ndim == 1 else new
+    out = np.empty(new.shape[0])
+    for cols in column_blocks(new.shape[0]):
+        block = new[cols]
+        lam = kriging_weights(fac, points, kernel, block, mean=mean)
+        cross = kernel.cross_covariance(points, block)
+        out[cols] = predictor_mse_terms(lam, cross, np.asarray(matvec(lam)), kernel.variance)
+    return out
 
 
 def evaluate_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
@@ -137,9 +169,12 @@ def evaluate_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarr
 
 
 def kriging_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
-                 new_points: np.ndarray, *, mean: str) -> KrigingSide:
+                 new_points: np.ndarray, *, mean: str,
+                 variance_at: np.ndarray | None = None) -> KrigingSide:
     """Kriging at ``new_points`` by ``fac``, a factorization of Sigma at ``points`` (the
-    points other than the held-out ones)."""
-    pred = kriging(fac, points, y, kernel, new_points, mean=mean)
-    weights = kriging_weights(fac, points, kernel, new_points, mean=mean)
-    return KrigingSide(name=name, mean=pred.mean, variance=pred.variance, weights=weights)
+    points other than the held-out ones): means at every new point, variances at
+    ``variance_at`` (positions among the new points; default every one)."""
+    m = np.asarray(new_points).shape[0]
+    at = np.arange(m) if variance_at is None else np.asarray(variance_at, dtype=np.intp)
+    pred = kriging(fac, points, y, kernel, new_points, mean=mean, variance_at=at)
+    return KrigingSide(name=name, mean=pred.mean, variance=pred.variance, variance_at=at)

@@ -7,9 +7,10 @@
   ``Thresholds.param_shift_se`` on the largest component;
 * microergodic shift in SE (isotropic Matern kernels; information);
 * kriging mean error max |m~ - m| / sqrt(v) at the held-out points, both sides
-  conditioned on the other points (``harness.audit.metrics.kriging_errors``; threshold
+  conditioned on the other points (``harness.audit.metrics.held_out_scale``; threshold
   ``Thresholds.kriging_mean_sd``);
-* kriging variance ratio v~ / v, largest |ratio - 1| (information);
+* kriging variance ratio v~ / v at the variance points, largest |ratio - 1|
+  (information);
 * MLOE and MMOM (``efficiency``; information).
 """
 
@@ -18,8 +19,9 @@ from __future__ import annotations
 import numpy as np
 
 from harness.audit.metric_values import MetricValue
-from harness.audit.metrics import kriging_errors, microergodic_shift, score_errors
-from harness.audit.metrics.efficiency import prediction_efficiency
+from harness.audit.metrics import microergodic_shift, score_errors
+from harness.audit.metrics.efficiency import efficiency_from_mse
+from harness.audit.metrics.held_out_scale import held_out_scale
 from harness.audit.rule import Thresholds
 from harness.audit.sides import KrigingSide, Side
 from harness.model.kernels import Kernel, smoothness
@@ -82,22 +84,31 @@ def shift_metrics(e: np.ndarray, e_se: np.ndarray, *, kernel: Kernel,
     return metrics
 
 
-def kriging_metrics(test: KrigingSide, ref: KrigingSide, *, cross: np.ndarray,
-                    sigma_times_weights: np.ndarray, variance: float,
+def kriging_metrics(test: KrigingSide, ref: KrigingSide, *, predictor_mse: np.ndarray,
                     thresholds: Thresholds) -> list[MetricValue]:
-    """Kriging errors at the held-out points, both sides conditioned on the other points."""
-    krig = kriging_errors(test.mean, test.variance, ref.mean, ref.variance)
-    metrics = [MetricValue("kriging_mean_sd", krig.mean_sd_max, thresholds.kriging_mean_sd,
+    """Kriging errors at the held-out points, both sides conditioned on the other points.
+
+    The mean error is scaled per point by ``harness.audit.metrics.held_out_scale`` (each
+    variance point by its own reference SD); the variance ratio and the efficiency
+    criteria use the variance points, ``predictor_mse`` being E_at there
+    (``harness.audit.sides.predictor_mse``).
+    """
+    if not np.array_equal(test.variance_at, ref.variance_at):
+        raise ValueError("the two kriging sides hold variances at different points")
+    scale = held_out_scale(ref.mean.size, ref.variance, ref.variance_at)
+    z = scale.errors(test.mean, ref.mean)
+    own = int(np.count_nonzero(scale.own))
+    metrics = [MetricValue("kriging_mean_sd", float(np.max(z)), thresholds.kriging_mean_sd,
                            uncertainty=0.0,
-                           note="largest |m~ - m| / sqrt(v) at held-out points, "
-                                "conditioned on the other points")]
+                           note=f"largest |m~ - m| / sqrt(v) at {z.size} held-out points, "
+                                f"conditioned on the other points ({own} with their own "
+                                f"variance, the others scaled by the smallest)")]
     positive = ref.variance > 0
     ratio = test.variance[positive] / ref.variance[positive]
     metrics.append(MetricValue("kriging_var_ratio", float(np.max(np.abs(ratio - 1.0))),
-                               note=f"largest |v~/v - 1|; v~/v in [{ratio.min():.6g}, "
-                                    f"{ratio.max():.6g}]"))
-    eff = prediction_efficiency(test.weights, cross, sigma_times_weights, variance,
-                                ref.variance, test.variance)
+                               note=f"largest |v~/v - 1| at {ratio.size} variance points; "
+                                    f"v~/v in [{ratio.min():.6g}, {ratio.max():.6g}]"))
+    eff = efficiency_from_mse(predictor_mse, ref.variance, test.variance)
     metrics.append(MetricValue("mloe", eff.mloe, note="mean loss of efficiency "
                                "(Hong et al. 2021; information)"))
     metrics.append(MetricValue("mmom", eff.mmom, note="mean misspecification of the MSE "

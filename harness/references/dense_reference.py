@@ -19,6 +19,7 @@ import time
 import numpy as np
 
 from harness.linalg.dense_cholesky import _BLOCK, DenseCholesky
+from harness.model.cross_tiles import cross_covariance_tiles
 from harness.model.evaluation import KrigingPrediction, ModelEvaluation
 from harness.model.gls import gls_loglik
 from harness.model.kernels import Kernel
@@ -139,7 +140,9 @@ def dense_kriging(points: np.ndarray, y: np.ndarray, kernel: Kernel, new_points:
     m* = f*' beta + k*' Sigma^-1 (y - F beta),
     v* = s2 - k*' Sigma^-1 k* + u' (F' Sigma^-1 F)^-1 u,  u = f* - F' Sigma^-1 k*
     (Cressie 1993, *Statistics for Spatial Data*, eqs. 3.4.60-3.4.61; with the zero mean
-    the last term vanishes and this is simple kriging, R&W 2006 eqs. 2.25-2.26).
+    the last term vanishes and this is simple kriging, R&W 2006 eqs. 2.25-2.26). The
+    cross-covariance k* is formed ``TILE_COLUMNS`` new points at a time
+    (``harness.model.cross_tiles``), never as one n x m array.
     """
     points, y = _check_data(points, y)
     new_points = np.asarray(new_points, dtype=float)
@@ -150,13 +153,16 @@ def dense_kriging(points: np.ndarray, y: np.ndarray, kernel: Kernel, new_points:
     whitened = chol.solve_sqrt(np.column_stack([y, design]))
     fit = gls_loglik(chol.logdet(), whitened[:, 0], whitened[:, 1:], design)
     a = chol.solve_sqrt_transpose(fit.whitened_residual)
-    cross = kernel.cross_covariance(points, new_points)            # (n, m)
-    mean_values = new_design @ fit.beta + cross.T @ a
-    v = chol.solve_sqrt(cross)                                     # L^-1 k*
-    variance = kernel.variance - np.einsum("ij,ij->j", v, v)
-    if design.shape[1]:
-        u = new_design.T - whitened[:, 1:].T @ v                   # f* - G' L^-1 k*
-        variance = variance + np.einsum("ij,ij->j", u, fit.beta_cov @ u)
+    mean_values = new_design @ fit.beta
+    variance = np.empty(new_points.shape[0])
+    for cols, cross in cross_covariance_tiles(kernel, points, new_points):     # (n, k)
+        mean_values[cols] += cross.T @ a
+        v = chol.solve_sqrt(cross)                                 # L^-1 k*
+        var = kernel.variance - np.einsum("ij,ij->j", v, v)
+        if design.shape[1]:
+            u = new_design[cols].T - whitened[:, 1:].T @ v         # f* - G' L^-1 k*
+            var = var + np.einsum("ij,ij->j", u, fit.beta_cov @ u)
+        variance[cols] = var
     variance = np.maximum(variance, 0.0)
     return KrigingPrediction(mean=mean_values, variance=variance,
                              observation_variance=variance + kernel.nugget, beta=fit.beta)

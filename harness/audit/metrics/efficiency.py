@@ -43,14 +43,13 @@ class Efficiency:
         return asdict(self)
 
 
-def prediction_efficiency(weights_approx: np.ndarray, cross: np.ndarray,
-                          sigma_times_weights: np.ndarray, c00: float,
-                          var_exact: np.ndarray, var_approx: np.ndarray) -> Efficiency:
-    """MLOE and MMOM (module docstring).
+def predictor_mse_terms(weights: np.ndarray, cross: np.ndarray,
+                        sigma_times_weights: np.ndarray, c00: float) -> np.ndarray:
+    """E_at = c00 - 2 lambda' c + lambda' Sigma lambda per column (module docstring).
 
     Parameters
     ----------
-    weights_approx : ndarray (n, m)
+    weights : ndarray (n, m)
         lambda_a, kriging weights of the approximated model.
     cross : ndarray (n, m)
         c, exact covariances between the observations and the prediction points.
@@ -58,12 +57,25 @@ def prediction_efficiency(weights_approx: np.ndarray, cross: np.ndarray,
         Sigma lambda_a with the exact Sigma.
     c00 : float
         Prior variance of the latent field at a prediction point.
-    var_exact, var_approx : ndarray (m,)
-        E_tt and E_aa.
     """
-    lam = np.asarray(weights_approx, dtype=float)
-    e_at = (c00 - 2.0 * np.einsum("ij,ij->j", lam, cross)
+    lam = np.asarray(weights, dtype=float)
+    return (c00 - 2.0 * np.einsum("ij,ij->j", lam, cross)
             + np.einsum("ij,ij->j", lam, sigma_times_weights))
+
+
+def prediction_efficiency(weights_approx: np.ndarray, cross: np.ndarray,
+                          sigma_times_weights: np.ndarray, c00: float,
+                          var_exact: np.ndarray, var_approx: np.ndarray) -> Efficiency:
+    """MLOE and MMOM (module docstring) from the weights (``predictor_mse_terms``)."""
+    e_at = predictor_mse_terms(weights_approx, cross, sigma_times_weights, c00)
+    return efficiency_from_mse(e_at, var_exact, var_approx)
+
+
+def efficiency_from_mse(e_at: np.ndarray, var_exact: np.ndarray,
+                        var_approx: np.ndarray) -> Efficiency:
+    """MLOE and MMOM (module docstring) from E_at, E_tt = ``var_exact`` and E_aa =
+    ``var_approx``, one entry per prediction location."""
+    e_at = np.asarray(e_at, dtype=float)
     e_tt = np.asarray(var_exact, dtype=float)
     e_aa = np.asarray(var_approx, dtype=float)
     keep = (e_tt > 0) & (e_at > 0)

@@ -15,6 +15,13 @@ in beta and G (beta* - beta^) = F' Sigma^-1 r^. Bounds (rigorous with a nugget, 
 
 The mean-model terms (u' G^-1 u and the beta correction) use CG solutions without a
 separate bound; with a converged CG their error is second order.
+
+Cost. The means need no solve per point: a comes from the GLS solve and
+F' Sigma^-1 k* = (Sigma^-1 F)' k* from its q solves with the design, so each mean is a
+product with one column of the cross-covariance, built ``TILE_COLUMNS`` new points at a
+time (``harness.model.cross_tiles``). The variances cost one CG column each; they are
+computed at ``variance_at`` only, in blocks of at most ``TILE_COLUMNS`` right-hand sides.
+Peak memory: the preconditioner plus O(n x ``TILE_COLUMNS``), never an n x m array.
 """
 
 from __future__ import annotations
@@ -23,6 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harness.model.cross_tiles import cross_covariance_tiles
 from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.references.operator.operator_gls import gls_by_cg
@@ -38,10 +46,12 @@ class OperatorKriging:
 
     Attributes
     ----------
-    mean, variance : ndarray, shape (m,)
-        Latent predictive mean and variance (variance clipped at 0).
-    mean_bound, variance_bound : ndarray, shape (m,)
-        Bounds on their CG errors (estimates without a nugget: ``rigorous`` False).
+    mean, mean_bound : ndarray, shape (m,)
+        Latent predictive mean at every new point, and a bound on its CG error.
+    variance, variance_bound : ndarray, shape (v,)
+        Latent predictive variance (clipped at 0) at the ``variance_at`` points, and a
+        bound on its CG error (the bounds are estimates without a nugget: ``rigorous``
+        False).
     beta : ndarray
     iterations : int
     converged, rigorous : bool
@@ -71,8 +81,10 @@ def operator_kriging(points: np.ndarray, y: np.ndarray, kernel: Kernel, new_poin
                      preconditioner: Factorization, cg_rtol: float = 1e-10,
                      max_iterations: int = 1000, tile: int = DEFAULT_TILE,
                      memory_budget: int | None = None, client: object | None = None,
-                     progress: bool | None = None) -> OperatorKriging:
-    """Kriging mean and variance at ``new_points`` (module docstring)."""
+                     progress: bool | None = None,
+                     variance_at: np.ndarray | None = None) -> OperatorKriging:
+    """Kriging means at ``new_points`` and variances at ``variance_at`` (indices into
+    ``new_points``; default every one), with bounds (module docstring)."""
     model = kernel if theta is None else kernel.with_theta(theta)
     pts = np.asarray(points, dtype=float)
     pts = pts[:, None] if pts.ndim == 1 else pts
@@ -93,21 +105,36 @@ def operator_kriging(points: np.ndarray, y: np.ndarray, kernel: Kernel, new_poin
     new_design = design_matrix(new, mean)
     gls = gls_by_cg(op.matvec, yv, design, precondition=precondition, rtol=cg_rtol,
                     max_iterations=max_iterations, lambda_min=lam)
-    cross = model.cross_covariance(pts, new)                  # (n, m)
-    resid = yv - design @ gls.beta - op.matvec(gls.a)
-    values = new_design @ gls.beta + cross.T @ gls.a
-    solves = pcg(op.matvec, cross, precondition=precondition, rtol=cg_rtol,
-                 max_iterations=max_iterations, lambda_min=lam)
-    variance = model.variance - solves.quadratic
-    if design.shape[1]:
-        u = new_design.T - design.T @ solves.x                # (q, m)
-        ginv = np.linalg.inv(gls.gram)
-        values = values + u.T @ (ginv @ (design.T @ gls.a))
-        variance = variance + np.einsum("im,im->m", u, ginv @ u)
-    mean_bound = np.linalg.norm(cross, axis=0) * np.linalg.norm(resid) / lam_value
-    messages = tuple(dict.fromkeys(gls.messages + solves.messages))
+    resid_norm = float(np.linalg.norm(yv - design @ gls.beta - op.matvec(gls.a)))
+    ginv = np.linalg.inv(gls.gram) if design.shape[1] else np.empty((0, 0))
+    m = new.shape[0]
+    at = np.arange(m) if variance_at is None else np.asarray(variance_at, dtype=np.intp)
+    values = new_design @ gls.beta
+    mean_bound = np.empty(m)
+    for cols, cross in cross_covariance_tiles(model, pts, new):
+        values[cols] += cross.T @ gls.a
+        if design.shape[1]:
+            u = new_design[cols].T - gls.sinv_design.T @ cross              # (q, k)
+            values[cols] += u.T @ (ginv @ (design.T @ gls.a))
+        mean_bound[cols] = np.linalg.norm(cross, axis=0) * resid_norm / lam_value
+    variance = np.empty(at.size)
+    variance_bound = np.empty(at.size)
+    iterations, converged = gls.iterations, gls.converged
+    messages = list(gls.messages)
+    for cols, cross in cross_covariance_tiles(model, pts, new[at]):
+        solves = pcg(op.matvec, cross, precondition=precondition, rtol=cg_rtol,
+                     max_iterations=max_iterations, lambda_min=lam)
+        var = model.variance - solves.quadratic
+        if design.shape[1]:
+            u = new_design[at[cols]].T - gls.sinv_design.T @ cross
+            var = var + np.einsum("im,im->m", u, ginv @ u)
+        variance[cols] = var
+        variance_bound[cols] = solves.bound
+        iterations += solves.iterations
+        converged = converged and solves.converged
+        messages.extend(solves.messages)
     return OperatorKriging(mean=values, variance=np.maximum(variance, 0.0),
-                           mean_bound=mean_bound, variance_bound=solves.bound, beta=gls.beta,
-                           iterations=gls.iterations + solves.iterations,
-                           converged=gls.converged and solves.converged,
-                           rigorous=lam is not None, messages=messages)
+                           mean_bound=mean_bound, variance_bound=variance_bound,
+                           beta=gls.beta, iterations=iterations, converged=converged,
+                           rigorous=lam is not None,
+                           messages=tuple(dict.fromkeys(messages)))
