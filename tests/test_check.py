@@ -304,8 +304,8 @@ def test_the_map_marks_the_holdout_the_check_used(tmp_path, monkeypatch):
     used = {}
     original = pipeline.split_holdout
 
-    def spy(n, fraction, rng):
-        train, hold = original(n, fraction, rng)
+    def spy(n, fraction, rng, **cap):
+        train, hold = original(n, fraction, rng, **cap)
         used.setdefault("hold", hold)
         return train, hold
 

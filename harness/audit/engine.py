@@ -65,9 +65,12 @@ class AuditData:
     """One dataset at the parameters under audit.
 
     ``holdout`` indexes the kriging points; kriging conditions on the other points, every
-    other metric uses all n points. ``fisher`` (the unit of the parameter shifts) is None
-    when no Fisher information is at hand (a grid task on the exact operator): the shift
-    is then not measured and the verdict says so.
+    other metric uses all n points. Means are predicted at every held-out point, variances
+    at ``variance_at`` (positions among the held-out points; None: every one,
+    ``harness.audit.audit_sampling.variance_positions`` draws the subset). ``fisher``
+    (the unit of the parameter shifts) is None when no Fisher information is at hand (a
+    grid task on the exact operator): the shift is then not measured and the verdict
+    says so.
     """
 
     points: np.ndarray
@@ -77,6 +80,14 @@ class AuditData:
     holdout: np.ndarray
     fisher: np.ndarray | None
     probes: np.ndarray
+    variance_at: np.ndarray | None = None
+
+    @property
+    def variance_positions(self) -> np.ndarray:
+        """Positions among the held-out points that get a kriging variance."""
+        if self.variance_at is None:
+            return np.arange(np.asarray(self.holdout).size)
+        return np.asarray(self.variance_at, dtype=np.intp)
 
     @property
     def train(self) -> np.ndarray:
@@ -117,7 +128,8 @@ class ReferenceValues:
     ``loglik`` carries its SE and deterministic bound; ``score_se`` the score's SE;
     ``krige_mean_bound`` a bound on each kriging mean's error; the kriging is of the
     held-out points conditioned on the other points (None when the reference offers no
-    kriging: the kriging metric is then not measured).
+    kriging: the kriging metric is then not measured); ``krige_var`` holds the variances
+    at ``AuditData.variance_positions`` only.
     """
 
     loglik: ReferenceValue
@@ -236,7 +248,7 @@ def _judge(metrics: Sequence[MetricValue]) -> tuple[MetricJudgement, ...]:
 def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: ResolvedSolver,
                 options: Mapping[str, object], ref: ReferenceSides,
                 thresholds: Thresholds) -> SeedAudit:
-    from harness.audit.sides import evaluate_side, kriging_side
+    from harness.audit.sides import evaluate_side, kriging_side, predictor_mse
     from harness.audit.tolerance_metrics import kriging_metrics, likelihood_metrics
 
     opts = seeded_options(solver.factory, options, seed)
@@ -253,13 +265,13 @@ def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: Reso
                                  probes=data.probes, thresholds=thresholds,
                                  reference_loglik_se=ref.loglik_se)
     fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
+    held = x[data.holdout]
     ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
-                      x[data.holdout], mean=data.mean)
+                      held, mean=data.mean, variance_at=data.variance_positions)
+    e_at = predictor_mse(fac_t, x[train], kernel, held[data.variance_positions],
+                         mean=data.mean, matvec=ref.train_matvec)
     del fac_t
-    cross = kernel.cross_covariance(x[train], x[data.holdout])
-    metrics += kriging_metrics(ks, ref.kriging, cross=cross,
-                               sigma_times_weights=np.asarray(ref.train_matvec(ks.weights)),
-                               variance=kernel.variance, thresholds=thresholds)
+    metrics += kriging_metrics(ks, ref.kriging, predictor_mse=e_at, thresholds=thresholds)
     return SeedAudit(index=index, seed=seed, loglik=side.loglik, metrics=tuple(metrics),
                      judgements=_judge(metrics), seconds=side.loglik_seconds, nbytes=nbytes,
                      notes=notes)
@@ -273,6 +285,7 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     (its SE and the reference's combined, independent) and kriging conditioned on the
     other points. A deterministic bound b enters a metric's uncertainty as b / 2, so that
     the rule's 2 x uncertainty covers it."""
+    from harness.audit.metrics.held_out_scale import held_out_scale
     from harness.audit.sides import kriging_side
     from harness.audit.tolerance_metrics import shift_metrics
     from harness.likelihood import evaluate_likelihood
@@ -300,18 +313,26 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     if ref.krige_mean is not None and ref.krige_var is not None:
         fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
         ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
-                          x[data.holdout], mean=data.mean)
+                          x[data.holdout], mean=data.mean, variance_at=data.variance_positions)
         del fac_t
-        bound = (np.zeros_like(ref.krige_var) if ref.krige_mean_bound is None
+        bound = (np.zeros_like(ref.krige_mean) if ref.krige_mean_bound is None
                  else ref.krige_mean_bound)
-        sd = np.sqrt(np.maximum(ref.krige_var, 1e-300))
-        z = np.abs(ks.mean - ref.krige_mean) / sd
-        worst_i = int(np.argmax(z + bound / sd))
+        scale = held_out_scale(ref.krige_mean.size, ref.krige_var, data.variance_positions)
+        z = scale.errors(ks.mean, ref.krige_mean)
+        worst_i = int(np.argmax(z + bound / scale.sd))
         metrics.append(MetricValue(
             "kriging_mean_sd", float(z[worst_i]), thresholds.kriging_mean_sd,
-            uncertainty=float(bound[worst_i] / sd[worst_i]) / 2.0,
-            note="largest |m~ - m| / sqrt(v) at held-out points, conditioned on the other "
-                 "points (operator CG bound)"))
+            uncertainty=float(bound[worst_i] / scale.sd[worst_i]) / 2.0,
+            note=f"largest |m~ - m| / sqrt(v) at {z.size} held-out points, conditioned on "
+                 f"the other points ({int(scale.own.sum())} with their own variance, the "
+                 "others scaled by the smallest; the reference's bound)"))
+        positive = ref.krige_var > 0
+        ratio = ks.variance[positive] / ref.krige_var[positive]
+        if ratio.size:
+            metrics.append(MetricValue(
+                "kriging_var_ratio", float(np.max(np.abs(ratio - 1.0))),
+                note=f"largest |v~/v - 1| at {ratio.size} variance points; v~/v in "
+                     f"[{ratio.min():.6g}, {ratio.max():.6g}]"))
     return SeedAudit(index=index, seed=seed, loglik=ev.loglik, metrics=tuple(metrics),
                      judgements=_judge(metrics), seconds=seconds, nbytes=nbytes, notes=notes)
 

@@ -29,8 +29,12 @@ from typing import Any
 import numpy as np
 
 from harness.audit import engine
-from harness.audit.audit_references import build_reference, operator_available
-from harness.audit.audit_sampling import MIN_HOLDOUT, audit_draws
+from harness.audit.audit_references import (
+    build_reference,
+    operator_available,
+    reference_by_metric,
+)
+from harness.audit.audit_sampling import MIN_HOLDOUT, audit_draws, variance_positions
 from harness.audit.metric_names import canonical_name
 from harness.audit.reference_choice import NoReference, ReferenceProblem, select_reference
 from harness.audit.rule import ReferenceInfo, Thresholds
@@ -38,6 +42,7 @@ from harness.audit.solver_seeds import solver_seed
 from harness.audit.task_metrics import DetailRequest
 from harness.audit.task_protocol import AuditTask
 from harness.audit.task_references import Reference, TaskSkipped, draw_y, task_reference
+from harness.infra.option_specs import HOLDOUT_POINTS
 from harness.model.json_values import to_jsonable
 from harness.model.kernels import Kernel
 
@@ -125,11 +130,12 @@ def audit_task(inp: TaskInputs) -> dict[str, Any]:
     ref0 = reference.evaluate(kernel, y)
     seconds["reference"] = time.perf_counter() - clock
     n = int(points.shape[0])
-    holdout, probes = audit_draws(n, holdout=max(MIN_HOLDOUT, min(task.holdout, n // 2)),
-                                  probes=task.probes, seed=task.seed)
+    size = max(MIN_HOLDOUT, min(task.holdout, n // 2, HOLDOUT_POINTS.default))
+    holdout, probes = audit_draws(n, holdout=size, probes=task.probes, seed=task.seed)
     fisher = None if ref0.fisher is None else np.asarray(ref0.fisher, dtype=float)
     data = engine.AuditData(points=points, y=np.asarray(y, dtype=float), kernel=kernel,
-                            mean=task.mean, holdout=holdout, fisher=fisher, probes=probes)
+                            mean=task.mean, holdout=holdout, fisher=fisher, probes=probes,
+                            variance_at=variance_positions(holdout.size, seed=task.seed))
     engine_reference: engine.PairedReference | engine.ValueReference
     if task.tol is None:   # an exact solver: no tolerance to judge, detailed metrics only
         engine_reference = _Unjudged(ReferenceInfo(kind, True, reference.description))
@@ -151,6 +157,8 @@ def audit_task(inp: TaskInputs) -> dict[str, Any]:
         return body
     (audit,) = result.tolerances
     body["metrics"] = {**body["metrics"], **to_jsonable(_flat_columns(audit))}
-    body["audit"] = to_jsonable(audit.to_dict(kind)
-                                | {"reference_detail": result.reference.to_dict()})
+    body["audit"] = to_jsonable(
+        audit.to_dict(kind) | {"reference_detail": result.reference.to_dict(),
+                               "reference_by_metric": reference_by_metric(engine_reference,
+                                                                          data)})
     return body

@@ -112,6 +112,11 @@ class CheckResult:
     recommendation: dict[str, Any] = field(default_factory=dict)
     fit_converged: bool = True
     reference_detail: dict[str, Any] = field(default_factory=dict)
+    #: Held-out points with a kriging variance (a seeded subset of the ``n_holdout``).
+    n_variance_points: int = 0
+    #: Which reference served which metric group ("loglik", "score", "kriging"), each
+    #: with its detail (``harness.audit.audit_references.reference_by_metric``).
+    reference_by_metric: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -129,4 +134,6 @@ class CheckResult:
             "solver": self.solver, "solver_seeds": list(self.solver_seeds),
             "warnings": list(self.warnings), "recommendation": self.recommendation,
             "fit_converged": self.fit_converged, "reference_detail": self.reference_detail,
+            "n_variance_points": self.n_variance_points,
+            "reference_by_metric": self.reference_by_metric,
         }

@@ -41,8 +41,16 @@ from harness.audit.audit_references import (
     OperatorReference,
     build_reference,
     operator_available,
+    reference_by_metric,
 )
-from harness.audit.audit_sampling import AUDIT_STREAMS, audit_streams, holdout_size, split_points
+from harness.audit.audit_sampling import (
+    AUDIT_STREAMS,
+    HoldoutSizeError,
+    audit_streams,
+    holdout_size,
+    split_points,
+    variance_positions,
+)
 from harness.audit.engine import (
     AuditData,
     EngineResult,
@@ -84,7 +92,12 @@ from harness.check.fitting import (
     standard_errors,
 )
 from harness.infra.child_process import run_stage
-from harness.infra.option_specs import LADDER_FACTOR, SOLVER_SEEDS, TOLERANCE
+from harness.infra.option_specs import (
+    LADDER_FACTOR,
+    SOLVER_SEEDS,
+    TOLERANCE,
+    VARIANCE_POINTS,
+)
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
@@ -121,6 +134,12 @@ class CheckOptions:
     tolerances : tuple of float
     holdout : float
         Fraction of points held out for the kriging evaluation, in (0, 0.5].
+    holdout_points : int or None
+        At most this many held-out points (``--holdout-points``), whatever the fraction;
+        None: the default cap, 2,000 (a given cap must be below n).
+    variance_points : int
+        At most this many held-out points get a kriging variance (``--variance-points``,
+        a seeded subset; ``harness.audit.audit_sampling``).
     seed : int
         Base seed of the holdout, probes, pilot subset and the solver's seeds.
     probes : int
@@ -165,6 +184,8 @@ class CheckOptions:
     mean: str = "constant"
     tolerances: tuple[float, ...] = DEFAULT_TOLERANCES
     holdout: float = 0.1
+    holdout_points: int | None = None
+    variance_points: int = VARIANCE_POINTS.default
     seed: int = 0
     probes: int = 16
     fixed_params: Mapping[str, Any] | None = None
@@ -207,20 +228,34 @@ def check_streams(seed: int) -> dict[str, np.random.Generator]:
     return audit_streams(seed)
 
 
-def holdout_indices(n: int, *, fraction: float, seed: int) -> np.ndarray:
+def holdout_indices(n: int, *, fraction: float, seed: int, cap: int | None = None
+                    ) -> np.ndarray:
     """The kriging holdout ``run_check`` draws for ``n`` points at ``seed`` (for the map)."""
-    return split_holdout(n, fraction, check_streams(seed)["split"])[1]
+    return split_holdout(n, fraction, check_streams(seed)["split"], cap=cap)[1]
 
 
-def split_holdout(n: int, fraction: float, rng: np.random.Generator
-                  ) -> tuple[np.ndarray, np.ndarray]:
+def _option_error(exc: HoldoutSizeError) -> CheckError:
+    return CheckError(f"--{exc.option.replace('_', '-')}: {exc}")
+
+
+def split_holdout(n: int, fraction: float, rng: np.random.Generator, *,
+                  cap: int | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Random (conditioning, holdout) index arrays, holdout of round(fraction n) >= 5
-    points (the kriging evaluation; the fit and every other metric use all points)."""
+    points, at most ``cap`` (the kriging evaluation; the fit and every other metric use
+    all points)."""
     try:
-        size = holdout_size(n, fraction)
-    except ValueError as exc:
-        raise CheckError(f"--holdout: {exc}") from None
+        size = holdout_size(n, fraction, cap=cap)
+    except HoldoutSizeError as exc:
+        raise _option_error(exc) from None
     return split_points(n, size, rng)
+
+
+def variance_subset(m: int, options: CheckOptions) -> np.ndarray:
+    """Positions among the ``m`` held-out points that get a kriging variance."""
+    try:
+        return variance_positions(m, options.variance_points, seed=options.seed)
+    except HoldoutSizeError as exc:
+        raise _option_error(exc) from None
 
 
 def _dense_fits(n: int, budget: int | None, *, fisher: bool = False, n_params: int = 0
@@ -398,7 +433,9 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     solver = _resolve(options)
     streams = check_streams(options.seed)
     split_rng, fit_rng, probe_rng, growth_rng = (streams[name] for name in CHECK_STREAMS)
-    train, hold = split_holdout(data.n, options.holdout, split_rng)
+    train, hold = split_holdout(data.n, options.holdout, split_rng,
+                                cap=options.holdout_points)
+    variance_at = variance_subset(hold.size, options)
     x, y = data.points, data.values
     d = x.shape[1]
     template = _template(options, d)
@@ -419,7 +456,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     kind, ref_warnings = _reference_kind(options, x, kernel)
     warnings.extend(ref_warnings)
     audit_data = AuditData(points=x, y=y, kernel=kernel, mean=options.mean, holdout=hold,
-                           fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng))
+                           fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng),
+                           variance_at=variance_at)
     solver_options = _solver_options(options, solver)
     seeds = solver_seeds(options.seed, options.solver_seeds)
     if seed_option(solver.factory) is None:
@@ -447,7 +485,7 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     rec = result.recommendation
     if not rec.monotone:
         warnings.append("non-monotone tolerance ladder: " + rec.reason)
-    holdout_info = _holdout_info(reference, tols[-1], y, hold, kernel.nugget)
+    holdout_info = _holdout_info(reference, tols[-1], y, hold, kernel.nugget, variance_at)
     holdout_info.update(reference=kind, conditioned_on=int(train.size))
     best = next((r for r in rows if r.tol == rec.tol), None)
     refit = None
@@ -474,25 +512,32 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         seconds=time.perf_counter() - start, notes=tuple(notes),
         solver=solver.to_dict() | {"options": dict(solver_options)},
         solver_seeds=seeds, warnings=tuple(warnings), recommendation=rec.to_dict(),
-        fit_converged=fitted.converged, reference_detail=reference.info.to_dict())
+        fit_converged=fitted.converged, reference_detail=reference.info.to_dict(),
+        n_variance_points=int(variance_at.size),
+        reference_by_metric=reference_by_metric(reference, audit_data))
 
 
 def _holdout_info(reference: PairedReference | ValueReference, tol: float, y: np.ndarray,
-                  hold: np.ndarray, nugget: float) -> dict[str, Any]:
-    """How the reference's kriging predicts the held-out values (none from a structured
-    reference, which offers no kriging)."""
-    if isinstance(reference, OperatorReference):
-        mean, variance = reference.kriging.mean, reference.kriging.variance
-    elif isinstance(reference, HasValues):
-        return {"points": int(hold.size), "rmse": None, "mean_z2": None, "coverage95": None}
+                  hold: np.ndarray, nugget: float, variance_at: np.ndarray) -> dict[str, Any]:
+    """How the reference's kriging predicts the held-out values: the RMSE over every
+    held-out point, z^2 and coverage over the variance points (None from a reference
+    without kriging)."""
+    if isinstance(reference, HasValues):
+        values = reference.values()
+        mean, variance = values.krige_mean, values.krige_var
     else:
         side = reference.sides(tol).kriging
         mean, variance = side.mean, side.variance
+    if mean is None or variance is None:
+        return {"points": int(hold.size), "variance_points": int(variance_at.size),
+                "rmse": None, "mean_z2": None, "coverage95": None}
     resid = y[hold] - mean
     obs_var = variance + nugget
-    return {"points": int(hold.size), "rmse": float(np.sqrt(np.mean(resid ** 2))),
-            "mean_z2": float(np.mean(resid ** 2 / obs_var)),
-            "coverage95": float(np.mean(np.abs(resid) <= 1.96 * np.sqrt(obs_var)))}
+    at = resid[variance_at]
+    return {"points": int(hold.size), "variance_points": int(variance_at.size),
+            "rmse": float(np.sqrt(np.mean(resid ** 2))),
+            "mean_z2": float(np.mean(at ** 2 / obs_var)),
+            "coverage95": float(np.mean(np.abs(at) <= 1.96 * np.sqrt(obs_var)))}
 
 
 def _growth(x: np.ndarray, y: np.ndarray, kernel: Kernel, options: CheckOptions,

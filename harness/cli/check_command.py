@@ -40,9 +40,11 @@ from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,
+    HOLDOUT_POINTS,
     PROBES,
     SOLVER_SEEDS,
     TOLERANCE,
+    VARIANCE_POINTS,
     OptionError,
 )
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
@@ -86,7 +88,16 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--holdout",
                    type=HOLDOUT_FRACTION.argparse_type(),
                    default=0.1,
-                   help="fraction held out for kriging (default 0.1)")
+                   help="fraction held out for kriging (default 0.1), at most "
+                        "--holdout-points")
+    p.add_argument("--holdout-points", type=HOLDOUT_POINTS.argparse_type(),
+                   default=None, metavar="N",
+                   help="most held-out points of the kriging evaluation (means; default "
+                        f"{HOLDOUT_POINTS.default:,}), whatever --holdout says; below n")
+    p.add_argument("--variance-points", type=VARIANCE_POINTS.argparse_type(),
+                   default=VARIANCE_POINTS.default, metavar="N",
+                   help="most held-out points whose kriging variance is computed (a seeded "
+                        f"subset; one solve each; default {VARIANCE_POINTS.default})")
     p.add_argument("--drop-missing", action="store_true", help="drop rows with NaN/inf")
     p.add_argument("--average-duplicates", action="store_true",
                    help="average values at repeated locations")
@@ -151,7 +162,9 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
     return CheckOptions(
         kernel=args.kernel, shape=shape, anisotropic=args.anisotropic,
         nugget=not args.no_nugget, mean=args.mean, tolerances=_tolerances(args.tolerances),
-        holdout=args.holdout, seed=args.seed, probes=args.probes, fixed_params=fixed,
+        holdout=args.holdout, holdout_points=args.holdout_points,
+        variance_points=args.variance_points, seed=args.seed, probes=args.probes,
+        fixed_params=fixed,
         start_params=start or None, thresholds=Thresholds(),
         dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
         refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=args.solver,
@@ -291,7 +304,7 @@ def run(args: argparse.Namespace) -> int:
         finally:
             progress.close()
         write_outputs(result, out, points=data.points, holdout=holdout_indices(
-            data.n, fraction=args.holdout, seed=args.seed))
+            data.n, fraction=args.holdout, seed=args.seed, cap=args.holdout_points))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,
             OSError, SolverRuntimeError, StageCrashed) as exc:

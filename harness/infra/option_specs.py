@@ -26,8 +26,9 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 __all__ = [
-    "HOLDOUT_FRACTION", "LADDER_FACTOR", "PROBES", "SOLVER_SEEDS", "SPECS", "TOLERANCE",
-    "Interval", "OptionError", "OptionSpec", "StrOptions", "check_values",
+    "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "LADDER_FACTOR", "PROBES", "SOLVER_SEEDS",
+    "SPECS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "OptionError", "OptionSpec",
+    "StrOptions", "check_values",
 ]
 
 Closed = Literal["both", "left", "right", "neither"]
@@ -206,6 +207,16 @@ LADDER_FACTOR = OptionSpec(
 PROBES = OptionSpec(
     "probes", int, Interval(int, 1, None), 16,
     "probe vectors of a stochastic trace estimate")
+#: Most held-out points of the kriging evaluation, whatever the fraction (``check
+#: --holdout-points``): each costs one product with a cross-covariance column.
+HOLDOUT_POINTS = OptionSpec(
+    "holdout_points", int, Interval(int, 1, None), 2000,
+    "most points held out for kriging (means), whatever --holdout says")
+#: Most held-out points that also get a kriging variance (``check --variance-points``):
+#: each costs one solve.
+VARIANCE_POINTS = OptionSpec(
+    "variance_points", int, Interval(int, 1, None), 256,
+    "most held-out points whose kriging variance is computed (one solve each)")
 
 SPECS: Sequence[OptionSpec] = (SOLVER_SEEDS, HOLDOUT_FRACTION, TOLERANCE, LADDER_FACTOR,
-                               PROBES)
+                               PROBES, HOLDOUT_POINTS, VARIANCE_POINTS)
