@@ -1,4 +1,8 @@
-"""Scaling fits for every (solver, tolerance, kernel, geometry) group of a run.
+"""Scaling fits for every (solver, knob, knob value, kernel, geometry) group of a run.
+
+A group is one solver at one value of its accuracy knob (``knob_name``, ``knob_value``:
+``hodlr`` at tol 1e-6, ``vecchia`` at rho 6; ``harness.solvers.knobs``), so every family
+gets its own time, memory and error fits in n; an exact solver's knob value is missing.
 
 Each group's per-size medians of a cost column are fitted with
 ``harness.analysis.scaling.fit_power_law``; the bootstrap resamples the per-repeat timings of
@@ -28,13 +32,17 @@ from harness.analysis.scaling import (
 
 TIME_METRICS: tuple[str, ...] = ("t_factor", "t_logdet", "t_solve", "t_gradient", "t_total")
 MEMORY_METRICS: tuple[str, ...] = ("peak_rss_bytes", "nbytes")
-GROUP_COLUMNS: tuple[str, ...] = ("solver", "tol", "kernel", "geometry")
+GROUP_COLUMNS: tuple[str, ...] = ("solver", "knob_name", "knob_value", "kernel", "geometry")
 DENSE_SOLVER = "dense"
 
 
 @dataclass(frozen=True)
 class ScalingRow:
-    """One group's fit of one metric (``fit`` is None and ``refused`` says why)."""
+    """One group's fit of one metric (``fit`` is None and ``refused`` says why).
+
+    ``tol`` is the knob's value for a ``tol`` solver and NaN otherwise (and for an exact
+    solver); ``knob_name`` and ``knob_value`` name the group's knob and value.
+    """
 
     solver: str
     tol: float
@@ -45,13 +53,17 @@ class ScalingRow:
     refused: str = ""
     crossover: Crossover | None = None
     extrapolation: Extrapolation | None = None
+    knob_name: str = "tol"
+    knob_value: float = math.nan
 
     @property
     def label(self) -> str:
-        return solver_label(self.solver, self.tol)
+        return solver_label(self.solver, self.tol, knob_name=self.knob_name,
+                            knob_value=self.knob_value)
 
     def to_dict(self) -> dict[str, object]:
         out: dict[str, object] = {"solver": self.solver, "tol": self.tol,
+                                  "knob_name": self.knob_name, "knob_value": self.knob_value,
                                   "kernel": self.kernel, "geometry": self.geometry,
                                   "metric": self.metric, "refused": self.refused}
         if self.fit is not None:
@@ -63,8 +75,12 @@ class ScalingRow:
         return out
 
 
-def solver_label(solver: str, tol: float) -> str:
-    """``dense`` or ``hodlr tol=1e-06``."""
+def solver_label(solver: str, tol: float, *, knob_name: str = "tol",
+                 knob_value: float | None = None) -> str:
+    """``dense``, ``hodlr tol=1e-06`` or ``vecchia rho=6``."""
+    if knob_name not in ("tol", "") and knob_value is not None \
+            and not (isinstance(knob_value, float) and math.isnan(knob_value)):
+        return f"{solver} {knob_name}={knob_value:g}"
     if tol is None or (isinstance(tol, float) and math.isnan(tol)):
         return solver
     return f"{solver} tol={tol:.0e}"
@@ -110,11 +126,12 @@ def scaling_rows(
     if ok.empty:
         return rows
     groups = ok.groupby(list(GROUP_COLUMNS), dropna=False, sort=True)
-    fits: dict[tuple[str, float, str, str, str], PowerLawFit] = {}
-    pending: list[tuple[tuple[str, float, str, str], str, PowerLawFit | None, str]] = []
+    Group = tuple[str, str, float, str, str]       # solver, knob, value, kernel, geometry
+    fits: dict[tuple[Group, str], PowerLawFit] = {}
+    pending: list[tuple[Group, str, PowerLawFit | None, str]] = []
     for gkey, frame in groups:
-        solver, tol, kernel, geometry = (str(gkey[0]), float(gkey[1]), str(gkey[2]),
-                                         str(gkey[3]))
+        group: Group = (str(gkey[0]), str(gkey[1]) or "tol", float(gkey[2]), str(gkey[3]),
+                        str(gkey[4]))
         for metric in metrics:
             sub = frame[["key", "n", metric]].dropna()
             sub = sub[sub[metric] > 0]
@@ -128,23 +145,24 @@ def scaling_rows(
             except ScalingError as exc:
                 fit, refused = None, str(exc)
             if fit is not None:
-                fits[(solver, tol, kernel, geometry, metric)] = fit
-            pending.append(((solver, tol, kernel, geometry), metric, fit, refused))
+                fits[(group, metric)] = fit
+            pending.append((group, metric, fit, refused))
     dense = {}
-    for (solver, tol, kernel, geometry, metric), fit in fits.items():
-        if _is_exact(tol) and (solver == DENSE_SOLVER
-                               or (kernel, geometry, metric) not in dense):
+    for ((solver, _, value, kernel, geometry), metric), fit in fits.items():
+        if _is_exact(value) and (solver == DENSE_SOLVER
+                                 or (kernel, geometry, metric) not in dense):
             dense[(kernel, geometry, metric)] = fit
-    for (solver, tol, kernel, geometry), metric, fit, refused in pending:
+    for (solver, knob_name, value, kernel, geometry), metric, fit, refused in pending:
         cross = None
         ref = dense.get((kernel, geometry, metric))
-        if fit is not None and ref is not None and not _is_exact(tol) \
+        if fit is not None and ref is not None and not _is_exact(value) \
                 and metric.startswith("t_"):
             cross = crossover(fit, ref, level=level)
         ext = extrapolate(fit, extrapolate_to) if fit is not None and extrapolate_to else None
-        rows.append(ScalingRow(solver=solver, tol=tol, kernel=kernel, geometry=geometry,
-                               metric=metric, fit=fit, refused=refused, crossover=cross,
-                               extrapolation=ext))
+        rows.append(ScalingRow(solver=solver, tol=value if knob_name == "tol" else math.nan,
+                               kernel=kernel, geometry=geometry, metric=metric, fit=fit,
+                               refused=refused, crossover=cross, extrapolation=ext,
+                               knob_name=knob_name, knob_value=value))
     return rows
 
 

@@ -188,14 +188,25 @@ class ToleranceAudit:
     seconds: float                  # median over seeds of one log-likelihood
     speedup: float | None           # reference log-likelihood time / ``seconds``
     nbytes: int
+    #: The solver's accuracy knob (``harness.solvers.knobs``); ``verdict.tol`` holds its
+    #: value whatever its name.
+    knob_name: str = "tol"
+
+    @property
+    def tol(self) -> float | None:
+        """The tolerance for a ``tol`` solver, None for a solver with another knob."""
+        return self.verdict.tol if self.knob_name == "tol" else None
 
     def to_dict(self, reference: str) -> dict[str, object]:
         """The JSON form of a tolerance in ``check --json`` and in a grid task's record:
         status, reasons, every seed, the spread, and each deciding metric under its own
-        name and its canonical one (``harness.audit.metric_names``)."""
+        name and its canonical one (``harness.audit.metric_names``). ``tol`` is None for
+        a solver whose knob is not ``tol``; ``knob_name`` and ``knob_value`` always say
+        what was audited."""
         v = self.verdict
         out: dict[str, object] = {
-            "tol": v.tol, "safe": v.safe, "reference": reference,
+            "tol": self.tol, "knob_name": self.knob_name, "knob_value": v.tol,
+            "safe": v.safe, "reference": reference,
             "seconds": number_or_none(self.seconds),
             "speedup": None if self.speedup is None else number_or_none(self.speedup),
             "nbytes": self.nbytes, "error": "; ".join(v.failures) or None,
@@ -251,11 +262,11 @@ def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: Reso
     from harness.audit.sides import evaluate_side, kriging_side, predictor_mse
     from harness.audit.tolerance_metrics import kriging_metrics, likelihood_metrics
 
-    opts = seeded_options(solver.factory, options, seed)
+    opts = seeded_options(solver.factory, options, seed) | solver.knob.arguments(tol)
     kernel, x = data.kernel, data.points
     train = data.train
     t0 = time.perf_counter()
-    fac = solver.factorize(x, kernel, kernel.theta, tol=tol, **opts)
+    fac = solver.factorize(x, kernel, kernel.theta, **opts)
     side = evaluate_side(f"{solver.name} {tol:g}", fac, x, data.y, kernel, mean=data.mean,
                          probes=data.probes, factor_seconds=time.perf_counter() - t0)
     notes = tuple(getattr(fac, "notes", ()))
@@ -264,7 +275,7 @@ def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: Reso
     metrics = likelihood_metrics(side, ref.full, kernel=kernel, fisher=data.fisher,
                                  probes=data.probes, thresholds=thresholds,
                                  reference_loglik_se=ref.loglik_se)
-    fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
+    fac_t = solver.factorize(x[train], kernel, kernel.theta, **opts)
     held = x[data.holdout]
     ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
                       held, mean=data.mean, variance_at=data.variance_positions)
@@ -290,10 +301,10 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     from harness.audit.tolerance_metrics import shift_metrics
     from harness.likelihood import evaluate_likelihood
 
-    opts = seeded_options(solver.factory, options, seed)
+    opts = seeded_options(solver.factory, options, seed) | solver.knob.arguments(tol)
     kernel, x, train = data.kernel, data.points, data.train
     t0 = time.perf_counter()
-    fac = solver.factorize(x, kernel, kernel.theta, tol=tol, **opts)
+    fac = solver.factorize(x, kernel, kernel.theta, **opts)
     ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=True,
                              trace="hutchpp", probes=probes, rng=seed, fisher=False)
     seconds = time.perf_counter() - t0
@@ -311,7 +322,7 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     metrics.extend(shift_metrics(e, e_se, kernel=kernel, fisher=data.fisher,
                                  thresholds=thresholds))
     if ref.krige_mean is not None and ref.krige_var is not None:
-        fac_t = solver.factorize(x[train], kernel, kernel.theta, tol=tol, **opts)
+        fac_t = solver.factorize(x[train], kernel, kernel.theta, **opts)
         ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
                           x[data.holdout], mean=data.mean, variance_at=data.variance_positions)
         del fac_t
@@ -364,8 +375,10 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     say = progress or (lambda _m: None)
     if not seeds:
         raise ValueError("audit_tolerances: at least one solver seed is needed")
+    knob = solver.knob
     audits: list[ToleranceAudit] = []
-    for tol in sorted({float(t) for t in tolerances}, reverse=True):
+    for tol in knob.sorted_loose_to_tight(tolerances):
+        at = f"tol {tol:g}" if knob.is_tol else knob.value_text(tol)
         rows: list[SeedAudit] = []
         failures: list[str] = []
         ref: ReferenceSides | ReferenceValues | None
@@ -373,11 +386,12 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
             ref = (reference.values() if isinstance(reference, HasValues)
                    else reference.sides(tol))
         except (SolverRuntimeError, SolverOutputError, np.linalg.LinAlgError) as exc:
-            failures.append(f"the {reference.info.kind} reference failed at tol {tol:g}: {exc}")
+            failures.append(f"the {reference.info.kind} reference failed at {at}: {exc}")
             ref = None
-        say(f"tolerance {tol:g} ({len(seeds)} solver seed(s))")
+        say(f"tolerance {tol:g} ({len(seeds)} solver seed(s))" if knob.is_tol
+            else f"knob value {at} ({len(seeds)} solver seed(s))")
         for index, seed in enumerate(seeds if ref is not None else ()):
-            say(f"solver seed {index + 1}/{len(seeds)} at tol {tol:g}")
+            say(f"solver seed {index + 1}/{len(seeds)} at {at}")
             try:
                 if isinstance(ref, ReferenceValues):
                     rows.append(_value_seed_audit(index, seed, tol, data, solver,
@@ -400,8 +414,10 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                    else None)
         audits.append(ToleranceAudit(verdict=verdict, seeds=tuple(rows), seconds=seconds,
                                      speedup=speedup,
-                                     nbytes=max((r.nbytes for r in rows), default=0)))
-    rec = recommend({a.verdict.tol: a.verdict.status for a in audits})
+                                     nbytes=max((r.nbytes for r in rows), default=0),
+                                     knob_name=knob.name))
+    rec = recommend({a.verdict.tol: a.verdict.status for a in audits},
+                    more_accurate=knob.more_accurate, knob=knob.name)
     body = None
     if detail is not None:
         from harness.audit.task_metrics import group_metrics

@@ -43,6 +43,9 @@ class SolverOptions:
     """Options of ``covaudit evaluate`` that reach the solver."""
 
     tol: float = 1e-8
+    #: The value of a solver's knob other than ``tol`` (``--knob-value``; None: the
+    #: factory's own default). A ``tol`` solver takes ``tol``.
+    knob_value: float | None = None
     leaf_size: int = 128
     trace: str | None = None
     probes: int = 64
@@ -132,10 +135,14 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
     # The solver's seed is derived as in check and run (harness.audit.solver_seeds).
     factor_options = seeded_options(resolved.factory, factor_options,
                                     solver_seed(options.seed, 0))
+    knob = resolved.knob
+    knob_value = options.tol if knob.is_tol else options.knob_value
+    knob_arguments = ({"tol": None} if knob_value is None
+                      else knob.arguments(knob_value))
     start = time.perf_counter()
     try:
-        factorization = resolved.factorize(points, kernel, kernel.theta, tol=options.tol,
-                                           **factor_options)
+        factorization = resolved.factorize(points, kernel, kernel.theta,
+                                           **factor_options | knob_arguments)
         seconds_factor = time.perf_counter() - start
         ev = evaluate_likelihood(factorization, points, y, kernel, mean=mean, reml=reml,
                                  score=score, trace=trace, probes=options.probes,
@@ -153,12 +160,17 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
                                  strict=True)),
             "stderr": dict(zip(kernel.param_names, map(float, ev.trace_stderr), strict=True)),
         }
-    extra = {"tol": options.tol, "trace": trace_info, "nbytes": int(factorization.nbytes),
+    notes = ev.notes if knob_value is not None else (
+        *ev.notes, f"solver {resolved.name!r} ran at its own default {knob.name} (no "
+                   "--knob-value given)")
+    extra = {"tol": options.tol if knob.is_tol else None, "knob_name": knob.name,
+             "knob_value": knob_value, "trace": trace_info,
+             "nbytes": int(factorization.nbytes),
              "ranks": factorization.ranks, "solver_info": resolved.to_dict()}
     return SolverOutcome(solver=resolved.name, reference="none", loglik=ev.loglik,
                          logdet=ev.logdet, quadratic=ev.quadratic, beta=ev.beta,
                          score=ev.score, fisher=ev.fisher, certificate=None, seconds=seconds,
-                         notes=ev.notes, extra=extra)
+                         notes=tuple(notes), extra=extra)
 
 
 def build_preconditioner(name: str, points: np.ndarray, kernel: Kernel, *, tol: float,

@@ -371,13 +371,31 @@ class LadderRecommendation:
                 "statuses": {repr(k): v for k, v in self.statuses.items()}}
 
 
-def recommend(statuses: Mapping[float, str]) -> LadderRecommendation:
+def recommend(statuses: Mapping[float, str], *, more_accurate: str = "smaller",
+              knob: str = "tol") -> LadderRecommendation:
     """The loosest safe tolerance with no unsafe or unresolved tighter tolerance.
 
     ``statuses`` maps tolerance -> status; any status other than ``safe`` (``unsafe``,
-    ``unresolved``, ``failed``) blocks every looser tolerance.
+    ``unresolved``, ``failed``) blocks every looser tolerance. For a solver whose knob is
+    not ``tol`` (``harness.solvers.knobs.KnobSpec``) the keys are values of the knob
+    named ``knob``; ``more_accurate`` ("smaller" or "larger") says which end is tight,
+    and the reason names the knob ("no rho value qualifies").
     """
-    ordered = sorted(statuses.items())                 # tightest first
+    if more_accurate not in ("smaller", "larger"):
+        raise ValueError(f"more_accurate must be 'smaller' or 'larger', got "
+                         f"{more_accurate!r}")
+    ordered = sorted(statuses.items(),                 # tightest first
+                     reverse=more_accurate == "larger")
+    if knob != "tol":
+        rec = _recommend_ordered(ordered, statuses)
+        return replace(rec, reason=rec.reason.replace("tolerances", f"{knob} values")
+                       .replace("tolerance", f"{knob} value"))
+    return _recommend_ordered(ordered, statuses)
+
+
+def _recommend_ordered(ordered: list[tuple[float, str]], statuses: Mapping[float, str]
+                       ) -> LadderRecommendation:
+    """``recommend`` on ``ordered`` (tightest first)."""
     best: float | None = None
     blocked_at: float | None = None
     blocked_status = ""

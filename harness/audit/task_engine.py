@@ -75,6 +75,7 @@ def _reference(inp: TaskInputs) -> tuple[str, Reference, tuple[str, ...]]:
         separable=task.separable, tensor_grid=task.pointset.generator == "tensor_grid",
         memory_budget=task.memory_budget, dense_fisher=True,
         has_tolerance=task.tol is not None, operator_installed=operator_available())
+    # (a solver whose knob is not tol has no tol: the ladder, tol / factor, declines)
     allowed = list(task.references)
     declined: list[str] = []
     while True:
@@ -137,7 +138,7 @@ def audit_task(inp: TaskInputs) -> dict[str, Any]:
                             mean=task.mean, holdout=holdout, fisher=fisher, probes=probes,
                             variance_at=variance_positions(holdout.size, seed=task.seed))
     engine_reference: engine.PairedReference | engine.ValueReference
-    if task.tol is None:   # an exact solver: no tolerance to judge, detailed metrics only
+    if task.knob_value is None:   # an exact solver: nothing to judge, detailed metrics only
         engine_reference = _Unjudged(ReferenceInfo(kind, True, reference.description))
     else:
         engine_reference = build_reference(
@@ -149,7 +150,8 @@ def audit_task(inp: TaskInputs) -> dict[str, Any]:
                            reference=reference, ref0=ref0, declined=declined,
                            streams=inp.streams, seconds=seconds)
     result = engine.audit_tolerances(
-        data, inp.solver, () if task.tol is None else (float(task.tol),), engine_reference,
+        data, inp.solver, () if task.knob_value is None else (float(task.knob_value),),
+        engine_reference,
         seeds=(solver_seed(task.seed, 0),), solver_options=task.solver_options,
         thresholds=Thresholds(), detail=detail)
     body: dict[str, Any] = dict(result.detail or {})

@@ -65,8 +65,13 @@ class Reference:
 def task_solver_options(task: AuditTask, solver: Any) -> dict[str, Any]:
     """The factory's options with the solver's seed ``solver_seed(task.seed, 0)``
     (``harness.audit.solver_seeds``, the same derivation as ``check`` and ``evaluate``)
-    under the option the factory declares, when the case does not set it."""
-    return seeded_options(solver.factory, task.solver_options, solver_seed(task.seed, 0))
+    under the option the factory declares, when the case does not set it, and, for a
+    solver whose knob is not ``tol``, the knob's value under its name (``rho``; the
+    task's ``tol`` is then None, ``harness.solvers.knobs.KnobSpec.arguments``)."""
+    options = seeded_options(solver.factory, task.solver_options, solver_seed(task.seed, 0))
+    if task.knob_name != "tol" and task.knob_value is not None:
+        options[task.knob_name] = float(task.knob_value)
+    return options
 
 
 def observed_information(loglik: Callable[[np.ndarray], float], theta: np.ndarray,
@@ -149,7 +154,10 @@ def _ladder(task: AuditTask, points: np.ndarray, kernel: Kernel, solver: Any,
     from harness.likelihood import evaluate_likelihood, kriging
 
     if task.tol is None:
-        raise TaskSkipped("ladder reference needs a tolerance; the solver is exact")
+        raise TaskSkipped("ladder reference needs a tolerance; the solver is exact"
+                          if task.knob_name == "tol" else
+                          f"ladder reference needs a tolerance; the solver's knob is "
+                          f"{task.knob_name}")
     tol = task.tol / task.ladder_factor
     options = task_solver_options(task, solver)
     fact = solver.factorize(points, kernel, kernel.theta, tol=tol, **options)

@@ -21,9 +21,13 @@ class ToleranceResult:
     the value of the seed that decides each limited metric; ``seeds`` every seed's values
     and ``spread`` their min / median / max. ``error`` holds the reason when the solver
     failed (e.g. compression breakdown), which makes the tolerance unsafe.
+
+    ``knob_name`` and ``knob_value`` name the solver's accuracy knob and the value
+    audited (``harness.solvers.knobs``): for a ``tol`` solver ``tol == knob_value``; for
+    a solver with another knob (``rho``) ``tol`` is None.
     """
 
-    tol: float
+    tol: float | None
     safe: bool
     reference: str
     metrics: tuple[MetricValue, ...]
@@ -35,12 +39,21 @@ class ToleranceResult:
     reasons: tuple[str, ...] = ()
     seeds: tuple[dict[str, Any], ...] = ()
     spread: dict[str, Any] = field(default_factory=dict)
+    knob_name: str = "tol"
+    knob_value: float | None = None
+
+    @property
+    def value(self) -> float | None:
+        """The knob's value (``tol`` for a ``tol`` solver that left ``knob_value`` unset)."""
+        return self.tol if self.knob_value is None else self.knob_value
 
     def metric(self, name: str) -> MetricValue | None:
         return next((m for m in self.metrics if m.name == name), None)
 
     def to_dict(self) -> dict[str, Any]:
-        out: dict[str, Any] = {"tol": self.tol, "safe": self.safe, "reference": self.reference,
+        out: dict[str, Any] = {"tol": self.tol, "knob_name": self.knob_name,
+                               "knob_value": self.value, "safe": self.safe,
+                               "reference": self.reference,
                                "seconds": _num(self.seconds), "speedup": _num(self.speedup),
                                "nbytes": self.nbytes, "error": self.error or None,
                                "status": self.status or ("safe" if self.safe else "unsafe"),
@@ -54,9 +67,10 @@ class ToleranceResult:
 
 @dataclass(frozen=True)
 class RefitResult:
-    """End-to-end refit with the recommended tolerance, compared with the reference fit."""
+    """End-to-end refit with the recommended tolerance (or knob value), compared with the
+    reference fit; ``tol`` is None for a solver whose knob is not ``tol``."""
 
-    tol: float
+    tol: float | None
     params: dict[str, Any]
     shift_se: dict[str, float]
     max_shift_se: float
@@ -67,9 +81,13 @@ class RefitResult:
     accepted_steps: int = 0
     converged: bool = True
     note: str = ""
+    knob_name: str = "tol"
+    knob_value: float | None = None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"tol": self.tol, "accepted_steps": self.accepted_steps,
+        return {"tol": self.tol, "knob_name": self.knob_name,
+                "knob_value": self.tol if self.knob_value is None else self.knob_value,
+                "accepted_steps": self.accepted_steps,
                 "converged": self.converged, "note": self.note,
                 "params": self.params, "shift_se": self.shift_se,
                 "max_shift_se": self.max_shift_se, "loglik_change": self.loglik_change,
@@ -80,7 +98,12 @@ class RefitResult:
 
 @dataclass(frozen=True)
 class CheckResult:
-    """Everything ``covaudit check`` found (``to_dict`` is the JSON output)."""
+    """Everything ``covaudit check`` found (``to_dict`` is the JSON output).
+
+    ``recommended_tolerance`` holds the pick only when the solver's knob is ``tol``;
+    ``recommended_knob`` = {"solver", "name", "value"} always says what was picked (None
+    when nothing is safe).
+    """
 
     source: str
     n: int
@@ -117,6 +140,19 @@ class CheckResult:
     #: Which reference served which metric group ("loglik", "score", "kriging"), each
     #: with its detail (``harness.audit.audit_references.reference_by_metric``).
     reference_by_metric: dict[str, Any] = field(default_factory=dict)
+    recommended_knob: dict[str, Any] | None = None
+    knob: dict[str, Any] = field(default_factory=lambda: {"name": "tol"})
+
+    @property
+    def knob_name(self) -> str:
+        return str(self.knob.get("name", "tol"))
+
+    @property
+    def recommended_value(self) -> float | None:
+        """The recommended knob value (a tolerance for a ``tol`` solver), or None."""
+        if self.recommended_knob is not None:
+            return self.recommended_knob.get("value")
+        return self.recommended_tolerance
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -125,6 +161,7 @@ class CheckResult:
             "kernel": self.kernel, "mean": self.mean, "params": self.params, "se": self.se,
             "loglik": self.loglik, "reference": self.reference, "fit": self.fit,
             "recommended_tolerance": self.recommended_tolerance,
+            "recommended_knob": self.recommended_knob, "knob": self.knob,
             "speedup": _num(self.speedup) if self.speedup is not None else None,
             "speedup_over": self.speedup_over,
             "tolerances": [t.to_dict() for t in self.tolerances],

@@ -31,7 +31,7 @@ import math
 import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 
@@ -103,6 +103,7 @@ from harness.model import design_matrix
 from harness.model.kernels import Kernel, make_kernel
 from harness.model.power_law import extrapolate, fit_power_law
 from harness.references import DenseBudgetError, DenseCholesky, dense_evaluate
+from harness.solvers.knobs import KnobSpec
 from harness.solvers.plugins import SolverLoadError
 from harness.solvers.protocol import Factorization
 from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve_solver
@@ -132,6 +133,12 @@ class CheckOptions:
         Fit a nugget (False: exact interpolation model).
     mean : str
     tolerances : tuple of float
+        Compression tolerances of a ``tol`` solver (``--tolerances``); the tightest is
+        also the built-in solver's tolerance when the fit needs a compressed solver.
+    knob_values : tuple of float or None
+        Values of the solver's accuracy knob to audit (``--knob-values``;
+        ``harness.solvers.knobs``): for a ``tol`` solver they replace ``tolerances``; for
+        another knob None means its declared default sweep.
     holdout : float
         Fraction of points held out for the kriging evaluation, in (0, 0.5].
     holdout_points : int or None
@@ -183,6 +190,7 @@ class CheckOptions:
     nugget: bool = True
     mean: str = "constant"
     tolerances: tuple[float, ...] = DEFAULT_TOLERANCES
+    knob_values: tuple[float, ...] | None = None
     holdout: float = 0.1
     holdout_points: int | None = None
     variance_points: int = VARIANCE_POINTS.default
@@ -400,10 +408,32 @@ def _reference_kind(options: CheckOptions, points: np.ndarray, kernel: Kernel
                       "reference, so no verdict can be better than unresolved"]
 
 
+def _knob_values(options: CheckOptions, knob: KnobSpec) -> tuple[float, ...]:
+    """The knob values to audit, validated (``CheckOptions.knob_values``), loose to tight."""
+    if knob.is_tol:
+        return tuple(sorted({float(t) for t in options.tolerances}, reverse=True))
+    values = knob.default_sweep if options.knob_values is None else options.knob_values
+    spec = knob.option_spec()
+    for value in values:
+        if (core := spec.problem(value)) is not None:
+            raise CheckError(f"--knob-values: {core}")
+    return knob.sorted_loose_to_tight(values)
+
+
+def _with_knob_values(options: CheckOptions, knob: KnobSpec) -> CheckOptions:
+    """``options`` with ``knob_values`` as the tolerances of a ``tol`` solver."""
+    if not knob.is_tol or options.knob_values is None:
+        return options
+    from dataclasses import replace
+
+    return replace(options, tolerances=tuple(options.knob_values), knob_values=None)
+
+
 def _row(audit: ToleranceAudit, reference: str) -> ToleranceResult:
     v = audit.verdict
     return ToleranceResult(
-        tol=v.tol, safe=v.safe, reference=reference,
+        tol=audit.tol, knob_name=audit.knob_name, knob_value=v.tol, safe=v.safe,
+        reference=reference,
         metrics=audit.worst_metrics(), seconds=audit.seconds, speedup=audit.speedup,
         nbytes=audit.nbytes, error="; ".join(v.failures), status=v.status,
         reasons=v.reasons, seeds=tuple(s.to_dict() for s in audit.seeds),
@@ -416,13 +446,16 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     """Run the whole check (module docstring) on validated data."""
     say: Progress = progress or (lambda _msg: None)
     start = time.perf_counter()
-    tols = tuple(sorted({float(t) for t in options.tolerances}, reverse=True))
-    if not tols:
-        raise CheckError(f"--tolerances: expected at least one tolerance, got "
-                         f"{options.tolerances}")
+    solver = _resolve(options)
+    knob = solver.knob
+    options = _with_knob_values(options, knob)
     for core in (TOLERANCE.problem(t) for t in options.tolerances):
         if core is not None:
             raise CheckError(f"--tolerances: {core}")
+    tols = _knob_values(options, knob)
+    if not tols:
+        flag = "--tolerances" if knob.is_tol else "--knob-values"
+        raise CheckError(f"{flag}: expected at least one {knob.name} value, got none")
     if (core := SOLVER_SEEDS.problem(options.solver_seeds)) is not None:
         raise CheckError(f"--solver-seeds: {core}")
     if (core := LADDER_FACTOR.problem(options.ladder_factor)) is not None:
@@ -430,7 +463,6 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     if not (math.isfinite(options.fit_time_budget) and options.fit_time_budget > 0):
         raise CheckError(f"--fit-time-budget: expected a positive number of seconds, got "
                          f"{options.fit_time_budget!r}")
-    solver = _resolve(options)
     streams = check_streams(options.seed)
     split_rng, fit_rng, probe_rng, growth_rng = (streams[name] for name in CHECK_STREAMS)
     train, hold = split_holdout(data.n, options.holdout, split_rng,
@@ -454,6 +486,11 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     notes.extend(fitted.notes)
     se = standard_errors(kernel, fisher)
     kind, ref_warnings = _reference_kind(options, x, kernel)
+    if kind == "ladder" and not knob.is_tol:
+        raise CheckError(f"--reference: the ladder reference runs the solver at tol / "
+                         f"--ladder-factor, and solver {solver.name!r} has no tol (its knob "
+                         f"is {knob.name}); use an exact reference (dense, statespace or "
+                         "operator)")
     warnings.extend(ref_warnings)
     audit_data = AuditData(points=x, y=y, kernel=kernel, mean=options.mean, holdout=hold,
                            fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng),
@@ -487,11 +524,12 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         warnings.append("non-monotone tolerance ladder: " + rec.reason)
     holdout_info = _holdout_info(reference, tols[-1], y, hold, kernel.nugget, variance_at)
     holdout_info.update(reference=kind, conditioned_on=int(train.size))
-    best = next((r for r in rows if r.tol == rec.tol), None)
+    best = next((r for r in rows if r.value == rec.tol), None)
     refit = None
-    if best is not None and options.refit and fitted.fit is not None:
-        say(f"end-to-end refit with {solver.name} tol {best.tol:g}")
-        refit = _refit(x, y, template, fitted.fit, best.tol, options, solver,
+    if best is not None and best.value is not None and options.refit \
+            and fitted.fit is not None:
+        say(f"end-to-end refit with {solver.name} {knob.value_text(best.value)}")
+        refit = _refit(x, y, template, fitted.fit, best.value, options, solver,
                        se.log_se, fisher)
     loglik = (reference.values().loglik.value if isinstance(reference, HasValues)
               else reference.sides(tols[-1]).full.loglik)
@@ -505,7 +543,11 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
             "natural": se.natural_se, "microergodic": se.microergodic,
             "microergodic_se": se.microergodic_se, "nu": se.nu},
         loglik=float(loglik), reference=kind, fit=fitted.info, tolerances=tuple(rows),
-        recommended_tolerance=rec.tol,
+        recommended_tolerance=rec.tol if knob.is_tol else None,
+        recommended_knob=None if rec.tol is None else {"solver": solver.name,
+                                                       "name": knob.name, "value": rec.tol},
+        knob={"name": knob.name, "range": knob.range_text(),
+              "more_accurate": knob.more_accurate, "values": list(tols)},
         speedup=None if best is None else best.speedup, speedup_over=speedup_over,
         refit=refit, thresholds=options.thresholds.to_dict(), growth=growth,
         holdout=holdout_info, truth=dict(truth) if truth else None,
@@ -607,18 +649,26 @@ def _with_growth(row: ToleranceResult, entry: Mapping[str, Any] | None) -> Toler
 def recommend(rows: list[ToleranceResult]) -> ToleranceResult | None:
     """The engine's rule on check rows: the loosest safe tolerance with no unsafe or
     unresolved tighter one (``harness.audit.engine.recommend``)."""
-    rec = audit_engine.recommend({r.tol: r.status or ("safe" if r.safe else "unsafe")
-                                  for r in rows})
-    return next((r for r in rows if r.tol == rec.tol), None)
+    rec = audit_engine.recommend({float(r.value): r.status or ("safe" if r.safe else "unsafe")
+                                  for r in rows if r.value is not None})
+    return next((r for r in rows if r.value == rec.tol), None)
 
 
 def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: float,
            options: CheckOptions, solver: ResolvedSolver, log_se: np.ndarray,
            fisher: np.ndarray) -> RefitResult:
-    """Fisher scoring with the solver under test at ``tol`` from the reference estimate."""
-    engine = CompressedEngine(x, y, template, mean=options.mean, tol=tol,
+    """Fisher scoring with the solver under test at ``tol`` (the value of its knob, which
+    reaches the factory as ``harness.solvers.knobs.KnobSpec.arguments`` says) from the
+    reference estimate."""
+    knob = solver.knob
+    arguments = knob.arguments(tol)
+    # the engine hands ``tol`` on to the factory, whose protocol takes None for a solver
+    # whose knob is not tol
+    engine = CompressedEngine(x, y, template, mean=options.mean,
+                              tol=cast(float, arguments.pop("tol")),
                               seed=solver_seed(options.seed, 0), leaf_size=options.leaf_size,
-                              solver=solver, options=_solver_options(options, solver))
+                              solver=solver,
+                              options=_solver_options(options, solver) | arguments)
     start_ll = engine(fit.theta).loglik
     refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds, step_tol_se=1e-3,
                            max_steps=options.fit_max_steps)
@@ -641,7 +691,8 @@ def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: flo
         note = "the refit did not converge: " + refit.starts[0].message
     else:
         note = refit.starts[0].message
-    return RefitResult(tol=tol, params=refit.kernel.natural_params(),
+    return RefitResult(tol=tol if knob.is_tol else None, knob_name=knob.name, knob_value=tol,
+                       params=refit.kernel.natural_params(),
                        shift_se=dict(zip(template.param_names, shift.tolist(), strict=True)),
                        max_shift_se=float(np.max(np.abs(shift))),
                        loglik_change=float(refit.loglik - start_ll),

@@ -54,7 +54,9 @@ from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
 from harness.report.check_report import render_check_report
 from harness.report.condense import shorten
 from harness.report.labels import metric_label
-from harness.solvers.registry import SolverRuntimeError
+from harness.solvers.knobs import KnobSpec
+from harness.solvers.plugins import SolverLoadError
+from harness.solvers.registry import SolverRuntimeError, resolve_solver
 
 #: Shape parameters of any family (``Kernel.PARAMETERS``): fixed during the fit.
 SHAPE_NAMES = tuple(dict.fromkeys(spec.name for cls in KERNEL_CLASSES
@@ -81,8 +83,13 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="fit one length scale per coordinate")
     p.add_argument("--no-nugget", action="store_true", help="fit without a nugget")
     p.add_argument("--mean", choices=MEAN_MODELS, default="constant", help="mean model (GLS)")
-    p.add_argument("--tolerances", default="1e-2,1e-4,1e-6,1e-8,1e-10",
-                   help="comma-separated compression tolerances")
+    p.add_argument("--tolerances", default=None,
+                   help="comma-separated compression tolerances of a tol solver (default "
+                        f"{DEFAULT_TOLERANCES_TEXT})")
+    p.add_argument("--knob-values", default=None, metavar="V1,V2,...",
+                   help="comma-separated values of the --solver's accuracy knob (tol for "
+                        "hodlr, rho for vecchia; default: tol solvers the --tolerances "
+                        "default, other solvers their declared sweep)")
     p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
                    help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
     p.add_argument("--holdout",
@@ -139,11 +146,49 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="seed of holdout, pilot and probes")
 
 
+#: ``--tolerances`` when neither it nor ``--knob-values`` is given to a ``tol`` solver.
+DEFAULT_TOLERANCES_TEXT = "1e-2,1e-4,1e-6,1e-8,1e-10"
+
+
 def _tolerances(text: str) -> tuple[float, ...]:
     try:
         return tuple(float(v) for v in TOLERANCE.parse_list(text, where="--tolerances"))
     except OptionError as exc:
         raise CheckError(str(exc)) from None
+
+
+def solver_knob(name: str) -> KnobSpec:
+    """The accuracy knob of ``--solver NAME`` (``harness.solvers.knobs``)."""
+    try:
+        return resolve_solver(name).knob
+    except (SolverLoadError, TypeError) as exc:
+        raise CheckError(f"--solver {name!r}: {exc}") from None
+
+
+def knob_sweep(args: argparse.Namespace) -> tuple[tuple[float, ...], tuple[float, ...] | None]:
+    """``(tolerances, knob_values)`` of ``CheckOptions`` from ``--tolerances`` and
+    ``--knob-values`` (README, "check"): a ``tol`` solver takes either, another knob only
+    ``--knob-values`` (default: its declared sweep), each value validated against the
+    knob's declared range."""
+    knob = solver_knob(args.solver)
+    given_tol = args.tolerances is not None
+    given_knob = getattr(args, "knob_values", None) is not None
+    if given_tol and given_knob:
+        raise CheckError("--tolerances and --knob-values: give one of them, not both")
+    if given_tol and not knob.is_tol:
+        raise CheckError(f"--tolerances: solver {args.solver!r} has no tol; its knob is "
+                         f"{knob.name} in {knob.range_text()}: use --knob-values")
+    if not given_knob:
+        tolerances = _tolerances(args.tolerances or DEFAULT_TOLERANCES_TEXT)
+        return tolerances, None if knob.is_tol else knob.default_sweep
+    try:
+        values = tuple(float(v) for v in knob.option_spec().parse_list(
+            args.knob_values, where="--knob-values"))
+    except OptionError as exc:
+        raise CheckError(str(exc)) from None
+    if knob.is_tol:
+        return values, None
+    return _tolerances(DEFAULT_TOLERANCES_TEXT), values
 
 
 def options_from_args(args: argparse.Namespace) -> CheckOptions:
@@ -159,9 +204,11 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         shape = shape | {k: float(v) for k, v in fixed.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
         fixed = {k: v for k, v in fixed.items() if k not in SHAPE_NAMES}
     budget = None if args.memory_budget is None else int(args.memory_budget * 2**30)
+    tolerances, knob_values = knob_sweep(args)
     return CheckOptions(
         kernel=args.kernel, shape=shape, anisotropic=args.anisotropic,
-        nugget=not args.no_nugget, mean=args.mean, tolerances=_tolerances(args.tolerances),
+        nugget=not args.no_nugget, mean=args.mean, tolerances=tolerances,
+        knob_values=knob_values,
         holdout=args.holdout, holdout_points=args.holdout_points,
         variance_points=args.variance_points, seed=args.seed, probes=args.probes,
         fixed_params=fixed,
@@ -208,12 +255,13 @@ def summary(result: CheckResult) -> str:
     """The verdict table for the terminal."""
     solver = result.solver.get("name", "?")
     version = result.solver.get("version")
+    per = "tolerance" if result.knob_name == "tol" else f"{result.knob_name} value"
     lines = [f"WARNING: {w}" for w in result.warnings]
     lines += [f"covaudit check: {result.source}: {result.n:,} points (all fitted; "
              f"{result.n_holdout:,} held out for the kriging evaluation), kernel "
              f"{result.kernel}, mean {result.mean}, reference {result.reference}",
              f"  solver      {solver}{f' {version}' if version else ''}, "
-             f"{len(result.solver_seeds)} seed(s) per tolerance (the worst decides)",
+             f"{len(result.solver_seeds)} seed(s) per {per} (the worst decides)",
              "  parameters  " + ", ".join(f"{k} = {_short(v)}" for k, v in result.params.items()),
              "  SE          " + ", ".join(f"{k} = {_short(v)}"
                                           for k, v in result.se["natural"].items()),
@@ -222,7 +270,9 @@ def summary(result: CheckResult) -> str:
         lines.append(f"  s2/l^(2nu)  {result.se['microergodic']:.6g} "
                      f"(SE {result.se['microergodic_se']:.3g})")
     shown = ("loglik_error", "param_shift_se", "kriging_mean_sd", "mloe", "mmom")
-    header = (f"  {metric_label('tol').short:>9} {metric_label('verdict').short:>10} "
+    knob = result.knob_name
+    column = metric_label("tol").short if knob == "tol" else knob
+    header = (f"  {column:>9} {metric_label('verdict').short:>10} "
               + " ".join(f"{metric_label(n).short:>14}" for n in shown)
               + f" {metric_label('speedup').short:>9}")
     lines += ["", header]
@@ -230,14 +280,15 @@ def summary(result: CheckResult) -> str:
     for row in result.tolerances:
         status = row.status or ("safe" if row.safe else "unsafe")
         if row.error and not row.metrics:
-            broke.append(f"  [{len(broke) + 1}] tol {row.tol:.0e}: {row.error}")
-            lines.append(f"  {row.tol:>9.0e} {status:>10}  {shorten(row.error, 60)} "
-                         f"[{len(broke)}]")
+            broke.append(f"  [{len(broke) + 1}] {_at(knob, row.value, short=True)}: "
+                         f"{row.error}")
+            lines.append(f"  {_cell(knob, row.value)} {status:>10}  "
+                         f"{shorten(row.error, 60)} [{len(broke)}]")
             continue
         vals = [row.metric(n) for n in ("loglik_error", "param_shift_se", "kriging_mean_sd",
                                         "mloe", "mmom")]
         cells = " ".join(f"{(v.value if v else float('nan')):>14.3g}" for v in vals)
-        lines.append(f"  {row.tol:>9.0e} {status:>10} {cells} "
+        lines.append(f"  {_cell(knob, row.value)} {status:>10} {cells} "
                      f"{row.speedup or float('nan'):>9.3g}")
     lines += broke
     lines.append("  " + "; ".join(f"{metric_label(n).short}: {metric_label(n).label}"
@@ -246,18 +297,23 @@ def summary(result: CheckResult) -> str:
     lines.append("")
     if not result.fit_converged:
         lines.append("  every verdict was measured at an unconverged estimate")
-    if result.recommended_tolerance is None:
-        lines.append("  recommendation: no tolerance in the list qualifies ("
+    picked = result.recommended_value
+    if picked is None:
+        noun = "tolerance" if knob == "tol" else f"{knob} value"
+        lines.append(f"  recommendation: no {noun} in the list qualifies ("
                      + str(result.recommendation.get("reason", "none is safe")) + ")")
     else:
-        best = next(r for r in result.tolerances if r.tol == result.recommended_tolerance)
-        times = (f": {best.seconds * result.speedup:.3g} s against {best.seconds:.3g} s "
+        best = next(r for r in result.tolerances if r.value == picked)
+        speedup = result.speedup if result.speedup is not None else float("nan")
+        times = (f": {best.seconds * speedup:.3g} s against {best.seconds:.3g} s "
                  "per log-likelihood evaluation"
                  if result.speedup is not None and math.isfinite(best.seconds) else "")
-        lines.append(f"  recommendation: tol {result.recommended_tolerance:g} "
-                     f"({result.speedup:.3g}x faster than {result.speedup_over}{times})")
+        lines.append(f"  recommendation: {_at(knob, picked)} "
+                     f"({speedup:.3g}x faster than {result.speedup_over}{times})")
     if result.refit:
-        lines.append(f"  refit at tol {result.refit.tol:g}: largest shift "
+        refit_value = (result.refit.tol if result.refit.knob_value is None
+                       else result.refit.knob_value)
+        lines.append(f"  refit at {_at(knob, refit_value)}: largest shift "
                      f"{result.refit.max_shift_se:.3g} SE, loglik change "
                      f"{result.refit.loglik_change:.3g} nat, "
                      f"{result.refit.accepted_steps} step(s) accepted")
@@ -267,6 +323,22 @@ def summary(result: CheckResult) -> str:
     lines.append("  thresholds are common practice chosen for covaudit, not a published "
                  "standard")
     return "\n".join(lines)
+
+
+def _at(knob: str, value: float | None, *, short: bool = False) -> str:
+    """``tol 1e-06`` (``tol 1e-06`` as ``1e-06`` in the short form) or ``rho = 6``."""
+    if value is None:
+        return "exact"
+    if knob == "tol":
+        return f"tol {value:.0e}" if short else f"tol {value:g}"
+    return f"{knob} = {value:g}"
+
+
+def _cell(knob: str, value: float | None) -> str:
+    """A value in the table's first column: ``1e-06`` for tol, ``6`` for another knob."""
+    if value is None:
+        return f"{'exact':>9}"
+    return f"{value:>9.0e}" if knob == "tol" else f"{value:>9g}"
 
 
 def _short(value: Any) -> str:
@@ -297,7 +369,8 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        progress = CheckProgress(tolerances=len(options.tolerances), refit=options.refit,
+        steps = options.tolerances if options.knob_values is None else options.knob_values
+        progress = CheckProgress(tolerances=len(steps), refit=options.refit,
                                  enabled=progress_enabled(json_output=args.json))
         try:
             result = run_check(data, options, source=str(args.datafile), progress=progress)
@@ -315,4 +388,4 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
     for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
         print(line, file=sys.stderr if args.json else sys.stdout)
-    return ExitCode.OK if result.recommended_tolerance is not None else ExitCode.FINDING
+    return ExitCode.OK if result.recommended_value is not None else ExitCode.FINDING

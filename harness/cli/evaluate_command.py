@@ -25,11 +25,18 @@ from harness.grid.runner.dask_check import check_dask_options
 from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
-from harness.infra.option_specs import PROBES, TOLERANCE
+from harness.infra.option_specs import PROBES, TOLERANCE, OptionError
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
 from harness.model.kernels import KERNELS, KernelParameterError
+from harness.solvers.plugins import SolverLoadError
+from harness.solvers.registry import resolve_solver
+
+#: ``--tol`` when neither it nor ``--knob-value`` is given.
+DEFAULT_TOL = 1e-8
+#: ``--solver`` names that are references, not registry solvers: no accuracy knob.
+REFERENCE_NAMES = frozenset({"statespace", "kronecker", "operator"})
 
 #: Built-in references and solvers evaluated in this process; anything else is a plugin.
 #: Solvers evaluated in this process; every other one (plugins, and ``dense``, whose BLAS
@@ -56,8 +63,13 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "package.module:factory")
     p.add_argument("--separable", action="store_true",
                    help="product of 1D kernels along the axes (needed by --solver kronecker)")
-    p.add_argument("--tol", type=TOLERANCE.argparse_type(), default=1e-8,
-                   help="compression tolerance (hodlr, plugins)")
+    p.add_argument("--tol", type=TOLERANCE.argparse_type(), default=None,
+                   help="compression tolerance of a tol solver (hodlr, plugins; default "
+                        f"{DEFAULT_TOL:g})")
+    p.add_argument("--knob-value", default=None, metavar="V",
+                   help="value of the --solver's accuracy knob (tol for hodlr, rho for "
+                        "vecchia), checked against its declared range; default: --tol for a "
+                        "tol solver, the factory's own default otherwise")
     p.add_argument("--leaf-size", type=int_range("--leaf-size", 2, 2**20), default=128,
                    help="cluster-tree leaf size (hodlr)")
     p.add_argument("--trace", choices=("exact", "hutchinson", "hutchpp"), default=None,
@@ -101,6 +113,36 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
 
 
+def knob_options(args: argparse.Namespace) -> tuple[float, float | None]:
+    """``(tol, knob_value)`` of ``SolverOptions`` from ``--tol`` and ``--knob-value``: a
+    ``tol`` solver takes either, another knob only ``--knob-value``, validated against the
+    knob's declared range (``harness.solvers.knobs.KnobSpec.option_spec``)."""
+    tol = DEFAULT_TOL if args.tol is None else float(args.tol)
+    if args.knob_value is None and args.tol is None:
+        return tol, None
+    if args.solver in REFERENCE_NAMES:
+        if args.knob_value is not None:
+            raise EvaluationError(f"--knob-value: --solver {args.solver} is a reference with "
+                                  "no accuracy knob")
+        return tol, None
+    try:
+        knob = resolve_solver(args.solver).knob
+    except (SolverLoadError, TypeError) as exc:
+        raise EvaluationError(f"--solver {args.solver!r}: {exc}") from None
+    if args.tol is not None and args.knob_value is not None:
+        raise EvaluationError("--tol and --knob-value: give one of them, not both")
+    if args.tol is not None and not knob.is_tol:
+        raise EvaluationError(f"--tol: solver {args.solver!r} has no tol; its knob is "
+                              f"{knob.name} in {knob.range_text()}: use --knob-value")
+    if args.knob_value is None:
+        return tol, None
+    try:
+        value = float(knob.option_spec().parse(args.knob_value))
+    except OptionError as exc:
+        raise EvaluationError(f"--knob-value: {exc.core}") from None
+    return (value, None) if knob.is_tol else (DEFAULT_TOL, value)
+
+
 def _finite_or_none(value: float | None) -> float | None:
     if value is None or not math.isfinite(value):
         return None
@@ -110,7 +152,10 @@ def _finite_or_none(value: float | None) -> float | None:
 def _summary(result: dict[str, Any]) -> str:
     lines = [
         f"covaudit evaluate: {result['n']:,} points, kernel {result['kernel']}, "
-        f"solver {result['solver']}",
+        f"solver {result['solver']}" + (
+            f", {result['knob_name']} = {result['knob_value']:g}"
+            if result.get("knob_name", "tol") != "tol" and result.get("knob_value") is not None
+            else ""),
         f"  parameters  {json.dumps(result['params'])}",
         f"  mean        {result['mean']}{' (REML)' if result['reml'] else ''}"
         + (f"  beta = {result['beta']}" if result['beta'] else ""),
@@ -154,9 +199,10 @@ def run(args: argparse.Namespace) -> int:
         kernel = kernel_from_options(args.kernel, args.param, dimension=obs.points.shape[1])
         for warning in spread_warnings(obs.points, kernel.lengthscale):
             print(f"covaudit evaluate: warning: {warning}", file=sys.stderr)
+        tol, knob_value = knob_options(args)
         options = SolverOptions(
-            tol=args.tol, leaf_size=args.leaf_size, trace=args.trace, probes=args.probes,
-            seed=args.seed, separable=args.separable,
+            tol=tol, knob_value=knob_value, leaf_size=args.leaf_size, trace=args.trace,
+            probes=args.probes, seed=args.seed, separable=args.separable,
             memory_budget=None if args.memory_budget is None
             else int(args.memory_budget * 2**30),
             preconditioner=args.preconditioner, preconditioner_tol=args.preconditioner_tol,

@@ -21,7 +21,7 @@ from tqdm import tqdm
 BAR_FORMAT = "{desc}: {n_fmt}/{total_fmt} {unit} [{elapsed} elapsed, about {remaining} left]"
 #: Stage messages of ``run_check`` that start a counted step (the others only relabel).
 CHECK_STEPS: tuple[str, ...] = ("fitting", "pilot fit", "dense reference", "tolerance",
-                                "end-to-end refit")
+                                "knob value", "end-to-end refit")
 
 
 def progress_enabled(*, json_output: bool = False, stream: IO[str] | None = None) -> bool:

@@ -12,6 +12,12 @@ points, kernel and data from them. Two hashes identify it:
   pairs with a run of a newer version; ``harness.analysis.regression`` reports version
   differences beside the pairing.
 
+The solver's accuracy knob (``harness.solvers.knobs``) is ``knob_name`` and
+``knob_value``. A ``tol`` solver's task keeps its value in ``tol`` as before, and both
+hashes leave the two knob fields out (``KNOB_FIELDS``), so the keys of every run written
+before the knob existed stay the same; a task of another knob (``rho``) has ``tol`` None
+and hashes its knob.
+
 Random streams follow numpy's ``SeedSequence`` spawning (numpy's "Parallel random number
 generation" guide): the task's data stream is ``SeedSequence(seed, spawn_key=(data_id,))``
 with ``data_id`` a hash of the parameters that define the data (point set, size, kernel,
@@ -51,6 +57,9 @@ UNPAIRED_FIELDS: tuple[str, ...] = (
 #: stored; leaving them out keeps earlier run directories resumable).
 UNKEYED_FIELDS: tuple[str, ...] = ("timeout",)
 
+#: The knob's fields, hashed only for a solver whose knob is not ``tol`` (module docstring).
+KNOB_FIELDS: tuple[str, ...] = ("knob_name", "knob_value")
+
 #: The default reference order of a case file, in decreasing trust (DEVELOPERS.md, "The
 #: reference order"); ``ladder`` is the stand-in.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "ladder")
@@ -65,14 +74,34 @@ def _digest(value: Any) -> str:
     return hashlib.sha256(canonical_json(value).encode()).hexdigest()
 
 
+def without_tol_knob(task: Mapping[str, Any]) -> dict[str, Any]:
+    """``task`` less ``KNOB_FIELDS`` when its knob is ``tol`` (or unstated, as in records
+    written before the knob existed): what the hashes see."""
+    values = dict(task)
+    if values.get("knob_name", "tol") in ("tol", None):
+        for name in KNOB_FIELDS:
+            values.pop(name, None)
+    return values
+
+
 def pair_key_of(task: Mapping[str, Any]) -> str:
     """The version-free key of a task given as ``Task.to_dict()`` (stored records too).
 
-    16 hex digits of sha256 over the task's fields less ``UNPAIRED_FIELDS``; the case
-    name is included, so runs of different case files never pair.
+    16 hex digits of sha256 over the task's fields less ``UNPAIRED_FIELDS`` (and less
+    ``KNOB_FIELDS`` for a ``tol`` solver); the case name is included, so runs of different
+    case files never pair.
     """
-    values = {k: v for k, v in dict(task).items() if k not in UNPAIRED_FIELDS}
+    values = {k: v for k, v in without_tol_knob(task).items() if k not in UNPAIRED_FIELDS}
     return _digest(values)[:16]
+
+
+def knob_fields(task: Mapping[str, Any]) -> dict[str, Any]:
+    """``knob_name`` and ``knob_value`` of a task dict; a record written before the knob
+    existed is a ``tol`` task whose value is its ``tol``."""
+    name = task.get("knob_name") or "tol"
+    value = task.get("knob_value")
+    return {"knob_name": name, "knob_value": task.get("tol") if value is None and name == "tol"
+            else value}
 
 
 @dataclass(frozen=True)
@@ -214,8 +243,13 @@ class Task(AuditSettings):
     solver_options : mapping
         Extra keyword options of the solver factory.
     tol : float or None
-        Compression tolerance (None for exact solvers such as ``dense``).
+        Compression tolerance (None for exact solvers such as ``dense`` and for a solver
+        whose knob is not ``tol``).
     seed : int
+    knob_name : str
+        The solver's accuracy knob (``harness.solvers.knobs``): ``tol`` or e.g. ``rho``.
+    knob_value : float or None
+        Its value (equal to ``tol`` for a ``tol`` solver; None for an exact solver).
     (the settings of ``AuditSettings``)
     """
 
@@ -233,6 +267,13 @@ class Task(AuditSettings):
     solver_options: Mapping[str, Any]
     tol: float | None
     seed: int
+    knob_name: str = "tol"
+    knob_value: float | None = None
+
+    def __post_init__(self) -> None:
+        if self.knob_name == "tol" and self.knob_value != self.tol:
+            # one value for a tol solver: knob_value mirrors tol (records before the knob)
+            object.__setattr__(self, "knob_value", self.tol)
 
     # -- identity -------------------------------------------------------------------
     def to_dict(self) -> dict[str, Any]:
@@ -255,8 +296,9 @@ class Task(AuditSettings):
         return cls(**values)
 
     def canonical(self) -> dict[str, Any]:
-        """The parameters that define the task's results (everything but the case name)."""
-        out = self.to_dict()
+        """The parameters that define the task's results (everything but the case name;
+        the knob's fields only for a solver whose knob is not ``tol``)."""
+        out = without_tol_knob(self.to_dict())
         del out["case"]
         for name in UNKEYED_FIELDS:
             out.pop(name, None)
@@ -274,8 +316,12 @@ class Task(AuditSettings):
 
     @property
     def label(self) -> str:
-        """A readable name: ``pointset-n-d/kernel/solver@tol/mean/seed``."""
-        tol = "exact" if self.tol is None else f"{self.tol:.0e}"
+        """A readable name: ``pointset-n-d/kernel/solver@tol/mean/seed`` (``solver@rho6``
+        for a solver whose knob is not ``tol``)."""
+        if self.knob_name != "tol" and self.knob_value is not None:
+            tol = f"{self.knob_name}{self.knob_value:g}"
+        else:
+            tol = "exact" if self.tol is None else f"{self.tol:.0e}"
         kernel = self.kernel + ("-sep" if self.separable else "")
         return (f"{self.pointset.name}-n{self.n}-d{self.d}/{kernel}/"
                 f"{self.solver}@{tol}/{self.mean}{'-reml' if self.reml else ''}/s{self.seed}")

@@ -28,7 +28,7 @@ from typing import Any, Literal
 __all__ = [
     "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "LADDER_FACTOR", "PROBES", "SOLVER_SEEDS",
     "SPECS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "OptionError", "OptionSpec",
-    "StrOptions", "check_values",
+    "StrOptions", "check_values", "KnobRange", "knob_option",
 ]
 
 Closed = Literal["both", "left", "right", "neither"]
@@ -88,6 +88,43 @@ class Interval:
 
 
 @dataclass(frozen=True)
+class KnobRange:
+    """The values of a solver's accuracy knob: ``name`` in a range written in interval
+    notation (``[1, inf]``, ``(0, 1)``), either end possibly infinite and included.
+
+    Unlike ``Interval`` an infinite end may belong to the range (``rho = inf``, the
+    exact likelihood); NaN never does. ``kind`` int refuses non-integral values.
+    """
+
+    name: str
+    kind: type
+    low: float
+    high: float
+    low_closed: bool
+    high_closed: bool
+
+    def range_text(self) -> str:
+        """The range as ``[low, high)`` and the like (the same text as
+        ``harness.solvers.knobs.KnobSpec.range_text``)."""
+        return (f"{'[' if self.low_closed else '('}{self.low:g}, {self.high:g}"
+                f"{']' if self.high_closed else ')'}")
+
+    def describe(self) -> str:
+        noun = "an integer" if self.kind is int else "a number"
+        return f"{self.name} as {noun} in {self.range_text()}"
+
+    def problem(self, value: object) -> str | None:
+        expected = f"expected {self.describe()}, got {value!r}"
+        if isinstance(value, bool) or not isinstance(value, int | float) or math.isnan(value):
+            return expected
+        if self.kind is int and not (math.isfinite(value) and value == int(value)):
+            return expected
+        above = value >= self.low if self.low_closed else value > self.low
+        below = value <= self.high if self.high_closed else value < self.high
+        return None if above and below else expected
+
+
+@dataclass(frozen=True)
 class StrOptions:
     """One of a fixed set of strings."""
 
@@ -122,7 +159,7 @@ class OptionSpec:
 
     name: str
     kind: type
-    constraint: Interval | StrOptions
+    constraint: Interval | KnobRange | StrOptions
     default: Any
     help: str
 
@@ -183,6 +220,17 @@ def check_values(values: Iterable[object], interval: Interval, *, where: str
         if core is not None:
             raise OptionError(where, core)
     return out
+
+
+def knob_option(name: str, *, kind: type, low: float, high: float, low_closed: bool,
+                high_closed: bool, default: Any, help: str) -> OptionSpec:
+    """The option specification of a solver's accuracy knob (``--knob-values``, a case
+    file's ``knob_values``): its core message names the knob and shows its range::
+
+        --knob-values: expected rho as a number in [1, inf], got 0.5
+    """
+    return OptionSpec(name, kind, KnobRange(name, kind, float(low), float(high), low_closed,
+                                            high_closed), default, help)
 
 
 #: Seeds of the solver's randomness per tolerance (``check --solver-seeds``).

@@ -43,7 +43,7 @@ def verdict_of(row: ToleranceResult) -> str:
 
 
 def _mark_recommended(ax: Axes, tol: float | None) -> None:
-    if tol is None:
+    if tol is None or not math.isfinite(tol):
         return
     ax.axvline(tol, **RECOMMENDED_STYLE)
     ax.annotate("recommended", xy=(tol, 0.98), xycoords=("data", "axes fraction"),
@@ -57,6 +57,27 @@ def _log_x(ax: Axes, tolerances: Sequence[float]) -> None:
         ax.set_xlim(min(tolerances) / 3, max(tolerances) * 3)
     ax.xaxis.set_minor_formatter(NullFormatter())
     ax.set_xlabel("compression tolerance (looser \u2192)")
+
+
+def _knob_x(ax: Axes, result: CheckResult, values: Sequence[float]) -> None:
+    """The x axis of a knob: log tolerance for a ``tol`` solver, else the knob's values on
+    a linear axis named after it, with the direction that buys accuracy."""
+    if result.knob_name == "tol":
+        _log_x(ax, values)
+        return
+    if values:
+        span = max(values) - min(values) or max(abs(max(values)), 1.0)
+        ax.set_xlim(min(values) - 0.1 * span, max(values) + 0.1 * span)
+    tighter = "larger" if result.knob.get("more_accurate") == "larger" else "smaller"
+    ax.set_xlabel(f"{result.knob_name} ({tighter} is more accurate)")
+
+
+def _values(result: CheckResult) -> list[ToleranceResult]:
+    """The rows with a finite knob value (``rho = inf`` has no place on an axis), in
+    increasing value."""
+    return sorted((r for r in result.tolerances
+                   if r.value is not None and math.isfinite(r.value)),
+                  key=lambda r: float(r.value or 0.0))
 
 
 def _legend_for_verdicts(ax: Axes, seen: Sequence[str]) -> None:
@@ -83,7 +104,7 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
             seen: list[str] = []
             tols, values = [], []
             limit = None
-            for row in sorted(result.tolerances, key=lambda r: r.tol):
+            for row in _values(result):
                 m = row.metric(name)
                 if m is None or not math.isfinite(m.value):
                     continue
@@ -94,10 +115,10 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                 err = 2 * m.uncertainty if m.uncertainty and math.isfinite(
                     m.uncertainty) else None
                 yerr = None if err is None else np.array([[0.0], [err]])
-                ax.errorbar([row.tol], [value], yerr=yerr,
+                ax.errorbar([float(row.value or 0.0)], [value], yerr=yerr,
                             linestyle="none", color="#444444", capsize=2, markersize=6,
                             **VERDICT_MARKERS[verdict])
-                tols.append(row.tol)
+                tols.append(float(row.value or 0.0))
                 values.append(value)
             ax.plot(tols, values, color="#777777", linewidth=0.8, zorder=0)
             if limit is not None:
@@ -106,8 +127,8 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                             xycoords=("axes fraction", "data"), ha="left", va="bottom",
                             fontsize=7)
             ax.set_yscale("log")
-            _log_x(ax, tols)
-            _mark_recommended(ax, result.recommended_tolerance)
+            _knob_x(ax, result, tols)
+            _mark_recommended(ax, result.recommended_value)
             ax.set_title(metric_label(name).label, fontsize=9)
             _legend_for_verdicts(ax, seen)
     return fig
@@ -116,7 +137,7 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
 def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
     """Speed-up over the reference against tolerance, with break-even at 1 and the
     recommendation marked."""
-    rows = [r for r in sorted(result.tolerances, key=lambda r: r.tol)
+    rows = [r for r in _values(result)
             if r.speedup is not None and math.isfinite(r.speedup) and r.speedup > 0]
     if not rows:
         return None
@@ -124,21 +145,21 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
     with figure_rc():
         fig = Figure(figsize=(7.2, 2.6), layout="constrained")
         ax = fig.add_subplot()
-        ax.plot([r.tol for r in rows], speedups, color="#0072B2",
+        ax.plot([float(r.value or 0.0) for r in rows], speedups, color="#0072B2",
                 linewidth=1.0, zorder=0)
         seen = []
         for r, speedup in zip(rows, speedups, strict=True):
             verdict = verdict_of(r)
             seen.append(verdict)
-            ax.plot([r.tol], [speedup], linestyle="none", markersize=7,
+            ax.plot([float(r.value or 0.0)], [speedup], linestyle="none", markersize=7,
                     **VERDICT_MARKERS[verdict])
         ax.axhline(1.0, **THRESHOLD_STYLE)
         ax.annotate("break-even: below this line the reference is faster",
                     xy=(0.01, 1.0), xycoords=("axes fraction", "data"), ha="left",
                     va="bottom", fontsize=7)
         ax.set_ylim(bottom=0, top=1.15 * max(1.0, *speedups))
-        _log_x(ax, [r.tol for r in rows])
-        _mark_recommended(ax, result.recommended_tolerance)
+        _knob_x(ax, result, [float(r.value or 0.0) for r in rows])
+        _mark_recommended(ax, result.recommended_value)
         ax.set_ylabel(f"speed-up over {result.speedup_over} (\u00d7)")
         ax.set_title("How much faster the compressed solver is", fontsize=9)
         _legend_for_verdicts(ax, seen)

@@ -24,7 +24,13 @@ from harness.audit.verdict import COMMON_PRACTICE
 from harness.check.check_records import CheckResult, ToleranceResult
 from harness.report import check_figures
 from harness.report.condense import collapse_notes, shorten
-from harness.report.labels import COLUMN_LABELS, METRIC_LABELS, TERMS, metric_label
+from harness.report.labels import (
+    COLUMN_LABELS,
+    METRIC_LABELS,
+    TERMS,
+    MetricLabel,
+    metric_label,
+)
 from harness.report.run_summary import DOES_NOT_PAY
 from harness.report.style import data_uri
 
@@ -104,22 +110,52 @@ def _cells(row: ToleranceResult, names: list[str]) -> list[Cell]:
     return cells
 
 
+def knob_text(result: CheckResult, value: float | None) -> str:
+    """A knob value as the report shows it: a tolerance as ``tolerance_text``, another
+    knob's value as ``6``."""
+    if value is None:
+        return "exact"
+    return tolerance_text(value) if result.knob_name == "tol" else f"{value:g}"
+
+
+def knob_noun(result: CheckResult) -> str:
+    """``tolerance`` for a ``tol`` solver, else the knob's name (``rho``)."""
+    return "tolerance" if result.knob_name == "tol" else result.knob_name
+
+
+def _knob_columns(result: CheckResult) -> dict[str, MetricLabel]:
+    """``COLUMN_LABELS`` with the first column named after the solver's knob."""
+    if result.knob_name == "tol":
+        return dict(COLUMN_LABELS)
+    name = result.knob_name
+    tighter = "larger" if result.knob.get("more_accurate") == "larger" else "smaller"
+    return dict(COLUMN_LABELS) | {"tol": MetricLabel(
+        "tol", name, f"{name}, the solver's accuracy knob",
+        f"the value of the solver's accuracy knob {name} (valid range "
+        f"{result.knob.get('range', '?')}); {tighter} is more accurate")}
+
+
 def _headline(result: CheckResult) -> dict[str, Any]:
-    rec = next((r for r in result.tolerances if r.tol == result.recommended_tolerance),
+    picked = result.recommended_value
+    rec = next((r for r in result.tolerances if picked is not None and r.value == picked),
                None)
     over = result.speedup_over or "the reference"
+    noun = knob_noun(result)
     if rec is None:
         reason = str(result.recommendation.get("reason", "")) if result.recommendation \
             else ""
-        return {"found": False, "text": "No tolerance in the list is safe for these data.",
+        values = "tolerance" if noun == "tolerance" else f"{noun} value"
+        return {"found": False, "noun": noun,
+                "text": f"No {values} in the list is safe for these data.",
                 "advice": "Use the exact computation at this size, or audit tighter "
-                          "tolerances.", "reason": reason}
+                          f"{values}s.", "reason": reason}
     speedup = rec.speedup if rec.speedup is not None else result.speedup
     compressed = rec.seconds
     reference = (compressed * speedup if speedup is not None and math.isfinite(compressed)
                  and math.isfinite(speedup) else float("nan"))
     pays = speedup is not None and math.isfinite(speedup) and speedup >= 1
-    return {"found": True, "tol": tolerance_text(rec.tol), "speedup": compact(speedup),
+    return {"found": True, "noun": noun, "tol": knob_text(result, rec.value),
+            "speedup": compact(speedup),
             "pays": pays, "over": over, "reference_seconds": compact(reference),
             "compressed_seconds": compact(compressed),
             "text": "", "advice": "" if pays else
@@ -150,12 +186,16 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
                 limits.setdefault(m.name, m.threshold)
     error_notes: list[str] = []
     rows = []
-    for row in sorted(result.tolerances, key=lambda r: r.tol, reverse=True):
+    loose_first = result.knob.get("more_accurate", "smaller") == "smaller"
+    for row in sorted(result.tolerances, key=lambda r: float(r.value or 0.0),
+                      reverse=loose_first):
         note_index = None
         if row.error:
-            error_notes.append(f"tolerance {tolerance_text(row.tol)}: {row.error}")
+            error_notes.append(f"{knob_noun(result)} {knob_text(result, row.value)}: "
+                               f"{row.error}")
             note_index = len(error_notes)
-        rows.append({"tol": tolerance_text(row.tol), "verdict": check_figures.verdict_of(row),
+        rows.append({"tol": knob_text(result, row.value),
+                     "verdict": check_figures.verdict_of(row),
                      "cells": _cells(row, names), "seconds": compact(row.seconds),
                      "speedup": compact(row.speedup),
                      "slow": row.speedup is not None and math.isfinite(row.speedup)
@@ -175,7 +215,11 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
         se=result.se.get("natural", {}), truth=dict(result.truth) if result.truth else None,
         names=names, labels={n: metric_label(n) for n in names}, limits=limits,
         rows=rows, error_notes=error_notes, headline=_headline(result),
-        columns=COLUMN_LABELS, legend=[metric_label(n) for n in names],
+        columns=_knob_columns(result), legend=[metric_label(n) for n in names],
+        knob_noun=knob_noun(result),
+        refit_at=None if result.refit is None else knob_text(
+            result, result.refit.tol if result.refit.knob_value is None
+            else result.refit.knob_value),
         terms=TERMS, practice=COMMON_PRACTICE, notes=notes,
         figures={k: (data_uri(f) if f is not None else "") for k, f in figures.items()},
         all_labels=METRIC_LABELS)

@@ -14,6 +14,8 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Literal
 
+from harness.infra.option_specs import OptionSpec, knob_option
+
 KnobKind = Literal["float", "int"]
 Direction = Literal["smaller", "larger"]
 
@@ -74,6 +76,43 @@ class KnobSpec:
         left = "[" if self.low_closed else "("
         right = "]" if self.high_closed else ")"
         return f"{left}{self.low:g}, {self.high:g}{right}"
+
+    @property
+    def is_tol(self) -> bool:
+        """Whether this is the protocol's ``tol`` (the factory takes it as ``tol=``)."""
+        return self.name == "tol"
+
+    def option_spec(self) -> OptionSpec:
+        """The knob as an option specification (``harness.infra.option_specs``): the
+        command line's ``--knob-values`` and a case file's ``knob_values`` validate
+        through it, and its message shows ``range_text()``."""
+        return knob_option(self.name, kind=int if self.kind == "int" else float,
+                           low=self.low, high=self.high, low_closed=self.low_closed,
+                           high_closed=self.high_closed, default=self.default_sweep,
+                           help=self.meaning or f"accuracy knob {self.name}")
+
+    def arguments(self, value: float | None) -> dict[str, float | None]:
+        """The keyword arguments that hand ``value`` to the factory.
+
+        The protocol is ``factorize(points, kernel, theta, *, tol, **options)``: a ``tol``
+        knob is ``tol=value``; any other knob is the option named after it, with
+        ``tol=None`` (``{"tol": None, "rho": 6.0}``). ``value`` None (an exact solver)
+        is ``tol=None`` alone.
+        """
+        if self.is_tol or value is None:
+            return {"tol": value}
+        return {"tol": None, self.name: float(value)}
+
+    def sorted_loose_to_tight(self, values: Iterable[float]) -> tuple[float, ...]:
+        """Distinct ``values`` from the least to the most accurate."""
+        distinct = {float(v) for v in values}
+        return tuple(sorted(distinct, reverse=self.more_accurate == "smaller"))
+
+    def value_text(self, value: float | None) -> str:
+        """``tol 1e-06`` / ``rho = 6``: how terminal output and reports name a value."""
+        if value is None:
+            return "exact"
+        return f"tol {value:g}" if self.is_tol else f"{self.name} = {value:g}"
 
     def contains(self, value: float) -> bool:
         """Whether ``value`` lies in the declared range (and is integral for ``int``)."""

@@ -24,6 +24,7 @@ import numpy as np
 from harness._version import __version__
 from harness.model.kernels import Kernel
 from harness.solvers.fallback import AdaptedFactorization, adapt
+from harness.solvers.knobs import KnobSpec, knob_of
 from harness.solvers.plugins import (
     ENTRY_POINT_GROUP,
     SolverLoadError,
@@ -71,6 +72,11 @@ class ResolvedSolver:
     factory: Callable[..., object]
     origin: str
 
+    @property
+    def knob(self) -> KnobSpec:
+        """The accuracy knob the factory declares (``harness.solvers.knobs.knob_of``)."""
+        return knob_of(self.factory)
+
     def factorize(self, points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = None,
                   *, tol: float | None, **options: object) -> AdaptedFactorization:
         """Factor Sigma(theta) with this solver and return it checked and completed.
@@ -86,9 +92,12 @@ class ResolvedSolver:
         except (MemoryError, KeyboardInterrupt):
             raise
         except Exception as exc:
+            knob = self.knob
+            at = (f"tol = {tol!r}" if knob.is_tol or knob.name not in options
+                  else f"{knob.name} = {options[knob.name]!r}")
             raise SolverRuntimeError(
                 f"solver {self.name!r} ({self.origin}) raised {type(exc).__name__} while "
-                f"factorizing n = {np.asarray(points).shape[0]:,} points at tol = {tol!r}: "
+                f"factorizing n = {np.asarray(points).shape[0]:,} points at {at}: "
                 f"{exc}") from exc
         if inner is None:
             raise SolverRuntimeError(

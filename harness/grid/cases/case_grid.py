@@ -36,17 +36,33 @@ class KernelEntry:
 
 @dataclass(frozen=True)
 class SolverEntry:
-    """One ``[[solvers]]`` table, resolved: name, version, tolerances, factory options."""
+    """One ``[[solvers]]`` table, resolved: name, version, the values of its accuracy knob,
+    factory options.
+
+    ``tolerances`` holds the values of the knob named ``knob_name``
+    (``harness.solvers.knobs``): tolerances for a ``tol`` solver (``(None,)`` for an exact
+    one), ``rho`` values for the Vecchia solver.
+    """
 
     name: str
     version: str
     tolerances: tuple[float | None, ...]
     options: Mapping[str, Any] = field(default_factory=dict)
     max_n: int | None = None
+    knob_name: str = "tol"
+
+    @property
+    def knob_values(self) -> tuple[float | None, ...]:
+        """The knob's values (the same tuple as ``tolerances``)."""
+        return self.tolerances
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "version": self.version, "max_n": self.max_n,
-                "tolerances": list(self.tolerances), "options": dict(self.options)}
+        out = {"name": self.name, "version": self.version, "max_n": self.max_n,
+               "tolerances": list(self.tolerances), "options": dict(self.options)}
+        if self.knob_name != "tol":
+            out |= {"tolerances": [], "knob_name": self.knob_name,
+                    "knob_values": list(self.tolerances)}
+        return out
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -54,7 +70,8 @@ class Case(AuditSettings):
     """A validated case grid; ``tasks()`` is the cross product.
 
     The product runs over point sets x sizes x dimensions x kernels x mean models x
-    solvers x tolerances x seeds; sizes above a solver's ``max_n`` are left out for it.
+    solvers x knob values (tolerances) x seeds; sizes above a solver's ``max_n`` are left
+    out for it.
     A tensor-grid point set takes only sizes that are perfect d-th powers (validation
     rejects the others).
     """
@@ -91,13 +108,16 @@ class Case(AuditSettings):
                                                             self.solvers):
                     if solver.max_n is not None and n > solver.max_n:
                         continue
-                    for tol, seed in itertools.product(solver.tolerances, self.seeds):
+                    for value, seed in itertools.product(solver.knob_values, self.seeds):
+                        is_tol = solver.knob_name == "tol"
                         task = Task(
                             case=self.name, pointset=entry.spec, n=n, d=d,
                             kernel=kern.family, kernel_params=dict(kern.params),
                             separable=kern.separable, mean=mean, reml=self.reml,
                             solver=solver.name, solver_version=solver.version,
-                            solver_options=dict(solver.options), tol=tol, seed=seed,
+                            solver_options=dict(solver.options),
+                            tol=value if is_tol else None, seed=seed,
+                            knob_name=solver.knob_name, knob_value=value,
                             **settings,
                         )
                         if task.key not in seen:

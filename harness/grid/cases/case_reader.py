@@ -23,6 +23,10 @@ The layout (all tables optional except ``pointsets``, ``kernels`` and ``solvers`
     [mean]    models = ["zero"], reml = false
     [[solvers]]  name = "hodlr", tolerances = [1e-4, 1e-8], options = { leaf_size = 64 },
                  max_n = 32768 (sizes above it are left out of the grid for this solver)
+                 or, for any solver, knob_values = [...]: values of its declared accuracy
+                 knob (harness.solvers.knobs; name = "vecchia", knob_values = [2.5, 6]);
+                 a solver whose knob is not tol and that gives neither gets its
+                 declared default sweep
     [trace]   method = "hutchpp", probes = 32
     [metrics] compute = [...], holdout = 64, perturbation = 0.05, power_iterations = 20
     [timing]  enabled = true, repeats = 3, warmup = 1, threads = 1, exclusive = true,
@@ -57,6 +61,7 @@ from harness.grid.tasks import ALL_REFERENCE_KINDS, METRIC_GROUPS, REFERENCE_KIN
 from harness.infra.option_specs import LADDER_FACTOR, PROBES, TOLERANCE
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError, make_kernel
 from harness.model.mean import MEAN_MODELS
+from harness.solvers.knobs import DEFAULT_TOL_KNOB, KnobSpec
 
 TOP_KEYS = ("name", "description", "seeds", "pointsets", "kernels", "mean", "solvers",
             "trace", "metrics", "timing", "reference", "budget")
@@ -65,7 +70,7 @@ POINTSET_KEYS = ("name", "generator", "options", "sizes", "dims", "file", "colum
 #: (``Kernel.PARAMETERS``), and separability.
 KERNEL_KEYS = ("family", *dict.fromkeys(spec.name for cls in KERNEL_CLASSES
                                        for spec in cls.PARAMETERS), "separable")
-SOLVER_KEYS = ("name", "tolerances", "options", "max_n")
+SOLVER_KEYS = ("name", "tolerances", "knob_values", "options", "max_n")
 TRACE_METHODS = ("exact", "hutchinson", "hutchpp")
 GENERATOR_NAMES = (*GENERATORS, "tensor_grid")
 
@@ -74,16 +79,18 @@ _POWER_NAMES = {1: "first power", 2: "square", 3: "cube"}
 
 _TOML_POSITION = re.compile(r"\(at line (\d+), column (\d+)\)")
 
-#: resolve(name) -> (canonical name, version); raises an exception naming the problem.
-SolverResolver = Callable[[str], tuple[str, str]]
+#: resolve(name) -> (canonical name, version) or (canonical name, version, knob); raises
+#: an exception naming the problem. A resolver that gives no knob declares ``tol``.
+SolverResolver = Callable[[str], tuple[str, str] | tuple[str, str, KnobSpec]]
 
 
-def default_solver_resolver(name: str) -> tuple[str, str]:
-    """Name and version of a solver from ``harness.solvers.registry``."""
+def default_solver_resolver(name: str) -> tuple[str, str, KnobSpec]:
+    """Name, version and accuracy knob of a solver from ``harness.solvers.registry``."""
     from harness.solvers.registry import resolve_solver
 
     record = resolve_solver(name)
-    return record.name, "unknown" if record.version is None else str(record.version)
+    return (record.name, "unknown" if record.version is None else str(record.version),
+            record.knob)
 
 
 def parse_toml(text: str, file: str) -> dict[str, Any]:
@@ -315,12 +322,10 @@ def _kernel(check: Checker, path: str, table: dict[str, Any]) -> KernelEntry | N
 
 def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverResolver
             ) -> SolverEntry | None:
+    """One ``[[solvers]]`` table: its knob's values are ``tolerances`` (a ``tol`` solver)
+    or ``knob_values`` (any solver), validated against the knob the solver declares."""
     check.finish_table(table, path, SOLVER_KEYS)
     name = check.take_str(table, "name", path, required=True)
-    tolerances = []
-    for _where, tol in check.take_items(table, "tolerances", path,
-                                        item=check.spec_item(TOLERANCE)):
-        tolerances.append(float(tol))
     max_n = table.get("max_n")
     if max_n is not None:
         max_n = check.positive_int(max_n, f"{path}.max_n")
@@ -328,13 +333,46 @@ def _solver(check: Checker, path: str, table: dict[str, Any], resolver: SolverRe
     options = table.get("options", {})
     if check.table(options, f"{path}.options") is None:
         options = {}
-    if name is None:
+    resolved: tuple[str, str] | None = None
+    knob = DEFAULT_TOL_KNOB
+    if name is not None:
+        try:
+            answer = resolver(name)
+            resolved = (answer[0], answer[1])
+            knob = answer[2] if len(answer) > 2 else DEFAULT_TOL_KNOB
+        except Exception as exc:  # noqa: BLE001 - any failure to load a plugin is a problem to report
+            check.problem(f"{path}.name", f"cannot load solver {name!r}: "
+                                          f"{type(exc).__name__}: {exc}")
+    values = _knob_values(check, path, table, name, knob)
+    if knob.name in options:
+        check.problem(f"{path}.options.{knob.name}", f"{knob.name} is solver {name!r}'s "
+                                                     "accuracy knob: give it as knob_values")
+    if resolved is None or values is None:
         return None
-    try:
-        resolved, version = resolver(name)
-    except Exception as exc:  # noqa: BLE001 - any failure to load a plugin is a problem to report
-        check.problem(f"{path}.name", f"cannot load solver {name!r}: {type(exc).__name__}: {exc}")
+    return SolverEntry(name=resolved[0], version=resolved[1], tolerances=values,
+                       options=dict(options), max_n=max_n, knob_name=knob.name)
+
+
+def _knob_values(check: Checker, path: str, table: dict[str, Any], name: str | None,
+                 knob: KnobSpec) -> tuple[float | None, ...] | None:
+    """The knob values of a ``[[solvers]]`` table (None after a problem): ``tolerances``
+    only for a ``tol`` solver, not both keys, each value in the knob's declared range
+    (``KnobSpec.option_spec``; ``TOLERANCE`` for ``tol``). Neither key: ``(None,)`` for
+    a ``tol`` solver (an exact one such as ``dense``), the declared sweep otherwise."""
+    if "tolerances" in table and "knob_values" in table:
+        check.problem(path, "give either 'tolerances' or 'knob_values', not both")
         return None
-    return SolverEntry(name=resolved, version=version,
-                       tolerances=tuple(tolerances) if tolerances else (None,),
-                       options=dict(options), max_n=max_n)
+    if "tolerances" in table and not knob.is_tol:
+        check.problem(f"{path}.tolerances", f"solver {name!r} has no tol; its knob is "
+                                            f"{knob.name} in {knob.range_text()}: give "
+                                            "knob_values")
+        return None
+    key = "knob_values" if "knob_values" in table else "tolerances"
+    if key not in table:
+        return (None,) if knob.is_tol else tuple(knob.default_sweep)
+    before = len(check.problems)
+    spec = TOLERANCE if knob.is_tol else knob.option_spec()
+    items = check.take_items(table, key, path, item=check.spec_item(spec))
+    if len(check.problems) > before:
+        return None
+    return tuple(float(value) for _, value in items)

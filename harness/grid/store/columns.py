@@ -17,6 +17,10 @@ from __future__ import annotations
 
 SCHEMA_VERSION = 1
 
+#: The knob's columns: a file written before them is all ``tol`` solvers, so a reader
+#: derives them (``knob_name`` "tol", ``knob_value`` = ``tol``) without a note.
+KNOB_COLUMNS: tuple[str, ...] = ("knob_name", "knob_value")
+
 IDENTITY_COLUMNS: tuple[str, ...] = (
     "key",            # stable hash of the canonical task parameters + solver name/version
     # (``pair_key``, the version-free hash compare pairs on, follows ``key`` in
@@ -28,7 +32,9 @@ IDENTITY_COLUMNS: tuple[str, ...] = (
     "n", "d", "geometry", "mean",
     "variance", "lengthscale",  # lengthscale as a string: "0.1" or "0.1;0.3"
     "nugget",
-    "tol",            # NaN for exact solvers
+    "tol",            # NaN for exact solvers and for a solver whose knob is not tol
+    "knob_name",      # the solver's accuracy knob: tol, rho, ... (harness.solvers.knobs)
+    "knob_value",     # its value (= tol for a tol solver; NaN for exact solvers)
     "seed", "repeat",
     "trace_method",   # exact | hutchinson | hutchpp
     "probes",
@@ -74,6 +80,6 @@ RESULT_COLUMNS: tuple[str, ...] = IDENTITY_COLUMNS + ACCURACY_COLUMNS + COST_COL
 
 #: Contract columns older files may lack without anything being wrong (the metric is
 #: optional); readers add them as missing values without a note.
-OPTIONAL_COLUMNS: frozenset[str] = frozenset({"mle_shift_se_max"})
+OPTIONAL_COLUMNS: frozenset[str] = frozenset({"mle_shift_se_max", *KNOB_COLUMNS})
 
 TIMING_COLUMNS: tuple[str, ...] = ("key", "phase", "repeat", "seconds")

@@ -11,7 +11,7 @@ import pandas as pd
 
 from harness.audit.metric_names import METRICS
 from harness.grid.store.columns import PHASES, RESULT_COLUMNS
-from harness.grid.tasks import pair_key_of
+from harness.grid.tasks import knob_fields, pair_key_of
 
 #: Contract columns (``harness.grid.store.columns``) taken directly from a detailed metric.
 _CONTRACT_FROM_METRIC = {
@@ -32,7 +32,8 @@ _CONTRACT_WORST_OF = {
 
 #: Task fields copied into results.csv, in this order.
 TASK_COLUMNS = ("case", "n", "d", "kernel", "separable", "mean", "reml", "solver",
-                "solver_version", "tol", "seed", "trace_method", "probes")
+                "solver_version", "tol", "knob_name", "knob_value", "seed", "trace_method",
+                "probes")
 
 
 def result_row(record: Mapping[str, Any]) -> dict[str, Any]:
@@ -41,8 +42,9 @@ def result_row(record: Mapping[str, Any]) -> dict[str, Any]:
                            "pair_key": pair_key_of(task) if task else None,
                            "label": record.get("label"), "status": record.get("status")}
     row["pointset"] = (task.get("pointset") or {}).get("name")
+    knob = knob_fields(task)
     for column in TASK_COLUMNS:
-        row[column] = task.get(column)
+        row[column] = knob[column] if column in knob else task.get(column)
     result = record.get("result") or {}
     reference = result.get("reference") or {}
     row["reference"] = reference.get("kind")
@@ -178,7 +180,8 @@ def timings_frame(records: Iterable[Mapping[str, Any]]) -> pd.DataFrame:
             for repeat, seconds in enumerate(stats.get("samples") or []):
                 rows.append({"key": record.get("key"), "label": record.get("label"),
                              "n": task.get("n"), "solver": task.get("solver"),
-                             "tol": task.get("tol"), "phase": phase, "repeat": repeat,
-                             "seconds": seconds})
-    columns = ["key", "label", "n", "solver", "tol", "phase", "repeat", "seconds"]
+                             "tol": task.get("tol"), **knob_fields(task), "phase": phase,
+                             "repeat": repeat, "seconds": seconds})
+    columns = ["key", "label", "n", "solver", "tol", "knob_name", "knob_value", "phase",
+               "repeat", "seconds"]
     return pd.DataFrame(rows, columns=columns)
