@@ -124,6 +124,14 @@ def test_run_and_check_give_identical_metrics_and_verdicts(tmp_path, capsys, mon
 
     assert check["reference"] == run_entry["reference"] == "dense"
     assert _judged(run_entry) == _judged(check_entry)
+    # which reference served which metric, with the same kriging counts in both verbs
+    # (kinds and counts; the certificates' last digits may differ)
+    for verb in (run_entry, check):
+        by_metric = verb["reference_by_metric"]
+        assert {k: e["kind"] for k, e in by_metric.items()} == {
+            "loglik": "dense", "score": "dense", "kriging": "dense"}
+        assert by_metric["kriging"]["n_holdout"] == check["n_holdout"]
+        assert by_metric["kriging"]["n_variance_points"] == check["n_variance_points"]
     assert run_entry["status"] in ("safe", "unsafe", "unresolved")
     # the flat results.csv columns carry the same deciding values
     metrics = record["result"]["metrics"]
