@@ -148,3 +148,30 @@ def test_check_holdout_errors_exit_2_in_one_line(tmp_path, capsys, flags, messag
     assert code == ExitCode.ERROR
     assert any(message in line for line in err), err
     assert not (tmp_path / "o" / "check.json").exists()
+
+
+def test_check_in_the_plane_beyond_the_budget_krige_by_the_operator(tmp_path, capsys):
+    # The same budget in 2D: the exact operator serves every metric, kriging included,
+    # at the capped counts (issue 22, items 2 and 5).
+    rng = np.random.default_rng(6)
+    x = rng.uniform(0, 10, (150, 2))
+    k = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    v = DenseCholesky(x, k).apply_sqrt(rng.standard_normal(150))
+    path = tmp_path / "plane.csv"
+    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
+                 *FIXED, "--memory-budget", "0.0005", "--solver-seeds", "1", "--json",
+                 "--holdout-points", "12", "--variance-points", "5",
+                 "--out", str(tmp_path / "o"), "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code in (ExitCode.OK, ExitCode.FINDING)
+    assert result["reference"] == "operator"
+    assert result["n_holdout"] == 12 and result["n_variance_points"] == 5
+    by_metric = result["reference_by_metric"]
+    assert {name: e["kind"] for name, e in by_metric.items()} == {
+        "loglik": "operator", "score": "operator", "kriging": "operator"}
+    assert by_metric["kriging"]["n_variance_points"] == 5
+    (row,) = result["tolerances"]
+    note = row["kriging_mean_sd"]["note"]
+    assert "12 held-out points" in note and "5 with their own variance" in note
+    assert "5 variance points" in row["kriging_var_ratio"]["note"]
