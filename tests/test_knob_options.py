@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from harness.analysis.regression import _task_label
 from harness.analysis.scaling_table import solver_label
 from harness.audit.engine import ToleranceAudit
 from harness.audit.rule import SAFE, UNSAFE, ReferenceInfo, recommend, tolerance_verdict
@@ -198,3 +199,12 @@ def test_check_refuses_the_ladder_reference_for_a_rho_solver(small_file: Path,
     assert code == ExitCode.ERROR and len(err.splitlines()) == 1
     assert "ladder" in err and "rho" in err
     assert not out.exists()
+
+
+def test_compare_names_a_task_by_its_knob():
+    row = pd.Series({"case": "c", "solver": "vecchia", "tol": math.nan, "knob_name": "rho",
+                     "knob_value": 6.0, "n": 250.0, "seed": 0.0})
+    assert _task_label(row) == "c: vecchia rho=6 n=250 seed=0"
+    tol_row = row.copy()
+    tol_row[["solver", "tol", "knob_name", "knob_value"]] = ["hodlr", 1e-6, "tol", 1e-6]
+    assert _task_label(tol_row) == "c: hodlr tol=1e-06 n=250 seed=0"

@@ -261,6 +261,10 @@ def _task_label(row: pd.Series) -> str:
     tol = row.get("tol")
     tol_text = "" if tol is None or (isinstance(tol, float) and math.isnan(tol)) \
         else f" tol={tol:g}"
+    knob, value = row.get("knob_name"), row.get("knob_value")
+    if isinstance(knob, str) and knob not in ("", "tol") and isinstance(value, float) \
+            and not math.isnan(value):
+        tol_text = f" {knob}={value:g}"       # a solver whose knob is not tol (rho, ...)
     n = row.get("n")
     n_text = "" if n is None or (isinstance(n, float) and math.isnan(n)) else f" n={int(n)}"
     seed = row.get("seed")
