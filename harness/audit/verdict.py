@@ -19,6 +19,11 @@ unsafe or unresolved tighter one (a non-monotone ladder is reported as such), wi
 speed-up in median total time over the dense solver (over the tightest tolerance when no
 dense timing exists).
 
+A solver's accuracy knob (``harness.solvers.knobs``) need not be ``tol``: the verdicts are
+per value of the knob (``knob_name``, ``knob_value``; for the Vecchia solver ``rho``, where
+larger is more accurate), and ``tol`` holds the value only for a ``tol`` solver (NaN
+otherwise). A row with no knob value is an exact solver's: the speed reference.
+
 Stochastic trace estimators are checked separately: the fraction of tasks whose z-score
 |estimate - exact| / reported SE lies within +-2 is tested against a minimum fraction with
 a one-sided exact binomial test (scipy.stats.binomtest); a significantly low fraction means
@@ -82,7 +87,10 @@ class Evidence:
 class Verdict:
     """Whether one (dataset, solver, tolerance) is safe: ``safe``, ``unsafe``,
     ``unresolved`` (not measured, uncertainty too large, reference not certified or the
-    ladder only; ``harness.audit.rule``) or ``failed`` (no task finished)."""
+    ladder only; ``harness.audit.rule``) or ``failed`` (no task finished).
+
+    ``knob_name`` and ``knob_value`` say which setting was judged; ``tol`` equals
+    ``knob_value`` for a ``tol`` solver and is NaN for another knob."""
 
     dataset: Mapping[str, object]
     solver: str
@@ -94,6 +102,8 @@ class Verdict:
     t_total: float
     reasons: tuple[str, ...] = ()
     spread: Mapping[str, object] = field(default_factory=dict)
+    knob_name: str = "tol"
+    knob_value: float = math.nan
 
     @property
     def safe(self) -> bool:
@@ -101,6 +111,7 @@ class Verdict:
 
     def to_dict(self) -> dict[str, object]:
         return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
+                "knob_name": self.knob_name, "knob_value": self.knob_value,
                 "status": self.status, "evidence": [e.to_dict() for e in self.evidence],
                 "tasks_ok": self.tasks_ok, "tasks_failed": self.tasks_failed,
                 "t_total": self.t_total, "reasons": list(self.reasons),
@@ -109,7 +120,10 @@ class Verdict:
 
 @dataclass(frozen=True)
 class Recommendation:
-    """The loosest safe tolerance of a solver on a dataset (``tol`` NaN when none is safe)."""
+    """The loosest safe tolerance of a solver on a dataset (``tol`` NaN when none is safe).
+
+    ``knob_value`` is the recommended value of the solver's knob ``knob_name`` (NaN when
+    none is safe); ``tol`` equals it for a ``tol`` solver and is NaN for another knob."""
 
     dataset: Mapping[str, object]
     solver: str
@@ -118,9 +132,12 @@ class Recommendation:
     speedup_over: str
     reason: str
     monotone: bool = True
+    knob_name: str = "tol"
+    knob_value: float = math.nan
 
     def to_dict(self) -> dict[str, object]:
         return {"dataset": dict(self.dataset), "solver": self.solver, "tol": self.tol,
+                "knob_name": self.knob_name, "knob_value": self.knob_value,
                 "speedup": self.speedup, "speedup_over": self.speedup_over,
                 "reason": self.reason, "monotone": self.monotone}
 
@@ -144,9 +161,12 @@ class TraceCalibration:
     fraction: float
     p_value: float
     flagged: bool
+    knob_name: str = "tol"
+    knob_value: float = math.nan
 
     def to_dict(self) -> dict[str, object]:
-        return {"solver": self.solver, "tol": self.tol, "trace_method": self.trace_method,
+        return {"solver": self.solver, "tol": self.tol, "knob_name": self.knob_name,
+                "knob_value": self.knob_value, "trace_method": self.trace_method,
                 "probes": self.probes, "count": self.count, "inside": self.inside,
                 "fraction": self.fraction, "p_value": self.p_value, "flagged": self.flagged}
 
@@ -203,9 +223,9 @@ def _reference_info(ok: pd.DataFrame, certificate: Evidence) -> ReferenceInfo:
     return ReferenceInfo(kind, certificate.passed is True, certificate.note)
 
 
-def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
+def _tolerance_verdict(dataset: dict[str, object], solver: str, knob: str, value: float,
                        ok: pd.DataFrame, failed: int, th: Thresholds) -> Verdict:
-    """One (dataset, solver, tolerance) by the rule (``harness.audit.rule``):
+    """One (dataset, solver, knob value) by the rule (``harness.audit.rule``):
     each finished task is one seed, the worst decides; failed tasks keep it from safe."""
     per_task = []
     for _, row in ok.iterrows():
@@ -213,20 +233,22 @@ def _tolerance_verdict(dataset: dict[str, object], solver: str, tol: float,
                                       **_uncertainty(row, col))
                          for col, attr in LIMITED_COLUMNS])
     cert = _certificate_evidence(ok, th.certificate_max)
-    tv = tolerance_verdict(tol, per_task, reference=_reference_info(ok, cert),
+    tv = tolerance_verdict(value, per_task, reference=_reference_info(ok, cert),
                            required=[c for c, _ in LIMITED_COLUMNS])
     status, reasons = tv.status, list(tv.reasons)
     if failed and status == SAFE:
         status = UNRESOLVED
     if failed:
-        reasons.append(f"{failed} task(s) of this tolerance failed")
+        reasons.append(f"{failed} task(s) of this "
+                       f"{'tolerance' if knob == 'tol' else knob + ' value'} failed")
     order = [c for c, _ in LIMITED_COLUMNS]
     evidence = tuple(_evidence(j) for j in sorted(tv.metrics,
                                                   key=lambda j: order.index(j.metric)))
     evidence += (cert,)
-    return Verdict(dataset, solver, tol, status, evidence, len(ok), failed,
-                   _median(ok, "t_total"), reasons=tuple(reasons),
-                   spread={k: v.to_dict() for k, v in tv.spread.items()})
+    return Verdict(dataset, solver, value if knob == "tol" else math.nan, status, evidence,
+                   len(ok), failed, _median(ok, "t_total"), reasons=tuple(reasons),
+                   spread={k: v.to_dict() for k, v in tv.spread.items()},
+                   knob_name=knob, knob_value=value)
 
 
 #: results columns holding the reference's own uncertainty of a limited metric (the exact
@@ -270,8 +292,39 @@ def _dataset_dict(key: tuple[object, ...]) -> dict[str, object]:
             for c, v in zip(DATASET_COLUMNS, key, strict=True)}
 
 
+def with_knob_columns(results: pd.DataFrame) -> pd.DataFrame:
+    """``results`` with ``knob_name`` and ``knob_value`` filled in: a row written before the
+    knob columns (``harness.grid.store.columns``) is a ``tol`` solver's, its value ``tol``."""
+    frame = results.copy()
+    tol = pd.to_numeric(frame["tol"], errors="coerce") if "tol" in frame \
+        else pd.Series(np.nan, index=frame.index)
+    names = frame["knob_name"] if "knob_name" in frame else pd.Series("", index=frame.index)
+    names = names.map(lambda v: v if isinstance(v, str) and v else "tol")
+    values = pd.to_numeric(frame["knob_value"], errors="coerce") if "knob_value" in frame \
+        else pd.Series(np.nan, index=frame.index)
+    frame["knob_name"] = names
+    frame["knob_value"] = values.where(values.notna() | (names != "tol"), tol)
+    return frame
+
+
+def knob_direction(solver: str, knob_name: str) -> str | None:
+    """Which direction of the knob is more accurate (``KnobSpec.more_accurate``): "smaller"
+    for ``tol``; for another knob the solver's declaration, None when the solver cannot be
+    loaded or declares another knob."""
+    if knob_name == "tol":
+        return "smaller"
+    from harness.solvers.plugins import SolverLoadError
+    from harness.solvers.registry import resolve_solver
+
+    try:
+        knob = resolve_solver(solver).knob
+    except (SolverLoadError, TypeError):
+        return None
+    return knob.more_accurate if knob.name == knob_name else None
+
+
 def judge(results: pd.DataFrame, *, thresholds: Thresholds | None = None) -> VerdictSet:
-    """Verdicts for every (dataset, compressed solver, tolerance) of a results table.
+    """Verdicts for every (dataset, compressed solver, knob value) of a results table.
 
     Parameters
     ----------
@@ -283,40 +336,54 @@ def judge(results: pd.DataFrame, *, thresholds: Thresholds | None = None) -> Ver
     th = thresholds or Thresholds()
     verdicts: list[Verdict] = []
     recommendations: list[Recommendation] = []
-    frame = results.copy()
+    frame = with_knob_columns(results)
     for c in DATASET_COLUMNS:
         if c not in frame:
             frame[c] = ""
-    compressed = frame[frame["tol"].notna()]
-    exact = frame[frame["tol"].isna() & (frame["status"] == "ok")]
+    compressed = frame[frame["knob_value"].notna()]
+    exact = frame[frame["knob_value"].isna() & (frame["status"] == "ok")]
     for dkey, dframe in compressed.groupby(list(DATASET_COLUMNS), dropna=False, sort=True):
         dataset = _dataset_dict(dkey)
-        for solver, sframe in dframe.groupby("solver", sort=True):
-            per_tol: list[Verdict] = []
-            for tol, tframe in sframe.groupby("tol", sort=True):
-                ok = tframe[tframe["status"] == "ok"]
-                failed = int((tframe["status"] == "failed").sum())
+        for (solver, knob), sframe in dframe.groupby(["solver", "knob_name"], sort=True):
+            per_value: list[Verdict] = []
+            for value, vframe in sframe.groupby("knob_value", sort=True):
+                ok = vframe[vframe["status"] == "ok"]
+                failed = int((vframe["status"] == "failed").sum())
+                tol = float(value) if knob == "tol" else math.nan
                 if ok.empty:
-                    per_tol.append(Verdict(dataset, str(solver), float(tol), "failed", (),
-                                           0, failed, float("nan"),
-                                           reasons=("no task finished",)))
+                    per_value.append(Verdict(dataset, str(solver), tol, "failed", (),
+                                             0, failed, float("nan"),
+                                             reasons=("no task finished",),
+                                             knob_name=str(knob), knob_value=float(value)))
                     continue
-                per_tol.append(_tolerance_verdict(dataset, str(solver), float(tol), ok,
-                                                  failed, th))
-            verdicts.extend(per_tol)
-            recommendations.append(_recommend(dataset, str(solver), per_tol, exact, dkey))
+                per_value.append(_tolerance_verdict(dataset, str(solver), str(knob),
+                                                    float(value), ok, failed, th))
+            verdicts.extend(per_value)
+            recommendations.append(_recommend(dataset, str(solver), str(knob), per_value,
+                                              exact, dkey))
     return VerdictSet(th, tuple(verdicts), tuple(recommendations),
                       trace_calibration(frame, thresholds=th))
 
 
-def _recommend(dataset: dict[str, object], solver: str, per_tol: Sequence[Verdict],
-               exact: pd.DataFrame, dkey: tuple[object, ...]) -> Recommendation:
-    rule = engine_recommend({v.tol: v.status for v in per_tol})
+def _recommend(dataset: dict[str, object], solver: str, knob: str,
+               per_value: Sequence[Verdict], exact: pd.DataFrame, dkey: tuple[object, ...]
+               ) -> Recommendation:
+    def answer(reason: str, *, best: Verdict | None = None, speedup: float = math.nan,
+               over: str = "", monotone: bool = True) -> Recommendation:
+        return Recommendation(dataset, solver, math.nan if best is None else best.tol,
+                              speedup, over, reason, monotone=monotone, knob_name=knob,
+                              knob_value=math.nan if best is None else best.knob_value)
+
+    direction = knob_direction(solver, knob)
+    if direction is None:
+        return answer(f"which direction of {knob} is more accurate is unknown: solver "
+                      f"{solver!r} cannot be loaded or declares another knob")
+    rule = engine_recommend({v.knob_value: v.status for v in per_value},
+                            more_accurate=direction, knob=knob)
     if rule.tol is None:
-        statuses = ", ".join(f"{v.tol:g}: {v.status}" for v in per_tol)
-        return Recommendation(dataset, solver, float("nan"), float("nan"), "",
-                              f"{rule.reason} ({statuses})", monotone=rule.monotone)
-    best = next(v for v in per_tol if v.tol == rule.tol)
+        statuses = ", ".join(f"{v.knob_value:g}: {v.status}" for v in per_value)
+        return answer(f"{rule.reason} ({statuses})", monotone=rule.monotone)
+    best = next(v for v in per_value if v.knob_value == rule.tol)
     mask = np.ones(len(exact), dtype=bool)
     for c, v in zip(DATASET_COLUMNS, dkey, strict=True):
         col = exact[c]
@@ -327,34 +394,36 @@ def _recommend(dataset: dict[str, object], solver: str, per_tol: Sequence[Verdic
         dense = dense[dense["solver"] == "dense"]
     t_dense = _median(dense, "t_total")
     if not math.isnan(t_dense):
-        return Recommendation(dataset, solver, best.tol, t_dense / best.t_total,
-                              str(dense["solver"].iloc[0]), rule.reason,
-                              monotone=rule.monotone)
-    tightest = min(per_tol, key=lambda v: v.tol)
-    return Recommendation(dataset, solver, best.tol, tightest.t_total / best.t_total,
-                          f"{solver} tol={tightest.tol:g}",
-                          rule.reason + " (no dense timing: speed-up over the tightest "
-                          "tolerance)", monotone=rule.monotone)
+        return answer(rule.reason, best=best, speedup=t_dense / best.t_total,
+                      over=str(dense["solver"].iloc[0]), monotone=rule.monotone)
+    tight = (min if direction == "smaller" else max)(per_value, key=lambda v: v.knob_value)
+    noun = "tolerance" if knob == "tol" else f"{knob} value"
+    return answer(rule.reason + f" (no dense timing: speed-up over the tightest {noun})",
+                  best=best, speedup=tight.t_total / best.t_total,
+                  over=f"{solver} {knob}={tight.knob_value:g}", monotone=rule.monotone)
 
 
 def trace_calibration(results: pd.DataFrame, *, thresholds: Thresholds | None = None
                       ) -> tuple[TraceCalibration, ...]:
-    """Binomial check of trace z-scores per (solver, tol, trace_method, probes)."""
+    """Binomial check of trace z-scores per (solver, knob value, trace_method, probes)."""
     th = thresholds or Thresholds()
+    results = with_knob_columns(results)
     rows = results[(results["status"] == "ok")
                    & ~results["trace_method"].isin(["", "exact"])
                    & results["trace_z_max"].notna()]
     out: list[TraceCalibration] = []
-    for (solver, tol, method, probes), g in rows.groupby(
-            ["solver", "tol", "trace_method", "probes"], dropna=False, sort=True):
+    for (solver, knob, value, method, probes), g in rows.groupby(
+            ["solver", "knob_name", "knob_value", "trace_method", "probes"], dropna=False,
+            sort=True):
         z = g["trace_z_max"].abs().to_numpy()
         inside = int(np.sum(z <= th.trace_z_limit))
         count = int(z.size)
         fraction = inside / count
         p = float(stats.binomtest(inside, count, th.trace_min_fraction,
                                   alternative="less").pvalue)
-        out.append(TraceCalibration(str(solver), float(tol), str(method), float(probes),
-                                    count, inside, fraction, p,
+        out.append(TraceCalibration(str(solver), float(value) if knob == "tol" else math.nan,
+                                    str(method), float(probes), count, inside, fraction, p,
                                     bool(fraction < th.trace_min_fraction
-                                         and p < th.trace_alpha)))
+                                         and p < th.trace_alpha),
+                                    knob_name=str(knob), knob_value=float(value)))
     return tuple(out)

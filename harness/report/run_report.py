@@ -37,6 +37,7 @@ from harness.report.run_summary import (
     dataset_summary,
     environment_summary,
     fitted_any,
+    setting_text,
     speedup_text,
 )
 from harness.report.style import data_uri
@@ -89,21 +90,23 @@ def _dataset_label(dataset: Mapping[str, object]) -> str:
 def _recommendations(vs: VerdictSet) -> pd.DataFrame:
     return pd.DataFrame([{
         "dataset": _dataset_label(r.dataset), "solver": r.solver,
-        "recommended tol": r.tol, "speed-up": speedup_text(r.speedup),
+        "recommended tol": setting_text(r.tol, r.knob_name, r.knob_value)
+        if math.isfinite(r.knob_value) else r.tol, "speed-up": speedup_text(r.speedup),
         "speed-up over": r.speedup_over, "reason": r.reason} for r in vs.recommendations])
 
 
 def _slow_recommendations(vs: VerdictSet) -> int:
     """How many recommended tolerances are slower than their reference."""
     return sum(1 for r in vs.recommendations
-               if math.isfinite(r.speedup) and r.speedup < 1 and math.isfinite(r.tol))
+               if math.isfinite(r.speedup) and r.speedup < 1 and math.isfinite(r.knob_value))
 
 
 def _per_tolerance(vs: VerdictSet) -> pd.DataFrame:
-    records: dict[tuple[str, float], dict[str, Any]] = {}
+    records: dict[tuple[str, str, float], dict[str, Any]] = {}
     for v in vs.verdicts:
-        rec = records.setdefault((v.solver, v.tol), {
-            "solver": v.solver, "tol": v.tol, "\u2714 safe": 0, "\u2718 unsafe": 0,
+        rec = records.setdefault((v.solver, v.knob_name, v.knob_value), {
+            "solver": v.solver, "tol": setting_text(v.tol, v.knob_name, v.knob_value),
+            "\u2714 safe": 0, "\u2718 unsafe": 0,
             "? incomplete": 0, "? unresolved": 0, "\u2718 no task finished": 0})
         rec[STATUS_TEXT[v.status]] = int(rec[STATUS_TEXT[v.status]]) + 1
     return pd.DataFrame([records[k] for k in sorted(records)])
@@ -125,7 +128,8 @@ def _verdict_detail(vs: VerdictSet) -> pd.DataFrame:
     rows = []
     for v in vs.verdicts:
         rec: dict[str, object] = {"dataset": _dataset_label(v.dataset), "solver": v.solver,
-                                  "tol": v.tol, "verdict": STATUS_TEXT[v.status],
+                                  "tol": setting_text(v.tol, v.knob_name, v.knob_value),
+                                  "verdict": STATUS_TEXT[v.status],
                                   "tasks ok": v.tasks_ok, "failed": v.tasks_failed}
         for e in v.evidence:
             rec[e.metric] = _evidence_text(e)
@@ -135,7 +139,8 @@ def _verdict_detail(vs: VerdictSet) -> pd.DataFrame:
 
 def _trace_table(vs: VerdictSet) -> pd.DataFrame:
     return pd.DataFrame([{
-        "solver": solver_label(t.solver, t.tol), "method": t.trace_method,
+        "solver": solver_label(t.solver, t.tol, knob_name=t.knob_name,
+                               knob_value=t.knob_value), "method": t.trace_method,
         "probes": int(t.probes) if not math.isnan(t.probes) else t.probes,
         "tasks": t.count, "inside": t.inside, "share": t.fraction, "p-value": t.p_value,
         "flag": "\u2718 SE too small" if t.flagged else "\u2714 ok"} for t in vs.trace])
@@ -146,7 +151,10 @@ def _failures(results: pd.DataFrame) -> pd.DataFrame:
     cols = ["status", "case", "solver", "tol", "kernel", "geometry", "n", "seed",
             "error_type", "error_message"]
     out = bad[cols].copy()
-    out["tol"] = out["tol"].map(lambda v: "exact" if pd.isna(v) else f"{v:g}")
+    names = bad["knob_name"] if "knob_name" in bad else pd.Series("tol", index=bad.index)
+    values = bad["knob_value"] if "knob_value" in bad else bad["tol"]
+    out["tol"] = [text if isinstance(text, str) else f"{text:g}"
+                  for text in map(setting_text, bad["tol"], names, values)]
     out["n"] = out["n"].map(lambda v: "" if pd.isna(v) else str(int(v)))
     out["seed"] = out["seed"].map(lambda v: "" if pd.isna(v) else str(int(v)))
     return out.sort_values(["status", "solver", "n", "seed"], kind="stable")

@@ -34,6 +34,17 @@ def speedup_text(speedup: float) -> str:
     return f"{speedup:.3g}\u00d7 faster"
 
 
+def setting_text(tol: Any, knob_name: Any = "tol", knob_value: Any = None) -> Any:
+    """A solver setting as the report shows it: a ``tol`` solver's tolerance as given (the
+    text of earlier reports), another knob as ``rho = 6``, an exact solver as ``exact``."""
+    name = "tol" if not isinstance(knob_name, str) or not knob_name else knob_name
+    if name == "tol":
+        return "exact" if tol is None or pd.isna(tol) else tol
+    if knob_value is None or pd.isna(knob_value):
+        return "exact"
+    return f"{name} = {float(knob_value):g}"
+
+
 def _bytes(value: float) -> str:
     if not math.isfinite(value):
         return "\u2013"
@@ -53,7 +64,10 @@ def dataset_summary(results: pd.DataFrame) -> pd.DataFrame:
     if results.empty:
         return pd.DataFrame()
     frame = results.copy()
-    frame["tol_text"] = frame["tol"].map(lambda v: "exact" if pd.isna(v) else f"{v:g}")
+    names = frame["knob_name"] if "knob_name" in frame else pd.Series("tol", index=frame.index)
+    values = frame["knob_value"] if "knob_value" in frame else frame["tol"]
+    frame["tol_text"] = [text if isinstance(text, str) else f"{text:g}"
+                         for text in map(setting_text, frame["tol"], names, values)]
     keys = ["case", "kernel", "geometry", "n", "solver", "tol_text"]
     rows = []
     for values, g in frame.groupby(keys, sort=True, dropna=False):
