@@ -13,7 +13,7 @@ import math
 import statistics
 import time
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import TYPE_CHECKING, Protocol, runtime_checkable
 
 import numpy as np
@@ -21,6 +21,7 @@ import numpy as np
 from harness.audit.metric_names import canonical_name
 from harness.audit.metric_values import MetricValue
 from harness.audit.rule import (
+    SOLVER_FAILED,
     LadderRecommendation,
     MetricJudgement,
     ReferenceInfo,
@@ -32,6 +33,7 @@ from harness.audit.rule import (
     tolerance_verdict,
     worst,
 )
+from harness.audit.solver_calls import SolverIsolation, call_solver
 from harness.audit.solver_seeds import seeded_options
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
 from harness.model.kernels import Kernel
@@ -357,7 +359,8 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                      solver_options: Mapping[str, object] | None = None,
                      thresholds: Thresholds | None = None, fit_converged: bool = True,
                      progress: Callable[[str], None] | None = None,
-                     detail: DetailRequest | None = None) -> EngineResult:
+                     detail: DetailRequest | None = None,
+                     isolation: SolverIsolation | None = None) -> EngineResult:
     """Audit ``tolerances`` of ``solver`` on ``data`` against ``reference`` over ``seeds``
     of the solver's randomness (``harness.audit.solver_seeds``), and recommend one.
 
@@ -367,6 +370,13 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     docstring: worst seed decides, ladder at best unresolved, unconverged fit stated); the
     recommendation follows ``recommend``. ``detail`` (a grid task) adds the task's
     detailed metric groups (``harness.audit.task_metrics``) to the result.
+
+    With ``isolation`` (``check``) each (tolerance, seed) audit runs whole in a child
+    process (``harness.audit.solver_calls``); a crash, an exit without a result, a
+    timeout or an exception of the solver gives the tolerance the status "solver failed"
+    with a one-line reason, its later seeds are not run, and the other tolerances go on.
+    Without it (a ``run`` task, whose worker process is that boundary) the solver runs
+    here and its errors make the tolerance unsafe.
     """
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
     from harness.solvers.registry import SolverRuntimeError
@@ -390,25 +400,43 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
             ref = None
         say(f"tolerance {tol:g} ({len(seeds)} solver seed(s))" if knob.is_tol
             else f"knob value {at} ({len(seeds)} solver seed(s))")
+        solver_failed = ""
         for index, seed in enumerate(seeds if ref is not None else ()):
             say(f"solver seed {index + 1}/{len(seeds)} at {at}")
-            try:
-                if isinstance(ref, ReferenceValues):
-                    rows.append(_value_seed_audit(index, seed, tol, data, solver,
-                                                  solver_options or {}, ref,
-                                                  getattr(reference, "probes", 64), th))
-                elif ref is not None:
-                    rows.append(_seed_audit(index, seed, tol, data, solver,
-                                            solver_options or {}, ref, th))
-            except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
-                    np.linalg.LinAlgError) as exc:
-                failures.append(f"seed {index} ({seed}): {exc}")
+            audit_seed, arguments = (
+                (_value_seed_audit, (index, seed, tol, data, solver, solver_options or {},
+                                     ref, getattr(reference, "probes", 64), th))
+                if isinstance(ref, ReferenceValues) else
+                (_seed_audit, (index, seed, tol, data, solver, solver_options or {}, ref,
+                               th)))
+            if isolation is None:
+                try:
+                    rows.append(audit_seed(*arguments))
+                except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
+                        np.linalg.LinAlgError) as exc:
+                    failures.append(f"seed {index} ({seed}): {exc}")
+                continue
+            call = call_solver(audit_seed, *arguments, isolation=isolation,
+                               who=f"solver {solver.name!r}",
+                               where=f"at {at}, seed {index} (n = {data.y.size:,})")
+            if not call.failure:
+                rows.append(call.value)
+                continue
+            failures.append(call.failure)
+            if call.failed_solver:
+                solver_failed = call.failure
+                if index + 1 < len(seeds):
+                    say(f"solver failed: {call.failure}; the later seeds at {at} are "
+                        "not run")
+                break
         info = {name: [m.value for r in rows for m in r.metrics if m.name == name]
                 for name in {m.name for r in rows for m in r.metrics
                              if m.threshold is None}}
         verdict = tolerance_verdict(tol, [r.judgements for r in rows], reference=reference.info,
                                     failures=failures, required=REQUIRED_METRICS,
                                     fit_converged=fit_converged, info=info)
+        if solver_failed:
+            verdict = replace(verdict, status=SOLVER_FAILED)
         seconds = statistics.median([r.seconds for r in rows]) if rows else math.nan
         speedup = (ref.loglik_seconds / seconds if ref is not None and rows and seconds > 0
                    else None)

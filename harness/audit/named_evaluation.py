@@ -38,6 +38,11 @@ class EvaluationError(ValueError):
     """The requested solver cannot evaluate this model (wrong geometry, kernel, option)."""
 
 
+class SolverEvaluationError(EvaluationError):
+    """The solver under test (or the plugin preconditioning the operator) raised or
+    returned unusable output: a failed solver, exit code 3 (``harness.infra.exit_codes``)."""
+
+
 @dataclass(frozen=True)
 class SolverOptions:
     """Options of ``covaudit evaluate`` that reach the solver."""
@@ -147,9 +152,10 @@ def _compressed(solver: str, points: np.ndarray, y: np.ndarray, kernel: Kernel, 
         ev = evaluate_likelihood(factorization, points, y, kernel, mean=mean, reml=reml,
                                  score=score, trace=trace, probes=options.probes,
                                  rng=streams[1], fisher=fisher)
-    except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
-            ExactTraceSizeError) as exc:
+    except ExactTraceSizeError as exc:
         raise EvaluationError(str(exc)) from exc
+    except (SolverRuntimeError, SolverOutputError, SolverProtocolError) as exc:
+        raise SolverEvaluationError(str(exc)) from exc
     seconds = {"factor": seconds_factor, **ev.seconds}
     trace_info: dict[str, Any] | None = None
     if ev.score is not None and ev.trace_terms is not None and ev.trace_stderr is not None:
@@ -186,7 +192,7 @@ def build_preconditioner(name: str, points: np.ndarray, kernel: Kernel, *, tol: 
     try:
         return resolved.factorize(points, kernel, kernel.theta, tol=tol, **factor_options)
     except (SolverRuntimeError, SolverOutputError, SolverProtocolError) as exc:
-        raise EvaluationError(f"--preconditioner {name!r}: {exc}") from exc
+        raise SolverEvaluationError(f"--preconditioner {name!r}: {exc}") from exc
 
 
 @contextmanager

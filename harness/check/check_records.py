@@ -142,6 +142,9 @@ class CheckResult:
     reference_by_metric: dict[str, Any] = field(default_factory=dict)
     recommended_knob: dict[str, Any] | None = None
     knob: dict[str, Any] = field(default_factory=lambda: {"name": "tol"})
+    #: One line per failure of the solver under test outside the audit of a knob value
+    #: (the refit); each makes the exit code 3 (``harness.infra.exit_codes``).
+    solver_failures: tuple[str, ...] = ()
 
     @property
     def knob_name(self) -> str:

@@ -30,7 +30,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, cast
 
 import numpy as np
@@ -66,12 +66,14 @@ from harness.audit.reference_choice import (
     select_reference,
 )
 from harness.audit.sides import rademacher
+from harness.audit.solver_calls import SolverIsolation, call_solver
 from harness.audit.solver_seeds import (
     DEFAULT_SOLVER_SEEDS,
     seed_option,
     solver_seed,
     solver_seeds,
 )
+from harness.audit.solver_trial import trial_solver
 from harness.audit.verdict import Thresholds
 from harness.check.check_records import CheckResult, MetricValue, RefitResult, ToleranceResult
 from harness.check.data_checks import ValidatedData
@@ -91,12 +93,14 @@ from harness.check.fitting import (
     plan_fit,
     standard_errors,
 )
+from harness.check.plugin_guard import solver_isolation, trial_kernel
 from harness.infra.child_process import run_stage
 from harness.infra.option_specs import (
     LADDER_FACTOR,
     SOLVER_SEEDS,
     TOLERANCE,
     VARIANCE_POINTS,
+    OptionError,
 )
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model import design_matrix
@@ -182,6 +186,9 @@ class CheckOptions:
         ``auto``, ``dense``, ``statespace``, ``operator`` or ``ladder``.
     ladder_factor : float
         The ladder reference is the solver at tol / ladder_factor.
+    solver_timeout : float or None
+        Seconds one call into a solver plugin may take in its child process
+        (``harness.check.plugin_guard``); None: ``default_solver_timeout(n)``.
     """
 
     kernel: str = "matern32"
@@ -213,6 +220,7 @@ class CheckOptions:
     solver_seeds: int = DEFAULT_SOLVER_SEEDS
     reference: str = "auto"
     ladder_factor: float = audit_engine.LADDER_FACTOR
+    solver_timeout: float | None = None
 
 
 class CheckError(ValueError):
@@ -463,6 +471,10 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     if not (math.isfinite(options.fit_time_budget) and options.fit_time_budget > 0):
         raise CheckError(f"--fit-time-budget: expected a positive number of seconds, got "
                          f"{options.fit_time_budget!r}")
+    try:
+        isolation = solver_isolation(solver, data.n, options.solver_timeout)
+    except OptionError as exc:
+        raise CheckError(str(exc)) from None
     streams = check_streams(options.seed)
     split_rng, fit_rng, probe_rng, growth_rng = (streams[name] for name in CHECK_STREAMS)
     train, hold = split_holdout(data.n, options.holdout, split_rng,
@@ -473,6 +485,16 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     template = _template(options, d)
     notes: list[str] = list(data.notes)
     warnings: list[str] = []
+    if isolation is not None:
+        say(f"trial of solver {solver.name!r} on a few points, before the fit")
+        warnings.extend(trial_solver(
+            solver, x, y, trial_kernel(options.kernel, options.shape, options.fixed_params,
+                                       template, x, y, mean=options.mean),
+            tols, _solver_options(options, solver), rng=np.random.default_rng(options.seed),
+            seed=solver_seed(options.seed, 0), isolation=isolation))
+        notes.append(f"solver {solver.name!r} ran only in child processes: a trial on a "
+                     f"few points before the fit, then each (knob value, seed) audit, "
+                     f"stopped after {isolation.timeout:g} s ({isolation.timeout_option})")
     if options.fixed_params is not None:
         fitted = _fixed(x, y, options, d)
     else:
@@ -492,6 +514,9 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                          f"is {knob.name}); use an exact reference (dense, statespace or "
                          "operator)")
     warnings.extend(ref_warnings)
+    if isolation is not None and kind == "ladder":
+        notes.append(f"the ladder reference runs solver {solver.name!r} in this process, "
+                     "and so do its audits against it")
     audit_data = AuditData(points=x, y=y, kernel=kernel, mean=options.mean, holdout=hold,
                            fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng),
                            variance_at=variance_at)
@@ -516,7 +541,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     notes.append(f"reference: {reference.info.description}")
     result: EngineResult = audit_engine.audit_tolerances(
         audit_data, solver, tols, reference, seeds=seeds, solver_options=solver_options,
-        thresholds=options.thresholds, fit_converged=fitted.converged, progress=say)
+        thresholds=options.thresholds, fit_converged=fitted.converged, progress=say,
+        isolation=None if kind == "ladder" else isolation)
     rows = [_row(a, kind) for a in result.tolerances]
     rows = [_with_growth(r, growth.get("per_tolerance", {}).get(repr(r.tol))) for r in rows]
     rec = result.recommendation
@@ -526,11 +552,18 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     holdout_info.update(reference=kind, conditioned_on=int(train.size))
     best = next((r for r in rows if r.value == rec.tol), None)
     refit = None
+    solver_failures: list[str] = []
     if best is not None and best.value is not None and options.refit \
             and fitted.fit is not None:
         say(f"end-to-end refit with {solver.name} {knob.value_text(best.value)}")
-        refit = _refit(x, y, template, fitted.fit, best.value, options, solver,
-                       se.log_se, fisher)
+        refit_args = (x, y, template, fitted.fit, best.value, options, solver, se.log_se,
+                      fisher)
+        if isolation is None:
+            refit = _refit(*refit_args)
+        else:
+            refit, failure = _isolated_refit(refit_args, isolation, solver.name,
+                                             knob.value_text(best.value))
+            solver_failures += [failure] if failure else []
     loglik = (reference.values().loglik.value if isinstance(reference, HasValues)
               else reference.sides(tols[-1]).full.loglik)
     if fitted.fit is not None and fitted.fit.engine == "dense":
@@ -556,7 +589,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         solver_seeds=seeds, warnings=tuple(warnings), recommendation=rec.to_dict(),
         fit_converged=fitted.converged, reference_detail=reference.info.to_dict(),
         n_variance_points=int(variance_at.size),
-        reference_by_metric=reference_by_metric(reference, audit_data))
+        reference_by_metric=reference_by_metric(reference, audit_data),
+        solver_failures=tuple(solver_failures))
 
 
 def _holdout_info(reference: PairedReference | ValueReference, tol: float, y: np.ndarray,
@@ -652,6 +686,23 @@ def recommend(rows: list[ToleranceResult]) -> ToleranceResult | None:
     rec = audit_engine.recommend({float(r.value): r.status or ("safe" if r.safe else "unsafe")
                                   for r in rows if r.value is not None})
     return next((r for r in rows if r.value == rec.tol), None)
+
+
+def _isolated_refit(arguments: tuple[Any, ...], isolation: SolverIsolation, name: str,
+                    at: str) -> tuple[RefitResult | None, str]:
+    """``_refit(*arguments)`` in a child process (``harness.audit.solver_calls``): one
+    call of at most ``fit_max_steps + 1`` times the solver's time limit, as the refit
+    evaluates the likelihood at every Fisher-scoring step. Returns the refit, or None and
+    the one-line failure of a solver that crashed, hung or raised."""
+    options: CheckOptions = arguments[5]
+    limit = (None if isolation.timeout is None
+             else isolation.timeout * (options.fit_max_steps + 1))
+    call = call_solver(_refit, *arguments, isolation=replace(isolation, timeout=limit),
+                       who=f"solver {name!r}",
+                       where=f"in the refit at {at} (n = {arguments[1].size:,})")
+    if call.failure:
+        return None, call.failure
+    return call.value, ""
 
 
 def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: float,

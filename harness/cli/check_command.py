@@ -5,7 +5,9 @@ likelihood (or takes ``--params``), audits every tolerance against the exact ref
 (``harness.check``), prints the verdict table and writes ``check.json`` and
 ``check.html`` into ``--out``. Outputs are written to a temporary folder beside
 ``--out`` and moved into place only when everything succeeded.
-Exit codes: 0 a safe tolerance was found, 1 none is safe, 2 bad input or an error.
+Exit codes (``harness.infra.exit_codes``, combined by ``combine``): 0 a safe tolerance
+was found, 1 none is safe, 2 bad input or an error, 3 the solver under test failed (at
+one knob value or more, or in its trial before the fit).
 """
 
 from __future__ import annotations
@@ -22,8 +24,9 @@ from typing import Any
 import numpy as np
 
 from harness.audit.engine import LADDER_FACTOR
-from harness.audit.rule import Thresholds
+from harness.audit.rule import SOLVER_FAILED, Thresholds
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
+from harness.audit.solver_trial import SolverFailed
 from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
 from harness.check.check_records import CheckResult
 from harness.check.fitting import FitError
@@ -37,12 +40,13 @@ from harness.cli.flag_types import (
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.infra.child_process import StageCrashed
 from harness.infra.data_files import DataFileError, load_observations
-from harness.infra.exit_codes import ExitCode
+from harness.infra.exit_codes import ExitCode, combine
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,
     HOLDOUT_POINTS,
     PROBES,
     SOLVER_SEEDS,
+    SOLVER_TIMEOUT,
     TOLERANCE,
     VARIANCE_POINTS,
     OptionError,
@@ -139,6 +143,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    default=None, metavar="GIB",
                    help="memory the dense reference may use, in GiB")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
+    p.add_argument("--solver-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
+                   metavar="SECONDS",
+                   help="stop one call into a solver plugin (each knob value and seed runs "
+                        "in a child process) after this many seconds (default: one hour up "
+                        "to 100,000 points, growing like n^1.5 beyond)")
     p.add_argument("--out", default=None, help="folder for check.json and check.html "
                                                "(default reports/check-<data file stem>/)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
@@ -216,7 +225,7 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
         refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=args.solver,
         solver_seeds=args.solver_seeds, reference=args.reference,
-        ladder_factor=args.ladder_factor)
+        ladder_factor=args.ladder_factor, solver_timeout=args.solver_timeout)
 
 
 def json_text(result: CheckResult) -> str:
@@ -376,6 +385,7 @@ def run(args: argparse.Namespace) -> int:
             result = run_check(data, options, source=str(args.datafile), progress=progress)
         finally:
             progress.close()
+        failed = [row for row in result.tolerances if row.status == SOLVER_FAILED]
         write_outputs(result, out, points=data.points, holdout=holdout_indices(
             data.n, fraction=args.holdout, seed=args.seed, cap=args.holdout_points))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
@@ -383,9 +393,16 @@ def run(args: argparse.Namespace) -> int:
             OSError, SolverRuntimeError, StageCrashed) as exc:
         print(f"covaudit check: error: {exc}", file=sys.stderr)
         return ExitCode.ERROR
+    except SolverFailed as exc:  # the solver under test failed its trial, before the fit
+        print(f"covaudit check: solver failed: {exc}", file=sys.stderr)
+        return ExitCode.SOLVER_FAILED
     print(json_text(result) if args.json else summary(result))
     for warning in result.warnings if args.json else ():
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
     for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
         print(line, file=sys.stderr if args.json else sys.stdout)
-    return ExitCode.OK if result.recommended_value is not None else ExitCode.FINDING
+    for reason in [*(row.error for row in failed), *result.solver_failures]:
+        print(f"covaudit check: solver failed: {reason}", file=sys.stderr)
+    answer = ExitCode.OK if result.recommended_value is not None else ExitCode.FINDING
+    return combine([answer, *([ExitCode.SOLVER_FAILED]
+                              if failed or result.solver_failures else [])])

@@ -11,7 +11,12 @@ from typing import Any
 
 import numpy as np
 
-from harness.audit.named_evaluation import EvaluationError, SolverOptions, evaluate_with_solver
+from harness.audit.named_evaluation import (
+    EvaluationError,
+    SolverEvaluationError,
+    SolverOptions,
+    evaluate_with_solver,
+)
 from harness.cli.flag_types import (
     float_range,
     int_range,
@@ -25,13 +30,14 @@ from harness.grid.runner.dask_check import check_dask_options
 from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_child
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
-from harness.infra.option_specs import PROBES, TOLERANCE, OptionError
+from harness.infra.option_specs import PROBES, SOLVER_TIMEOUT, TOLERANCE, OptionError
+from harness.infra.solver_timeout import default_solver_timeout
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
 from harness.model.kernels import KERNELS, KernelParameterError
 from harness.solvers.plugins import SolverLoadError
-from harness.solvers.registry import resolve_solver
+from harness.solvers.registry import BUILTIN_SOLVERS, resolve_solver
 
 #: ``--tol`` when neither it nor ``--knob-value`` is given.
 DEFAULT_TOL = 1e-8
@@ -101,10 +107,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--fisher", action="store_true",
                    help="also the expected Fisher information (O(p n^3) dense)")
     p.add_argument("--no-score", action="store_true", help="skip the score")
-    p.add_argument("--task-timeout", type=float_range("--task-timeout", 0.0, 7 * 86400.0,
-                                                      low_open=True), default=None,
-                   metavar="SECONDS", help="stop a solver plugin after this many seconds "
-                                           "(plugins run in a child process; default: none)")
+    p.add_argument("--task-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
+                   metavar="SECONDS",
+                   help="stop a solver plugin (or a plugin preconditioning --solver "
+                        "operator) after this many seconds; they run in a child process "
+                        "(default: one hour up to 100,000 points, growing like n^1.5 "
+                        "beyond)")
     p.add_argument("--memory-budget", type=float_range("--memory-budget", 0.0, 1e6,
                                                        low_open=True),
                    default=None, metavar="GIB",
@@ -212,20 +220,27 @@ def run(args: argparse.Namespace) -> int:
         if args.solver != "operator" and (args.dask_local is not None
                                           or args.scheduler is not None):
             raise EvaluationError("--dask-local and --scheduler apply to --solver operator")
-        if args.solver not in IN_PROCESS_SOLVERS:
+        plugin_preconditioner = (args.solver == "operator"
+                                 and args.preconditioner not in BUILTIN_SOLVERS)
+        if args.solver not in IN_PROCESS_SOLVERS or plugin_preconditioner:
             what = ("the dense solver" if args.solver == "dense"
+                    else "the operator reference preconditioned by the plugin "
+                         f"{args.preconditioner!r}" if plugin_preconditioner
                     else f"the solver plugin {args.solver!r}")
+            timeout = (default_solver_timeout(obs.n) if args.task_timeout is None
+                       else args.task_timeout)
             outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
                                     kernel, mean=args.mean, reml=args.reml,
                                     score=not args.no_score, fisher=args.fisher,
-                                    options=options, timeout=args.task_timeout,
-                                    what=f"{what} at n = {obs.n:,}", stage=what)
+                                    options=options, timeout=timeout,
+                                    what=f"{what} at n = {obs.n:,}", stage=what,
+                                    daemon=args.dask_local is None)
         else:
             outcome = evaluate_with_solver(args.solver, obs.points, obs.values, kernel,
                                            mean=args.mean, reml=args.reml,
                                            score=not args.no_score, fisher=args.fisher,
                                            options=options)
-    except (ChildCrashed, ChildTimeout) as exc:  # the solver under test failed
+    except (ChildCrashed, ChildTimeout, SolverEvaluationError) as exc:  # the solver failed
         print(f"covaudit evaluate: error: {exc}", file=sys.stderr)
         return ExitCode.SOLVER_FAILED
     except (DataFileError, KernelParameterError, ParamSyntaxError, EvaluationError,

@@ -27,8 +27,8 @@ from typing import Any, Literal
 
 __all__ = [
     "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "LADDER_FACTOR", "PROBES", "SOLVER_SEEDS",
-    "SPECS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "OptionError", "OptionSpec",
-    "StrOptions", "check_values", "KnobRange", "knob_option",
+    "SOLVER_TIMEOUT", "SPECS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "KnobRange",
+    "OptionError", "OptionSpec", "StrOptions", "check_values", "knob_option",
 ]
 
 Closed = Literal["both", "left", "right", "neither"]
@@ -266,5 +266,13 @@ VARIANCE_POINTS = OptionSpec(
     "variance_points", int, Interval(int, 1, None), 256,
     "most held-out points whose kriging variance is computed (one solve each)")
 
+#: Seconds one call into the solver under test may take in its child process (``check
+#: --solver-timeout``, ``evaluate --task-timeout``); the default (None) is chosen from n by
+#: ``harness.infra.solver_timeout.default_solver_timeout``.
+SOLVER_TIMEOUT = OptionSpec(
+    "solver_timeout", float,
+    Interval(float, 0.0, 7 * 86400.0, closed="right", noun="a number of seconds"), None,
+    "seconds one call into the solver under test may take (default: from n)")
+
 SPECS: Sequence[OptionSpec] = (SOLVER_SEEDS, HOLDOUT_FRACTION, TOLERANCE, LADDER_FACTOR,
-                               PROBES, HOLDOUT_POINTS, VARIANCE_POINTS)
+                               PROBES, HOLDOUT_POINTS, VARIANCE_POINTS, SOLVER_TIMEOUT)
