@@ -1,14 +1,17 @@
 """The check of a tolerance ladder on a user's dataset, end to end.
 
-1. Fit the covariance parameters by maximum likelihood on ALL the user's points
-   (``harness.check.fitting``): the dense exact fit (screened starts, L-BFGS-B, Fisher
-   scoring polish to ``score_tol_se`` SE) wherever the dense likelihood, score and
-   Fisher information fit the memory budget and the estimated dense fit fits
-   ``fit_time_budget`` seconds; beyond that a dense pilot fit on a random subset,
-   then Fisher scoring at all n points with the compressed solver at the tightest
-   tolerance, to a stated score tolerance in SE units. Or take the parameters as given
-   (``fixed_params``). A fit that does not converge is a top-level warning and every
-   verdict says so.
+1. Fit the covariance parameters by maximum likelihood on ALL the user's points, by the
+   plan of ``harness.check.fit_plan`` (n and the memory budget decide, never a timing):
+   the dense exact fit (screened starts, L-BFGS-B, Fisher scoring polish to
+   ``score_tol_se`` SE, ``harness.check.fitting``) for n up to ``dense_fit_max_n``
+   (default ``fit_plan.DENSE_FIT_MAX_N``) within the memory budget; beyond that the
+   at-scale fit (``harness.check.vecchia_fit``): Fisher scoring on the deterministic
+   Vecchia likelihood to a Newton-decrement threshold, then at most two steps with the
+   exact score toward the exact MLE where the dense score fits the budget. A kernel
+   without a compiled form for the Vecchia likelihood falls back to Fisher scoring with
+   the compressed solver's stochastic score. ``fit_time_budget`` caps the fit stage.
+   Or take the parameters as given (``fixed_params``). A fit that does not converge is
+   a top-level warning and every verdict says so.
 2. Fisher information at the estimate (the unit of the shift metrics, and the SEs).
 3. Reference (``reference``), chosen by the selector that ``run`` uses too
    (``harness.audit.reference_choice``): ``auto`` is the first of dense (within the
@@ -77,23 +80,21 @@ from harness.audit.solver_trial import trial_solver
 from harness.audit.verdict import Thresholds
 from harness.check.check_records import CheckResult, MetricValue, RefitResult, ToleranceResult
 from harness.check.data_checks import ValidatedData
+from harness.check.fisher_steps import DECREMENT_TOL_NAT, fisher_scoring
+from harness.check.fit_engines import CompressedEngine, DenseEngine
+from harness.check.fit_plan import DENSE_FIT_MAX_N, plan_fit
+from harness.check.fit_records import MleFit
 from harness.check.fitting import (
-    COMPRESSED_SCORE_TOL_SE,
     DENSE_SCORE_TOL_SE,
-    CompressedEngine,
-    DenseEngine,
-    FitPlan,
-    MleFit,
     data_scale,
     default_bounds,
     default_starts,
-    fisher_scoring,
     fit_dense,
     fit_mle,
-    plan_fit,
     standard_errors,
 )
 from harness.check.plugin_guard import solver_isolation, trial_kernel
+from harness.check.vecchia_fit import FIT_RHO, REFINE_TOL_SE, fit_at_scale
 from harness.infra.child_process import run_stage
 from harness.infra.option_specs import (
     LADDER_FACTOR,
@@ -115,6 +116,8 @@ from harness.solvers.registry import ResolvedSolver, SolverRuntimeError, resolve
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
 REFERENCE_CHOICES = ("auto", "dense", "statespace", "operator", "ladder")
 DEFAULT_FIT_TIME_BUDGET = 600.0
+#: Score tolerance (SE units) of the compressed fall-back fit (``_fit``).
+COMPRESSED_SCORE_TOL_SE = 1e-2
 Progress = Callable[[str], None]
 #: What a speedup is measured against, by reference kind (the ladder: the solver itself).
 SPEEDUP_OVER = {"dense": "dense", "operator": "the exact operator",
@@ -161,18 +164,21 @@ class CheckOptions:
         An extra starting point for the fit (natural scale).
     thresholds : Thresholds
     dense_fit_max_n : int or None
-        Optional cap on n for the dense fit (None: the memory and time budgets decide).
+        n above which the at-scale fit runs (None: ``fit_plan.DENSE_FIT_MAX_N``; 0
+        forces the at-scale fit).
     pilot_n : int
-        Pilot subset size of the compressed fit.
+        Size of the random subset whose dense fit starts the at-scale fit.
     memory_budget : int or None
         Bytes for the dense reference and the dense fit.
     fit_time_budget : float
-        Seconds the dense fit may be estimated to take.
+        Seconds the fit stage may take: past them it stops and reports itself
+        unconverged (a cap, never the choice of the fit).
     fit_max_iter, fit_max_steps : int
         L-BFGS-B iterations and Fisher-scoring steps of the fit.
     score_tol_se : float or None
-        Stopping tolerance of the fit's score in SE units (None: 1e-3 dense, 1e-2
-        compressed).
+        Stopping tolerance of the fit in SE units (None: 1e-3 for the dense fit's score,
+        ``vecchia_fit.REFINE_TOL_SE`` for the at-scale fit's distance to the exact MLE,
+        1e-2 for the compressed fall-back).
     subsample_sizes : tuple of int
         Subsample sizes of the growth audit (ladder reference); capped by the budget.
     refit : bool
@@ -315,24 +321,37 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
         extra = dict(options.shape) | dict(options.start_params)
         starts.append(make_kernel(options.kernel, extra).theta)
     n = y.size
-    plan = plan_fit(x, y, template, mean=options.mean, n_starts=len(starts),
-                    memory_budget=options.memory_budget, time_budget=options.fit_time_budget)
-    if options.dense_fit_max_n is not None and n > options.dense_fit_max_n \
-            and plan.engine == "dense":
-        plan = FitPlan("compressed", plan.estimated_seconds, plan.time_budget,
-                       f"n = {n:,} above --dense-fit-max-n {options.dense_fit_max_n:,}")
+    dense_max_n = (DENSE_FIT_MAX_N if options.dense_fit_max_n is None
+                   else options.dense_fit_max_n)
+    plan = plan_fit(n, template.n_params, family=template.family,
+                    memory_budget=options.memory_budget,
+                    time_budget=options.fit_time_budget, dense_max_n=dense_max_n)
     notes.append(f"fit plan: {plan.engine} ({plan.reason})")
     if plan.engine == "dense":
         tol_se = options.score_tol_se or DENSE_SCORE_TOL_SE
-        say(f"fitting by dense L-BFGS-B + Fisher scoring at n = {n:,} "
-            f"({plan.estimated_seconds:.3g} s estimated)")
+        say(f"fitting by dense L-BFGS-B + Fisher scoring at n = {n:,}")
         # in a child process: a native crash in the BLAS is a one-line error, not a death
         fit = run_stage(fit_dense, x, y, template, mean=options.mean, starts=starts,
                         bounds=bounds, memory_budget=options.memory_budget,
                         max_iter=options.fit_max_iter, max_steps=options.fit_max_steps,
-                        score_tol_se=tol_se, stage="the dense fit", n=n,
-                        advice=DENSE_CRASH_ADVICE)
-        fisher = np.asarray(fit.fisher)
+                        score_tol_se=tol_se, time_budget=options.fit_time_budget,
+                        stage="the dense fit", n=n, advice=DENSE_CRASH_ADVICE)
+    elif plan.engine == "vecchia":
+        pilot = np.sort(rng.choice(n, size=min(options.pilot_n, n), replace=False))
+        say(f"fitting by Fisher scoring on the Vecchia likelihood at n = {n:,}"
+            + (" and exact-score refinement" if plan.exact_score_fits else ""))
+        fit = run_stage(fit_at_scale, x, y, template, mean=options.mean, starts=starts,
+                        bounds=bounds, pilot_index=pilot,
+                        exact_score=plan.exact_score_fits,
+                        memory_budget=options.memory_budget,
+                        time_budget=options.fit_time_budget,
+                        max_iter=options.fit_max_iter, max_steps=options.fit_max_steps,
+                        refine_tol_se=options.score_tol_se or REFINE_TOL_SE,
+                        stage="the at-scale fit", n=n, advice=DENSE_CRASH_ADVICE)
+        notes.append(f"fit: {fit.method}; pilot: {fit.stages[0].note}; exact refinement: "
+                     f"{fit.refinement}")
+        notes.append("Fisher information (SE units of the shift metrics) from the Vecchia "
+                     f"approximation at rho = {FIT_RHO:g}, not exact")
     else:
         tol_se = options.score_tol_se or COMPRESSED_SCORE_TOL_SE
         tightest = min(options.tolerances)
@@ -347,13 +366,13 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
                                   leaf_size=options.leaf_size)
         fit = fisher_scoring(engine, template, pilot_fit.theta, bounds=bounds,
                              max_steps=options.fit_max_steps, step_tol_se=tol_se)
-        fisher = np.asarray(fit.fisher)
         notes.append(f"fit: dense pilot on {pilot.size:,} random points (loglik "
                      f"{pilot_fit.loglik:.6g}), then Fisher scoring at all n = {n:,} with "
                      f"the compressed solver at tol {tightest:g} (Hutch++ traces, 32 "
                      f"probes) to {tol_se:g} SE")
         notes.append("Fisher information (SE units of the shift metrics) estimated by "
                      f"Hutch++ at tol {tightest:g}, not exact")
+    fisher = np.asarray(fit.fisher)
     info = fit.to_dict() | {"plan": plan.to_dict()}
     if fit.bounds_hit:
         notes.append("bounds hit: " + "; ".join(fit.bounds_hit))
@@ -721,8 +740,10 @@ def _refit(x: np.ndarray, y: np.ndarray, template: Kernel, fit: MleFit, tol: flo
                               solver=solver,
                               options=_solver_options(options, solver) | arguments)
     start_ll = engine(fit.theta).loglik
+    # the fit's own scoring routine: the Newton-decrement stop for a deterministic
+    # solver, the score's noise floor for a stochastic one (harness.check.fisher_steps)
     refit = fisher_scoring(engine, template, fit.theta, bounds=fit.bounds, step_tol_se=1e-3,
-                           max_steps=options.fit_max_steps)
+                           decrement_tol=DECREMENT_TOL_NAT, max_steps=options.fit_max_steps)
     delta = refit.theta - fit.theta
     shift = delta / log_se
     micro = None

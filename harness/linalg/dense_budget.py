@@ -2,10 +2,16 @@
 
 from __future__ import annotations
 
+from functools import cache
+
 import psutil
 
-#: Fraction of the currently available memory the dense reference may use by default
-#: (common practice: leave room for the rest of the process and the OS page cache).
+#: Share of TOTAL physical memory the dense computations may use by default. A fixed
+#: share of a fixed quantity, so the choice of reference and of fit is the same on every
+#: run on a machine, whatever else is running at that moment. Why 0.6 (common practice,
+#: covaudit's choice): a dense stage runs in a child process while the parent keeps the
+#: data and the solver under test's factor, and the operating system keeps its page
+#: cache; 40% is left to them.
 DEFAULT_BUDGET_FRACTION = 0.6
 
 
@@ -13,9 +19,17 @@ class DenseBudgetError(MemoryError):
     """The dense reference would need more memory than its budget allows."""
 
 
+@cache
+def total_memory() -> int:
+    """Bytes of total physical memory, read once per process (it does not change while
+    the process runs)."""
+    return int(psutil.virtual_memory().total)
+
+
 def default_memory_budget() -> int:
-    """Bytes the dense reference may use: ``DEFAULT_BUDGET_FRACTION`` of available memory."""
-    return int(DEFAULT_BUDGET_FRACTION * psutil.virtual_memory().available)
+    """Bytes the dense computations may use: ``DEFAULT_BUDGET_FRACTION`` of total
+    physical memory."""
+    return int(DEFAULT_BUDGET_FRACTION * total_memory())
 
 
 #: Temporaries besides the squares, in doubles: the panel factorization
