@@ -213,6 +213,7 @@ def group_metrics(req: DetailRequest) -> dict[str, Any]:
                       "standard_errors": to_jsonable(_standard_errors(ref0.fisher)),
                       "notes": list(ref0.notes)},
         "solver": {"name": task.solver, "version": task.solver_version, "tol": task.tol,
+                   "knob_name": task.knob_name, "knob_value": task.knob_value,
                    "loglik": sol0.loglik, "score": to_jsonable(sol0.score),
                    "trace_estimate": to_jsonable(sol0.trace_terms),
                    "trace_stderr": to_jsonable(sol0.trace_stderr),
