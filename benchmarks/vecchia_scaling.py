@@ -2,16 +2,16 @@
 
 Problem: 2D uniform points, Matern 3/2, s2 = 1, l = 0.1, nugget 1e-2.
 
-(a) Accuracy at ``--accuracy-n`` over the knob's default sweep (``RHO_KNOB``) and
+(a) Accuracy at ``--accuracy-n`` over the knob's default sweep (``NEIGHBOURS_KNOB``) and
 ``--seeds`` point sets: median KL(N(0, Sigma) || N(0, Sigma~)) (exact, from the dense
 Cholesky factor; ``harness.audit.metrics.kl_divergence``), median |L~ - L| for values
 drawn from the model and for white noise against ``dense_evaluate``; then an extended
-tight end (``--extend``: rho grows by 1.5x) until the model-values error is below
+tight end (``--extend``: m doubles) until the model-values error is below
 1e-2 nat or the nonzeros per column reach 1,000, recording which happened.
 
 (b) Speed at each ``--speed-n`` in a fresh child process per size (peak RSS by
 ``resource.getrusage``): first factorization plus log-likelihood, ordering and neighbour
-search included, at ``--rho`` (about 30 nonzeros per column); refactorization at new
+search included, at ``--neighbours`` (about 30 nonzeros per column); refactorization at new
 parameters (structure reused); the same for every sweep value with time / (n nnz^2);
 with ``--gradient``, the log-likelihood with exact gradient and Fisher information in
 one pass. The unit is one dpotrf at n = 8,192 in the same run (``machine_unit``).
@@ -37,45 +37,45 @@ _SPEED = r"""
 import json, resource, sys, time
 import numpy as np
 from harness.model.kernels import Matern32
-from harness.solvers.vecchia import RHO_KNOB, build_structure, factorize
+from harness.solvers.vecchia import NEIGHBOURS_KNOB, build_structure, factorize
 from harness.solvers.vecchia.vecchia_likelihood import vecchia_evaluate
-n, rho = int(sys.argv[1]), float(sys.argv[2])
+n, m = int(sys.argv[1]), int(sys.argv[2])
 sweep, gradient = sys.argv[3] == "1", sys.argv[4] == "1"
 kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
 rng = np.random.default_rng(0)
 points = rng.random((n, 2))
 y = rng.standard_normal(n)
 small = rng.random((2000, 2))
-vecchia_evaluate(small, y[:2000], kernel, rho=rho)  # load compiled code
+vecchia_evaluate(small, y[:2000], kernel, neighbours=m)  # load compiled code
 out = {"n": n}
 t = time.perf_counter()
-ev = vecchia_evaluate(points, y, kernel, rho=rho, score=False, fisher=False)
+ev = vecchia_evaluate(points, y, kernel, neighbours=m, score=False, fisher=False)
 out["first_loglik_seconds"] = time.perf_counter() - t
 out["first_phases"] = dict(ev.seconds)
-structure = build_structure(points, rho=rho)
+structure = build_structure(points, neighbours=m)
 out["nnz_per_column"] = structure.nnz_per_column
 out["structure_phases"] = structure.timings.to_dict()
 t = time.perf_counter()
-ev2 = vecchia_evaluate(points, y, kernel.with_theta(kernel.theta + 0.05), rho=rho,
+ev2 = vecchia_evaluate(points, y, kernel.with_theta(kernel.theta + 0.05), neighbours=m,
                        score=False, fisher=False, structure=structure)
 out["refactor_loglik_seconds"] = time.perf_counter() - t
 t = time.perf_counter()
-f = factorize(points, kernel, rho=rho, structure=structure)
+f = factorize(points, kernel, neighbours=m, structure=structure)
 out["refactor_factor_seconds"] = time.perf_counter() - t
 del f
 if gradient:
     t = time.perf_counter()
-    ev3 = vecchia_evaluate(points, y, kernel, rho=rho, structure=structure)
+    ev3 = vecchia_evaluate(points, y, kernel, neighbours=m, structure=structure)
     out["loglik_gradient_fisher_seconds"] = time.perf_counter() - t
 if sweep:
     rows = []
-    for r in RHO_KNOB.default_sweep:
+    for r in NEIGHBOURS_KNOB.default_sweep:
         t = time.perf_counter()
-        s = build_structure(points, rho=r, order=structure.order)
+        s = build_structure(points, neighbours=int(r), order=structure.order)
         t1 = time.perf_counter()
-        vecchia_evaluate(points, y, kernel, rho=r, structure=s, score=False, fisher=False)
+        vecchia_evaluate(points, y, kernel, structure=s, score=False, fisher=False)
         t2 = time.perf_counter()
-        rows.append({"rho": r, "nnz_per_column": s.nnz_per_column,
+        rows.append({"neighbours": int(r), "nnz_per_column": s.nnz_per_column,
                      "structure_seconds": t1 - t, "loglik_seconds": t2 - t1,
                      "seconds_per_n_nnz2": (t2 - t1) / (n * s.nnz_per_column ** 2)})
     out["sweep"] = rows
@@ -91,11 +91,16 @@ def accuracy(n: int, seeds: int, extend: bool) -> dict:
     from harness.audit.metrics.kl_divergence import kl_divergence_exact
     from harness.model.kernels import Matern32
     from harness.references.dense_reference import dense_evaluate
-    from harness.solvers.vecchia import RHO_KNOB, build_structure, factorize, maximin_order
+    from harness.solvers.vecchia import (
+        NEIGHBOURS_KNOB,
+        build_structure,
+        factorize,
+        maximin_order,
+    )
     from harness.solvers.vecchia.vecchia_likelihood import vecchia_evaluate
 
     kernel = Matern32(variance=1.0, lengthscale=0.1, nugget=1e-2)
-    per_rho: dict[float, dict[str, list[float]]] = {}
+    per_m: dict[int, dict[str, list[float]]] = {}
     extended: list[dict] = []
     stop_reason = None
     for seed in range(seeds):
@@ -108,41 +113,41 @@ def accuracy(n: int, seeds: int, extend: bool) -> dict:
         ref_model = dense_evaluate(points, model_y, kernel, score=False).loglik
         ref_white = dense_evaluate(points, white, kernel, score=False).loglik
         order = maximin_order(points)
-        rhos = list(RHO_KNOB.default_sweep)
+        sweep = [int(v) for v in NEIGHBOURS_KNOB.default_sweep]
         k = 0
-        while k < len(rhos):
-            rho = rhos[k]
-            s = build_structure(points, rho=rho, order=order)
-            f = factorize(points, kernel, rho=rho, structure=s)
+        while k < len(sweep):
+            m = sweep[k]
+            s = build_structure(points, neighbours=m, order=order)
+            f = factorize(points, kernel, structure=s)
             kl = kl_divergence_exact(f, cholesky=lower).value
-            em = abs(vecchia_evaluate(points, model_y, kernel, rho=rho, structure=s,
+            em = abs(vecchia_evaluate(points, model_y, kernel, structure=s,
                                       score=False, fisher=False).loglik - ref_model)
-            ew = abs(vecchia_evaluate(points, white, kernel, rho=rho, structure=s,
+            ew = abs(vecchia_evaluate(points, white, kernel, structure=s,
                                       score=False, fisher=False).loglik - ref_white)
-            entry = per_rho.setdefault(rho, {"kl": [], "model": [], "white": [], "nnz": []})
+            entry = per_m.setdefault(m, {"kl": [], "model": [], "white": [], "nnz": []})
             entry["kl"].append(kl)
             entry["model"].append(em)
             entry["white"].append(ew)
             entry["nnz"].append(s.nnz_per_column)
-            print(f"seed {seed} rho {rho:g}: nnz/col {s.nnz_per_column:.1f} KL {kl:.3e} "
+            print(f"seed {seed} m {m}: nnz/col {s.nnz_per_column:.1f} KL {kl:.3e} "
                   f"|dL| model {em:.3e} white {ew:.3e}", flush=True)
-            if extend and seed == 0 and k == len(rhos) - 1:
+            if extend and seed == 0 and k == len(sweep) - 1:
                 if em < 1e-2:
-                    stop_reason = f"model-values error {em:.2e} < 1e-2 nat at rho {rho:g}"
+                    stop_reason = f"model-values error {em:.2e} < 1e-2 nat at m = {m}"
                 elif s.nnz_per_column >= 1000:
                     stop_reason = f"nonzeros per column {s.nnz_per_column:.0f} >= 1,000"
                 else:
-                    rhos.append(round(rho * 1.5, 3))
-                if k >= len(RHO_KNOB.default_sweep):
-                    extended.append({"rho": rho, "nnz_per_column": s.nnz_per_column,
+                    sweep.append(2 * m)
+                if k >= len(NEIGHBOURS_KNOB.default_sweep):
+                    extended.append({"neighbours": m, "nnz_per_column": s.nnz_per_column,
                                      "kl": kl, "abs_loglik_error_model": em,
                                      "abs_loglik_error_white": ew})
             k += 1
         del lower
     sweep_rows = []
-    for rho in RHO_KNOB.default_sweep:
-        e = per_rho[rho]
-        sweep_rows.append({"rho": rho, "nnz_per_column": median(e["nnz"]),
+    for m in (int(v) for v in NEIGHBOURS_KNOB.default_sweep):
+        e = per_m[m]
+        sweep_rows.append({"neighbours": m, "nnz_per_column": median(e["nnz"]),
                            "median_kl": median(e["kl"]),
                            "median_abs_loglik_error_model": median(e["model"]),
                            "median_abs_loglik_error_white": median(e["white"])})
@@ -158,7 +163,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seeds", type=int, default=5)
     parser.add_argument("--no-extend", action="store_true")
     parser.add_argument("--speed-n", type=int, nargs="*", default=[65536, 131072, 1048576])
-    parser.add_argument("--rho", type=float, default=3.5)
+    parser.add_argument("--neighbours", type=int, default=14,
+                        help="m of the speed runs (about 30 nonzeros per column in 2D)")
     parser.add_argument("--gradient-from", type=int, default=1048576,
                         help="also time gradient + Fisher from this n up")
     parser.add_argument("--sweep-n", type=int, default=131072)
@@ -171,7 +177,7 @@ def main(argv: list[str] | None = None) -> int:
     speed = []
     for n in args.speed_n:
         t = time.perf_counter()
-        out = run_child(_SPEED, str(n), str(args.rho), "1" if n == args.sweep_n else "0",
+        out = run_child(_SPEED, str(n), str(args.neighbours), "1" if n == args.sweep_n else "0",
                         "1" if n >= args.gradient_from else "0")
         out["child_wall_seconds"] = time.perf_counter() - t
         for key in ("first_loglik_seconds", "refactor_loglik_seconds",
@@ -192,7 +198,7 @@ def main(argv: list[str] | None = None) -> int:
     write_run(args.json, "vecchia_scaling", argv, info, unit=unit, accuracy=acc,
               speed=speed, time_exponent=exponent,
               notes=["units: one dpotrf at n = 8,192 in this run",
-                     f"speed runs at rho = {args.rho:g} with lam = 1.5"])
+                     f"speed runs at neighbours = {args.neighbours} with lam = 1.5"])
     return 0
 
 

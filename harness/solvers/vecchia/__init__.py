@@ -1,7 +1,7 @@
 """Built-in Vecchia solver: the KL-minimizing sparse inverse Cholesky factor of Sigma.
 
 Modules, one concern each: ``kdtree`` (compiled ball queries), ``maximin`` (the
-ordering and length scales), ``sparsity`` (the radius-rho pattern), ``supernodes``
+ordering and length scales), ``sparsity`` (the nearest and radius patterns), ``supernodes``
 (aggregation), ``structure`` (all three, cached per point set), ``local_factor`` (the
 compiled per-supernode pass: U, dU, score and Fisher sums), ``triangular`` (sparse
 products and solves with U), ``factorization`` (the Factorization and ``factorize``),
@@ -11,8 +11,10 @@ information), ``vecchia_inputs`` (kernel codes and input checks).
 
 from harness.solvers.vecchia.factorization import (
     DEFAULT_LAM,
-    DEFAULT_RHO,
+    DEFAULT_NEIGHBOURS,
+    NEIGHBOURS_KNOB,
     RHO_KNOB,
+    RHO_RANGE,
     VecchiaFactorization,
     VecchiaTimings,
     factorize,
@@ -27,8 +29,10 @@ from harness.solvers.vecchia.vecchia_inputs import VecchiaInputError
 
 __all__ = [
     "DEFAULT_LAM",
-    "DEFAULT_RHO",
+    "DEFAULT_NEIGHBOURS",
+    "NEIGHBOURS_KNOB",
     "RHO_KNOB",
+    "RHO_RANGE",
     "MaximinOrder",
     "StructureCache",
     "VecchiaFactorization",

@@ -35,6 +35,7 @@ from harness.solvers.vecchia.structure import (
     StructureTimings,
     VecchiaStructure,
     build_structure,
+    pattern_rule,
     points_key,
 )
 from harness.solvers.vecchia.triangular import u_mul, u_solve, ut_mul, ut_solve
@@ -44,15 +45,26 @@ from harness.solvers.vecchia.vecchia_inputs import (
     kernel_code,
 )
 
-#: The Vecchia solver's accuracy knob: the conditioning radius rho in units of the
-#: maximin length scale (``sparsity``). Its default sweep gives about 13, 39, 95 and 230
-#: nonzeros per column of U for 2D uniform points with the default supernodes (lam =
-#: 1.5; measured at n = 131,072: rho 2.5 -> 13.4, 4.0 -> 38.6, 8.0 -> 183.9).
-RHO_KNOB = KnobSpec(
+#: The Vecchia solver's accuracy knob: m, the number of nearest earlier points each
+#: point conditions on (``sparsity``; why a count and not the radius rule is measured
+#: there). Its default sweep gives about 20, 44, 96 and 200 nonzeros per column of U for
+#: 2D uniform points with the default supernodes (lam = 1.5; measured at n = 4,096),
+#: within the 10-400 per column that keeps a sweep at 10^6 points in memory. It starts
+#: at m = 10 because below it the KL divergence falls less than 5x per step (2D, Matern
+#: 3/2, l = 0.1, nugget 1e-2, n = 8,192: KL 248 nat at m = 5, 102 at 8, 42 at 12).
+NEIGHBOURS_KNOB = KnobSpec(
+    name="neighbours", kind="int", low=1.0, high=math.inf, low_closed=True,
+    high_closed=False, more_accurate="larger", default_sweep=(10.0, 20.0, 40.0, 80.0),
+    meaning="number of nearest earlier points each point conditions on")
+#: m when none is given: 20, the middle of the sweep (common practice puts m at 10-30).
+DEFAULT_NEIGHBOURS = 20
+#: The radius rule's range (an option, not the knob): rho in units of the maximin length.
+RHO_RANGE = KnobSpec(
     name="rho", kind="float", low=1.0, high=math.inf, low_closed=True, high_closed=True,
     more_accurate="larger", default_sweep=(2.5, 4.0, 6.0, 9.0),
     meaning="conditioning radius in units of the maximin length scale")
-DEFAULT_RHO = 3.5
+#: Transitional name of ``RHO_RANGE`` (removed once every caller uses the new names).
+RHO_KNOB = RHO_RANGE
 DEFAULT_LAM = 1.5
 
 
@@ -234,30 +246,42 @@ def scaled_ordered(points: np.ndarray, kernel: Kernel, perm: np.ndarray) -> np.n
     return np.ascontiguousarray(kernel.scale_points(points)[perm])
 
 
-def resolve_structure(points: np.ndarray, *, rho: float, lam: float | None,
-                      structure: VecchiaStructure | None, cache: StructureCache | None
-                      ) -> tuple[VecchiaStructure, bool]:
-    """The structure to use and whether it was reused (passed in or cached)."""
-    RHO_KNOB.validate(rho, where="vecchia solver")
+def resolve_structure(points: np.ndarray, *, neighbours: int | None, rho: float | None,
+                      lam: float | None, structure: VecchiaStructure | None,
+                      cache: StructureCache | None) -> tuple[VecchiaStructure, bool]:
+    """The structure to use and whether it was reused (passed in or cached).
+
+    With neither ``neighbours`` nor ``rho`` given: the structure's own rule when one is
+    passed, else ``DEFAULT_NEIGHBOURS``."""
+    if neighbours is None and rho is None:
+        if structure is not None:
+            neighbours, rho = ((int(structure.value), None) if structure.rule == "neighbours"
+                               else (None, structure.value))
+        else:
+            neighbours = DEFAULT_NEIGHBOURS
+    rule, value = pattern_rule(neighbours=neighbours, rho=rho)
+    (NEIGHBOURS_KNOB if rule == "neighbours" else RHO_RANGE).validate(
+        neighbours if rule == "neighbours" else rho, where="vecchia solver")
     if structure is not None:
         if structure.n != points.shape[0] or structure.key != points_key(points):
             raise ValueError("vecchia solver: the structure passed was built for other "
                              "points")
-        if structure.rho != float(rho) or structure.groups.lam != lam:
-            raise ValueError(f"vecchia solver: the structure passed has rho = "
-                             f"{structure.rho:g}, lam = {structure.groups.lam}; asked for "
-                             f"rho = {rho:g}, lam = {lam}")
+        if (structure.rule, structure.value) != (rule, value) or structure.groups.lam != lam:
+            raise ValueError(f"vecchia solver: the structure passed has "
+                             f"{structure.describe()}, lam = {structure.groups.lam}; asked "
+                             f"for {rule} = {value:g}, lam = {lam}")
         return structure, True
     if cache is not None:
         before = cache.hits
-        found = cache.get(points, rho=rho, lam=lam)
+        found = cache.get(points, neighbours=neighbours, rho=rho, lam=lam)
         return found, cache.hits > before
-    return build_structure(points, rho=rho, lam=lam), False
+    return build_structure(points, neighbours=neighbours, rho=rho, lam=lam), False
 
 
 def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = None, *,
-              tol: float | None = None, rho: float = DEFAULT_RHO,
-              lam: float | None = DEFAULT_LAM, structure: VecchiaStructure | None = None,
+              tol: float | None = None, neighbours: int | None = None,
+              rho: float | None = None, lam: float | None = DEFAULT_LAM,
+              structure: VecchiaStructure | None = None,
               cache: StructureCache | None = None) -> VecchiaFactorization:
     """Vecchia / KL-minimizing sparse inverse Cholesky factorization of Sigma(theta).
 
@@ -269,31 +293,35 @@ def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = Non
     theta : ndarray or None
         Log-scale parameters overriding the kernel's; None keeps the kernel.
     tol : float or None
-        Accepted for the protocol and ignored: this solver's accuracy knob is ``rho``.
-    rho : float
-        Conditioning radius in units of the maximin length scale, rho >= 1
-        (``RHO_KNOB``; ``sparsity``); ``math.inf`` conditions every point on all earlier
-        ones (the exact likelihood, O(n^3)).
+        Accepted for the protocol and ignored: this solver's knob is ``neighbours``.
+    neighbours : int, optional
+        m, the nearest earlier points each point conditions on (``NEIGHBOURS_KNOB``;
+        ``sparsity``); m >= n - 1 conditions every point on all earlier ones (the exact
+        likelihood, O(n^3)). Default ``DEFAULT_NEIGHBOURS`` unless ``rho`` is given.
+    rho : float, optional
+        The radius rule instead: conditioning radius in units of the maximin length
+        scale, rho >= 1 (``math.inf``: every earlier point).
     lam : float >= 1 or None
         Supernode aggregation factor (``supernodes``); None: one column per set.
     structure : VecchiaStructure, optional
         Ordering, pattern and supernodes built earlier for these points (skips them).
     cache : StructureCache, optional
-        Looked up (and filled) by points hash, rho and lam.
+        Looked up (and filled) by points hash, rule and lam.
 
     Raises
     ------
     ValueError
-        rho outside its range (the message shows it); ``VecchiaInputError`` for
-        duplicates under a zero nugget, a kernel without a compiled form, or a local
-        block that is not positive definite (naming the point).
+        Both rules given, or the value outside its range (the message shows it);
+        ``VecchiaInputError`` for duplicates under a zero nugget, a kernel without a
+        compiled form, or a local block that is not positive definite (naming the point).
     """
-    del tol  # the protocol's knob; this solver's is rho
+    del tol  # the protocol's knob; this solver's is neighbours
     model = kernel if theta is None else kernel.with_theta(theta)
     x = np.asarray(points, dtype=float)
     x = x[:, None] if x.ndim == 1 else x
     kernel_code(model, x.shape[1])
-    built, reused = resolve_structure(x, rho=rho, lam=lam, structure=structure, cache=cache)
+    built, reused = resolve_structure(x, neighbours=neighbours, rho=rho, lam=lam,
+                                      structure=structure, cache=cache)
     check_duplicates(built, x, model)
     t0 = time.perf_counter()
     scaled = scaled_ordered(x, model, built.order.perm)
@@ -305,4 +333,4 @@ def factorize(points: np.ndarray, kernel: Kernel, theta: np.ndarray | None = Non
                                 values=values, timings=timings)
 
 
-factorize.knob = RHO_KNOB  # type: ignore[attr-defined]
+factorize.knob = NEIGHBOURS_KNOB  # type: ignore[attr-defined]

@@ -1,6 +1,18 @@
-"""The radius-rho sparsity pattern of the inverse Cholesky factor in maximin order.
+"""Sparsity patterns of the inverse Cholesky factor in maximin order: the m nearest
+earlier points (the default) or the radius-rho rule.
 
-Rule (Schafer, Katzfuss and Owhadi 2021, SIAM J. Sci. Comput. 43(3), eq. 3.3, written
+Nearest rule (Vecchia 1988, JRSS-B 50, sec. 3; Guinness 2018, Technometrics 60(4),
+sec. 2): position k of the maximin order conditions on the min(m, k) earlier points
+nearest to x_k. This is the solver's knob (``neighbours``), because it is the one that
+keeps its accuracy when the covariance has a nugget. Measured (2D uniform points, Matern
+3/2, l = 0.1, nugget 1e-2, n = 2,048, no supernodes): the radius rule at rho = 6 gives
+28.5 earlier points per column on average and KL = 13.0 nat, the 28 nearest earlier
+points KL = 0.78 nat. The radius rule's sets range from 0 to 67 points: a point that
+lands close to an earlier one has a tiny l_k and so a tiny ball, and under a nugget
+that one close point does not screen the rest. The KL error of the nearest rule falls
+about 20x per doubling of m in that setting (0.084 nat at m = 60, 1.1e-3 at m = 120).
+
+Radius rule (Schafer, Katzfuss and Owhadi 2021, SIAM J. Sci. Comput. 43(3), eq. 3.3, written
 for the coarse-to-fine order used here): position k of the maximin order conditions on
 
     c(k) = { j < k : ||x_j - x_k|| <= rho * l_k },
@@ -18,13 +30,17 @@ the same units of local spacing; and it is the rule the supernodal aggregation
 dimension and varies a little between columns: the mean count is what the benchmarks
 and ``VecchiaStructure.nnz_per_column`` report.
 
-Neighbour search: one ball query of radius rho l_k per position, in parallel, on a
+Neighbour search (radius rule): one ball query of radius rho l_k per position, in parallel, on a
 compiled k-d tree (``kdtree``) of the ordered points whose nodes record the smallest
 position they hold; a node holding no position below k is skipped, and each leaf's
 points are sorted by position so its scan stops at k. The earlier points near x_k are
 about l_k apart, so a query visits O(rho^d) leaves: O(n rho^d log n) in all. (scipy's
 cKDTree serves the same queries through k-nearest searches on log2(n) prefix trees,
-vectorized, but took 12 s at 2^20 points against about 1 s here.)
+vectorized, but took 12 s at 2^20 points against about 1 s here.) The nearest rule
+uses the same tree with a bounded max-heap of the m best candidates (Friedman, Bentley
+and Finkel 1977, ACM TOMS 3(3)): a node is skipped when it holds no earlier position
+or its box lies farther than the heap's worst entry once the heap is full, and the
+nearer child is visited first.
 """
 
 from __future__ import annotations
@@ -38,7 +54,7 @@ from harness.solvers.vecchia.kdtree import LEAF, STACK, box_sq_dist, build_kdtre
 
 
 @dataclass(frozen=True)
-class RadiusPattern:
+class ConditioningPattern:
     """Conditioning sets c(k) as CSR-like arrays over positions of the maximin order.
 
     Attributes
@@ -47,12 +63,16 @@ class RadiusPattern:
         c(k) is ``rows[ptr[k]:ptr[k + 1]]``.
     rows : ndarray of int32
         Earlier positions, ascending within each k (k itself excluded).
-    rho : float
+    rule : {"neighbours", "rho"}
+        The nearest rule (m earlier points) or the radius rule.
+    value : float
+        Its m or rho.
     """
 
     ptr: np.ndarray
     rows: np.ndarray
-    rho: float
+    rule: str
+    value: float
 
     @property
     def n(self) -> int:
@@ -135,7 +155,7 @@ def _pattern(x: np.ndarray, radius: np.ndarray) -> tuple:
 
 
 def radius_pattern(points_ordered: np.ndarray, lengths: np.ndarray, *,
-                   rho: float) -> RadiusPattern:
+                   rho: float) -> ConditioningPattern:
     """c(k) for every position k of a maximin order (module docstring).
 
     Parameters
@@ -152,4 +172,107 @@ def radius_pattern(points_ordered: np.ndarray, lengths: np.ndarray, *,
         x = x[:, None]
     radius = np.minimum(rho * np.asarray(lengths, dtype=float), np.finfo(float).max ** 0.5)
     ptr, rows = _pattern(np.ascontiguousarray(x), np.ascontiguousarray(radius))
-    return RadiusPattern(ptr=ptr, rows=rows, rho=float(rho))
+    return ConditioningPattern(ptr=ptr, rows=rows, rule="rho", value=float(rho))
+
+
+@numba.njit(inline="always", cache=True)
+def _heap_down(hd: np.ndarray, hj: np.ndarray, size: int) -> None:
+    """Restore the max-heap on hd[:size] after its root was replaced."""
+    i = 0
+    while True:
+        a = 2 * i + 1
+        if a >= size:
+            return
+        b = a + 1
+        big = b if b < size and hd[b] > hd[a] else a
+        if hd[big] <= hd[i]:
+            return
+        hd[i], hd[big] = hd[big], hd[i]
+        hj[i], hj[big] = hj[big], hj[i]
+        i = big
+
+
+@numba.njit(inline="always", cache=True)
+def _nearest(xt, qk, k, m, idx, start, stop, left, right, lo, hi, low, hd, hj) -> int:
+    """The min(m, k) positions j < k nearest to slot qk (position k) into hj."""
+    stack = np.empty(STACK, np.int64)
+    top = 0
+    stack[0] = 0
+    size = 0
+    while top >= 0:
+        node = stack[top]
+        top -= 1
+        if low[node] >= k:
+            continue
+        if size == m and box_sq_dist(xt, qk, lo, hi, node) >= hd[0]:
+            continue
+        if left[node] < 0:
+            for q in range(start[node], stop[node]):
+                j = idx[q]
+                if j >= k:
+                    break
+                dq = sq_dist(xt, qk, q)
+                if size < m:
+                    c = size
+                    hd[c] = dq
+                    hj[c] = j
+                    size += 1
+                    while c > 0:  # sift up
+                        par = (c - 1) // 2
+                        if hd[par] >= hd[c]:
+                            break
+                        hd[par], hd[c] = hd[c], hd[par]
+                        hj[par], hj[c] = hj[c], hj[par]
+                        c = par
+                elif dq < hd[0]:
+                    hd[0] = dq
+                    hj[0] = j
+                    _heap_down(hd, hj, size)
+        else:
+            a, b = left[node], right[node]
+            if box_sq_dist(xt, qk, lo, hi, a) <= box_sq_dist(xt, qk, lo, hi, b):
+                a, b = b, a
+            top += 1
+            stack[top] = a  # the farther child, popped last
+            top += 1
+            stack[top] = b
+    return size
+
+
+@numba.njit(parallel=True, cache=True)
+def _nearest_pattern(x: np.ndarray, m: int) -> tuple:
+    n = x.shape[0]
+    idx, xt, start, stop, left, right, lo, hi, low = _prepare(x)
+    counts = np.zeros(n + 1, np.int64)
+    for k in range(n):
+        counts[k + 1] = min(m, k)
+    ptr = np.cumsum(counts)
+    rows = np.empty(ptr[n], np.int32)
+    for qk in numba.prange(n):
+        k = idx[qk]
+        hd = np.empty(m)
+        hj = np.empty(m, np.int64)
+        size = _nearest(xt, qk, k, m, idx, start, stop, left, right, lo, hi, low, hd, hj)
+        seg = rows[ptr[k]:ptr[k + 1]]
+        seg[:] = np.sort(hj[:size])
+    return ptr, rows
+
+
+def nearest_pattern(points_ordered: np.ndarray, *, neighbours: int) -> ConditioningPattern:
+    """c(k) = the min(m, k) earlier points nearest to x_k (module docstring).
+
+    Parameters
+    ----------
+    points_ordered : ndarray, shape (n, d)
+        Points in maximin order.
+    neighbours : int
+        m >= 1. Ties in distance are broken by the tree's visiting order.
+    """
+    m = int(neighbours)
+    if m < 1:
+        raise ValueError(f"neighbours must be >= 1, got {neighbours!r}")
+    x = np.ascontiguousarray(points_ordered, dtype=float)
+    if x.ndim == 1:
+        x = x[:, None]
+    ptr, rows = _nearest_pattern(np.ascontiguousarray(x), m)
+    return ConditioningPattern(ptr=ptr, rows=rows, rule="neighbours", value=float(m))

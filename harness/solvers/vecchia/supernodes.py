@@ -148,7 +148,7 @@ def aggregate(ptr: np.ndarray, rows: np.ndarray, lengths: np.ndarray, *,
     Parameters
     ----------
     ptr, rows : ndarray
-        c(k) = ``rows[ptr[k]:ptr[k + 1]]`` ascending (``sparsity.RadiusPattern``).
+        c(k) = ``rows[ptr[k]:ptr[k + 1]]`` ascending (``sparsity.ConditioningPattern``).
     lengths : ndarray
         Maximin length scales.
     lam : float >= 1 or None

@@ -35,7 +35,6 @@ from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.solvers.vecchia.factorization import (
     DEFAULT_LAM,
-    DEFAULT_RHO,
     resolve_structure,
     scaled_ordered,
 )
@@ -45,7 +44,8 @@ from harness.solvers.vecchia.vecchia_inputs import check_duplicates, check_statu
 
 
 def vecchia_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
-                     rho: float = DEFAULT_RHO, lam: float | None = DEFAULT_LAM,
+                     neighbours: int | None = None, rho: float | None = None,
+                     lam: float | None = DEFAULT_LAM,
                      mean: str = "zero", score: bool = True, fisher: bool = True,
                      structure: VecchiaStructure | None = None,
                      cache: StructureCache | None = None) -> ModelEvaluation:
@@ -57,8 +57,9 @@ def vecchia_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
     y : ndarray, shape (n,)
     kernel : Kernel
         At the parameters to evaluate (``kernel.with_theta(theta)``).
-    rho, lam, structure, cache
-        As for ``factorize`` (the knob and the reusable structure).
+    neighbours, rho, lam, structure, cache
+        As for ``factorize`` (the knob, the radius rule instead of it, and the reusable
+        structure).
     mean : {"zero", "constant", "linear"}
         Mean model; beta by GLS under Sigma~ (profile likelihood).
     score, fisher : bool
@@ -81,7 +82,8 @@ def vecchia_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
         raise ValueError(f"values: {int(np.sum(~np.isfinite(values)))} non-finite entries")
     code = kernel_code(kernel, x.shape[1])
     t0 = time.perf_counter()
-    built, reused = resolve_structure(x, rho=rho, lam=lam, structure=structure, cache=cache)
+    built, reused = resolve_structure(x, neighbours=neighbours, rho=rho, lam=lam,
+                                      structure=structure, cache=cache)
     check_duplicates(built, x, kernel)
     t1 = time.perf_counter()
     perm = built.order.perm
@@ -121,7 +123,7 @@ def vecchia_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
     seconds = {"structure": 0.0 if reused else built.timings.total,
                "checks": t1 - t0 - (0.0 if reused else built.timings.total),
                "pass": t2 - t1}
-    notes = (f"vecchia: rho = {built.rho:g}, lam = {built.groups.lam}, "
+    notes = (f"vecchia: {built.describe()}, lam = {built.groups.lam}, "
              f"{built.nnz_per_column:.1f} nonzeros per column; score and Fisher "
              "information exact for the approximation (Guinness 2021)",)
     return ModelEvaluation(
