@@ -51,6 +51,18 @@ PLUGINS = {
                 time.sleep(600)
             return dense(points, kernel, theta, tol=tol)
         """,
+    "refit_crash_plugin": f"""
+        def factorize(points, kernel, theta, *, tol):
+            # the second factorization of all points is the refit's first (the audit
+            # makes one per tolerance and seed; the trial's 64 points are not counted)
+            if points.shape[0] == {N}:
+                counter = Path("refit_crash_calls.txt")
+                calls = int(counter.read_text()) + 1 if counter.exists() else 1
+                counter.write_text(str(calls))
+                if calls >= 2:
+                    os.kill(os.getpid(), signal.SIGSEGV)
+            return dense(points, kernel, theta, tol=tol)
+        """,
     "typeerror_plugin": """
         def factorize(points, kernel, theta, *, tol):
             return dense(points, kernel, theta, tol=tol, no_such_option=1)
@@ -85,6 +97,7 @@ HEADER = """
     import os
     import signal
     import time
+    from pathlib import Path
 
     import numpy as np
 
@@ -102,6 +115,9 @@ def workspace(tmp_path_factory: pytest.TempPathFactory) -> Path:
     rng = np.random.default_rng(3)
     pd.DataFrame({"e": rng.uniform(0, 10, N), "n": rng.uniform(0, 10, N),
                   "z": rng.normal(size=N)}).to_csv(root / "field.csv", index=False)
+    e, n = rng.uniform(0, 10, N), rng.uniform(0, 10, N)  # a smooth field to fit
+    pd.DataFrame({"e": e, "n": n, "z": np.sin(e / 2) + np.cos(n / 3)
+                  + 0.3 * rng.normal(size=N)}).to_csv(root / "smooth.csv", index=False)
     return root
 
 
@@ -191,6 +207,21 @@ def test_a_nonsymmetric_operator_warns_and_a_badly_one_fails(workspace: Path) ->
                  "--tolerances", "1e-4")
     assert bad.returncode == 3, bad.stderr
     assert "matvec() is not symmetric" in bad.stderr and "above 0.1" in bad.stderr
+
+
+def test_a_crash_in_the_refit_is_a_failed_solver(workspace: Path) -> None:
+    proc = _covaudit(["check", "smooth.csv", "--coords", "e,n", "--value", "z",
+                      "--tolerances", "1e-4", "--solver-seeds", "1", "--solver",
+                      "refit_crash_plugin:factorize", "--out", "out_refit"], workspace)
+    assert proc.returncode == 3, proc.stderr  # the audit found 1e-4 safe; 3 wins over 0
+    lines = _failed_lines(proc.stderr)
+    assert len(lines) == 1, proc.stderr
+    assert ("solver 'refit_crash_plugin:factorize' crashed with signal 11 (SIGSEGV) in the "
+            f"refit at tol 0.0001 (n = {N})") in lines[0]
+    data = json.loads((workspace / "out_refit" / "check.json").read_text(encoding="utf-8"))
+    assert data["refit"] is None
+    assert data["solver_failures"] == [lines[0].removeprefix("covaudit check: solver failed: ")]
+    assert _rows(workspace / "out_refit")[1e-4]["status"] == "safe"
 
 
 @pytest.mark.parametrize(("verb", "flag"), [("check", "--solver-timeout"),

@@ -176,4 +176,5 @@ class CheckResult:
             "fit_converged": self.fit_converged, "reference_detail": self.reference_detail,
             "n_variance_points": self.n_variance_points,
             "reference_by_metric": self.reference_by_metric,
+            "solver_failures": list(self.solver_failures),
         }
