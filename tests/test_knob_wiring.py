@@ -1,10 +1,11 @@
 """A solver's accuracy knob on the command line, in case files and in stored rows.
 
 The knob is declared by the factory (``harness.solvers.knobs``): HODLR's ``tol``, the
-Vecchia solver's ``rho`` in [1, inf]. These tests hold the contract of DEVELOPERS.md, "How
-to add a solver plugin": the refusals (one line with the range, exit 2), the check's and
-the run's knob columns, the case-file errors, and that stored ``tol`` runs keep their
-keys.
+Vecchia solver's own knob (larger is more accurate). The tests read the Vecchia
+declaration (name, range, default sweep) instead of copying it, and hold the contract of
+DEVELOPERS.md, "How to add a solver plugin": the refusals (one line with the range, exit
+2), the check's and the run's knob columns, the case-file errors, and that stored ``tol``
+runs keep their keys.
 """
 
 from __future__ import annotations
@@ -35,8 +36,12 @@ from harness.solvers.registry import resolve_solver
 
 REPO = Path(__file__).resolve().parents[1]
 OLD_RUN = REPO / "tests" / "fixtures" / "run_v0_1_smoke"
-RHO_RANGE = "[1, inf]"          # harness.solvers.vecchia.factorization.RHO_KNOB
 TOL_RANGE = "(0, 1)"            # harness.solvers.knobs.DEFAULT_TOL_KNOB
+#: The Vecchia solver's declared knob, and three values of its sweep, loose to tight.
+KNOB = resolve_solver("vecchia").knob
+NAME, RANGE = KNOB.name, KNOB.range_text()
+LOOSE, MID, TIGHT = KNOB.default_sweep[0], KNOB.default_sweep[1], KNOB.default_sweep[-1]
+TOO_LOW = KNOB.low - 0.5        # below the declared range's lower end
 
 
 def _verb(module, argv: list[str]) -> int:
@@ -61,19 +66,18 @@ def field_file(tmp_path_factory) -> Path:
 # -- the declarations the wiring reads -----------------------------------------------------
 def test_declared_knobs_of_the_built_in_solvers():
     # the declarations themselves (harness/solvers/vecchia/factorization.py, hodlr/)
-    vecchia, hodlr = resolve_solver("vecchia").knob, resolve_solver("hodlr").knob
-    assert (vecchia.name, vecchia.range_text(), vecchia.more_accurate) == (
-        "rho", RHO_RANGE, "larger")
+    hodlr = resolve_solver("hodlr").knob
+    assert NAME != "tol" and KNOB.more_accurate == "larger"
     assert (hodlr.name, hodlr.range_text(), hodlr.more_accurate) == ("tol", TOL_RANGE,
                                                                      "smaller")
-    assert vecchia.arguments(6.0) == {"tol": None, "rho": 6.0}   # the protocol's convention
+    assert KNOB.arguments(MID) == {"tol": None, NAME: MID}   # the protocol's convention
     assert hodlr.arguments(1e-6) == {"tol": 1e-6}
 
 
 # -- the command line ----------------------------------------------------------------------
 @pytest.mark.parametrize("argv,expected", [
-    (["--solver", "vecchia", "--knob-values", "2.5,0.5"], RHO_RANGE),
-    (["--solver", "vecchia", "--knob-values", "nan"], RHO_RANGE),
+    (["--solver", "vecchia", "--knob-values", f"{MID:g},{TOO_LOW:g}"], RANGE),
+    (["--solver", "vecchia", "--knob-values", "nan"], RANGE),
     (["--solver", "hodlr", "--knob-values", "1e-4,2"], TOL_RANGE),
     (["--solver", "vecchia", "--tolerances", "1e-4"], "--knob-values"),
     (["--solver", "hodlr", "--tolerances", "1e-4", "--knob-values", "1e-6"], "not both"),
@@ -93,48 +97,50 @@ def test_evaluate_refuses_an_out_of_range_knob_value(field_file, capsys):
     code = _verb(evaluate_cli, ["evaluate", str(field_file), "--coords", "e,n", "--value",
                                 "z", "--kernel", "matern32", "--solver", "vecchia",
                                 "--param", "lengthscale=2",
-                                "--param", "nugget=0.1", "--knob-value", "0.5"])
+                                "--param", "nugget=0.1", "--knob-value", f"{TOO_LOW:g}"])
     err = capsys.readouterr().err.strip()
     assert code == ExitCode.ERROR
-    assert len(err.splitlines()) == 1 and RHO_RANGE in err and "rho" in err, err
+    assert len(err.splitlines()) == 1 and RANGE in err and NAME in err, err
 
 
-def test_check_sweeps_rho_of_the_vecchia_solver(field_file, tmp_path, capsys):
+def test_check_sweeps_the_knob_of_the_vecchia_solver(field_file, tmp_path, capsys):
     out = tmp_path / "out"
     code = _verb(check_cli, ["check", str(field_file), "--coords", "e,n", "--value", "z",
-                             "--solver", "vecchia", "--knob-values", "1.5,3,6",
+                             "--solver", "vecchia", "--knob-values",
+                             f"{TIGHT:g},{LOOSE:g},{MID:g}",
                              "--reference", "dense", "--no-refit", "--json",
                              "--out", str(out)])
     result = json.loads(capsys.readouterr().out)
     assert code in (ExitCode.OK, ExitCode.FINDING)
     rows = result["tolerances"]
-    assert [r["knob_value"] for r in rows] == [1.5, 3.0, 6.0]     # loose to tight
-    assert {r["knob_name"] for r in rows} == {"rho"}
+    assert [r["knob_value"] for r in rows] == [LOOSE, MID, TIGHT]     # loose to tight
+    assert {r["knob_name"] for r in rows} == {NAME}
     assert all(r["tol"] is None for r in rows)
     assert result["recommended_tolerance"] is None        # the knob is not tol
     picked = result["recommended_knob"]
     if code == ExitCode.OK:
-        assert picked == {"solver": "vecchia", "name": "rho", "value": picked["value"]}
-        assert picked["value"] in (1.5, 3.0, 6.0)
+        assert picked == {"solver": "vecchia", "name": NAME, "value": picked["value"]}
+        assert picked["value"] in (LOOSE, MID, TIGHT)
     else:
         assert picked is None
-    # the error of the Vecchia likelihood falls as rho grows (Schafer, Katzfuss and
-    # Owhadi 2021, SIAM J. Sci. Comput., Thm. 3.4: the KL error decays exponentially in rho)
+    # the error of the Vecchia likelihood falls as the conditioning sets grow (Schafer,
+    # Katzfuss and Owhadi 2021, SIAM J. Sci. Comput., Thm. 3.4: the KL error decays
+    # exponentially in the radius)
     errors = [abs(r["loglik_error"]["value"]) for r in rows]
     assert all(math.isfinite(e) for e in errors) and errors[-1] < errors[0]
     assert json.loads((out / "check.json").read_text())["recommended_knob"] == picked
 
 
-def test_check_terminal_output_names_rho(field_file, tmp_path, capsys):
+def test_check_terminal_output_names_the_knob(field_file, tmp_path, capsys):
     code = _verb(check_cli, ["check", str(field_file), "--coords", "e,n", "--value", "z",
-                             "--solver", "vecchia", "--knob-values", "2.5",
+                             "--solver", "vecchia", "--knob-values", f"{LOOSE:g}",
                              "--reference", "dense", "--no-refit", "--out",
                              str(tmp_path / "out")])
     text = capsys.readouterr().out
     assert code in (ExitCode.OK, ExitCode.FINDING)
-    assert "rho" in text and "tol 2.5" not in text
+    assert NAME in text and f"tol {LOOSE:g}" not in text
     if code == ExitCode.OK:
-        assert "recommendation: rho = 2.5" in text
+        assert f"recommendation: {NAME} = {LOOSE:g}" in text
 
 
 def test_check_of_a_tol_solver_keeps_tol_and_adds_the_knob(field_file, tmp_path, capsys):
@@ -175,12 +181,12 @@ def _case(tmp_path: Path, *, hodlr: str = "tolerances = [1e-4]", vecchia: str = 
 
 def test_case_file_knob_values_become_tasks(tmp_path):
     tasks = _case(tmp_path, hodlr="knob_values = [1e-4, 1e-8]",
-                  vecchia="knob_values = [2.5, 6]").tasks()
+                  vecchia=f"knob_values = [{LOOSE:g}, {TIGHT:g}]").tasks()
     got = {(t.solver, t.tol, t.knob_name, t.knob_value) for t in tasks}
     assert got == {("hodlr", 1e-4, "tol", 1e-4), ("hodlr", 1e-8, "tol", 1e-8),
-                   ("vecchia", None, "rho", 2.5), ("vecchia", None, "rho", 6.0)}
-    rho = [t for t in tasks if t.solver == "vecchia"]
-    assert rho[0].key != rho[1].key and rho[0].pair_key != rho[1].pair_key
+                   ("vecchia", None, NAME, LOOSE), ("vecchia", None, NAME, TIGHT)}
+    knob = [t for t in tasks if t.solver == "vecchia"]
+    assert knob[0].key != knob[1].key and knob[0].pair_key != knob[1].pair_key
 
 
 def test_case_file_without_values_uses_the_declared_sweep(tmp_path):
@@ -192,7 +198,8 @@ def test_case_file_without_values_uses_the_declared_sweep(tmp_path):
 @pytest.mark.parametrize("hodlr,vecchia,where,words", [
     ("tolerances = [1e-4]", "tolerances = [1e-4]", "solvers[1]", "knob_values"),
     ("tolerances = [1e-4]\nknob_values = [1e-6]", "", "solvers[0]", "not both"),
-    ("tolerances = [1e-4]", "knob_values = [0.5]", "solvers[1].knob_values[0]", RHO_RANGE),
+    ("tolerances = [1e-4]", f"knob_values = [{TOO_LOW:g}]", "solvers[1].knob_values[0]",
+     RANGE),
     ("knob_values = [3]", "", "solvers[0].knob_values[0]", "(0, 1)"),
 ])
 def test_case_file_knob_errors_name_file_and_solver_entry(tmp_path, hodlr, vecchia, where,
@@ -249,35 +256,35 @@ def test_run_of_hodlr_and_vecchia_writes_knob_columns_and_fits_each(tmp_path, ca
     assert _verb(run_cli, ["run", str(case), "--out", str(out)]) in (ExitCode.OK,
                                                                     ExitCode.FINDING)
     results = pd.read_csv(out / "results.csv")
-    assert len(results) == 3 * (2 + 3 + 1) and set(results["status"]) == {"ok"}
+    assert len(results) == 3 * (2 + len(KNOB.default_sweep) + 1)
+    assert set(results["status"]) == {"ok"}
     vecchia = results[results["solver"] == "vecchia"]
     hodlr = results[results["solver"] == "hodlr"]
-    assert (vecchia["knob_name"] == "rho").all() and vecchia["tol"].isna().all()
-    assert sorted(set(vecchia["knob_value"])) == [2.5, 4.0, 6.0]
+    assert (vecchia["knob_name"] == NAME).all() and vecchia["tol"].isna().all()
+    assert sorted(set(vecchia["knob_value"])) == sorted(KNOB.default_sweep)
     assert (hodlr["knob_name"] == "tol").all()
     assert (hodlr["knob_value"] == hodlr["tol"]).all() and hodlr["tol"].notna().all()
-    # each task ran at its own rho: at one size the likelihood error is not the same at
-    # rho 2.5 and 6 (the solver's default rho would give one value for all)
+    # each task ran at its own knob value: at one size the likelihood error differs
+    # between the loosest and the tightest (the solver's default would give one value)
     at200 = vecchia[vecchia["n"] == 200].set_index("knob_value")["loglik_abs_err"]
-    assert at200[2.5] != at200[6.0] and at200.notna().all()
+    assert at200[LOOSE] != at200[TIGHT] and at200.notna().all()
     for path in (out / "tasks").glob("*.json"):
         record = json.loads(path.read_text())
         task, audit = record["task"], record["result"].get("audit")
         if task["solver"] == "vecchia":
-            assert audit["knob_name"] == "rho" and audit["tol"] is None
+            assert audit["knob_name"] == NAME and audit["tol"] is None
             assert audit["knob_value"] == task["knob_value"]
     rows = scaling_rows(load_run(out), metrics=("t_factor", "loglik_abs_err"), rng=0)
     groups = {(r.solver, r.knob_name, r.knob_value) for r in rows if r.solver != "dense"}
     assert groups == {("hodlr", "tol", 1e-4), ("hodlr", "tol", 1e-6),
-                      ("vecchia", "rho", 2.5), ("vecchia", "rho", 4.0),
-                      ("vecchia", "rho", 6.0)}
+                      *(("vecchia", NAME, v) for v in KNOB.default_sweep)}
     assert all(r.fit is not None for r in rows if r.metric == "t_factor"), [
         r.refused for r in rows]
     verdicts = {(v.solver, v.knob_name, v.knob_value) for v in judge(load_run(out).results)
                 .verdicts}
     assert verdicts == groups
     html = render_report(load_run(out))
-    assert "rho = 2.5" in html and "vecchia rho=6" in html
+    assert f"{NAME} = {LOOSE:g}" in html and f"vecchia {NAME}={TIGHT:g}" in html
 
 
 # -- run-level verdicts per knob value -----------------------------------------------------
@@ -290,24 +297,23 @@ def _verdict_rows(specs: list[dict]) -> pd.DataFrame:
     return pd.DataFrame([{**base, **s} for s in specs])
 
 
-def _vecchia(rho: float, err: float, t: float) -> dict:
-    return dict(solver="vecchia", tol=np.nan, knob_name="rho", knob_value=rho,
+def _vecchia(value: float, err: float, t: float) -> dict:
+    return dict(solver="vecchia", tol=np.nan, knob_name=NAME, knob_value=value,
                 loglik_abs_err=err, param_shift_se_max=err, kriging_mean_err_sd_max=err / 4,
                 t_total=t)
 
 
-def test_run_verdicts_judge_each_rho_and_recommend_the_loosest_safe_one():
-    # limits 0.1 nat / 0.1 SE / 0.05 SD (DEVELOPERS.md, "The verdict rule"); for rho the
-    # loose end is the small one (harness.solvers.vecchia: larger is more accurate)
+def test_run_verdicts_judge_each_knob_value_and_recommend_the_loosest_safe_one():
+    # limits 0.1 nat / 0.1 SE / 0.05 SD (DEVELOPERS.md, "The verdict rule"); for the
+    # Vecchia knob the loose end is the small one (larger is more accurate)
     dense = dict(solver="dense", tol=np.nan, t_total=8.0)
-    vs = judge(_verdict_rows([_vecchia(2.5, 0.5, 1.0), _vecchia(4.0, 0.05, 2.0),
-                              _vecchia(9.0, 1e-4, 4.0), dense]))
+    vs = judge(_verdict_rows([_vecchia(LOOSE, 0.5, 1.0), _vecchia(MID, 0.05, 2.0),
+                              _vecchia(TIGHT, 1e-4, 4.0), dense]))
     status = {(v.solver, v.knob_name, v.knob_value): (v.status, v.tol) for v in vs.verdicts}
-    assert set(status) == {("vecchia", "rho", 2.5), ("vecchia", "rho", 4.0),
-                           ("vecchia", "rho", 9.0)}                 # dense is the speed unit
-    assert [status[("vecchia", "rho", r)][0] for r in (2.5, 4.0, 9.0)] == [
+    assert set(status) == {("vecchia", NAME, v) for v in (LOOSE, MID, TIGHT)}  # not dense
+    assert [status[("vecchia", NAME, v)][0] for v in (LOOSE, MID, TIGHT)] == [
         "unsafe", "safe", "safe"]
     assert all(math.isnan(tol) for _, tol in status.values())
     (rec,) = vs.recommendations
-    assert (rec.knob_name, rec.knob_value) == ("rho", 4.0) and math.isnan(rec.tol)
+    assert (rec.knob_name, rec.knob_value) == (NAME, MID) and math.isnan(rec.tol)
     assert rec.speedup == pytest.approx(8.0 / 2.0) and rec.speedup_over == "dense"
