@@ -24,7 +24,8 @@ The gate cannot pass silently: zero paired tasks, baseline tasks missing from th
 (unless ``allow_missing``), and a task that was ok in the baseline and is not now are
 regressions (``gate`` and ``status`` findings). Default factors and floors are common
 practice chosen for covaudit, not a published standard; override them per metric
-(``parse_check("logdet_abs_err:2x")``).
+(``gate_checks(max_ratios={"logdet_abs_err": 3.0}, floors={}, speed=True)``, or the old
+syntax ``parse_check("logdet_abs_err:3x")``).
 """
 
 from __future__ import annotations
@@ -43,6 +44,7 @@ from scipy import stats
 from harness.analysis.load import RunData
 from harness.audit.metric_names import metric as metric_by_name
 from harness.grid.store.columns import ACCURACY_COLUMNS, PHASES
+from harness.infra.option_specs import OptionError, OptionSpec
 from harness.model.json_values import json_text
 
 COMPARISON_FILE = "comparison.json"
@@ -70,7 +72,8 @@ COST_METRICS: frozenset[str] = frozenset(
 
 
 class CheckSyntaxError(ValueError):
-    """A ``--fail-on`` specification cannot be parsed."""
+    """A regression-gate option (``--max-ratio``, ``--ignore-below``, ``--fail-on``)
+    cannot be parsed."""
 
 
 @dataclass(frozen=True)
@@ -140,17 +143,18 @@ class SpeedCheck:
 Check = AccuracyCheck | SpeedCheck
 
 
-def parse_check(spec: str) -> Check:
-    """Parse ``METRIC:FACTORx[:FLOOR]`` (FLOOR only for error metrics).
+def parse_fail_on(spec: str) -> tuple[str, float, float | None]:
+    """The old ``--fail-on`` syntax ``METRIC:FACTORx[:FLOOR]`` as ``(metric as given,
+    factor, floor or None)``; ``--max-ratio`` and ``--ignore-below`` say the same in two
+    options.
 
-    >>> parse_check("logdet_abs_err:2x")
-    AccuracyCheck(metric='logdet_abs_err', factor=2.0, floor=1e-06)
+    >>> parse_fail_on("loglik_abs_err:3x:1e-9")
+    ('loglik_abs_err', 3.0, 1e-09)
     """
     parts = spec.split(":")
     if len(parts) not in (2, 3) or not parts[1].lower().endswith("x"):
         raise CheckSyntaxError(f"--fail-on {spec!r}: expected METRIC:FACTORx[:FLOOR], "
                                "e.g. logdet_abs_err:2x or t_factor:1.25x")
-    metric = _contract_column(parts[0].strip())
     try:
         factor = float(parts[1][:-1])
         floor = float(parts[2]) if len(parts) == 3 else None
@@ -159,16 +163,95 @@ def parse_check(spec: str) -> Check:
             from exc
     if not (math.isfinite(factor) and factor >= 1):
         raise CheckSyntaxError(f"--fail-on {spec!r}: the factor must be >= 1, got {factor}")
+    return parts[0].strip(), factor, floor
+
+
+def parse_check(spec: str) -> Check:
+    """The check an old ``--fail-on`` specification asks for (``parse_fail_on``).
+
+    >>> parse_check("logdet_abs_err:2x")
+    AccuracyCheck(metric='logdet_abs_err', factor=2.0, floor=1e-06)
+    """
+    name, factor, floor = parse_fail_on(spec)
+    return make_check(name, factor=factor, floor=floor, where=f"--fail-on {spec!r}")
+
+
+def make_check(name: str, *, factor: float | None, floor: float | None,
+               where: str) -> Check:
+    """The check of metric ``name`` (any of its names) with ``factor`` (None: the
+    default, 2 for an error metric, 1.25 for a cost) and ``floor`` (None: the metric's
+    default floor; error metrics only).
+
+    Raises
+    ------
+    CheckSyntaxError
+        Naming ``where`` (the option as given) for an unknown metric, or a floor on a
+        cost metric.
+    """
+    metric = _contract_column(name)
     if metric in ACCURACY_COLUMNS:
-        return AccuracyCheck(metric, factor,
+        return AccuracyCheck(metric, DEFAULT_ACCURACY_FACTOR if factor is None else factor,
                              ACCURACY_FLOORS.get(metric, 0.0) if floor is None else floor)
     if metric in COST_METRICS:
         if floor is not None:
-            raise CheckSyntaxError(f"--fail-on {spec!r}: a floor applies to error metrics "
-                                   "only")
-        return SpeedCheck(metric, factor)
+            raise CheckSyntaxError(f"{where}: a floor applies to error metrics only, not "
+                                   f"{metric}")
+        return SpeedCheck(metric, DEFAULT_SPEED_RATIO if factor is None else factor)
     known = ", ".join(sorted(ACCURACY_COLUMNS) + sorted(COST_METRICS))
-    raise CheckSyntaxError(f"--fail-on {spec!r}: unknown metric {metric!r}; known: {known}")
+    raise CheckSyntaxError(f"{where}: unknown metric {name!r}; known: {known}")
+
+
+def parse_metric_setting(text: str, *, flag: str, spec: OptionSpec) -> tuple[str, float]:
+    """``METRIC=VALUE`` (``--max-ratio loglik_abs_err=3``) as ``(metric, value)``, the
+    value validated by ``spec`` (``harness.infra.option_specs``).
+
+    Raises
+    ------
+    CheckSyntaxError
+        One line naming ``flag`` and what it was given.
+    """
+    name, sep, value = text.partition("=")
+    if not sep or not name.strip() or not value.strip():
+        raise CheckSyntaxError(f"{flag} {text!r}: expected METRIC=VALUE, e.g. "
+                               f"{flag} loglik_abs_err=3")
+    try:
+        number = spec.parse(value.strip())
+    except OptionError as exc:
+        raise CheckSyntaxError(f"{flag} {text!r}: {exc.core}") from None
+    return name.strip(), float(number)
+
+
+def gate_checks(*, max_ratios: Mapping[str, float], floors: Mapping[str, float],
+                speed: bool) -> tuple[Check, ...]:
+    """The gate's checks: the defaults (``default_checks``), each metric named in
+    ``max_ratios`` or ``floors`` (any of its names) with its ratio and floor replaced,
+    and no speed or memory check unless ``speed``.
+
+    Raises
+    ------
+    CheckSyntaxError
+        For an unknown metric or a floor on a cost metric, naming the option.
+    """
+    ratios = _by_column(max_ratios, flag="--max-ratio")
+    lows = _by_column(floors, flag="--ignore-below")
+    overrides = [make_check(column, factor=ratios.get(column), floor=lows.get(column),
+                            where=f"--ignore-below {column}" if column in lows
+                            else f"--max-ratio {column}")
+                 for column in dict.fromkeys([*ratios, *lows])]
+    return default_checks(accuracy_only=not speed, overrides=overrides)
+
+
+def _by_column(values: Mapping[str, float], *, flag: str) -> dict[str, float]:
+    """``values`` keyed by the results column each name reads (``_contract_column``); one
+    metric given under two of its names with different values is refused."""
+    out: dict[str, float] = {}
+    for name, value in values.items():
+        column = _contract_column(name)
+        if column in out and out[column] != value:
+            raise CheckSyntaxError(f"{flag} {name}: {column} is given twice (under two of "
+                                   "its names) with different values")
+        out[column] = value
+    return out
 
 
 def _contract_column(name: str) -> str:
@@ -403,14 +486,14 @@ def compare_runs(baseline: RunData, new: RunData, *,
                                         f"new run's {len(cur)}: nothing was compared"))
     if missing and not allow_missing:
         findings.append(_gate("missing", f"{len(missing)} baseline task(s) missing from the "
-                                         "new run (--allow-missing accepts that)"))
+                                         "new run (--missing-tasks list accepts that)"))
     speed_checks = [ch for ch in checks if isinstance(ch, SpeedCheck)]
     speed = "compared" if speed_checks else "not requested"
     if speed_checks:
         difference = _fingerprint_difference(baseline, new)
         if difference and not speed_across_machines:
             speed = f"skipped: machine fingerprints differ ({difference}); " \
-                    "--speed-across-machines compares anyway"
+                    "--speed-checks any-machine compares anyway"
             notes.append(f"speed checks {speed}")
             checks = tuple(ch for ch in checks if not isinstance(ch, SpeedCheck))
         elif difference:

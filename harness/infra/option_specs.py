@@ -26,8 +26,9 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 __all__ = [
-    "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "LADDER_FACTOR", "PROBES", "SOLVER_SEEDS",
-    "SOLVER_TIMEOUT", "SPECS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "KnobRange",
+    "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "IGNORE_BELOW", "LADDER_FACTOR", "MAX_RATIO",
+    "MISSING_TASKS", "PROBES", "SOLVER_SEEDS", "SOLVER_TIMEOUT", "SPECS", "SPEED_CHECKS",
+    "TOLERANCE", "VARIANCE_POINTS", "Interval", "KnobRange",
     "OptionError", "OptionSpec", "StrOptions", "check_values", "knob_option",
 ]
 
@@ -274,5 +275,27 @@ SOLVER_TIMEOUT = OptionSpec(
     Interval(float, 0.0, 7 * 86400.0, closed="right", noun="a number of seconds"), None,
     "seconds one call into the solver under test may take (default: from n)")
 
+#: The regression gate (``compare``): the largest ratio new / baseline a metric may reach
+#: (``--max-ratio METRIC=R``; default per metric, 2 for errors, 1.25 for times).
+MAX_RATIO = OptionSpec(
+    "max_ratio", float, Interval(float, 1.0, None, noun="a ratio"), None,
+    "largest allowed ratio new / baseline of one metric")
+#: The regression gate: an error below this value never counts as a regression
+#: (``--ignore-below METRIC=VALUE``; default per metric, round-off level).
+IGNORE_BELOW = OptionSpec(
+    "ignore_below", float, Interval(float, 0.0, None, noun="an error value"), None,
+    "error value under which a metric never counts as a regression")
+#: The regression gate: when speed and memory are compared (``--speed-checks``).
+SPEED_CHECKS = OptionSpec(
+    "speed_checks", str, StrOptions(frozenset({"same-machine", "off", "any-machine"})),
+    "same-machine",
+    "compare speed and memory: same-machine (only when the machine fingerprints match), "
+    "off, or any-machine")
+#: The regression gate: what baseline tasks absent from the new run are (``--missing-tasks``).
+MISSING_TASKS = OptionSpec(
+    "missing_tasks", str, StrOptions(frozenset({"fail", "list"})), "fail",
+    "baseline tasks absent from the new run: fail (a regression) or list (reported only)")
+
 SPECS: Sequence[OptionSpec] = (SOLVER_SEEDS, HOLDOUT_FRACTION, TOLERANCE, LADDER_FACTOR,
-                               PROBES, HOLDOUT_POINTS, VARIANCE_POINTS, SOLVER_TIMEOUT)
+                               PROBES, HOLDOUT_POINTS, VARIANCE_POINTS, SOLVER_TIMEOUT,
+                               MAX_RATIO, IGNORE_BELOW, SPEED_CHECKS, MISSING_TASKS)
