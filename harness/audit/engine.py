@@ -33,6 +33,7 @@ from harness.audit.rule import (
     tolerance_verdict,
     worst,
 )
+from harness.audit.saved_audits import SavedAudits
 from harness.audit.solver_calls import SolverIsolation, call_solver
 from harness.audit.solver_seeds import seeded_options
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
@@ -360,7 +361,8 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                      thresholds: Thresholds | None = None, fit_converged: bool = True,
                      progress: Callable[[str], None] | None = None,
                      detail: DetailRequest | None = None,
-                     isolation: SolverIsolation | None = None) -> EngineResult:
+                     isolation: SolverIsolation | None = None,
+                     saved: SavedAudits | None = None) -> EngineResult:
     """Audit ``tolerances`` of ``solver`` on ``data`` against ``reference`` over ``seeds``
     of the solver's randomness (``harness.audit.solver_seeds``), and recommend one.
 
@@ -376,7 +378,9 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     timeout or an exception of the solver gives the tolerance the status "solver failed"
     with a one-line reason, its later seeds are not run, and the other tolerances go on.
     Without it (a ``run`` task, whose worker process is that boundary) the solver runs
-    here and its errors make the tolerance unsafe.
+    here and its errors make the tolerance unsafe. With ``saved``
+    (``harness.audit.saved_audits``) an audit found there is reused, not rerun, and each
+    audit that finishes is handed to it as soon as it does.
     """
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
     from harness.solvers.registry import SolverRuntimeError
@@ -402,6 +406,10 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
             else f"knob value {at} ({len(seeds)} solver seed(s))")
         solver_failed = ""
         for index, seed in enumerate(seeds if ref is not None else ()):
+            reused = None if saved is None else saved.load(tol, index, seed)
+            if reused is not None:
+                rows.append(reused)
+                continue
             say(f"solver seed {index + 1}/{len(seeds)} at {at}")
             audit_seed, arguments = (
                 (_value_seed_audit, (index, seed, tol, data, solver, solver_options or {},
@@ -415,12 +423,17 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                 except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
                         np.linalg.LinAlgError) as exc:
                     failures.append(f"seed {index} ({seed}): {exc}")
+                    continue
+                if saved is not None:
+                    saved.save(tol, index, seed, rows[-1])
                 continue
             call = call_solver(audit_seed, *arguments, isolation=isolation,
                                who=f"solver {solver.name!r}",
                                where=f"at {at}, seed {index} (n = {data.y.size:,})")
             if not call.failure:
                 rows.append(call.value)
+                if saved is not None:
+                    saved.save(tol, index, seed, call.value)
                 continue
             failures.append(call.failure)
             if call.failed_solver:

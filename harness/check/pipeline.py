@@ -79,6 +79,7 @@ from harness.audit.solver_seeds import (
 from harness.audit.solver_trial import trial_solver
 from harness.audit.verdict import Thresholds
 from harness.check.check_records import CheckResult, MetricValue, RefitResult, ToleranceResult
+from harness.check.check_state import CheckState
 from harness.check.data_checks import ValidatedData
 from harness.check.fisher_steps import DECREMENT_TOL_NAT, fisher_scoring
 from harness.check.fit_engines import CompressedEngine, DenseEngine
@@ -469,8 +470,13 @@ def _row(audit: ToleranceAudit, reference: str) -> ToleranceResult:
 
 def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
               truth: Mapping[str, Any] | None = None,
-              progress: Progress | None = None) -> CheckResult:
-    """Run the whole check (module docstring) on validated data."""
+              progress: Progress | None = None,
+              state: CheckState | None = None) -> CheckResult:
+    """Run the whole check (module docstring) on validated data.
+
+    With ``state`` (``harness.check.check_state``) the fit and each finished (knob value,
+    seed) audit are saved as they finish, and those saved before are reused, not rerun.
+    """
     say: Progress = progress or (lambda _msg: None)
     start = time.perf_counter()
     solver = _resolve(options)
@@ -514,15 +520,20 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         notes.append(f"solver {solver.name!r} ran only in child processes: a trial on a "
                      f"few points before the fit, then each (knob value, seed) audit, "
                      f"stopped after {isolation.timeout:g} s ({isolation.timeout_option})")
-    if options.fixed_params is not None:
-        fitted = _fixed(x, y, options, d)
+    saved_fit = None if state is None else state.load_fit()
+    if state is not None and isinstance(saved_fit, _Fit):
+        fitted = saved_fit
+        say(f"reusing the saved fit ({fitted.info.get('method')}) from {state.folder}")
     else:
-        fitted = _fit(x, y, template, options, fit_rng, say)
-        if not fitted.converged:
-            reason = "; ".join(fitted.fit.notes) if fitted.fit else ""
-            warnings.append("the maximum-likelihood fit did not converge"
-                            + (f" ({reason})" if reason else "")
-                            + ": every verdict was measured at an unconverged estimate")
+        fitted = (_fixed(x, y, options, d) if options.fixed_params is not None
+                  else _fit(x, y, template, options, fit_rng, say))
+        if state is not None:
+            state.save_fit(fitted)
+    if not fitted.converged:  # a fixed-parameter check counts as converged
+        reason = "; ".join(fitted.fit.notes) if fitted.fit else ""
+        warnings.append("the maximum-likelihood fit did not converge"
+                        + (f" ({reason})" if reason else "")
+                        + ": every verdict was measured at an unconverged estimate")
     kernel, fisher = fitted.kernel, fitted.fisher
     notes.extend(fitted.notes)
     se = standard_errors(kernel, fisher)
@@ -558,10 +569,13 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     if kind == "ladder":
         growth = _growth(x, y, kernel, options, solver, growth_rng, say)
     notes.append(f"reference: {reference.info.description}")
+    if state is not None and (reused := state.saved_units(tols, seeds))[1]:
+        say(f"reusing {reused[0]} of {len(tols)} knob values ({reused[1]} of "
+            f"{len(tols) * len(seeds)} (knob value, seed) audits) from {state.folder}")
     result: EngineResult = audit_engine.audit_tolerances(
         audit_data, solver, tols, reference, seeds=seeds, solver_options=solver_options,
         thresholds=options.thresholds, fit_converged=fitted.converged, progress=say,
-        isolation=None if kind == "ladder" else isolation)
+        isolation=None if kind == "ladder" else isolation, saved=state)
     rows = [_row(a, kind) for a in result.tolerances]
     rows = [_with_growth(r, growth.get("per_tolerance", {}).get(repr(r.tol))) for r in rows]
     rec = result.recommendation

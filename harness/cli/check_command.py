@@ -265,8 +265,7 @@ def summary(result: CheckResult) -> str:
     solver = result.solver.get("name", "?")
     version = result.solver.get("version")
     per = "tolerance" if result.knob_name == "tol" else f"{result.knob_name} value"
-    lines = [f"WARNING: {w}" for w in result.warnings]
-    lines += [f"covaudit check: {result.source}: {result.n:,} points (all fitted; "
+    lines = [f"covaudit check: {result.source}: {result.n:,} points (all fitted; "
              f"{result.n_holdout:,} held out for the kriging evaluation), kernel "
              f"{result.kernel}, mean {result.mean}, reference {result.reference}",
              f"  solver      {solver}{f' {version}' if version else ''}, "
@@ -328,7 +327,7 @@ def summary(result: CheckResult) -> str:
                      f"{result.refit.accepted_steps} step(s) accepted")
         if result.refit.accepted_steps == 0 or not result.refit.converged:
             lines.append(f"  refit: {result.refit.note}")
-    lines += [f"WARNING: {w}" for w in result.warnings]
+    lines += [f"WARNING: {w}" for w in dict.fromkeys(result.warnings)]  # each once
     lines.append("  thresholds are common practice chosen for covaudit, not a published "
                  "standard")
     return "\n".join(lines)
@@ -368,6 +367,7 @@ def written_files(out: str | Path, names: list[str]) -> list[Path]:
 
 
 def run(args: argparse.Namespace) -> int:
+    from harness.check.check_state import CheckState, state_folder, state_inputs
     from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
 
     out = Path(args.out) if args.out else default_out(args.datafile)
@@ -381,8 +381,17 @@ def run(args: argparse.Namespace) -> int:
         steps = options.tolerances if options.knob_values is None else options.knob_values
         progress = CheckProgress(tolerances=len(steps), refit=options.refit,
                                  enabled=progress_enabled(json_output=args.json))
+        reading = {"coords": coords, "value": args.value, "coord_system": args.coord_system,
+                   "drop_missing": args.drop_missing,
+                   "average_duplicates": args.average_duplicates}
+        state, line = CheckState.open(state_folder(out),
+                                      state_inputs(args.datafile, reading, options))
+        if line:
+            progress(line)
         try:
-            result = run_check(data, options, source=str(args.datafile), progress=progress)
+            result = run_check(data, options, source=str(args.datafile), progress=progress,
+                               state=state)
+            progress.finish()
         finally:
             progress.close()
         failed = [row for row in result.tolerances if row.status == SOLVER_FAILED]
@@ -397,7 +406,7 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit check: solver failed: {exc}", file=sys.stderr)
         return ExitCode.SOLVER_FAILED
     print(json_text(result) if args.json else summary(result))
-    for warning in result.warnings if args.json else ():
+    for warning in dict.fromkeys(result.warnings) if args.json else ():
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
     for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
         print(line, file=sys.stderr if args.json else sys.stdout)
