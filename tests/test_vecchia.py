@@ -20,6 +20,7 @@ from harness.audit.metrics.kl_divergence import (
     KL_NAT,
     kl_divergence_estimate,
     kl_divergence_exact,
+    kl_divergence_from_kernel,
 )
 from harness.model.kernels import Exponential, Matern32
 from harness.references.dense_reference import dense_evaluate
@@ -279,6 +280,9 @@ def test_kl_matches_dense_numpy():
     assert abs(est.value - exact.value) <= 4 * est.stderr + 1e-9
     assert kl_divergence_exact(f, cholesky=chol).value == pytest.approx(exact.value,
                                                                       rel=1e-10)
+    by_columns = kl_divergence_from_kernel(f, KERNEL, x, logdet_exact=exact.logdet_exact,
+                                           block=97)
+    assert by_columns.value == pytest.approx(exact.value, rel=1e-10)
 
 
 def test_kl_falls_with_the_knob():

@@ -97,7 +97,7 @@ class DenseReference:
         train_product = KernelOperator(data.points[data.train], data.kernel, progress=False)
         self._sides = ReferenceSides(full=sides.full, kriging=sides.kriging,
                                      train_matvec=train_product.matvec,
-                                     loglik_seconds=sides.full.loglik_seconds)
+                                     loglik_seconds=sides.full.loglik_seconds, exact=True)
 
     def sides(self, tol: float) -> ReferenceSides:
         return self._sides

@@ -105,7 +105,9 @@ class ReferenceSides:
 
     ``full`` is of all n points, ``kriging`` of the points other than the held-out ones,
     ``train_matvec`` the reference's Sigma product on those points (efficiency criteria),
-    ``loglik_se`` the reference log-likelihood's own standard error (0 when exact).
+    ``loglik_se`` the reference log-likelihood's own standard error (0 when exact);
+    ``exact`` whether ``full`` is of the exact Sigma (dense), so that the KL divergence
+    of each solver's Sigma~ from it is measured (``harness.audit.metrics.kl_divergence``).
     """
 
     full: Side
@@ -113,6 +115,7 @@ class ReferenceSides:
     train_matvec: Callable[[np.ndarray], np.ndarray]
     loglik_seconds: float
     loglik_se: float = 0.0
+    exact: bool = False
 
 
 class PairedReference(Protocol):
@@ -262,6 +265,7 @@ def _judge(metrics: Sequence[MetricValue]) -> tuple[MetricJudgement, ...]:
 def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: ResolvedSolver,
                 options: Mapping[str, object], ref: ReferenceSides,
                 thresholds: Thresholds) -> SeedAudit:
+    from harness.audit.metrics.kl_divergence import KL_NAT, kl_divergence_from_kernel
     from harness.audit.sides import evaluate_side, kriging_side, predictor_mse
     from harness.audit.tolerance_metrics import kriging_metrics, likelihood_metrics
 
@@ -274,10 +278,17 @@ def _seed_audit(index: int, seed: int, tol: float, data: AuditData, solver: Reso
                          probes=data.probes, factor_seconds=time.perf_counter() - t0)
     notes = tuple(getattr(fac, "notes", ()))
     nbytes = int(fac.nbytes)
+    kl = (kl_divergence_from_kernel(fac, kernel, x, logdet_exact=ref.full.logdet)
+          if ref.exact else None)
     del fac
     metrics = likelihood_metrics(side, ref.full, kernel=kernel, fisher=data.fisher,
                                  probes=data.probes, thresholds=thresholds,
                                  reference_loglik_se=ref.loglik_se)
+    if kl is not None:
+        metrics.append(MetricValue(
+            KL_NAT, kl.value,
+            note="nats; KL(N(0, Sigma) || N(0, Sigma~)) of the whole distribution, exact "
+                 "(Sigma's columns from the kernel, log det Sigma from the dense reference)"))
     fac_t = solver.factorize(x[train], kernel, kernel.theta, **opts)
     held = x[data.holdout]
     ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,

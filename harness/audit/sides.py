@@ -25,6 +25,7 @@ row blocks of the kernel's derivative blocks (all parameters at once).
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -49,7 +50,8 @@ class Side:
     """Likelihood quantities of one factorization of all n points (module docstring).
 
     ``seconds`` holds ``factor`` (building the factorization), ``loglik`` (log det and
-    the GLS fit) and ``extras`` (score pieces).
+    the GLS fit) and ``extras`` (score pieces); ``logdet`` is log det of the factorized
+    matrix (the KL divergence needs the exact side's).
     """
 
     name: str
@@ -59,6 +61,7 @@ class Side:
     sinv_deriv_probes: np.ndarray      # (p, n, k)
     seconds: dict[str, float]
     nbytes: int
+    logdet: float = math.nan
 
     @property
     def loglik_seconds(self) -> float:
@@ -165,7 +168,7 @@ def evaluate_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarr
     seconds["extras"] = time.perf_counter() - t0
     return Side(name=name, loglik=fit.loglik, beta=fit.beta, quad=np.asarray(quad),
                 sinv_deriv_probes=sinv, seconds=seconds,
-                nbytes=int(getattr(fac, "nbytes", 0)))
+                nbytes=int(getattr(fac, "nbytes", 0)), logdet=logdet)
 
 
 def kriging_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,

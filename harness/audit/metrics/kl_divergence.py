@@ -8,6 +8,10 @@ For zero-mean Gaussians (e.g. Schafer, Katzfuss and Owhadi 2021, SIAM J. Sci. Co
 
 ``kl_divergence_exact`` takes Sigma densely (or its lower Cholesky factor) and forms
 tr(Sigma~^-1 Sigma) from the factorization's solves, a block of columns at a time.
+``kl_divergence_from_kernel`` forms the same exact trace without holding Sigma: it builds
+Sigma's columns from the kernel a block at a time, tr = sum_B tr((Sigma~^-1 Sigma[:, B])[B]),
+and takes log det Sigma from an exact reference (a process that holds only the solver's
+factorization and the reference's numbers uses it).
 ``kl_divergence_estimate`` needs only products with Sigma: Hutchinson's estimator
 (Hutchinson 1989, Commun. Statist. Simul. Comput. 18) with Rademacher probes z,
 tr(Sigma~^-1 Sigma) ~ mean_j z_j' Sigma~^-1 Sigma z_j, with the standard error of that
@@ -93,6 +97,42 @@ def kl_divergence_exact(factorization: object, *, sigma: np.ndarray | None = Non
     return KlDivergence(value=_combine(trace, logdet_approx, logdet_exact, n), stderr=0.0,
                         trace=trace, logdet_approx=logdet_approx, logdet_exact=logdet_exact,
                         n=n)
+
+
+def kl_divergence_from_kernel(factorization: object, kernel: object, points: np.ndarray, *,
+                              logdet_exact: float, block: int = _BLOCK) -> KlDivergence:
+    """Exact KL divergence with Sigma's columns built from ``kernel`` a block at a time.
+
+    Parameters
+    ----------
+    factorization : Factorization
+        Sigma~ (``solve``, ``logdet``).
+    kernel : Kernel
+        The exact model at the same parameters (``block(points, rows, cols)``).
+    points : ndarray, shape (n, d)
+    logdet_exact : float
+        log det Sigma from an exact reference.
+    block : int
+        Columns per solve: memory O(n block), work n^2 kernel entries plus n / block
+        solves with ``block`` right-hand sides.
+    """
+    x = np.asarray(points, dtype=float)
+    n = x.shape[0]
+    if not math.isfinite(logdet_exact):
+        raise ValueError(f"logdet_exact must be finite, got {logdet_exact!r}")
+    rows = np.arange(n)
+    trace = 0.0
+    for c0 in range(0, n, block):
+        cols = rows[c0:min(n, c0 + block)]
+        solved = factorization.solve(kernel.block(x, rows, cols))  # type: ignore[attr-defined]
+        trace += float(np.trace(solved[cols]))
+    logdet_approx = float(factorization.logdet())  # type: ignore[attr-defined]
+    value = _combine(trace, logdet_approx, logdet_exact, n)
+    if not math.isfinite(value):
+        raise FloatingPointError(f"KL divergence is not finite (trace {trace!r}, log det "
+                                 f"{logdet_approx!r})")
+    return KlDivergence(value=value, stderr=0.0, trace=trace, logdet_approx=logdet_approx,
+                        logdet_exact=float(logdet_exact), n=n)
 
 
 def kl_divergence_estimate(factorization: object, sigma_matvec: Callable[[np.ndarray],
