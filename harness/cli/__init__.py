@@ -14,6 +14,7 @@ import sys
 from collections.abc import Sequence
 
 from harness._version import __version__
+from harness.cli.help_format import DefaultsArgumentParser, DefaultsHelpFormatter
 from harness.infra.exit_codes import ExitCode
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
@@ -26,11 +27,14 @@ def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="covaudit",
         description="Audit compressed Gaussian-process solvers against exact references.",
+        formatter_class=DefaultsHelpFormatter,
     )
     parser.add_argument("--version", action="version", version=f"covaudit {__version__}")
     parser.add_argument("-v", "--verbose", action="count", default=0,
                         help="more log output (repeat for debug)")
-    subparsers = parser.add_subparsers(dest="verb", metavar="VERB", required=True)
+    subparsers = parser.add_subparsers(
+        dest="verb", metavar="VERB", required=True,
+        parser_class=DefaultsArgumentParser)
     for verb in VERBS:
         importlib.import_module(f"harness.cli.{verb}_command").add_parser(subparsers)
     return parser

@@ -1,7 +1,7 @@
 """``covaudit check``: is a compression tolerance safe for my data?
 
 Reads a CSV/Parquet file, validates it, fits the covariance model by maximum
-likelihood (or takes ``--params``), audits every tolerance against the exact reference
+likelihood (or takes ``--fixed-params``), audits every tolerance against the exact reference
 (``harness.check``), prints the verdict table and writes ``check.json`` and
 ``check.html`` into ``--out``. Outputs are written to a temporary folder beside
 ``--out`` and moved into place only when everything succeeded.
@@ -52,6 +52,7 @@ from harness.infra.option_specs import (
     OptionError,
 )
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
+from harness.linalg.dense_budget import DEFAULT_BUDGET_FRACTION
 from harness.model import MEAN_MODELS
 from harness.model.json_values import json_text as strict_json
 from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
@@ -78,11 +79,15 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--value", required=True, help="column of observed values")
     p.add_argument("--kernel", default="matern32", help=f"one of: {', '.join(KERNELS)}")
     p.add_argument("--param", action="append", default=[], metavar="NAME=VALUE",
-                   help="shape parameter (nu, alpha) or an extra starting value "
-                        "(variance, lengthscale, nugget) for the fit")
-    p.add_argument("--params", nargs="+", default=None, metavar="NAME=VALUE",
-                   help="use these parameters and skip the fit (same syntax as "
-                        "evaluate --param)")
+                   help="repeatable; a shape parameter (nu, alpha) is held at VALUE during "
+                        "the fit, any other (variance, lengthscale, nugget; lengthscale "
+                        "then required) is a starting value of the fit. To skip the fit, "
+                        "use --fixed-params")
+    p.add_argument("--fixed-params", nargs="+", default=None, metavar="NAME=VALUE",
+                   help="skip the fit and audit at these parameters, e.g. variance=1 "
+                        "lengthscale=0.2 nugget=0.01 (same syntax as evaluate --param; "
+                        "default: fit them)")
+    p.add_argument("--params", dest="fixed_params", nargs="+", help=argparse.SUPPRESS)
     p.add_argument("--anisotropic", action="store_true",
                    help="fit one length scale per coordinate")
     p.add_argument("--no-nugget", action="store_true", help="fit without a nugget")
@@ -141,7 +146,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--memory-budget",
                    type=float_range("--memory-budget", 0.0, 1e6, low_open=True),
                    default=None, metavar="GIB",
-                   help="memory the dense reference may use, in GiB")
+                   help="memory the dense reference may use, in GiB (default: "
+                        f"{100 * DEFAULT_BUDGET_FRACTION:.0f}%% of total memory)")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
     p.add_argument("--solver-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
                    metavar="SECONDS",
@@ -208,7 +214,8 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
     if start and "lengthscale" not in start:
         raise ParamSyntaxError("--param: a starting point needs lengthscale=... "
                                "(variance and nugget are optional)")
-    fixed = parse_params(args.params) if args.params else None
+    fixed = parse_params(args.fixed_params, flag="--fixed-params") \
+        if args.fixed_params else None
     if fixed is not None:
         shape = shape | {k: float(v) for k, v in fixed.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
         fixed = {k: v for k, v in fixed.items() if k not in SHAPE_NAMES}

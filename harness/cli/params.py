@@ -1,4 +1,5 @@
-"""Parsing ``--param name=value`` options and building the kernel they describe."""
+"""Parsing ``--param name=value`` (and ``check --fixed-params``) options and building the
+kernel they describe."""
 
 from __future__ import annotations
 
@@ -8,24 +9,26 @@ from harness.model.kernels import Kernel, KernelParameterError, make_kernel
 
 
 class ParamSyntaxError(ValueError):
-    """A ``--param`` option that is not ``name=value``."""
+    """A ``--param`` or ``--fixed-params`` value that is not ``name=value``."""
 
 
-def parse_params(items: Sequence[str]) -> dict[str, float | list[float]]:
+def parse_params(items: Sequence[str], *, flag: str = "--param"
+                 ) -> dict[str, float | list[float]]:
     """Name-value pairs to numbers: ``["variance=1", "lengthscale=0.1,0.3"]`` becomes
-    ``{"variance": 1.0, "lengthscale": [0.1, 0.3]}``."""
+    ``{"variance": 1.0, "lengthscale": [0.1, 0.3]}``; messages name ``flag``."""
     params: dict[str, float | list[float]] = {}
     for item in items:
         name, sep, text = item.partition("=")
         name = name.strip()
         if not sep or not name or not text.strip():
-            raise ParamSyntaxError(f"--param {item!r}: expected name=value, e.g. lengthscale=0.1")
+            raise ParamSyntaxError(f"{flag} {item!r}: expected name=value, e.g. "
+                                   "lengthscale=0.1")
         if name in params:
-            raise ParamSyntaxError(f"--param {name} given twice")
+            raise ParamSyntaxError(f"{flag} {name} given twice")
         try:
             values = [float(v) for v in text.split(",")]
         except ValueError:
-            raise ParamSyntaxError(f"--param {item!r}: {text!r} is not a number "
+            raise ParamSyntaxError(f"{flag} {item!r}: {text!r} is not a number "
                                    "(or comma-separated numbers)") from None
         params[name] = values if len(values) > 1 else values[0]
     return params
