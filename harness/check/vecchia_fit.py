@@ -11,28 +11,27 @@ exact MLE with the exact score.
    ``fisher_steps``). Deterministic: no probe, no seed.
 3. Exact refinement: where the dense log-likelihood with its score fits the memory
    budget (no dense Fisher information is needed), at most ``REFINE_MAX_STEPS`` steps
-   with the exact dense score g by defect correction with the Vecchia likelihood L~ as
-   the surrogate: at theta_k the offset c_k = g(theta_k) - g~(theta_k) is fixed and
-   L~(theta) + c_k'(theta - theta_k) is maximized by Fisher scoring (cheap Vecchia
-   evaluations only); the maximizer is the next theta. Its fixed points are the roots
-   of the exact score, and it converges at the rate at which the surrogate's curvature
-   differs from the exact one (a Newton-type step with the Vecchia likelihood's own
-   curvature, Fisher scoring of it included, as the model; the score is exact, so the
-   step is deterministic; bounds as in ``fisher_steps.free_step``). It stops when the
-   estimated distance to the exact MLE, sqrt(s' F~ s) in SE units of the step s to the
-   next target (a bound on every parameter's |s_i| / SE_i), is at most
+   s = B^-1 g with the exact dense score g and a metric B that starts as the Vecchia
+   Fisher information F~ at the pilot and takes, after each step, the BFGS update with
+   the step and the change of the exact score (Nocedal and Wright 2006, eq. 6.19:
+   B+ = B - B s s' B / s' B s + v v' / v' s with v = g_old - g_new, skipped unless
+   v' s > 0), so the metric learns the exact curvature along the steps taken. A
+   quasi-Newton step; the score is exact, so the step is deterministic; bounds as in
+   ``fisher_steps.free_step``. It stops when the estimated distance to the exact MLE,
+   sqrt(s' B s) in SE units (a bound on every parameter's |s_i| / SE_i), is at most
    ``REFINE_TOL_SE``. Beyond the budget the refinement is not done (an
    exact-operator score is not implemented here) and the record says so: the estimate
    is then the Vecchia MLE.
 
-Why ``FIT_RHO`` = 6: the Vecchia pass costs O(n m^2) with m nonzeros per column of the
+Why ``FIT_RHO`` = 9: the Vecchia pass costs O(n m^2) with m nonzeros per column of the
 inverse Cholesky factor, and m grows like rho^d (``harness.solvers.vecchia.sparsity``),
-so a fixed rho keeps m bounded whatever n: about 90-100 for 2D uniform points at rho =
-6 with the default supernodes (``harness.solvers.vecchia.factorization.RHO_KNOB``'s
-sweep), 39 on the demo's transects, a fraction of a second per evaluation at 8,000
-points. A tighter rho brings the Vecchia MLE nearer the exact one only slowly (on the
-demo the pilot is about 0.5 nat below the exact maximum), and the exact steps close
-that gap anyway; a looser one would make each of the pilot's evaluations dearer.
+so a fixed rho keeps m bounded whatever n: about 210-240 for 2D uniform points at
+rho = 9 with the default supernodes (``harness.solvers.vecchia.factorization.RHO_KNOB``'s
+sweep), 76 on the demo's transects (39 at rho = 6). The exact steps converge at the rate
+at which the metric misses the exact curvature, so the Vecchia Fisher information must
+be close: on the demo (8,000 points, 4 parameters) two exact steps from the rho = 6
+pilot ended 0.044 SE from the exact MLE, above ``REFINE_TOL_SE``, and from the rho = 9
+pilot (0.26 nat below the exact maximum) 0.015 SE, below it.
 """
 
 from __future__ import annotations
@@ -40,11 +39,17 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
-from harness.check.fisher_steps import DECREMENT_TOL_NAT, fisher_scoring
+from harness.check.fisher_steps import (
+    DECREMENT_TOL_NAT,
+    fisher_scoring,
+    free_step,
+    step_in_se,
+    step_norm_se,
+)
 from harness.check.fit_engines import DenseEngine, Engine, EngineEvaluation, VecchiaEngine
 from harness.check.fit_records import FitStage, MleFit, bounds_hit
 from harness.check.fitting import fit_mle
@@ -52,16 +57,13 @@ from harness.model.kernels import Kernel
 
 #: Conditioning radius of the fit's Vecchia likelihood, in maximin length scales
 #: (module docstring).
-FIT_RHO = 6.0
+FIT_RHO = 9.0
 #: Stop the exact refinement when sqrt(s' F s) <= this, in SE units.
 REFINE_TOL_SE = 0.02
 #: At most this many exact-score steps.
 REFINE_MAX_STEPS = 2
 #: Backtracking of an exact step: t = 1, 1/2, 1/4.
 _SMALLEST_STEP = 0.25
-#: Newton decrement (nats) of the inner fits on the offset surrogate: lambda = 1.4e-3
-#: SE, well inside ``REFINE_TOL_SE`` (``fisher_steps`` module docstring).
-_INNER_DECREMENT_NAT = 1e-6
 
 
 @dataclass(frozen=True)
@@ -85,53 +87,42 @@ class Refinement:
     note: str
 
 
-class OffsetEngine:
-    """The surrogate's log-likelihood plus the linear term c'(theta - theta_ref): score
-    g~(theta) + c, the same Fisher information (the defect correction of ``refine_exact``).
-    """
-
-    def __init__(self, surrogate: Engine, offset: np.ndarray, theta_ref: np.ndarray) -> None:
-        self.surrogate, self.offset, self.theta_ref = surrogate, offset, theta_ref
-        self.name = f"{getattr(surrogate, 'name', 'surrogate')} + exact-score offset"
-
-    def __call__(self, theta: np.ndarray, *, fisher: bool = False) -> EngineEvaluation:
-        ev = self.surrogate(theta, fisher=fisher)
-        shift = float(self.offset @ (np.asarray(theta) - self.theta_ref))
-        return replace(ev, loglik=ev.loglik + shift, score=np.asarray(ev.score) + self.offset)
+def bfgs_update(metric: np.ndarray, step: np.ndarray, change: np.ndarray) -> np.ndarray:
+    """B+ = B - B s s' B / (s' B s) + v v' / (v' s) (Nocedal and Wright 2006, eq. 6.19),
+    with v the decrease of the score along the step; B itself when v' s <= 0 (no
+    positive curvature seen: the update would lose positive definiteness)."""
+    curvature = float(change @ step)
+    bs = metric @ step
+    sbs = float(step @ bs)
+    if curvature <= 0.0 or sbs <= 0.0:
+        return metric
+    return metric - np.outer(bs, bs) / sbs + np.outer(change, change) / curvature
 
 
-def refine_exact(exact: Engine, surrogate: Engine, template: Kernel, theta0: np.ndarray, *,
+def refine_exact(exact: Engine, metric: Engine, theta0: np.ndarray, *,
                  bounds: Sequence[tuple[float, float]], max_steps: int = REFINE_MAX_STEPS,
                  tol_se: float = REFINE_TOL_SE, deadline: float | None = None
                  ) -> Refinement:
-    """At most ``max_steps`` exact steps from theta0 by defect correction (module
-    docstring, 3).
+    """At most ``max_steps`` steps s = B^-1 g from theta0 with the exact score g of
+    ``exact`` and the metric B: the Fisher information F~ of ``metric`` at theta0, BFGS
+    updated after every step (module docstring, 3). The returned ``fisher`` is F~ at
+    the end point (the SE unit of the audit).
 
-    At theta_k: the exact score g(theta_k) and the surrogate's g~(theta_k) give the
-    offset c_k = g(theta_k) - g~(theta_k); Fisher scoring on the surrogate plus
-    c_k'(theta - theta_k) (cheap evaluations only, to a Newton decrement of
-    ``_INNER_DECREMENT_NAT``) gives the target theta_k+1, whose fixed point is a root of
-    the exact score. The estimated distance to the exact MLE is sqrt(s' F~ s) of the
-    step s = theta_k+1 - theta_k in the surrogate's Fisher information F~ at theta_k.
     A step is accepted at the first t in 1, 1/2, 1/4 whose exact log-likelihood is not
     below the current one by more than 1e-8 nat (backtracking, Nocedal and Wright 2006,
-    Algorithm 3.1). ``deadline`` is a ``time.monotonic()`` value. The returned
-    ``fisher`` is F~ at the end point (the SE unit of the audit).
+    Algorithm 3.1). ``deadline`` is a ``time.monotonic()`` value.
     """
     lo = np.array([b[0] for b in bounds])
     hi = np.array([b[1] for b in bounds])
     theta = np.clip(np.asarray(theta0, dtype=float), lo, hi)
     current: EngineEvaluation = exact(theta)
     start_loglik = current.loglik
+    start_fisher = np.asarray(metric(theta, fisher=True).fisher)
+    curvature = start_fisher
     evaluations, steps, note = 1, 0, ""
     while True:
-        local = surrogate(theta, fisher=True)
-        fisher = np.asarray(local.fisher)
-        offset = np.asarray(current.score) - np.asarray(local.score)
-        target = fisher_scoring(OffsetEngine(surrogate, offset, theta), template, theta,
-                                bounds=bounds, decrement_tol=_INNER_DECREMENT_NAT)
-        step = target.theta - theta
-        distance = float(math.sqrt(max(float(step @ fisher @ step), 0.0)))
+        step, free = free_step(theta, np.asarray(current.score), curvature, lo, hi)
+        distance = step_norm_se(step, curvature, free)
         if distance <= tol_se:
             break
         if steps >= max_steps:
@@ -152,6 +143,7 @@ def refine_exact(exact: Engine, surrogate: Engine, template: Kernel, theta0: np.
                 t /= 2
                 continue
             if math.isfinite(trial.loglik) and trial.loglik >= current.loglik - 1e-8:
+                moved, previous_score = trial_theta - theta, np.asarray(current.score)
                 theta, current, accepted = trial_theta, trial, True
                 break
             t /= 2
@@ -161,15 +153,17 @@ def refine_exact(exact: Engine, surrogate: Engine, template: Kernel, theta0: np.
                     f"step(s), {distance:.3g} SE from the exact MLE)")
             break
         steps += 1
+        curvature = bfgs_update(curvature, moved,
+                                previous_score - np.asarray(current.score))
     converged = distance <= tol_se
     if converged:
         note = (f"converged: {distance:.2g} SE <= {tol_se:g} SE from the exact MLE after "
                 f"{steps} exact step(s)")
-    se = np.sqrt(np.diag(np.linalg.inv(fisher)))
+    end_fisher = np.asarray(metric(theta, fisher=True).fisher) if steps else start_fisher
     return Refinement(theta=theta, loglik=current.loglik, start_loglik=start_loglik,
-                      score=np.asarray(current.score), fisher=fisher, steps=steps,
+                      score=np.asarray(current.score), fisher=end_fisher, steps=steps,
                       evaluations=evaluations, converged=converged, distance_se=distance,
-                      step_se=float(np.max(np.abs(step) / se)), note=note)
+                      step_se=step_in_se(step, curvature, free), note=note)
 
 
 def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
@@ -237,7 +231,7 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
     else:
         exact = DenseEngine(points, y, template, mean=mean, memory_budget=memory_budget)
         refine_start = time.perf_counter()
-        refined = refine_exact(exact, vecchia, template, pilot.theta, bounds=bounds,
+        refined = refine_exact(exact, vecchia, pilot.theta, bounds=bounds,
                                tol_se=refine_tol_se, deadline=deadline)
         refinement = refined.note
         evaluations += refined.evaluations
