@@ -62,7 +62,8 @@ def _meet(a1: float, b1: float, a2: float, b2: float) -> float:
     """n where a1 + b1 log n = a2 + b2 log n, when the first is cheaper beyond it."""
     if not b2 > b1:
         return float("nan")
-    return float(np.exp((a1 - a2) / (b2 - b1)))
+    with np.errstate(over="ignore"):        # beyond float range: the lines meet at inf
+        return float(np.exp((a1 - a2) / (b2 - b1)))
 
 
 def crossover(fast: PowerLawFit, dense: PowerLawFit, *, level: float = 0.95) -> Crossover:
