@@ -33,7 +33,6 @@ from harness.audit.rule import (
     tolerance_verdict,
     worst,
 )
-from harness.audit.saved_audits import SavedAudits
 from harness.audit.solver_calls import SolverIsolation, call_solver
 from harness.audit.solver_seeds import seeded_options
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
@@ -183,6 +182,21 @@ class SeedAudit:
                 "status": {j.metric: j.status for j in self.judgements},
                 "seconds": number_or_none(self.seconds), "nbytes": self.nbytes,
                 "notes": list(self.notes), "error": self.error or None}
+
+
+class SavedAudits(Protocol):
+    """Where ``audit_tolerances(saved=...)`` finds and keeps finished (knob value, seed)
+    audits, so a caller that keeps them on disk (``check``'s state folder,
+    ``harness.check.check_state``) resumes after an interruption, losing at most the audit
+    in flight. The engine never knows how or where they are kept."""
+
+    def load(self, value: float, index: int, seed: int) -> SeedAudit | None:
+        """The saved audit of ``seed`` (the ``index``-th) at knob ``value``, or None."""
+        ...
+
+    def save(self, value: float, index: int, seed: int, audit: SeedAudit) -> None:
+        """Keep a finished audit (atomically: an interruption leaves it whole or absent)."""
+        ...
 
 
 @dataclass(frozen=True)
@@ -389,8 +403,8 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     timeout or an exception of the solver gives the tolerance the status "solver failed"
     with a one-line reason, its later seeds are not run, and the other tolerances go on.
     Without it (a ``run`` task, whose worker process is that boundary) the solver runs
-    here and its errors make the tolerance unsafe. With ``saved``
-    (``harness.audit.saved_audits``) an audit found there is reused, not rerun, and each
+    here and its errors make the tolerance unsafe. With ``saved`` (``SavedAudits``) an
+    audit found there is reused, not rerun, and each
     audit that finishes is handed to it as soon as it does.
     """
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
