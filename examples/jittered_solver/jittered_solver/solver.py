@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.linalg
+from harness.solvers.knobs import KnobSpec
 
 
 class JitteredCholesky:
@@ -57,3 +58,11 @@ def factorize(points: np.ndarray, kernel, theta: np.ndarray, *, tol: float,
         raise ValueError(f"jittered solver needs a finite tol >= 0, got {tol!r}")
     model = kernel.with_theta(theta)
     return JitteredCholesky(model.covariance(points), tol * model.variance)
+
+
+#: The accuracy knob: tol, the jitter as a fraction of the variance, at most 0.1
+#: (covaudit refuses larger values before calling the solver).
+factorize.knob = KnobSpec(  # type: ignore[attr-defined]
+    name="tol", kind="float", low=0.0, high=0.1, low_closed=False, high_closed=True,
+    more_accurate="smaller", default_sweep=(1e-2, 1e-4, 1e-6, 1e-8),
+    meaning="jitter on the diagonal, as a fraction of the kernel variance")
