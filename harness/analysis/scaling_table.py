@@ -32,6 +32,8 @@ from harness.analysis.scaling import (
 
 TIME_METRICS: tuple[str, ...] = ("t_factor", "t_logdet", "t_solve", "t_gradient", "t_total")
 MEMORY_METRICS: tuple[str, ...] = ("peak_rss_bytes", "nbytes")
+#: Errors fitted against n as well: the log-likelihood error and the KL divergence (nats).
+ERROR_METRICS: tuple[str, ...] = ("loglik_abs_err", "kl_nat")
 GROUP_COLUMNS: tuple[str, ...] = ("solver", "knob_name", "knob_value", "kernel", "geometry")
 DENSE_SOLVER = "dense"
 
@@ -104,7 +106,7 @@ def _repeats(run: RunData, keys: pd.DataFrame, metric: str) -> dict[float, list[
 def scaling_rows(
     run: RunData,
     *,
-    metrics: Sequence[str] = TIME_METRICS + MEMORY_METRICS,
+    metrics: Sequence[str] = TIME_METRICS + MEMORY_METRICS + ERROR_METRICS,
     level: float = 0.95,
     n_boot: int = 500,
     rng: np.random.Generator | None = None,

@@ -170,6 +170,7 @@ def group_metrics(req: DetailRequest) -> dict[str, Any]:
     """The task's detailed metrics and what they were measured on (the JSON-able body of
     a task record: ``metrics``, ``reference``, ``solver``, ``data``, ``memory``,
     ``seconds``, ``notes``)."""
+    from harness.audit.metrics.kl_divergence import KL_NAT, kl_divergence_from_kernel
     from harness.likelihood import evaluate_likelihood
 
     task, kernel, ref0, reference = req.task, req.kernel, req.ref0, req.reference
@@ -196,6 +197,10 @@ def group_metrics(req: DetailRequest) -> dict[str, Any]:
         metrics["reference_loglik_se"] = float(reference.uncertainty.get("loglik_se", 0.0))
         metrics["reference_loglik_bound"] = float(reference.uncertainty.get("loglik_bound",
                                                                             0.0))
+        if reference.kind == "dense":
+            kl = kl_divergence_from_kernel(fact, kernel, req.points,
+                                           logdet_exact=float(ref0.logdet))
+            metrics[KL_NAT] = kl.value
     _score_groups(req, sol0, metrics, notes)
     if "perturbed" in task.metrics:
         _perturbed_group(req, metrics, notes)

@@ -60,6 +60,7 @@ ACCURACY_COLUMNS: tuple[str, ...] = (
     "kriging_mean_err_sd_max",   # max |m~ - m| / sqrt(v)
     "kriging_var_rel_err_max",
     "mle_shift_se_max",          # optional end-to-end refit
+    "kl_nat",                    # KL(N(0, Sigma) || N(0, Sigma~)), nats; dense reference only
 )
 
 PHASES: tuple[str, ...] = ("assemble", "factor", "logdet", "solve", "gradient", "total")
@@ -80,6 +81,6 @@ RESULT_COLUMNS: tuple[str, ...] = IDENTITY_COLUMNS + ACCURACY_COLUMNS + COST_COL
 
 #: Contract columns older files may lack without anything being wrong (the metric is
 #: optional); readers add them as missing values without a note.
-OPTIONAL_COLUMNS: frozenset[str] = frozenset({"mle_shift_se_max", *KNOB_COLUMNS})
+OPTIONAL_COLUMNS: frozenset[str] = frozenset({"mle_shift_se_max", "kl_nat", *KNOB_COLUMNS})
 
 TIMING_COLUMNS: tuple[str, ...] = ("key", "phase", "repeat", "seconds")
