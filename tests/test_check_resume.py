@@ -163,3 +163,17 @@ def test_a_warning_is_printed_once(tmp_path):
     warned = [line for line in proc.stdout.splitlines()
               if line.startswith("WARNING: --reference ladder")]
     assert len(warned) == 1, proc.stdout
+
+
+def test_ctrl_c_keeps_what_was_saved(tmp_path):
+    _write_field(tmp_path / "field.csv")
+    # Ctrl-C (SIGINT) right after the fit was saved: exit code 130 (ExitCode.INTERRUPTED)
+    proc, err = _check(tmp_path, "field.csv", "out", label="interrupted",
+                       env={KILL_AFTER_SAVES_VARIABLE: "1:SIGINT"})
+    assert proc.returncode == 130, err
+    assert (state_folder(tmp_path / "out") / "fit.pickle").is_file()
+    assert not list(state_folder(tmp_path / "out").glob("*.tmp"))
+    proc, err = _check(tmp_path, "field.csv", "out", label="after",
+                       env={CRASH_STAGE_VARIABLE: "the dense fit"})
+    assert proc.returncode in (0, 1), err
+    assert "reusing the saved fit" in err and "knob values (" not in err

@@ -21,7 +21,8 @@ The files are Python pickles of the harness's own records: the folder is trusted
 output folder it sits in, and every file carries the key it was written under.
 
 A test kills the process after its N-th save with the environment variable
-``COVAUDIT_TEST_KILL_AFTER_SAVES`` = N (``KILL_AFTER_SAVES_VARIABLE``).
+``COVAUDIT_TEST_KILL_AFTER_SAVES`` = N (``KILL_AFTER_SAVES_VARIABLE``; ``N:SIGINT`` sends
+that signal instead of SIGKILL, as Ctrl-C would).
 """
 
 from __future__ import annotations
@@ -203,8 +204,9 @@ class CheckState:
             self._record()
         _write_atomically(self.folder / name, pickle.dumps((self.key, payload)))
         self.saves += 1
-        if os.environ.get(KILL_AFTER_SAVES_VARIABLE) == str(self.saves):
-            os.kill(os.getpid(), signal.SIGKILL)
+        count, _, name = os.environ.get(KILL_AFTER_SAVES_VARIABLE, "").partition(":")
+        if count == str(self.saves):
+            os.kill(os.getpid(), signal.Signals[name or "SIGKILL"])
 
     def load_fit(self) -> Any:
         """The saved fit, or None."""
