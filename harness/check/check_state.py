@@ -92,7 +92,8 @@ def state_inputs(datafile: str | Path, reading: Mapping[str, Any], options: Any
         Every field counts except ``RESULT_FREE_OPTIONS`` (``harness.check.pipeline``,
         which imports this module, so it is not named in the signature).
     """
-    inputs = {DATA_FILE_INPUT: file_digest(datafile), "covaudit": value_digest(__version__)}
+    inputs = {DATA_FILE_INPUT: file_digest(datafile),
+              "the covaudit version": value_digest(__version__)}
     inputs |= {f"option {name}": value_digest(value) for name, value in reading.items()}
     inputs |= {f"option {field.name}": value_digest(getattr(options, field.name))
                for field in dataclasses.fields(options)
