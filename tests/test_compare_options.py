@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -70,6 +71,14 @@ def test_help_shows_only_the_new_spellings():
         assert flag in text
     for flag in OLD_SPELLINGS:
         assert flag not in text
+
+
+def test_readme_shows_only_the_new_spellings():
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+    for flag in ("--max-ratio", "--ignore-below", "--speed-checks", "--missing-tasks"):
+        assert flag in readme
+    for flag in OLD_SPELLINGS:
+        assert flag not in readme
 
 
 @pytest.mark.parametrize(("argv", "note"), [
