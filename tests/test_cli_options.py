@@ -76,3 +76,24 @@ def test_help_defaults_read_as_words():
     assert "--json one JSON object on standard output (default: off)" in text
     assert "(default: matern32)" in text and "(default: constant)" in text
     assert "--value VALUE column of observed values (required)" in text
+
+
+def test_param_alone_gives_a_whole_starting_point():
+    # a lone --param lengthscale=... once built a start without the nugget (a theta one
+    # entry short, "operands could not be broadcast"); the others now come from the data
+    import numpy as np
+
+    from harness.check.fitting import data_scale
+    from harness.check.pipeline import _start_from_params
+
+    args = build_parser().parse_args([*CHECK, "--param", "lengthscale=250"])
+    options = options_from_args(args)
+    rng = np.random.default_rng(3)
+    x = rng.uniform(0, 1000, (50, 2))
+    y = rng.standard_normal(50)
+    from harness.model.kernels import make_kernel
+
+    template = make_kernel("matern32", {"variance": 1.0, "lengthscale": 1.0, "nugget": 0.1})
+    theta = _start_from_params(template, data_scale(x, y, mean=options.mean), options)
+    assert theta.shape == template.theta.shape
+    assert theta[1] == pytest.approx(np.log(250.0))        # the given value, on log scale

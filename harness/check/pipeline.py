@@ -87,6 +87,7 @@ from harness.check.fit_plan import DENSE_FIT_MAX_N, plan_fit
 from harness.check.fit_records import MleFit
 from harness.check.fitting import (
     DENSE_SCORE_TOL_SE,
+    DataScale,
     data_scale,
     default_bounds,
     default_starts,
@@ -311,6 +312,25 @@ class _Fit:
     converged: bool
 
 
+def _start_from_params(template: Kernel, scale: DataScale, options: CheckOptions
+                       ) -> np.ndarray:
+    """The starting theta ``--param`` asks for: the given values, the others from the
+    data's spread as in ``default_starts`` (0.8 of the variance, 0.2 of the diameter,
+    0.2 of the variance as nugget)."""
+    params: dict[str, Any] = {"variance": 0.8 * scale.variance,
+                              "lengthscale": [0.2 * scale.diameter] * len(template.lengthscale)}
+    if template.has_nugget:
+        params["nugget"] = 0.2 * scale.variance
+    given = dict(options.start_params or {})
+    params |= dict(options.shape) | given
+    theta = make_kernel(options.kernel, params).theta
+    if theta.shape != template.theta.shape:
+        raise CheckError(f"--param {given}: gives {theta.size} "
+                         f"parameters, the model has {template.theta.size} "
+                         f"({', '.join(template.param_names)})")
+    return theta
+
+
 def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
          rng: np.random.Generator, say: Progress) -> _Fit:
     """The MLE of all points and the Fisher information at it (module docstring 1-2)."""
@@ -319,8 +339,7 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
     bounds = default_bounds(template, scale)
     starts = default_starts(template, scale)
     if options.start_params:
-        extra = dict(options.shape) | dict(options.start_params)
-        starts.append(make_kernel(options.kernel, extra).theta)
+        starts.append(_start_from_params(template, scale, options))
     n = y.size
     dense_max_n = (DENSE_FIT_MAX_N if options.dense_fit_max_n is None
                    else options.dense_fit_max_n)

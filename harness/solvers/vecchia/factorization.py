@@ -260,8 +260,10 @@ def resolve_structure(points: np.ndarray, *, neighbours: int | None, rho: float 
         else:
             neighbours = DEFAULT_NEIGHBOURS
     rule, value = pattern_rule(neighbours=neighbours, rho=rho)
+    given = neighbours if rule == "neighbours" else rho
+    assert given is not None  # pattern_rule: exactly one was given
     (NEIGHBOURS_KNOB if rule == "neighbours" else RHO_RANGE).validate(
-        neighbours if rule == "neighbours" else rho, where="vecchia solver")
+        given, where="vecchia solver")
     if structure is not None:
         if structure.n != points.shape[0] or structure.key != points_key(points):
             raise ValueError("vecchia solver: the structure passed was built for other "
