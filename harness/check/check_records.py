@@ -24,7 +24,7 @@ class ToleranceResult:
 
     ``knob_name`` and ``knob_value`` name the solver's accuracy knob and the value
     audited (``harness.solvers.knobs``): for a ``tol`` solver ``tol == knob_value``; for
-    a solver with another knob (``rho``) ``tol`` is None.
+    a solver with another knob (``neighbours``) ``tol`` is None.
     """
 
     tol: float | None

@@ -68,7 +68,7 @@ class DenseEngine:
 class VecchiaEngine:
     """L~, its exact gradient and Fisher information by the built-in Vecchia solver.
 
-    The parameter-free structure (maximin order, radius-``rho`` pattern, supernodes of
+    The parameter-free structure (maximin order, ``neighbours`` nearest pattern, supernodes of
     ``lam``) is built here once and passed to every evaluation. The Fisher information
     comes from the same pass as the score, so ``fisher`` only decides whether it is
     returned.
@@ -77,10 +77,10 @@ class VecchiaEngine:
     name = "vecchia"
 
     def __init__(self, points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
-                 rho: float, lam: float | None = DEFAULT_LAM) -> None:
+                 neighbours: int, lam: float | None = DEFAULT_LAM) -> None:
         self.points, self.y, self.kernel, self.mean = points, y, kernel, mean
-        self.rho, self.lam = float(rho), lam
-        self.structure = build_structure(points, rho=rho, lam=lam)
+        self.neighbours, self.lam = int(neighbours), lam
+        self.structure = build_structure(points, neighbours=self.neighbours, lam=lam)
 
     @property
     def nnz_per_column(self) -> float:
@@ -90,7 +90,7 @@ class VecchiaEngine:
     def __call__(self, theta: np.ndarray, *, fisher: bool = False) -> EngineEvaluation:
         start = time.perf_counter()
         ev = vecchia_evaluate(self.points, self.y, self.kernel.with_theta(theta),
-                              rho=self.rho, lam=self.lam, mean=self.mean, score=True,
+                              lam=self.lam, mean=self.mean, score=True,
                               fisher=True, structure=self.structure)
         return EngineEvaluation(loglik=ev.loglik, score=np.asarray(ev.score),
                                 fisher=np.asarray(ev.fisher) if fisher else None,

@@ -96,7 +96,7 @@ from harness.check.fitting import (
     standard_errors,
 )
 from harness.check.plugin_guard import solver_isolation, trial_kernel
-from harness.check.vecchia_fit import FIT_RHO, REFINE_TOL_SE, fit_at_scale
+from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_TOL_SE, fit_at_scale
 from harness.infra.child_process import run_stage
 from harness.infra.option_specs import (
     LADDER_FACTOR,
@@ -371,7 +371,7 @@ def _fit(x: np.ndarray, y: np.ndarray, template: Kernel, options: CheckOptions,
         notes.append(f"fit: {fit.method}; pilot: {fit.stages[0].note}; exact refinement: "
                      f"{fit.refinement}")
         notes.append("Fisher information (SE units of the shift metrics) from the Vecchia "
-                     f"approximation at rho = {FIT_RHO:g}, not exact")
+                     f"approximation with {FIT_NEIGHBOURS} neighbours, not exact")
     else:
         tol_se = options.score_tol_se or COMPRESSED_SCORE_TOL_SE
         tightest = min(options.tolerances)

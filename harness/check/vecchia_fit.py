@@ -23,15 +23,16 @@ exact MLE with the exact score.
    exact-operator score is not implemented here) and the record says so: the estimate
    is then the Vecchia MLE.
 
-Why ``FIT_RHO`` = 9: the Vecchia pass costs O(n m^2) with m nonzeros per column of the
-inverse Cholesky factor, and m grows like rho^d (``harness.solvers.vecchia.sparsity``),
-so a fixed rho keeps m bounded whatever n: about 210-240 for 2D uniform points at
-rho = 9 with the default supernodes (``harness.solvers.vecchia.factorization.RHO_KNOB``'s
-sweep), 76 on the demo's transects (39 at rho = 6). The exact steps converge at the rate
-at which the metric misses the exact curvature, so the Vecchia Fisher information must
-be close: on the demo (8,000 points, 4 parameters) two exact steps from the rho = 6
-pilot ended 0.044 SE from the exact MLE, above ``REFINE_TOL_SE``, and from the rho = 9
-pilot (0.26 nat below the exact maximum) 0.015 SE, below it.
+Why ``FIT_NEIGHBOURS`` = 40: the Vecchia pass costs O(n m^2) with m nonzeros per column
+of the inverse Cholesky factor; a fixed count of nearest earlier points keeps m bounded
+whatever n (about 96 per column for 2D uniform points with the default supernodes,
+``harness.solvers.vecchia.factorization.NEIGHBOURS_KNOB``). The exact steps converge at
+the rate at which the metric misses the exact curvature, so the Vecchia Fisher
+information must be close to the exact one. On 2D uniform points (Matern 3/2, l = 0.1,
+nugget 1e-2, n = 4,096) 40 nearest points give a KL divergence of 0.18 nat from the exact
+model, against 12 nat for the radius rule at rho = 9 with 168 nonzeros per column, the
+setting with which two exact steps on the demo (8,000 points, 4 parameters) ended 0.015
+SE from the exact MLE (0.044 SE from rho = 6).
 """
 
 from __future__ import annotations
@@ -55,9 +56,9 @@ from harness.check.fit_records import FitStage, MleFit, bounds_hit
 from harness.check.fitting import fit_mle
 from harness.model.kernels import Kernel
 
-#: Conditioning radius of the fit's Vecchia likelihood, in maximin length scales
+#: Nearest earlier points each point conditions on in the fit's Vecchia likelihood
 #: (module docstring).
-FIT_RHO = 9.0
+FIT_NEIGHBOURS = 40
 #: Stop the exact refinement when sqrt(s' F s) <= this, in SE units.
 REFINE_TOL_SE = 0.02
 #: At most this many exact-score steps.
@@ -170,7 +171,7 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
                  starts: Sequence[np.ndarray], bounds: Sequence[tuple[float, float]],
                  pilot_index: np.ndarray, exact_score: bool,
                  memory_budget: int | None = None, time_budget: float = math.inf,
-                 max_iter: int = 200, max_steps: int = 20, rho: float = FIT_RHO,
+                 max_iter: int = 200, max_steps: int = 20, neighbours: int = FIT_NEIGHBOURS,
                  decrement_tol: float = DECREMENT_TOL_NAT,
                  refine_tol_se: float = REFINE_TOL_SE) -> MleFit:
     """The at-scale MLE of all points (module docstring).
@@ -195,8 +196,8 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
         unconverged.
     max_iter, max_steps : L-BFGS-B iterations of the start, Fisher-scoring steps of the
         pilot.
-    rho : float
-        The Vecchia likelihood's conditioning radius (``FIT_RHO``).
+    neighbours : int
+        The Vecchia likelihood's nearest earlier points per point (``FIT_NEIGHBOURS``).
     decrement_tol : float
         The pilot's Newton-decrement threshold in nats.
     refine_tol_se : float
@@ -208,11 +209,11 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
     start = fit_mle(DenseEngine(points[pilot_index], y[pilot_index], template, mean=mean),
                     template, starts=starts, bounds=bounds, max_iter=max_iter,
                     deadline=deadline)
-    vecchia = VecchiaEngine(points, y, template, mean=mean, rho=rho)
+    vecchia = VecchiaEngine(points, y, template, mean=mean, neighbours=neighbours)
     pilot = fisher_scoring(vecchia, template, start.theta, bounds=bounds,
                            max_steps=max_steps, decrement_tol=decrement_tol,
                            deadline=deadline)
-    pilot_note = (f"Fisher scoring on the Vecchia likelihood (rho = {rho:g}, "
+    pilot_note = (f"Fisher scoring on the Vecchia likelihood (neighbours = {neighbours}, "
                   f"{vecchia.nnz_per_column:.0f} nonzeros per column) from a dense "
                   f"L-BFGS-B start on {pilot_index.size:,} random points: "
                   + pilot.starts[0].message)
@@ -223,8 +224,8 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
         refinement = ("not done: the dense log-likelihood with its score at n = "
                       f"{y.size:,} is over the memory budget, and a refinement against "
                       "the exact operator is not implemented; the estimate is the "
-                      f"Vecchia MLE at rho = {rho:g}, its distance to the exact MLE not "
-                      "measured")
+                      f"Vecchia MLE at neighbours = {neighbours}, its distance to the "
+                      "exact MLE not measured")
     elif deadline is not None and time.monotonic() > deadline:
         refinement = ("not done: the fit's time budget was spent by the Vecchia pilot; "
                       "the estimate is the Vecchia MLE")
@@ -245,7 +246,7 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
         notes.append("exact refinement " + refinement)
         return MleFit(kernel=pilot.kernel, theta=pilot.theta, loglik=pilot.loglik,
                       score=pilot.score, engine="vecchia",
-                      method=f"Fisher scoring (Vecchia, rho = {rho:g})",
+                      method=f"Fisher scoring (Vecchia, neighbours = {neighbours})",
                       starts=(*start.starts, *pilot.starts), bounds=bounds,
                       bounds_hit=pilot.bounds_hit, evaluations=evaluations,
                       seconds=time.perf_counter() - t0, notes=tuple(notes),
@@ -264,7 +265,8 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
         notes.append(refined.note + ": not converged")
     return MleFit(kernel=kernel, theta=refined.theta, loglik=refined.loglik,
                   score=refined.score, engine="vecchia",
-                  method=f"Fisher scoring (Vecchia, rho = {rho:g}) + exact-score refinement",
+                  method=(f"Fisher scoring (Vecchia, neighbours = {neighbours}) + "
+                          "exact-score refinement"),
                   starts=(*start.starts, *pilot.starts), bounds=bounds,
                   bounds_hit=bounds_hit(refined.theta, bounds, template.param_names),
                   evaluations=evaluations, seconds=time.perf_counter() - t0,
