@@ -63,8 +63,6 @@ RHO_RANGE = KnobSpec(
     name="rho", kind="float", low=1.0, high=math.inf, low_closed=True, high_closed=True,
     more_accurate="larger", default_sweep=(2.5, 4.0, 6.0, 9.0),
     meaning="conditioning radius in units of the maximin length scale")
-#: Transitional name of ``RHO_RANGE`` (removed once every caller uses the new names).
-RHO_KNOB = RHO_RANGE
 DEFAULT_LAM = 1.5
 
 
