@@ -50,8 +50,9 @@ from harness.solvers.vecchia.vecchia_inputs import (
 #: there). Its default sweep gives about 20, 44, 96 and 200 nonzeros per column of U for
 #: 2D uniform points with the default supernodes (lam = 1.5; measured at n = 4,096),
 #: within the 10-400 per column that keeps a sweep at 10^6 points in memory. It starts
-#: at m = 10 because below it the KL divergence falls less than 5x per step (2D, Matern
-#: 3/2, l = 0.1, nugget 1e-2, n = 8,192: KL 248 nat at m = 5, 102 at 8, 42 at 12).
+#: at m = 10 because below it the KL divergence falls less than 5x per step: 4.7x from
+#: m = 5 to 10, then 9.1x, 17x and 43x per doubling (2D, Matern 3/2, l = 0.1, nugget
+#: 1e-2, n = 4,096, ``benchmarks/vecchia_pattern_rules.py``).
 NEIGHBOURS_KNOB = KnobSpec(
     name="neighbours", kind="int", low=1.0, high=math.inf, low_closed=True,
     high_closed=False, more_accurate="larger", default_sweep=(10.0, 20.0, 40.0, 80.0),
