@@ -50,13 +50,19 @@ def _run_case(casefile: str) -> float:
     return float(summary.seconds)
 
 
-def _demo_seconds() -> float:
+def _demo_run() -> dict:
+    """Wall seconds of ``covaudit demo`` (imports included), its exit code, and whether
+    its fit converged (``demo.json``)."""
     with tempfile.TemporaryDirectory() as tmp:
         start = time.perf_counter()
-        subprocess.run([sys.executable, "-c", "import sys; from harness.cli import main; "
-                        "sys.exit(main())", "demo", "--out", tmp],
-                       check=True, capture_output=True, text=True)
-        return time.perf_counter() - start
+        done = subprocess.run([sys.executable, "-c", "import sys; from harness.cli import "
+                               "main; sys.exit(main())", "demo", "--out", tmp],
+                              check=False, capture_output=True, text=True)
+        seconds = time.perf_counter() - start
+        report = Path(tmp) / "demo.json"
+        fit = json.loads(report.read_text())["fit"] if report.exists() else {}
+        return {"demo_wall_seconds": seconds, "demo_exit_code": done.returncode,
+                "demo_fit_converged": fit.get("converged")}
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -98,7 +104,7 @@ def main(argv: list[str] | None = None) -> int:
         "load_average_at_end": list(__import__("os").getloadavg()),
     }
     if args.demo:
-        out["demo_wall_seconds"] = _demo_seconds()
+        out.update(_demo_run())
     print(f"estimate {estimate.total_seconds:.1f} s (start-up {estimate.startup_seconds:.1f} "
           f"s, probe {rate.flops / 1e9:.2f} Gflop/s, load x{estimate.contention:.2f}), "
           f"measured {measured:.1f} s "
