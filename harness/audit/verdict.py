@@ -20,7 +20,7 @@ speed-up in median total time over the dense solver (over the tightest tolerance
 dense timing exists).
 
 A solver's accuracy knob (``harness.solvers.knobs``) need not be ``tol``: the verdicts are
-per value of the knob (``knob_name``, ``knob_value``; for the Vecchia solver ``rho``, where
+per value of the knob (``knob_name``, ``knob_value``; for the Vecchia solver ``neighbours``, where
 larger is more accurate), and ``tol`` holds the value only for a ``tol`` solver (NaN
 otherwise). A row with no knob value is an exact solver's: the speed reference.
 

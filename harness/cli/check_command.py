@@ -97,7 +97,7 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         f"{DEFAULT_TOLERANCES_TEXT})")
     p.add_argument("--knob-values", default=None, metavar="V1,V2,...",
                    help="comma-separated values of the --solver's accuracy knob (tol for "
-                        "hodlr, rho for vecchia; default: tol solvers the --tolerances "
+                        "hodlr, neighbours for vecchia; default: tol solvers the --tolerances "
                         "default, other solvers their declared sweep)")
     p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
                    help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
@@ -120,13 +120,15 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--probes", type=PROBES.argparse_type(), default=16,
                    help="probe vectors of the score-difference estimate")
     p.add_argument("--dense-fit-max-n", type=positive_int("--dense-fit-max-n"), default=None,
-                   help="optional cap on n for the dense fit (default: the memory budget "
-                        "and --fit-time-budget decide)")
+                   help="largest n fitted by the dense exact fit (default: 4,096, within "
+                        "the memory budget); above it the Vecchia pilot with exact-score "
+                        "steps")
     p.add_argument("--fit-time-budget", type=positive_float("--fit-time-budget"),
                    default=DEFAULT_FIT_TIME_BUDGET,
                    metavar="SECONDS",
-                   help="seconds the dense exact fit may be estimated to take (default "
-                        f"{DEFAULT_FIT_TIME_BUDGET:g}); beyond it the compressed fit is used")
+                   help="seconds the fit may take (default "
+                        f"{DEFAULT_FIT_TIME_BUDGET:g}); past them it stops and every verdict "
+                        "says it was measured at an unconverged estimate")
     p.add_argument("--solver", default="hodlr",
                    help="solver under test: hodlr, an entry-point name, or "
                         "package.module:factory (same registry as run)")

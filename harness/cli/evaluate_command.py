@@ -73,8 +73,8 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="compression tolerance of a tol solver (hodlr, plugins; default "
                         f"{DEFAULT_TOL:g})")
     p.add_argument("--knob-value", default=None, metavar="V",
-                   help="value of the --solver's accuracy knob (tol for hodlr, rho for "
-                        "vecchia), checked against its declared range; default: --tol for a "
+                   help="value of the --solver's accuracy knob (tol for hodlr, neighbours "
+                        "for vecchia), checked against its declared range; default: --tol for a "
                         "tol solver, the factory's own default otherwise")
     p.add_argument("--leaf-size", type=int_range("--leaf-size", 2, 2**20), default=128,
                    help="cluster-tree leaf size (hodlr)")

@@ -1,7 +1,7 @@
 """A solver's accuracy knob: its name, type, valid range, direction and default sweep.
 
 Every solver has one number that trades accuracy for cost: the HODLR solver's ``tol``
-(smaller is more accurate), the Vecchia solver's ``rho`` (larger is more accurate). A
+(smaller is more accurate), the Vecchia solver's ``neighbours`` (larger is more accurate). A
 factory declares it as an attribute, ``factorize.knob = KnobSpec(...)``; ``knob_of``
 reads it and gives the default ``tol`` declaration to factories that declare none
 (every plugin written against the original protocol).

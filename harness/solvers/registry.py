@@ -43,7 +43,7 @@ BUILTIN_SOLVERS: dict[str, tuple[str, str, str]] = {
     "hodlr": ("harness.solvers.hodlr", "factorize",
               "hierarchical off-diagonal low-rank factorization (built-in)"),
     "vecchia": ("harness.solvers.vecchia", "factorize",
-                "KL-minimizing sparse inverse Cholesky / Vecchia (built-in; knob rho)"),
+                "KL-minimizing sparse inverse Cholesky / Vecchia (built-in; knob neighbours)"),
 }
 
 

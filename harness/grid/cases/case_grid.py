@@ -41,7 +41,7 @@ class SolverEntry:
 
     ``tolerances`` holds the values of the knob named ``knob_name``
     (``harness.solvers.knobs``): tolerances for a ``tol`` solver (``(None,)`` for an exact
-    one), ``rho`` values for the Vecchia solver.
+    one), ``neighbours`` values for the Vecchia solver.
     """
 
     name: str

@@ -174,6 +174,21 @@ def radius_pattern(points_ordered: np.ndarray, lengths: np.ndarray, *,
 
 
 @numba.njit(inline="always", cache=True)
+def _heap_push(hd: np.ndarray, hj: np.ndarray, size: int, dist: float, j: int) -> None:
+    """Add (dist, j) to the max-heap on hd[:size] (which then holds size + 1)."""
+    c = size
+    hd[c] = dist
+    hj[c] = j
+    while c > 0:
+        par = (c - 1) // 2
+        if hd[par] >= hd[c]:
+            return
+        hd[par], hd[c] = hd[c], hd[par]
+        hj[par], hj[c] = hj[c], hj[par]
+        c = par
+
+
+@numba.njit(inline="always", cache=True)
 def _heap_down(hd: np.ndarray, hj: np.ndarray, size: int) -> None:
     """Restore the max-heap on hd[:size] after its root was replaced."""
     i = 0
@@ -211,17 +226,8 @@ def _nearest(xt, qk, k, m, idx, start, stop, left, right, lo, hi, low, hd, hj) -
                     break
                 dq = sq_dist(xt, qk, q)
                 if size < m:
-                    c = size
-                    hd[c] = dq
-                    hj[c] = j
+                    _heap_push(hd, hj, size, dq, j)
                     size += 1
-                    while c > 0:  # sift up
-                        par = (c - 1) // 2
-                        if hd[par] >= hd[c]:
-                            break
-                        hd[par], hd[c] = hd[c], hd[par]
-                        hj[par], hj[c] = hj[c], hj[par]
-                        c = par
                 elif dq < hd[0]:
                     hd[0] = dq
                     hj[0] = j
