@@ -11,7 +11,6 @@ Vecchia solver declares, whatever its name.
 from __future__ import annotations
 
 import argparse
-import json
 import math
 from pathlib import Path
 from typing import Any
@@ -24,7 +23,7 @@ from harness.analysis.regression import _task_label
 from harness.analysis.scaling_table import solver_label
 from harness.audit.engine import ToleranceAudit
 from harness.audit.rule import SAFE, UNSAFE, ReferenceInfo, recommend, tolerance_verdict
-from harness.cli import check_command, evaluate_command, run_command
+from harness.cli import check_command, evaluate_command
 from harness.grid.store.tables import result_row, timings_frame
 from harness.grid.tasks import PointSetSpec, Task
 from harness.infra.exit_codes import ExitCode
@@ -216,49 +215,3 @@ def test_compare_names_a_task_by_its_knob():
     tol_row = row.copy()
     tol_row[["solver", "tol", "knob_name", "knob_value"]] = ["hodlr", 1e-6, "tol", 1e-6]
     assert _task_label(tol_row) == "c: hodlr tol=1e-06 n=250 seed=0"
-
-
-TINY_CASE = """
-name = "tiny-rho"
-[[pointsets]]
-generator = "uniform"
-sizes = [100]
-[[kernels]]
-family = "matern32"
-lengthscale = 0.2
-nugget = 1e-2
-[mean]
-models = ["constant"]
-[[solvers]]
-name = "vecchia"
-knob_values = [3.0]
-[trace]
-method = "exact"
-[metrics]
-compute = ["loglik"]
-holdout = 16
-[timing]
-enabled = false
-"""
-
-
-def test_a_run_task_records_its_knob_in_every_place(tmp_path: Path) -> None:
-    case = tmp_path / "tiny-rho.toml"
-    case.write_text(TINY_CASE)
-    out = tmp_path / "run"
-    assert _verb(run_command, ["run", str(case), "--out", str(out)]) in (ExitCode.OK,
-                                                                       ExitCode.FINDING)
-    (path,) = (out / "tasks").glob("*.json")
-    record = json.loads(path.read_text())
-    assert record["status"] == "ok", record.get("error")
-    task, result = record["task"], record["result"]
-    name = resolve_solver("vecchia").knob.name     # the declared knob, not tol
-    assert name != "tol"
-    expected = (None, name, 3.0)
-    assert (task["tol"], task["knob_name"], task["knob_value"]) == expected
-    assert (result["solver"]["tol"], result["solver"]["knob_name"],
-            result["solver"]["knob_value"]) == expected
-    assert (result["audit"]["tol"], result["audit"]["knob_name"],
-            result["audit"]["knob_value"]) == expected
-    row = pd.read_csv(out / "results.csv").iloc[0]
-    assert row["knob_name"] == name and row["knob_value"] == 3.0 and math.isnan(row["tol"])
