@@ -145,6 +145,13 @@ class CheckResult:
     #: One line per failure of the solver under test outside the audit of a knob value
     #: (the refit); each makes the exit code 3 (``harness.infra.exit_codes``).
     solver_failures: tuple[str, ...] = ()
+    #: Every solver of the check in the order listed (``harness.check.frontier``): its
+    #: knob, its points (the rows above with their timing and whether they are
+    #: non-dominated), its pick and why it has none. The single-solver keys above describe
+    #: the recommended solver (the first listed when none is safe).
+    solvers: tuple[dict[str, Any], ...] = ()
+    #: The recommendation across solvers (``harness.check.frontier.FrontierPick``).
+    frontier: dict[str, Any] = field(default_factory=dict)
 
     @property
     def knob_name(self) -> str:
@@ -177,4 +184,5 @@ class CheckResult:
             "n_variance_points": self.n_variance_points,
             "reference_by_metric": self.reference_by_metric,
             "solver_failures": list(self.solver_failures),
+            "solvers": list(self.solvers), "frontier": self.frontier,
         }
