@@ -1,5 +1,6 @@
-"""Methods-section export: scaling table (LaTeX booktabs and Markdown), figures (PDF and
-SVG) and a plain-text paragraph written from the run's own records.
+"""Methods-section export: scaling and time-to-accuracy tables (LaTeX booktabs and
+Markdown), figures (PDF and SVG) and a plain-text paragraph written from the run's own
+records.
 
 Nothing in the paragraph is fixed prose with numbers pasted in: hardware, threads,
 versions, sizes, tolerances and fitted exponents are read from ``run.json`` and the fits.
@@ -23,14 +24,22 @@ from harness.analysis.scaling_table import (
     display_table,
     scaling_rows,
 )
+from harness.analysis.time_to_accuracy import (
+    TimeToAccuracy,
+    default_limit,
+    time_to_accuracy,
+)
+from harness.audit.metric_names import LOGLIK_ERR_NAT
 from harness.report import figures
 from harness.report.run_report import thresholds_for
 from harness.report.style import figure_bytes
+from harness.report.time_to_accuracy_figure import time_to_accuracy_figure
+from harness.report.time_to_accuracy_tables import fits_table, points_table, target_text
 
 _LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#",
                   "_": r"\_", "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}",
                   "^": r"\textasciicircum{}", "\u2013": "--", "\u221e": r"$\infty$",
-                  "\u00b2": r"\textsuperscript{2}"}
+                  "\u00b2": r"\textsuperscript{2}", "\u2264": r"$\leq$"}
 PARAGRAPH_METRICS: tuple[str, ...] = ("t_factor", "t_total")
 PHASE_WORDS = {"t_factor": "factorization", "t_total": "total evaluation",
                "t_logdet": "log-determinant", "t_solve": "solve", "t_gradient": "gradient"}
@@ -156,14 +165,45 @@ def methods_paragraph(run: RunData, rows: Sequence[ScalingRow], *, level: float 
     return " ".join(parts) + "\n"
 
 
+def time_to_accuracy_texts(result: TimeToAccuracy, *, run_name: str, level: float
+                           ) -> tuple[str, str]:
+    """``time_to_accuracy.tex`` (two booktabs tables: the points, the fits) and
+    ``time_to_accuracy.md`` (the same two pipe tables) of ``result``."""
+    target = target_text(result)
+    points, fits = points_table(result), fits_table(result, level=level)
+    caption = (f"Time to accuracy: per solver and n, the cheapest measured knob value "
+               f"with {target} and its {result.cost} in seconds, median over seeds "
+               f"(run {run_name}).")
+    fit_caption = (f"Fitted exponents b of time to accuracy = c n^b over the sizes "
+                   f"reached, with {100 * level:g}% intervals (run {run_name}).")
+    if points.empty:
+        return ("% no solver has a measured accuracy\n",
+                "No solver has a measured accuracy.\n")
+    tex = (to_latex(points, caption=caption, label="tab:time-to-accuracy") + "\n"
+           + to_latex(fits, caption=fit_caption, label="tab:time-to-accuracy-fit"))
+    md = "\n".join([caption, "", to_markdown(points), fit_caption, "", to_markdown(fits)])
+    return tex, md
+
+
 def export_methods(run_dir: str | Path, *, to: str | Path, seed: int = 0,
-                   level: float = 0.95) -> ExportResult:
-    """Write ``scaling.tex``, ``scaling.md``, ``methods.txt`` and each figure as PDF and SVG
-    into ``to`` (created when absent)."""
+                   level: float = 0.95, accuracy_metric: str = LOGLIK_ERR_NAT,
+                   accuracy_limit: float | None = None) -> ExportResult:
+    """Write ``scaling.tex``, ``scaling.md``, ``time_to_accuracy.tex``,
+    ``time_to_accuracy.md``, ``methods.txt`` and each figure as PDF and SVG into ``to``
+    (created when absent).
+
+    ``accuracy_metric`` and ``accuracy_limit`` set the target of the time to accuracy
+    (``harness.analysis.time_to_accuracy``); the limit defaults to the run's verdict limit
+    on that metric."""
     run = load_run(run_dir)
     out = Path(to)
     out.mkdir(parents=True, exist_ok=True)
     rows = scaling_rows(run, level=level, rng=np.random.default_rng(seed))
+    th = thresholds_for(run)
+    limit = (default_limit(accuracy_metric, th) if accuracy_limit is None
+             else accuracy_limit)
+    accuracy = time_to_accuracy(run, limit=limit, metric=accuracy_metric, level=level,
+                                rng=np.random.default_rng(seed))
     table = display_table(rows)
     written: list[Path] = []
 
@@ -181,14 +221,17 @@ def export_methods(run_dir: str | Path, *, to: str | Path, seed: int = 0,
           if not table.empty else "% no scaling fit was possible\n")
     write("scaling.md", to_markdown(table) if not table.empty
           else "No scaling fit was possible.\n")
+    tex, md = time_to_accuracy_texts(accuracy, run_name=run.path.name, level=level)
+    write("time_to_accuracy.tex", tex)
+    write("time_to_accuracy.md", md)
     write("methods.txt", methods_paragraph(run, rows, level=level))
-    th = thresholds_for(run)
     figs = {"accuracy": figures.accuracy_vs_tolerance(run.results, thresholds=th),
             "error_vs_n": figures.error_vs_n(run.results, thresholds=th),
             "time_vs_n": figures.cost_vs_n(run.results, rows,
                                            metrics=("t_factor", "t_total")),
             "memory_vs_n": figures.cost_vs_n(run.results, rows, metrics=MEMORY_METRICS),
-            "trace_vs_probes": figures.trace_vs_probes(run.results)}
+            "trace_vs_probes": figures.trace_vs_probes(run.results),
+            "time_to_accuracy": time_to_accuracy_figure(accuracy)}
     for name, fig in figs.items():
         if fig is None:
             continue

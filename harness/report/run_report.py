@@ -27,6 +27,8 @@ from harness.analysis.scaling_table import (
     scaling_rows,
     solver_label,
 )
+from harness.analysis.time_to_accuracy import default_limit, time_to_accuracy
+from harness.audit.metric_names import LOGLIK_ERR_NAT
 from harness.audit.rule import ThresholdError, Thresholds
 from harness.audit.verdict import COMMON_PRACTICE, VerdictSet, judge
 from harness.report import figures
@@ -41,6 +43,8 @@ from harness.report.run_summary import (
     speedup_text,
 )
 from harness.report.style import data_uri
+from harness.report.time_to_accuracy_figure import time_to_accuracy_figure
+from harness.report.time_to_accuracy_tables import fits_table, points_table, target_text
 
 TEMPLATE = "report.html.j2"
 REPORT_FILE = "report.html"
@@ -258,6 +262,9 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "memory": figures.cost_vs_n(results, rows, metrics=MEMORY_METRICS),
         "trace": figures.trace_vs_probes(results),
     }
+    accuracy = time_to_accuracy(run, limit=default_limit(LOGLIK_ERR_NAT, th), level=level,
+                                rng=np.random.default_rng(seed))
+    figs["time_to_accuracy"] = time_to_accuracy_figure(accuracy)
     cases = sorted(set(results["case"].astype(str)) - {""})
     meta = run.meta
     toc = list(TOC)
@@ -287,6 +294,10 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "fitted_memory": fitted_any(rows, tuple(MEMORY_METRICS)),
         "slow_recommendations": _slow_recommendations(vs), "does_not_pay": DOES_NOT_PAY,
         "trace": html_table(_trace_table(vs)) if vs.trace else "",
+        "accuracy_target": target_text(accuracy),
+        "accuracy_points": html_table(points_table(accuracy)) if accuracy.series else "",
+        "accuracy_fits": html_table(fits_table(accuracy, level=level))
+        if accuracy.series else "",
         "failures": html_table(_failures(results)) if (results["status"] != "ok").any()
         else "",
         "environment": html_table(environment_summary(meta)),
