@@ -2,7 +2,11 @@
 every user string escaped).
 
 Order: the answer (recommended tolerance, its speed-up, the reference and compressed
-times in seconds, or a plain sentence when no tolerance pays), warnings, the verdict
+times in seconds, or a plain sentence when no tolerance pays), warnings, then, when the
+check audited solvers side by side (``result.solvers``, even one), the comparison across
+them: the recommendation in words, the frontier figure (error against time,
+``harness.report.frontier_figure``) and one row per (solver, knob value) point
+(``harness.report.frontier_section``); then the verdict
 table (compact numbers; the failing metric of an unsafe row marked by colour, a symbol
 and bold), a legend of every label (``harness.report.labels``), figures, then the fit,
 the spread over seeds and the notes. Rendered with jinja2 and ``autoescape=True``. The
@@ -24,6 +28,8 @@ from harness.audit.verdict import COMMON_PRACTICE
 from harness.check.check_records import CheckResult, ToleranceResult
 from harness.report import check_figures
 from harness.report.condense import collapse_notes, shorten
+from harness.report.frontier_figure import frontier_figure
+from harness.report.frontier_section import frontier_rows, frontier_summary
 from harness.report.labels import (
     COLUMN_LABELS,
     METRIC_LABELS,
@@ -31,6 +37,7 @@ from harness.report.labels import (
     MetricLabel,
     metric_label,
 )
+from harness.report.number_text import compact, knob_value_text
 from harness.report.run_summary import DOES_NOT_PAY
 from harness.report.style import data_uri
 
@@ -41,38 +48,6 @@ ERROR_WIDTH = 60
 TABLE_ORDER: tuple[str, ...] = ("loglik_error", "loglik_error_extrapolated",
                                 "param_shift_se", "kriging_mean_sd",
                                 "microergodic_shift_se", "kriging_var_ratio", "mloe", "mmom")
-
-
-def compact(value: Any) -> str:
-    """A short number: 3 significant digits, exponent form outside [1e-3, 1e4)."""
-    if value is None:
-        return ""
-    if isinstance(value, list):
-        return "(" + ", ".join(compact(v) for v in value) + ")"
-    if isinstance(value, bool | str):
-        return str(value)
-    if isinstance(value, int | np.integer):
-        return f"{int(value):,}"
-    v = float(value)
-    if not math.isfinite(v):
-        return "\u2013"
-    if v == 0:
-        return "0"
-    if 1e-3 <= abs(v) < 1e4:
-        return f"{v:.3g}"
-    mantissa, exponent = f"{v:.1e}".split("e")
-    return f"{mantissa.replace('.0', '')}e{int(exponent)}"
-
-
-def tolerance_text(value: float) -> str:
-    """A tolerance in exponent form, ``1e-3``, ``2.5e-7``."""
-    if not math.isfinite(value) or value <= 0:
-        return compact(value)
-    mantissa, exponent = f"{value:.2g}".split("e") if "e" in f"{value:.2g}" else (
-        f"{value / 10 ** math.floor(math.log10(value)):.2g}",
-        str(math.floor(math.log10(value))))
-    mantissa = mantissa.rstrip("0").rstrip(".") if "." in mantissa else mantissa
-    return f"{mantissa}e{int(exponent)}"
 
 
 @dataclass(frozen=True)
@@ -111,11 +86,8 @@ def _cells(row: ToleranceResult, names: list[str]) -> list[Cell]:
 
 
 def knob_text(result: CheckResult, value: float | None) -> str:
-    """A knob value as the report shows it: a tolerance as ``tolerance_text``, another
-    knob's value as ``6``."""
-    if value is None:
-        return "exact"
-    return tolerance_text(value) if result.knob_name == "tol" else f"{value:g}"
+    """A knob value of the recommended solver as the report shows it (``1e-6``, ``40``)."""
+    return knob_value_text(result.knob_name, value)
 
 
 def knob_noun(result: CheckResult) -> str:
@@ -208,6 +180,8 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
         "map": check_figures.points_map(points, holdout),
     }
     notes = [n.line() for n in collapse_notes(result.notes)]
+    frontier = frontier_figure(result)
+    frontier_table, frontier_notes = frontier_rows(result)
     env = jinja2.Environment(loader=jinja2.PackageLoader("harness.report", "templates"),
                              autoescape=True, undefined=jinja2.StrictUndefined)
     return env.get_template(TEMPLATE).render(
@@ -222,4 +196,7 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
             else result.refit.knob_value),
         terms=TERMS, practice=COMMON_PRACTICE, notes=notes,
         figures={k: (data_uri(f) if f is not None else "") for k, f in figures.items()},
-        all_labels=METRIC_LABELS)
+        all_labels=METRIC_LABELS, frontier=frontier_summary(result) if result.solvers
+        else None, frontier_table=frontier_table, frontier_notes=frontier_notes,
+        frontier_figure="" if frontier is None else data_uri(frontier.figure),
+        frontier_caption="" if frontier is None else frontier.caption)
