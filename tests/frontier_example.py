@@ -8,8 +8,8 @@ Solvers, in the order listed:
 * ``vecchia``, knob ``neighbours`` 10, 20, 40, 80: unsafe, unsafe, safe, safe; at 40 the
   log-likelihood error is exactly 0 and the kriging error is missing (null); 40 is tied
   with the pick (p = 0.41);
-* ``PLUGIN`` (``mypkg.solvers:make_solver``), knob ``rank`` 50, 200: 50 failed (no
-  metrics, no time), 200 is unsafe; no safe setting;
+* ``PLUGIN`` (a long module path, to stress the table's width), knob ``rank`` 50, 200:
+  50 failed (no metrics, no time), 200 is unsafe; no safe setting;
 * ``REFUSED`` (``other.mod:factory``): refused before any point.
 
 The exact (dense) log-likelihood takes 0.97 s; every point's time has 5 repeats.
@@ -24,7 +24,7 @@ from check_example import example_result
 
 from harness.check.check_records import CheckResult, MetricValue, ToleranceResult
 
-PLUGIN = "mypkg.solvers:make_solver"
+PLUGIN = "mypackage.compressed_solvers:make_block_low_rank_solver"
 REFUSED = "other.mod:factory"
 PLUGIN_FAILURE = ("raised ValueError: the factorization at rank 50 lost positive "
                   "definiteness in block 3 of 12; try a larger rank")

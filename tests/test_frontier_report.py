@@ -82,7 +82,7 @@ def test_three_panels_with_units_and_log_axes(drawn):
         assert ax.get_ylabel().endswith(UNITS[name]), ax.get_ylabel()
         assert ax.get_yscale() == "log" and ax.get_xscale() == "log"
     # the panels share the time axis; the bottom one names it with its unit
-    assert axes[-1].get_xlabel() == "median time of one log-likelihood evaluation (s)"
+    assert axes[-1].get_xlabel() == "median time of one fit evaluation (s)"
     assert figure_bytes(drawn.figure, "png")[:8] == b"\x89PNG\r\n\x1a\n"
 
 
@@ -411,3 +411,16 @@ def test_frontier_renders_at_1280_px_without_a_clipped_table(html, tmp_path):
     assert image["bottom"] - image["top"] > 300
     _visible(m["boxes"]["#frontier-statement"], WIDTH)
     screenshot(path, "check_report_frontier", tmp_path)
+
+
+def test_a_time_from_another_source_is_named_in_the_caption():
+    """Without timing repeats the pipeline gives a point the audit's time and names its
+    source (``time.source``); the caption counts such points."""
+    result = frontier_result(solvers=("hodlr",))
+    hodlr = dict(result.solvers[0])
+    source = "audit log-likelihood (median over solver seeds)"
+    hodlr["points"] = [p | {"time": {**p["time"], "source": source}}
+                       for p in hodlr["points"]]
+    drawn = frontier_figure(dataclasses.replace(result, solvers=(hodlr,)))
+    assert drawn is not None
+    assert f"4 point(s) show another time than timing repeats: {source}." in drawn.caption

@@ -1,6 +1,7 @@
-"""The check report's frontier figure: each error against the median time of one
-log-likelihood evaluation, one line per solver through its knob values, with the limits,
-the safe region, the exact reference's time and the non-dominated points marked.
+"""The check report's frontier figure: each error against the median time of one fit
+evaluation (``harness.check.solver_timing``), one line per solver through its knob
+values, with the limits, the safe region, the exact reference's time and the
+non-dominated points marked.
 
 Both axes are logarithmic. A log axis cannot show a missing value, a zero error or a
 missing time, so such points are left out and counted in the caption (``LeftOut``), never
@@ -10,6 +11,7 @@ exact); the panel shows its magnitude, as the limit applies to it.
 
 from __future__ import annotations
 
+from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -38,6 +40,7 @@ EXACT_STYLE: dict[str, Any] = {"color": "#000000", "linestyle": (0, (1, 2)),
 RING_STYLE: dict[str, Any] = {"marker": "o", "markersize": 13, "markerfacecolor": "none",
                               "markeredgecolor": "#000000", "markeredgewidth": 1.0,
                               "linestyle": "none"}
+TIME_LABEL = "median time of one fit evaluation (s)"
 #: Decades of margin around the drawn values on each log axis.
 MARGIN = 3.0
 
@@ -194,17 +197,24 @@ def _caption(result: CheckResult, left_out: dict[str, LeftOut], exact: str,
     left = ("Log axes cannot show a missing value, a zero error or a missing time; left "
             "out: " + "; ".join(missing) + "." if missing else
             "No point was left out of the log axes.")
+    sources = Counter(str(p["time"]["source"]) for s in result.solvers
+                      for p in points_of(s)
+                      if isinstance(p.get("time"), Mapping) and p["time"].get("source"))
+    other = "".join(f" {count} point(s) show another time than timing repeats: {source}."
+                    for source, count in sorted(sources.items()))
     empty = [str(s.get("given", "")) + f" ({s.get('status', '')})" for s in result.solvers
              if not points_of(s)]
     nothing = (" Nothing to draw for " + ", ".join(empty) + "." if empty else "")
-    return (f"Each error against the median time of one log-likelihood evaluation{over} "
-            "(seconds), both axes logarithmic; one line per solver through its knob "
+    return (f"Each error against the median time of one fit evaluation{over} (the "
+            "factorization, the log-likelihood and its score; seconds), both axes "
+            "logarithmic; one line per solver through its knob "
             "values, loose to tight. The dashed line is each metric's limit and the "
             "shaded band lies under it (a safe setting also needs its uncertainty under "
             "the limit). Ringed points are non-dominated: no other point of any solver is "
-            "both faster and more accurate. Open markers are not safe. The "
-            f"log-likelihood panel shows the error's magnitude. {exact_text} {left}"
-            f"{nothing}")
+            "both faster and more accurate (accuracy: the largest error as a fraction of "
+            "its limit). Open markers are not safe. The "
+            f"log-likelihood panel shows the error's magnitude.{other} {exact_text} "
+            f"{left}{nothing}")
 
 
 def frontier_figure(result: CheckResult) -> FrontierFigure | None:
@@ -232,7 +242,7 @@ def frontier_figure(result: CheckResult) -> FrontierFigure | None:
         axes[0].set_xscale("log")
         axes[0].set_xlim(*_limits(times + ([exact_seconds] if exact_seconds else [])
                                   or [1.0]))
-        axes[-1].set_xlabel("median time of one log-likelihood evaluation (s)")
+        axes[-1].set_xlabel(TIME_LABEL)
         fig.legend(handles=_legend_handles(result, exact), loc="outside upper center",
                    ncols=4, fontsize=7, frameon=False)
     return FrontierFigure(fig, _caption(result, left_out, exact, exact_seconds), left_out)
