@@ -424,3 +424,40 @@ def test_a_time_from_another_source_is_named_in_the_caption():
     drawn = frontier_figure(dataclasses.replace(result, solvers=(hodlr,)))
     assert drawn is not None
     assert f"4 point(s) show another time than timing repeats: {source}." in drawn.caption
+
+
+def test_every_solver_refused_still_gives_three_empty_panels_and_a_table():
+    result = frontier_result(solvers=(REFUSED,))
+    result = dataclasses.replace(result, frontier=result.frontier | {"recommended": None})
+    drawn = frontier_figure(result)
+    assert drawn is not None
+    for ax in drawn.figure.get_axes():
+        assert [len(ln.get_xdata()) for ln in _solver_lines(ax)[REFUSED]] == [0]
+        assert any(t.get_text().startswith("nothing to draw") for t in ax.texts)
+    assert f"Nothing to draw for {REFUSED} (refused)." in drawn.caption
+    page = _page(render_check_report(result))
+    assert [row[:3] for row in page.rows] == [[REFUSED, "tol", "refused"]]
+    assert ("dd", "none: no solver has a safe setting") in page.summary
+
+
+def test_a_solver_name_with_markup_and_dollars_is_escaped_and_drawn_as_text():
+    """A plugin is named as the user spelled ``--solver``: ``<`` must not become markup
+    and ``$`` must not start matplotlib's mathtext."""
+    result = frontier_result(solvers=("hodlr",))
+    odd = "pkg.<b>mod</b>:make$x$"
+    hodlr = dict(result.solvers[0]) | {"given": odd}
+    result = dataclasses.replace(result, solvers=(hodlr,),
+                                 frontier=result.frontier | {"recommended": None})
+    drawn = frontier_figure(result)
+    assert drawn is not None
+    assert figure_bytes(drawn.figure, "svg").startswith(b"<?xml")
+    # escaped, so mathtext keeps "$x$" as written instead of an italic x
+    assert _solver_lines(drawn.figure.get_axes()[0])[odd][0].get_label() == (
+        "pkg.<b>mod</b>:make\\$x\\$")
+    html = render_check_report(result)
+    assert "<b>mod</b>" not in html and "pkg.&lt;b&gt;mod&lt;/b&gt;:make$x$" in html
+    assert _page(html).rows[0][0] == odd
+
+
+def test_the_report_is_the_same_twice(result, html):
+    assert render_check_report(result) == html

@@ -168,7 +168,6 @@ def frontier_summary(result: CheckResult) -> dict[str, Any]:
         "no_safe": [f"{given}: {reason}" for given, reason in no_safe],
         "solver": str(chosen.get("solver", "")) if isinstance(chosen, Mapping) else "",
         "problems": problems, "speedups": speedups,
-        "repeats": frontier.get("timing_repeats"),
         "metrics": [metric_label(n) for n in FRONTIER_METRICS],
         "limits": [compact(limits[n]) if limits[n] is not None else ""
                    for n in FRONTIER_METRICS],
