@@ -91,13 +91,13 @@ def exported(tmp_path_factory) -> tuple[Path, Path]:
     return run, base / "out"
 
 
-def _expected(run: Path) -> dict[tuple[str, int], str]:
+def _expected(run: Path, limit: float = LIMIT) -> dict[tuple[str, int], str]:
     """Each (solver, n)'s knob text from results.csv: the cheapest t_total among the
     finished tasks with |loglik_err_nat| <= limit, or ``not reached at n = N``."""
     results = pd.read_csv(run / "results.csv")
     out = {}
     for (solver, n), tasks in results.groupby(["solver", "n"]):
-        meets = tasks[(tasks["status"] == "ok") & (tasks[LOGLIK_ERR_NAT].abs() <= LIMIT)]
+        meets = tasks[(tasks["status"] == "ok") & (tasks[LOGLIK_ERR_NAT].abs() <= limit)]
         if meets.empty:
             out[(solver, int(n))] = f"not reached at n = {int(n)}"
         else:
@@ -196,3 +196,25 @@ def test_run_report_holds_the_section_with_its_figure(exported):
     for (solver, n), text in _expected(run).items():
         assert re.search(rf"<td>{solver}</td>\s*<td>{n}</td>\s*<td>{re.escape(text)}</td>",
                          section), (solver, n, text)
+
+
+def test_export_takes_the_limit_from_the_command_line(exported, tmp_path):
+    run, _ = exported
+    # at 1 nat vecchia with 40 neighbours meets the limit at n = 800 (0.22 nat measured)
+    loose = _expected(run, limit=1.0)
+    assert loose != _expected(run) and not any(
+        text.startswith("not reached") for text in loose.values())
+    assert _verb(export_cli, ["export", str(run), "--to", str(tmp_path),
+                              "--loglik-nats", "1"]) == ExitCode.OK
+    rows = _markdown_rows((tmp_path / "time_to_accuracy.md").read_text(encoding="utf-8"))
+    assert {key: cells[2] for key, cells in rows.items()} == loose
+
+
+def test_export_refuses_a_limit_that_is_not_positive_in_one_line(exported, tmp_path,
+                                                                capsys):
+    run, _ = exported
+    with pytest.raises(SystemExit) as stop:
+        _verb(export_cli, ["export", str(run), "--to", str(tmp_path), "--loglik-nats", "0"])
+    assert stop.value.code == 2                       # argparse's usage error
+    lines = capsys.readouterr().err.strip().splitlines()
+    assert "--loglik-nats" in lines[-1] and not any(tmp_path.iterdir())
