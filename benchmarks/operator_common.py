@@ -16,7 +16,7 @@ import numpy as np
 from machine_unit import run_child
 from threadpoolctl import threadpool_info
 
-from harness.grid.store.environment import cpu_description, library_versions
+from harness.infra.machine import cpu_description, library_versions
 
 RESULTS = Path(__file__).resolve().parent / "results"
 

@@ -156,6 +156,7 @@ class OperatorReference:
                  preconditioner_tol: float = OPERATOR_PRECONDITIONER_TOL, leaf_size: int = 128,
                  memory_budget: int | None = None) -> None:
         from harness.references.operator import operator_evaluate, operator_kriging
+        from harness.references.operator.products import KernelOperator
         from harness.solvers.registry import resolve_solver
 
         self.probes = int(probes)
@@ -193,7 +194,10 @@ class OperatorReference:
                                   bound=0.5 * float(ev.quadratic_bound)),
             score=np.asarray(ev.score, dtype=float), score_se=score_se,
             krige_mean=np.asarray(kr.mean), krige_mean_bound=np.asarray(kr.mean_bound),
-            krige_var=np.asarray(kr.variance), loglik_seconds=seconds)
+            krige_var=np.asarray(kr.variance), loglik_seconds=seconds,
+            logdet=ReferenceValue(float(ev.logdet), se=float(ev.logdet_se)),
+            products=KernelOperator(x, kernel, memory_budget=memory_budget,
+                                    progress=False).matvec)
         self.kriging = KrigingSide("operator", np.asarray(kr.mean), np.asarray(kr.variance),
                                    data.variance_positions)
 

@@ -83,6 +83,12 @@ class AuditData:
     fisher: np.ndarray | None
     probes: np.ndarray
     variance_at: np.ndarray | None = None
+    #: Also estimate the KL divergence against a value reference (the exact operator),
+    #: with ``kl_probes`` Hutchinson probes of exact products (opt-in: it costs exact
+    #: products for every knob value and seed). A dense reference measures it exactly
+    #: whatever this says.
+    kl: bool = False
+    kl_probes: int = 32
 
     @property
     def variance_positions(self) -> np.ndarray:
@@ -144,6 +150,11 @@ class ReferenceValues:
     krige_mean_bound: np.ndarray | None
     krige_var: np.ndarray | None
     loglik_seconds: float
+    #: log det Sigma with its SE, and exact products B -> Sigma B (picklable), for the KL
+    #: estimate beyond the dense limit (``AuditData.kl``); None where the reference has
+    #: neither.
+    logdet: ReferenceValue | None = None
+    products: Callable[[np.ndarray], np.ndarray] | None = None
 
 
 class ValueReference(Protocol):
@@ -338,6 +349,10 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     seconds = time.perf_counter() - t0
     notes = tuple(getattr(fac, "notes", ()))
     nbytes = int(fac.nbytes)
+    kl = _estimated_kl(fac, ref, data, seed) if data.kl else None
+    if data.kl and kl is None:
+        notes += ("KL divergence not measured: this reference gives no exact products and "
+                  "log det Sigma",)
     del fac
     metrics = [MetricValue("loglik_error", ev.loglik - ref.loglik.value,
                            thresholds.loglik_nats,
@@ -349,6 +364,8 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     e_se = np.sqrt(ref.score_se ** 2 + solver_se ** 2)
     metrics.extend(shift_metrics(e, e_se, kernel=kernel, fisher=data.fisher,
                                  thresholds=thresholds))
+    if kl is not None:
+        metrics.append(kl)
     if ref.krige_mean is not None and ref.krige_var is not None:
         fac_t = solver.factorize(x[train], kernel, kernel.theta, **opts)
         ks = kriging_side(f"{solver.name} {tol:g}", fac_t, x[train], data.y[train], kernel,
@@ -374,6 +391,25 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                      f"[{ratio.min():.6g}, {ratio.max():.6g}]"))
     return SeedAudit(index=index, seed=seed, loglik=ev.loglik, metrics=tuple(metrics),
                      judgements=_judge(metrics), seconds=seconds, nbytes=nbytes, notes=notes)
+
+
+def _estimated_kl(fac: object, ref: ReferenceValues, data: AuditData, seed: int
+                  ) -> MetricValue | None:
+    """KL(N(0, Sigma) || N(0, Sigma~)) by Hutchinson's estimator with the reference's
+    exact products (``harness.audit.metrics.kl_divergence.kl_divergence_estimate``); its
+    uncertainty combines the probes' SE with 1/2 the SE of the reference's log det Sigma
+    (independent). None when the reference offers no products or log det."""
+    from harness.audit.metrics.kl_divergence import KL_NAT, kl_divergence_estimate
+
+    if ref.products is None or ref.logdet is None:
+        return None
+    kl = kl_divergence_estimate(fac, ref.products, logdet_exact=ref.logdet.value,
+                                probes=data.kl_probes, rng=np.random.default_rng([seed, 7]))
+    se = math.hypot(kl.stderr, 0.5 * ref.logdet.se)
+    return MetricValue(KL_NAT, kl.value, uncertainty=se,
+                       note=f"nats; KL(N(0, Sigma) || N(0, Sigma~)) estimated with "
+                            f"{kl.probes} Hutchinson probes of exact products and the "
+                            f"reference's log det Sigma (SE {se:.2g}, information)")
 
 
 #: Limited metrics every seed must measure (a missing one makes the verdict unresolved).

@@ -35,6 +35,7 @@ import pickle
 import signal
 import tempfile
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -48,7 +49,7 @@ FIT_FILE = "fit.pickle"
 KILL_AFTER_SAVES_VARIABLE = "COVAUDIT_TEST_KILL_AFTER_SAVES"
 #: ``CheckOptions`` fields that change no saved result: the limit of a solver call (a
 #: call that times out is not saved) and whether the refit follows (it is not saved).
-RESULT_FREE_OPTIONS = frozenset({"solver_timeout", "refit"})
+RESULT_FREE_OPTIONS = frozenset({"solver_timeout", "refit", "timing_repeats"})
 #: The name of the data file's input in ``inputs.json`` and in messages.
 DATA_FILE_INPUT = "the data file"
 _FORMAT = 1
@@ -89,8 +90,8 @@ def state_inputs(datafile: str | Path, reading: Mapping[str, Any], options: Any
         How the file is read (columns, coordinate system, missing rows, duplicates), by
         option name.
     options : CheckOptions
-        Every field counts except ``RESULT_FREE_OPTIONS`` (``harness.check.pipeline``,
-        which imports this module, so it is not named in the signature).
+        Every field counts except ``RESULT_FREE_OPTIONS``
+        (``harness.check.check_options.CheckOptions``).
     """
     inputs = {DATA_FILE_INPUT: file_digest(datafile),
               "the covaudit version": value_digest(__version__)}
@@ -218,22 +219,45 @@ class CheckState:
         self._save(FIT_FILE, fit)
 
     @staticmethod
-    def _unit_name(value: float, index: int, seed: int) -> str:
-        return f"unit-{float(value)!r}-{index}-{seed}.pickle"
+    def _unit_name(value: float, index: int, seed: int, solver: int = 0) -> str:
+        # the first listed solver keeps the names of a one-solver check
+        prefix = "unit" if solver == 0 else f"unit-s{solver}"
+        return f"{prefix}-{float(value)!r}-{index}-{seed}.pickle"
 
-    def load(self, value: float, index: int, seed: int) -> SeedAudit | None:
-        """The saved audit of ``seed`` (the ``index``-th) at knob ``value``, or None."""
-        audit = self._load(self._unit_name(value, index, seed))
+    def load(self, value: float, index: int, seed: int, *, solver: int = 0
+             ) -> SeedAudit | None:
+        """The saved audit of ``seed`` (the ``index``-th) at knob ``value`` of the
+        ``solver``-th listed solver, or None."""
+        audit = self._load(self._unit_name(value, index, seed, solver))
         return audit if isinstance(audit, SeedAudit) else None
 
-    def save(self, value: float, index: int, seed: int, audit: SeedAudit) -> None:
+    def save(self, value: float, index: int, seed: int, audit: SeedAudit, *,
+             solver: int = 0) -> None:
         """Keep a finished audit."""
-        self._save(self._unit_name(value, index, seed), audit)
+        self._save(self._unit_name(value, index, seed, solver), audit)
 
-    def saved_units(self, values: Sequence[float], seeds: Sequence[int]
-                    ) -> tuple[int, int]:
+    def for_solver(self, solver: int) -> SolverUnits:
+        """The saved audits of the ``solver``-th listed solver (a ``SavedAudits``)."""
+        return SolverUnits(self, solver)
+
+    def saved_units(self, values: Sequence[float], seeds: Sequence[int], *,
+                    solver: int = 0) -> tuple[int, int]:
         """How many knob values have every seed's audit saved, and how many audits are
-        saved in all, among ``values`` x ``seeds``."""
-        found = [[self.load(value, index, seed) is not None
+        saved in all, among ``values`` x ``seeds`` of the ``solver``-th listed solver."""
+        found = [[self.load(value, index, seed, solver=solver) is not None
                   for index, seed in enumerate(seeds)] for value in values]
         return sum(all(row) for row in found), sum(sum(row) for row in found)
+
+
+@dataclass(frozen=True)
+class SolverUnits:
+    """One listed solver's view of a ``CheckState`` (a ``SavedAudits`` for the engine)."""
+
+    state: CheckState
+    solver: int
+
+    def load(self, value: float, index: int, seed: int) -> SeedAudit | None:
+        return self.state.load(value, index, seed, solver=self.solver)
+
+    def save(self, value: float, index: int, seed: int, audit: SeedAudit) -> None:
+        self.state.save(value, index, seed, audit, solver=self.solver)

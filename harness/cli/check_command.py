@@ -37,6 +37,7 @@ from harness.cli.flag_types import (
     positive_float,
     positive_int,
 )
+from harness.cli.frontier_summary import frontier_lines
 from harness.cli.params import ParamSyntaxError, parse_params
 from harness.infra.child_process import StageCrashed
 from harness.infra.data_files import DataFileError, load_observations
@@ -47,6 +48,7 @@ from harness.infra.option_specs import (
     PROBES,
     SOLVER_SEEDS,
     SOLVER_TIMEOUT,
+    TIMING_REPEATS,
     TOLERANCE,
     VARIANCE_POINTS,
     OptionError,
@@ -129,9 +131,21 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="seconds the fit may take (default "
                         f"{DEFAULT_FIT_TIME_BUDGET:g}); past them it stops and every verdict "
                         "says it was measured at an unconverged estimate")
-    p.add_argument("--solver", default="hodlr",
-                   help="solver under test: hodlr, an entry-point name, or "
-                        "package.module:factory (same registry as run)")
+    p.add_argument("--solver", action="append", default=None, metavar="SOLVER",
+                   help="solver under test: hodlr, vecchia, an entry-point name, or "
+                        "package.module:factory (same registry as run); repeatable: several "
+                        "solvers are audited on the same fit, reference, holdout and probes "
+                        "and the fastest safe setting is recommended (default hodlr)")
+    p.add_argument("--sweep", action="append", default=[], metavar="SOLVER=V1,V2,...",
+                   help="repeatable; the knob values of one listed solver, spelled as given "
+                        "to --solver (default: --knob-values with a single solver, else "
+                        "--tolerances for tol solvers, else the solver's declared sweep)")
+    p.add_argument("--timing-repeats", type=TIMING_REPEATS.argparse_type(), default=None,
+                   metavar="K",
+                   help="timed fit evaluations per (solver, knob value), after an untimed "
+                        "warm-up (default with several solvers: 5 below 65,536 points, 3 "
+                        "from there; with one solver: none, its audit's log-likelihood time "
+                        "is used)")
     p.add_argument("--solver-seeds", type=SOLVER_SEEDS.argparse_type(),
                    default=DEFAULT_SOLVER_SEEDS, metavar="K",
                    help="seeds of the solver's randomness per tolerance; the worst decides "
@@ -151,6 +165,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="memory the dense reference may use, in GiB (default: "
                         f"{100 * DEFAULT_BUDGET_FRACTION:.0f}%% of total memory)")
     p.add_argument("--no-refit", action="store_true", help="skip the end-to-end refit")
+    p.add_argument("--kl", action="store_true",
+                   help="also estimate the KL divergence of each knob value's model from "
+                        "the exact one beyond the dense limit (exact-operator reference; "
+                        "32 probes of exact products per knob value and seed; against the "
+                        "dense reference it is always measured exactly)")
     p.add_argument("--solver-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
                    metavar="SECONDS",
                    help="stop one call into a solver plugin (each knob value and seed runs "
@@ -182,18 +201,51 @@ def solver_knob(name: str) -> KnobSpec:
         raise CheckError(f"--solver {name!r}: {exc}") from None
 
 
+def solver_names(args: argparse.Namespace) -> tuple[str, ...]:
+    """The solvers under test as given (``--solver``, repeatable; default hodlr)."""
+    given = args.solver if args.solver is not None else ["hodlr"]
+    return tuple(given) if isinstance(given, list | tuple) else (str(given),)
+
+
+def sweeps(args: argparse.Namespace) -> dict[str, tuple[float, ...]]:
+    """``--sweep SOLVER=V1,V2,...`` by solver; the values' ranges are checked per solver
+    by ``harness.check.solver_lineup`` (a solver with a bad sweep is refused alone)."""
+    out: dict[str, tuple[float, ...]] = {}
+    for text in getattr(args, "sweep", None) or ():
+        solver, sep, values = text.partition("=")
+        if not sep or not solver.strip() or not values.strip():
+            raise CheckError(f"--sweep {text!r}: expected SOLVER=V1,V2,... (the solver "
+                             "spelled as given to --solver)")
+        try:
+            parsed = tuple(float(v) for v in values.split(",") if v.strip())
+        except ValueError:
+            raise CheckError(f"--sweep {text!r}: the values must be numbers separated by "
+                             "commas") from None
+        if solver.strip() in out:
+            raise CheckError(f"--sweep {solver.strip()}: given twice")
+        out[solver.strip()] = parsed
+    return out
+
+
 def knob_sweep(args: argparse.Namespace) -> tuple[tuple[float, ...], tuple[float, ...] | None]:
     """``(tolerances, knob_values)`` of ``CheckOptions`` from ``--tolerances`` and
-    ``--knob-values`` (README, "check"): a ``tol`` solver takes either, another knob only
-    ``--knob-values`` (default: its declared sweep), each value validated against the
-    knob's declared range."""
-    knob = solver_knob(args.solver)
+    ``--knob-values`` (README, "check"): a single ``tol`` solver takes either, another
+    knob only ``--knob-values`` (default: its declared sweep), each value validated
+    against the knob's declared range. With several solvers ``--knob-values`` is refused
+    (``--sweep`` gives each its values) and ``--tolerances`` serves the ``tol`` solvers."""
+    names = solver_names(args)
     given_tol = args.tolerances is not None
     given_knob = getattr(args, "knob_values", None) is not None
     if given_tol and given_knob:
         raise CheckError("--tolerances and --knob-values: give one of them, not both")
+    if len(names) > 1:
+        if given_knob:
+            raise CheckError("--knob-values: allowed with a single --solver; with several, "
+                             "give each its values with --sweep SOLVER=V1,V2,...")
+        return _tolerances(args.tolerances or DEFAULT_TOLERANCES_TEXT), None
+    knob = solver_knob(names[0])
     if given_tol and not knob.is_tol:
-        raise CheckError(f"--tolerances: solver {args.solver!r} has no tol; its knob is "
+        raise CheckError(f"--tolerances: solver {names[0]!r} has no tol; its knob is "
                          f"{knob.name} in {knob.range_text()}: use --knob-values")
     if not given_knob:
         tolerances = _tolerances(args.tolerances or DEFAULT_TOLERANCES_TEXT)
@@ -223,6 +275,7 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         fixed = {k: v for k, v in fixed.items() if k not in SHAPE_NAMES}
     budget = None if args.memory_budget is None else int(args.memory_budget * 2**30)
     tolerances, knob_values = knob_sweep(args)
+    names = solver_names(args)
     return CheckOptions(
         kernel=args.kernel, shape=shape, anisotropic=args.anisotropic,
         nugget=not args.no_nugget, mean=args.mean, tolerances=tolerances,
@@ -232,7 +285,9 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         fixed_params=fixed,
         start_params=start or None, thresholds=Thresholds(),
         dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
-        refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=args.solver,
+        refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=names[0],
+        solvers=names if len(names) > 1 else (), sweeps=sweeps(args),
+        timing_repeats=getattr(args, "timing_repeats", None), kl=getattr(args, "kl", False),
         solver_seeds=args.solver_seeds, reference=args.reference,
         ladder_factor=args.ladder_factor, solver_timeout=args.solver_timeout)
 
@@ -327,6 +382,7 @@ def summary(result: CheckResult) -> str:
                  if result.speedup is not None and math.isfinite(best.seconds) else "")
         lines.append(f"  recommendation: {_at(knob, picked)} "
                      f"({speedup:.3g}x faster than {result.speedup_over}{times})")
+    lines += frontier_lines(result)
     if result.refit:
         refit_value = (result.refit.tol if result.refit.knob_value is None
                        else result.refit.knob_value)
@@ -387,8 +443,7 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        steps = options.tolerances if options.knob_values is None else options.knob_values
-        progress = CheckProgress(tolerances=len(steps), refit=options.refit,
+        progress = CheckProgress(tolerances=_knob_value_count(options), refit=options.refit,
                                  enabled=progress_enabled(json_output=args.json))
         reading = {"coords": coords, "value": args.value, "coord_system": args.coord_system,
                    "drop_missing": args.drop_missing,
@@ -403,7 +458,6 @@ def run(args: argparse.Namespace) -> int:
             progress.finish()
         finally:
             progress.close()
-        failed = [row for row in result.tolerances if row.status == SOLVER_FAILED]
         write_outputs(result, out, points=data.points, holdout=holdout_indices(
             data.n, fraction=args.holdout, seed=args.seed, cap=args.holdout_points))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
@@ -419,8 +473,40 @@ def run(args: argparse.Namespace) -> int:
         print(f"covaudit check: warning: {warning}", file=sys.stderr)
     for line in wrote_lines(written_files(out, ["check.json", "check.html"])):
         print(line, file=sys.stderr if args.json else sys.stdout)
-    for reason in [*(row.error for row in failed), *result.solver_failures]:
+    failed = failed_points(result)
+    for reason in [*failed, *result.solver_failures]:
         print(f"covaudit check: solver failed: {reason}", file=sys.stderr)
+    refused = [entry["problem"] for entry in result.solvers if entry["status"] == "refused"]
+    for problem in refused:
+        print(f"covaudit check: error: {problem}", file=sys.stderr)
     answer = ExitCode.OK if result.recommended_value is not None else ExitCode.FINDING
     return combine([answer, *([ExitCode.SOLVER_FAILED]
-                              if failed or result.solver_failures else [])])
+                              if failed or result.solver_failures else []),
+                    *([ExitCode.ERROR] if refused else [])])
+
+
+def failed_points(result: CheckResult) -> list[str]:
+    """The reasons of every (solver, knob value) whose status is "solver failed"."""
+    if not result.solvers:
+        return [row.error for row in result.tolerances if row.status == SOLVER_FAILED]
+    return [point.get("error") or f"solver {entry['given']!r} failed"
+            for entry in result.solvers for point in entry["points"]
+            if point.get("status") == SOLVER_FAILED]
+
+
+def _knob_value_count(options: CheckOptions) -> int:
+    """How many knob values the check audits over its solvers (the progress total; a
+    solver that cannot be loaded counts none)."""
+    total = 0
+    for name in dict.fromkeys(options.solver_names):
+        try:
+            knob = resolve_solver(name).knob
+        except (SolverLoadError, TypeError):
+            continue
+        if name in options.sweeps:
+            total += len(options.sweeps[name])
+        elif options.knob_values is not None:
+            total += len(options.knob_values)
+        else:
+            total += len(options.tolerances if knob.is_tol else knob.default_sweep)
+    return total

@@ -39,7 +39,8 @@ CHECK_STAGES: tuple[tuple[str, str], ...] = (
     ("trial of solver", "solver trial"), ("fitting", "fit"), ("pilot fit", "fit"),
     ("Fisher scoring", "fit"), ("subsample audit", "growth audit"),
     ("tolerance", "knob values"), ("knob value", "knob values"),
-    ("solver seed", "knob values"), ("end-to-end refit", "refit"))
+    ("solver seed", "knob values"), ("auditing solver", "knob values"),
+    ("timing", "timing"), ("end-to-end refit", "refit"))
 
 
 def progress_enabled(*, json_output: bool = False, stream: IO[str] | None = None) -> bool:
@@ -208,7 +209,8 @@ class CheckLog:
         stage = check_stage(message)
         # a new stage means the one before finished (the first has nothing before it)
         finished = None not in (stage, self.stage) and stage != self.stage
-        if stage == "knob values" and not message.startswith("solver seed"):
+        if stage == "knob values" and not message.startswith(("solver seed",
+                                                              "auditing solver")):
             if self.knob_done < 0:
                 self.knob_start = self.clock()
             self.knob_done += 1

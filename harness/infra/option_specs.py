@@ -238,6 +238,11 @@ def knob_option(name: str, *, kind: type, low: float, high: float, low_closed: b
 SOLVER_SEEDS = OptionSpec(
     "solver_seeds", int, Interval(int, 1, 1000), 3,
     "seeds of the solver's randomness per tolerance; the worst decides")
+#: Timed fit evaluations per (solver, knob value) on the frontier (``check
+#: --timing-repeats``); the default (None) is 5 below 65,536 points and 3 from there.
+TIMING_REPEATS = OptionSpec(
+    "timing_repeats", int, Interval(int, 1, 100), None,
+    "timed fit evaluations per (solver, knob value), after an untimed warm-up")
 #: Fraction of the points held out for the kriging evaluation (``check --holdout``).
 HOLDOUT_FRACTION = OptionSpec(
     "holdout", float, Interval(float, 0.0, 0.5, closed="right"), 0.1,
