@@ -15,12 +15,20 @@ from collections.abc import Sequence
 
 from harness._version import __version__
 from harness.cli.help_format import DefaultsArgumentParser, DefaultsHelpFormatter
+from harness.infra.compile_notice import show_first_compile
 from harness.infra.exit_codes import ExitCode
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
 VERBS: tuple[str, ...] = (
-    "check", "demo", "evaluate", "run", "cases", "report", "compare", "export",
+    "check", "demo", "evaluate", "run", "cases", "report", "compare", "export", "warm-up",
 )
+#: Verbs that run compiled kernels in this process: they say so before compiling any
+#: (``harness.infra.compile_notice``).
+COMPUTING_VERBS: frozenset[str] = frozenset({"check", "demo", "evaluate", "run", "warm-up"})
+
+
+def _module(verb: str) -> str:
+    return f"{verb.replace('-', '_')}_command"
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -36,7 +44,7 @@ def build_parser() -> argparse.ArgumentParser:
         dest="verb", metavar="VERB", required=True,
         parser_class=DefaultsArgumentParser)
     for verb in VERBS:
-        importlib.import_module(f"harness.cli.{verb}_command").add_parser(subparsers)
+        importlib.import_module(f"harness.cli.{_module(verb)}").add_parser(subparsers)
     return parser
 
 
@@ -45,7 +53,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     logging.basicConfig(level=logging.WARNING - 10 * min(args.verbose, 2),
                         format="%(levelname)s %(name)s: %(message)s")
-    module = importlib.import_module(f"harness.cli.{args.verb.replace('-', '_')}_command")
+    module = importlib.import_module(f"harness.cli.{_module(args.verb)}")
+    if args.verb in COMPUTING_VERBS:
+        show_first_compile()
     try:
         return int(module.run(args))
     except KeyboardInterrupt:

@@ -1,0 +1,126 @@
+"""Say so when this process compiles a numba kernel, and count what it compiled.
+
+The kernels are ``numba.njit(cache=True)`` functions, compiled per argument signature on
+their first call and stored in numba's cache (``__pycache__`` beside the module, or
+``NUMBA_CACHE_DIR``). A later process loads them from there in milliseconds; a fresh
+install, a cleared cache or a new numba version pays the compilation once, which for the
+HODLR factorization alone takes tens of seconds.
+
+How a compilation is recognised: numba's dispatcher first looks up a signature among the
+overloads already in the process, then in the on-disk cache, and only when both miss does
+it compile, inside a ``"numba:compile"`` event (``numba.core.event``). A listener on that
+event therefore fires exactly for the compilations a call really does, on the call path it
+really takes, and never on a warm cache: no list of kernels to probe, no timing heuristic.
+Kernels compiled inside another kernel's compilation (callees, numba's own overloads) fire
+nested events; only the outermost ones are counted.
+
+- ``show_first_compile(stream)`` registers, once per process, a listener that writes
+  ``NOTICE`` on ``stream`` when the first compilation starts and is silent after that.
+  The CLI calls it before a verb that computes. Processes started with ``spawn`` (the
+  child-process guard, the run's workers) do not inherit it: their standard error is a
+  log, not the terminal.
+- ``record_compiles()`` is a context manager yielding a ``CompileLog``: the kernels
+  compiled inside the block, with the seconds each took (``covaudit warm-up`` prints it).
+
+This module is infrastructure: it imports nothing from the rest of ``harness``.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from typing import Any, TextIO
+
+from numba.core import event
+
+#: The line written before the first compilation of a process.
+NOTICE = "covaudit: compiling kernels (once)"
+_COMPILE_EVENT = "numba:compile"
+
+
+def _kernel_name(data: Any) -> str:
+    """``module.function`` of the dispatcher an event is about."""
+    function = data["dispatcher"].py_func
+    return f"{function.__module__}.{function.__qualname__}"
+
+
+class _FirstCompileNotice(event.Listener):
+    """Writes ``NOTICE`` on the first compile event it sees, and nothing after."""
+
+    def __init__(self, stream: TextIO) -> None:
+        self.stream = stream
+        self.shown = False
+
+    def on_start(self, ev: event.Event) -> None:
+        if not self.shown:
+            self.shown = True
+            print(NOTICE, file=self.stream, flush=True)
+
+    def on_end(self, ev: event.Event) -> None:
+        pass
+
+
+def _installed() -> list[_FirstCompileNotice]:
+    return [listener for listener in event._registered[_COMPILE_EVENT]
+            if isinstance(listener, _FirstCompileNotice)]
+
+
+def show_first_compile(stream: TextIO | None = None) -> None:
+    """Write ``NOTICE`` on ``stream`` (default standard error) before this process first
+    compiles a kernel; a second call in the same process changes nothing.
+
+    Numba's listener list is per process, so it is also the record that the notice is
+    installed: the notice is shown at most once per process whoever installs it.
+    """
+    if not _installed():
+        event.register(_COMPILE_EVENT, _FirstCompileNotice(stream or sys.stderr))
+
+
+@dataclass(frozen=True)
+class CompiledKernel:
+    """One compilation: the kernel (``module.function``), its argument types and the
+    wall seconds it took, nested compilations included."""
+
+    name: str
+    signature: str
+    seconds: float
+
+
+@dataclass
+class CompileLog:
+    """The outermost compilations seen while ``record_compiles`` was active, in order."""
+
+    kernels: list[CompiledKernel] = field(default_factory=list)
+
+    @property
+    def seconds(self) -> float:
+        return sum(k.seconds for k in self.kernels)
+
+
+class _CompileRecorder(event.Listener):
+    """Appends each outermost compilation to a ``CompileLog``."""
+
+    def __init__(self, log: CompileLog) -> None:
+        self.log = log
+        self.started: list[float] = []
+
+    def on_start(self, ev: event.Event) -> None:
+        self.started.append(time.perf_counter())
+
+    def on_end(self, ev: event.Event) -> None:
+        began = self.started.pop()
+        if not self.started:
+            self.log.kernels.append(CompiledKernel(
+                name=_kernel_name(ev.data), signature=", ".join(map(str, ev.data["args"])),
+                seconds=time.perf_counter() - began))
+
+
+@contextmanager
+def record_compiles() -> Iterator[CompileLog]:
+    """Record the kernels compiled inside the ``with`` block (none on a warm cache)."""
+    log = CompileLog()
+    with event.install_listener(_COMPILE_EVENT, _CompileRecorder(log)):
+        yield log
