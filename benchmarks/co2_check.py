@@ -12,7 +12,14 @@ the wall time (also in units of the same-run dpotrf at n = 8,192), the peak resi
 memory (of the largest process, and of the whole process tree sampled every 0.5 s), the
 reference, the fit's convergence, each tolerance's verdict and the recommendation.
 
-Run: ``python benchmarks/co2_check.py --json benchmarks/results/co2_check.json``
+With ``--solver NAME`` (repeatable) the command lists those solvers, each with its default
+sweep (``check --solver hodlr --solver vecchia``: the frontier across solver families), and
+the results file also holds the frontier table (every solver's points with their verdict,
+time and errors), the pick across solvers and its statement.
+
+Run: ``python benchmarks/co2_check.py --json benchmarks/results/co2_check.json``, or
+``python benchmarks/co2_check.py --solver hodlr --solver vecchia
+--json benchmarks/results/co2_frontier.json``
 """
 
 from __future__ import annotations
@@ -92,14 +99,17 @@ def main(argv: list[str] | None = None) -> int:
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
     parser.add_argument("--json", default="benchmarks/results/co2_check.json")
     parser.add_argument("--unit-repeats", type=int, default=3)
+    parser.add_argument("--solver", action="append", default=[],
+                        help="repeatable: the solvers of the check (default: its default)")
     args = parser.parse_args(argv)
+    command = [*COMMAND, *(part for name in args.solver for part in ("--solver", name))]
     info = machine()
     unit = measure_unit(args.unit_repeats)
     print(f"unit: {unit['seconds']:.2f} s", flush=True)
     work = cache_dir() / "co2-check"
     data = write_data(work)
     out = work / "out"
-    argv_run = [sys.executable, "-m", "harness", *COMMAND, "--out", str(out)]
+    argv_run = [sys.executable, "-m", "harness", *command, "--out", str(out)]
     start = time.perf_counter()
     proc = subprocess.Popen(argv_run, cwd=data.parent, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True)
@@ -110,7 +120,7 @@ def main(argv: list[str] | None = None) -> int:
     largest = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
     print(stdout)
     print(stderr[-3000:], file=sys.stderr)
-    result: dict = {"command": "covaudit " + " ".join(COMMAND), "exit_code": proc.returncode,
+    result: dict = {"command": "covaudit " + " ".join(command), "exit_code": proc.returncode,
                     "seconds": seconds, "units": seconds / unit["seconds"],
                     "peak_rss_largest_process_gib": largest / 2**30,
                     "peak_rss_process_tree_gib": tree_peak / 2**30,
@@ -126,6 +136,17 @@ def main(argv: list[str] | None = None) -> int:
             "speedup": check.get("speedup"),
             "verdicts": {repr(t["tol"]): t.get("status") for t in check.get("tolerances", [])},
             "warnings": check.get("warnings"),
+            "frontier": check.get("frontier"),
+            "frontier_table": [
+                {"solver": entry["given"], "status": entry["status"],
+                 "problem": entry.get("problem"),
+                 "points": [{"knob_name": p["knob_name"], "knob_value": p["knob_value"],
+                             "status": p["status"], "seconds": p["time"]["seconds"],
+                             "peak_bytes": p["time"]["peak_bytes"],
+                             "loglik_error": (p.get("loglik_error") or {}).get("value"),
+                             "nondominated": p["nondominated"]}
+                            for p in entry["points"]]}
+                for entry in check.get("solvers", [])],
         })
     write_run(args.json, "co2_check", argv, info, unit=unit, result=result)
     return 0

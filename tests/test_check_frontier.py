@@ -267,3 +267,16 @@ def test_a_failed_solver_gives_exit_3_and_the_other_pick_is_still_reported(
     plugin = next(e for e in saved["solvers"] if e["given"] == "crashing_plugin:factorize")
     assert plugin["status"] == "solver failed"
     assert plugin["points"][0]["status"] == "solver failed"
+
+
+def test_tolerances_outside_a_plugins_declared_range_are_refused(smooth_csv, tmp_path,
+                                                                 capsys, monkeypatch):
+    # the example plugin declares tol in (0, 0.1] (examples/jittered_solver)
+    monkeypatch.syspath_prepend(str(EXAMPLE))
+    code = main(["check", str(smooth_csv), "--coords", "e,n", "--value", "z",
+                 "--solver", "jittered_solver:factorize", "--tolerances", "1e-3,0.5",
+                 "--out", str(tmp_path / "o")])
+    assert code == ExitCode.ERROR
+    err = capsys.readouterr().err
+    assert "--tolerances: expected tol as a number in (0, 0.1], got 0.5" in err
+    assert not (tmp_path / "o").exists()

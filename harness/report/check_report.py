@@ -27,7 +27,7 @@ import numpy as np
 from harness.audit.verdict import COMMON_PRACTICE
 from harness.check.check_records import CheckResult, ToleranceResult
 from harness.report import check_figures
-from harness.report.condense import collapse_notes, shorten
+from harness.report.condense import collapse_notes, per_seed_failures
 from harness.report.frontier_figure import frontier_figure
 from harness.report.frontier_section import frontier_rows, frontier_summary
 from harness.report.labels import (
@@ -42,8 +42,14 @@ from harness.report.run_summary import DOES_NOT_PAY
 from harness.report.style import data_uri
 
 TEMPLATE = "check.html.j2"
-#: Characters of a breakdown message shown in the table (the rest goes to a note).
-ERROR_WIDTH = 60
+#: The unit of planar coordinates when the caller names none (``check --coord-units``).
+DEFAULT_COORD_UNITS = "coordinate units"
+#: A ``lonlat`` check reads degrees and measures distance along chords of the Earth
+#: sphere in km (``harness.geometry.geodesy``), whatever the caller says.
+LONLAT_UNITS = ("degrees", "chordal km")
+#: What the observed values' unit is called (the report does not know it).
+VALUE_UNITS = "units of the observed values"
+SOLVER_FAILED = "solver failed: "
 #: Metrics with a limit first, then the information-only ones, in table order.
 TABLE_ORDER: tuple[str, ...] = ("loglik_error", "loglik_error_extrapolated",
                                 "param_shift_se", "kriging_mean_sd",
@@ -107,6 +113,52 @@ def _knob_columns(result: CheckResult) -> dict[str, MetricLabel]:
         f"{result.knob.get('range', '?')}); {tighter} is more accurate")}
 
 
+def no_pick_advice(result: CheckResult, values: str) -> str:
+    """What to do when nothing is safe, and only what can be done: the exact computation
+    only where the dense reference ran (within the memory budget); beyond it, tighter
+    values, and more probes when a verdict was unresolved."""
+    statuses = {r.status for r in result.tolerances}
+    more = (" For the unresolved verdicts, more probes (--probes 64) shrink the standard "
+            "errors." if "unresolved" in statuses else "")
+    if result.reference == "dense":
+        return f"Use the exact computation at this size, or audit tighter {values}s.{more}"
+    return (f"At {result.n:,} points the exact computation is beyond the memory budget: "
+            f"audit tighter {values}s (--tolerances or --knob-values), or another solver "
+            f"(--solver).{more}")
+
+
+def coordinate_units(result: CheckResult, coord_units: str | None) -> tuple[str, str]:
+    """(unit of the coordinates as given, unit of distances and length scales).
+
+    ``lonlat`` data are degrees, and distances chordal km; planar data are in
+    ``coord_units`` (default ``DEFAULT_COORD_UNITS``), distances too.
+    """
+    if result.coord_system == "lonlat":
+        return LONLAT_UNITS
+    units = (coord_units or "").strip() or DEFAULT_COORD_UNITS
+    return units, units
+
+
+def parameter_units(result: CheckResult, distance_units: str) -> dict[str, str]:
+    """The unit of each fitted parameter: length scales in distance units, variance and
+    nugget in squared value units, shape parameters (nu, alpha) without unit."""
+    units = {"lengthscale": distance_units, "variance": f"({VALUE_UNITS})\u00b2",
+             "nugget": f"({VALUE_UNITS})\u00b2", "mean": VALUE_UNITS}
+    return {name: units.get(name, "no unit") for name in result.params}
+
+
+def _reasons(row: ToleranceResult, *, message_shown: bool) -> list[str]:
+    """The rule's reasons with the solver's failures said once (the seeds named); when
+    the verdict table already shows the message, only a pointer to it."""
+    failed = [r.removeprefix(SOLVER_FAILED) for r in row.reasons
+              if r.startswith(SOLVER_FAILED)]
+    out = [r for r in row.reasons if not r.startswith(SOLVER_FAILED)]
+    if failed:
+        out.insert(0, "solver failed (the message is in the verdict table)" if message_shown
+                   else SOLVER_FAILED + per_seed_failures("; ".join(failed)))
+    return out
+
+
 def _headline(result: CheckResult) -> dict[str, Any]:
     picked = result.recommended_value
     rec = next((r for r in result.tolerances if picked is not None and r.value == picked),
@@ -119,8 +171,7 @@ def _headline(result: CheckResult) -> dict[str, Any]:
         values = "tolerance" if noun == "tolerance" else f"{noun} value"
         return {"found": False, "noun": noun,
                 "text": f"No {values} in the list is safe for these data.",
-                "advice": "Use the exact computation at this size, or audit tighter "
-                          f"{values}s.", "reason": reason}
+                "advice": no_pick_advice(result, values), "reason": reason}
     speedup = rec.speedup if rec.speedup is not None else result.speedup
     compressed = rec.seconds
     reference = (compressed * speedup if speedup is not None and math.isfinite(compressed)
@@ -138,7 +189,8 @@ def _headline(result: CheckResult) -> dict[str, Any]:
 
 
 def render_check_report(result: CheckResult, *, points: np.ndarray | None = None,
-                        holdout: np.ndarray | None = None) -> str:
+                        holdout: np.ndarray | None = None,
+                        coord_units: str | None = None) -> str:
     """The HTML text of the report.
 
     Parameters
@@ -147,7 +199,12 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
         The data points, for the map (2D only).
     holdout : array of int, optional
         Indices of the kriging holdout among ``points``.
+    coord_units : str, optional
+        The unit of planar coordinates (``check --coord-units``, e.g. ``m``); the axes of
+        the map and the length scales carry it. Default ``DEFAULT_COORD_UNITS``; a
+        ``lonlat`` check is always degrees and chordal km.
     """
+    given_units, distance_units = coordinate_units(result, coord_units)
     present = {m.name for row in result.tolerances for m in row.metrics}
     names = [n for n in TABLE_ORDER if n in present] + sorted(
         present - set(TABLE_ORDER))
@@ -161,23 +218,28 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
     loose_first = result.knob.get("more_accurate", "smaller") == "smaller"
     for row in sorted(result.tolerances, key=lambda r: float(r.value or 0.0),
                       reverse=loose_first):
+        cells = _cells(row, names)
+        error = per_seed_failures(row.error) if row.error else ""
+        # a row with no metric shows its whole message across the metric columns; a row
+        # with some metrics gets it as a numbered note under the table
+        in_cell = bool(error) and not any(c.text for c in cells)
         note_index = None
-        if row.error:
+        if error and not in_cell:
             error_notes.append(f"{knob_noun(result)} {knob_text(result, row.value)}: "
-                               f"{row.error}")
+                               f"{error}")
             note_index = len(error_notes)
         rows.append({"tol": knob_text(result, row.value),
                      "verdict": check_figures.verdict_of(row),
-                     "cells": _cells(row, names), "seconds": compact(row.seconds),
+                     "cells": cells, "seconds": compact(row.seconds),
                      "speedup": compact(row.speedup),
                      "slow": row.speedup is not None and math.isfinite(row.speedup)
                      and row.speedup < 1,
-                     "error": shorten(row.error, ERROR_WIDTH) if row.error else "",
-                     "note_index": note_index, "reasons": list(row.reasons)})
+                     "error": error if in_cell else "", "note_index": note_index,
+                     "reasons": _reasons(row, message_shown=bool(error))})
     figures = {
         "errors": check_figures.error_vs_tolerance(result),
         "speedup": check_figures.speedup_vs_tolerance(result),
-        "map": check_figures.points_map(points, holdout),
+        "map": check_figures.points_map(points, holdout, units=given_units),
     }
     notes = [n.line() for n in collapse_notes(result.notes)]
     frontier = frontier_figure(result)
@@ -195,6 +257,8 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
             result, result.refit.tol if result.refit.knob_value is None
             else result.refit.knob_value),
         terms=TERMS, practice=COMMON_PRACTICE, notes=notes,
+        coord_units=given_units, distance_units=distance_units,
+        param_units=parameter_units(result, distance_units), value_units=VALUE_UNITS,
         figures={k: (data_uri(f) if f is not None else "") for k, f in figures.items()},
         all_labels=METRIC_LABELS, frontier=frontier_summary(result) if result.solvers
         else None, frontier_table=frontier_table, frontier_notes=frontier_notes,

@@ -38,7 +38,14 @@ from harness.solvers.vecchia.structure import (
     pattern_rule,
     points_key,
 )
-from harness.solvers.vecchia.triangular import u_mul, u_solve, ut_mul, ut_solve
+from harness.solvers.vecchia.triangular import (
+    row_form,
+    u_mul,
+    u_solve,
+    u_solve_rows,
+    ut_mul,
+    ut_solve,
+)
 from harness.solvers.vecchia.vecchia_inputs import (
     check_duplicates,
     check_status,
@@ -47,17 +54,20 @@ from harness.solvers.vecchia.vecchia_inputs import (
 
 #: The Vecchia solver's accuracy knob: m, the number of nearest earlier points each
 #: point conditions on (``sparsity``; why a count and not the radius rule is measured
-#: there). Its default sweep gives about 20, 44, 96 and 200 nonzeros per column of U for
-#: 2D uniform points with the default supernodes (lam = 1.5; measured at n = 4,096),
-#: within the 10-400 per column that keeps a sweep at 10^6 points in memory. It starts
-#: at m = 10 because below it the KL divergence falls less than 5x per step: 4.7x from
-#: m = 5 to 10, then 9.1x, 17x and 43x per doubling (2D, Matern 3/2, l = 0.1, nugget
-#: 1e-2, n = 4,096, ``benchmarks/vecchia_pattern_rules.py``).
+#: there). Its default sweep, m = 10, 30, 60, 130, gives about 21, 73, 159 and 366
+#: nonzeros per column of U for 2D uniform points with the default supernodes (lam =
+#: 1.5; n = 16,384), within the 10-400 per column that keeps a sweep at 10^6 points in
+#: memory. Its steps are wide because the KL divergence falls more slowly per neighbour
+#: as the points grow denser against the length scale: on one 16,384-point set (2D,
+#: Matern 3/2, l = 0.1, nugget 1e-2) it fell only 3.8x from m = 10 to 20 (139 to 37
+#: nats), against 9.1x at 4,096 points (``benchmarks/vecchia_pattern_rules.py``); the
+#: sweep's falls at 16,384 are in ``benchmarks/results/vecchia_accuracy.json``.
 NEIGHBOURS_KNOB = KnobSpec(
     name="neighbours", kind="int", low=1.0, high=math.inf, low_closed=True,
-    high_closed=False, more_accurate="larger", default_sweep=(10.0, 20.0, 40.0, 80.0),
+    high_closed=False, more_accurate="larger", default_sweep=(10.0, 30.0, 60.0, 130.0),
     meaning="number of nearest earlier points each point conditions on")
-#: m when none is given: 20, the middle of the sweep (common practice puts m at 10-30).
+#: m when none is given: 20, between the sweep's first two values (common practice puts
+#: m at 10-30).
 DEFAULT_NEIGHBOURS = 20
 #: The radius rule's range (an option, not the knob): rho in units of the maximin length.
 RHO_RANGE = KnobSpec(
@@ -112,6 +122,7 @@ class VecchiaFactorization:
         self._ptr, self._rows = g.col_ptr, g.col_rows
         self._perm = structure.order.perm
         self._diag = values[g.col_ptr[1:] - 1]
+        self._rows_form: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
     # -- protocol ------------------------------------------------------------------
     @property
@@ -122,6 +133,8 @@ class VecchiaFactorization:
     def nbytes(self) -> int:
         """Bytes held: U's values, the structure (pattern, ordering) and any dU."""
         extra = 0 if self._derivs is None else self._derivs.nbytes
+        if self._rows_form is not None:
+            extra += sum(a.nbytes for a in self._rows_form)
         return int(self._vals.nbytes + self.structure.nbytes + self._scaled.nbytes + extra)
 
     @property
@@ -134,14 +147,13 @@ class VecchiaFactorization:
 
     def solve(self, b: np.ndarray) -> np.ndarray:
         """Sigma~^-1 b = P' U U' P b."""
-        return self._apply(b, lambda x: u_mul(self._ptr, self._rows, self._vals,
-                                              ut_mul(self._ptr, self._rows, self._vals, x)))
+        return self._apply(b, lambda x: self._u_mul(ut_mul(self._ptr, self._rows,
+                                                           self._vals, x)))
 
     def matvec(self, b: np.ndarray) -> np.ndarray:
         """Sigma~ b = P' U^-T U^-1 P b (two sparse triangular solves)."""
         return self._apply(b, lambda x: ut_solve(self._ptr, self._rows, self._vals,
-                                                 u_solve(self._ptr, self._rows, self._vals,
-                                                         x)))
+                                                 self._u_solve(x)))
 
     def apply_sqrt(self, b: np.ndarray) -> np.ndarray:
         """W b = P' U^-T P b (b standard normal gives a sample from N(0, Sigma~))."""
@@ -149,7 +161,7 @@ class VecchiaFactorization:
 
     def apply_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
         """W' b = P' U^-1 P b."""
-        return self._apply(b, lambda x: u_solve(self._ptr, self._rows, self._vals, x))
+        return self._apply(b, self._u_solve)
 
     def solve_sqrt(self, b: np.ndarray) -> np.ndarray:
         """W^-1 b = P' U' P b (one sparse product)."""
@@ -157,7 +169,7 @@ class VecchiaFactorization:
 
     def solve_sqrt_transpose(self, b: np.ndarray) -> np.ndarray:
         """W^-T b = P' U P b."""
-        return self._apply(b, lambda x: u_mul(self._ptr, self._rows, self._vals, x))
+        return self._apply(b, self._u_mul)
 
     def derivative_matvec(self, i: int, b: np.ndarray) -> np.ndarray:
         """dSigma~/dtheta_i b, the derivative of this approximation (not of Sigma).
@@ -207,6 +219,31 @@ class VecchiaFactorization:
             self._derivs = _run_pass(self.kernel, self.structure, self._scaled,
                                      self._points, want_u=False, want_du=True)[1]
         return self._derivs
+
+    #: Right-hand sides from which U B and U^-1 B gather by U's rows (``row_form``, built
+    #: once and kept: U's storage again) instead of scattering by its columns; measured
+    #: 5x faster for U B with 256 right-hand sides at n = 16,384 (a gather writes each
+    #: output once and reads the block's rows contiguously).
+    ROW_FORM_FROM = 8
+
+    def _by_rows(self, b: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+        if b.shape[1] < self.ROW_FORM_FROM:
+            return None
+        if self._rows_form is None:
+            self._rows_form = row_form(self._ptr, self._rows, self._vals)
+        return self._rows_form
+
+    def _u_mul(self, x: np.ndarray) -> np.ndarray:
+        """U x (x in maximin positions)."""
+        rows = self._by_rows(x)
+        return (u_mul(self._ptr, self._rows, self._vals, x) if rows is None
+                else ut_mul(*rows, x))
+
+    def _u_solve(self, x: np.ndarray) -> np.ndarray:
+        """U^-1 x (x in maximin positions)."""
+        rows = self._by_rows(x)
+        return (u_solve(self._ptr, self._rows, self._vals, x) if rows is None
+                else u_solve_rows(*rows, x))
 
     def _apply(self, b: np.ndarray, op) -> np.ndarray:
         b = np.asarray(b, dtype=float)
