@@ -102,7 +102,7 @@ def _cross_pivots(res, count, limit, rows, cols):
     elim = np.eye(count)
     active = np.ones(count, dtype=np.bool_)
     first = -1.0
-    found = 0
+    found = np.int64(0)  # not the literal 0: see aca_compiled
     while found < limit:
         eg = np.dot(elim, gram)
         best, bi = 0.0, -1
@@ -246,13 +246,16 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
     a_vecs, b_vecs = _layout(scratch, cap, m, n)
     gram_a = np.empty((0, 0))
     gram_b = np.empty((0, 0))
-    k_gram = 0
+    # Counters passed to other kernels start at np.int64(0), not the literal 0: numba
+    # types a loop's first pass with Literal[int](0) and compiled _residuals, _grow,
+    # _extend_gram and _listed twice, for the literal and for int64
+    k_gram = np.int64(0)
     used = np.zeros(m, dtype=np.bool_)
     tol2 = tol * tol
     norm2 = 0.0
     diag2 = 0.0
     ratio = 1.0  # ||S_k||^2 / (its diagonal part) at the last exact evaluation
-    k = 0
+    k = np.int64(0)
     rounds = 0
     row_idx = np.empty(max(block, checks.shape[1]), dtype=np.int64)
     count = block
@@ -308,7 +311,7 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
         if candidate:
             if rounds >= checks.shape[0]:
                 break
-            count = 0
+            count = np.int64(0)
             for t in range(checks.shape[1]):
                 i = checks[rounds, t]
                 if not used[i] and not _listed(row_idx, count, i):
@@ -327,7 +330,8 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
                 break
             ready = True
         else:
-            count = 0  # next rows: the largest unused entries of the newest columns
+            # next rows: the largest unused entries of the newest columns
+            count = np.int64(0)
             for s in range(found):
                 avec = a_vecs[k - found + s]
                 best, bi = -1.0, -1
