@@ -47,7 +47,9 @@ def test_latex_table_is_booktabs_and_escaped(exported):
     tex = (out / "scaling.tex").read_text()
     for rule in (r"\toprule", r"\midrule", r"\bottomrule"):
         assert tex.count(rule) == 1
-    assert r"t\_factor" in tex and "t_factor" not in tex
+    # special characters escaped (R squared), metrics named by their labels, not keys
+    assert r"R\textsuperscript{2}" in tex and "factor time (s)" in tex
+    assert "t_factor" not in tex and r"t\_factor" not in tex
 
 
 def test_markdown_table_has_one_line_per_fit(exported):

@@ -45,4 +45,6 @@ def run(args: argparse.Namespace) -> int:
         return ExitCode.ERROR
     for path in result.files:
         print(f"wrote {path}")
+    for note in result.notes:
+        print(f"covaudit export: {note}", file=sys.stderr)
     return ExitCode.OK

@@ -46,14 +46,23 @@ def add_parser(subparsers: argparse._SubParsersAction) -> argparse.ArgumentParse
     parser.add_argument("run_dir", metavar="RUNDIR", help="run directory")
     parser.add_argument("--out", metavar="FILE",
                         help="output file (default RUNDIR/report.html)")
+    parser.add_argument("--coord-units", metavar="UNIT", default=None,
+                        help="unit of the point sets' coordinates and length scales, e.g. "
+                             "m or km (default: the case's coord_units, else 'coordinate "
+                             "units')")
     add_threshold_options(parser)
     return parser
 
 
 def run(args: argparse.Namespace) -> int:
+    if args.coord_units is not None and not args.coord_units.strip():
+        print("covaudit report: --coord-units: expected a unit such as m or km, got an "
+              "empty text", file=sys.stderr)
+        return ExitCode.ERROR
     try:
         thresholds = thresholds_from_args(args, thresholds_for(load_run(args.run_dir)))
-        path = write_report(args.run_dir, out=args.out, thresholds=thresholds)
+        path = write_report(args.run_dir, out=args.out, thresholds=thresholds,
+                            coord_units=args.coord_units)
     except (RunDirError, ThresholdError, ValueError, OSError) as exc:
         print(f"covaudit report: {exc}", file=sys.stderr)
         return ExitCode.ERROR

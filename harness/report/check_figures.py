@@ -3,7 +3,9 @@ state): error against tolerance per metric with the limits and the recommendatio
 speed-up against tolerance, and a map of the points with the kriging holdout marked.
 
 Readable in grey scale: verdicts differ by marker shape and fill, lines by dash pattern,
-and every reference line is labelled in words.
+and every reference line is labelled in words. Every axis label ends with its unit in
+parentheses. A knob value whose solver broke down (no metric, no time) is not dropped: it
+is marked at the top of every panel by a down-pointing triangle labelled ``broke down``.
 """
 
 from __future__ import annotations
@@ -29,6 +31,12 @@ VERDICT_MARKERS: dict[str, dict[str, Any]] = {
                    "markeredgecolor": "#444444"},
 }
 RECOMMENDED_STYLE: dict[str, Any] = {"color": "#000000", "linestyle": (0, (1, 2)), "linewidth": 1.4}
+#: A knob value without a value to draw (the solver broke down): at the top of the panel.
+BROKEN_STYLE: dict[str, Any] = {"marker": "v", "markersize": 8, "linestyle": "none",
+                                "markerfacecolor": "#D55E00", "markeredgecolor": "#000000"}
+BROKEN_LABEL = "broke down"
+#: Height of the broken-down marker, in axes fractions.
+BROKEN_HEIGHT = 0.93
 #: Metrics drawn against tolerance (those with a limit, then the microergodic shift).
 ERROR_METRICS: tuple[str, ...] = ("loglik_error", "loglik_error_extrapolated",
                                   "param_shift_se", "kriging_mean_sd",
@@ -56,7 +64,7 @@ def _log_x(ax: Axes, tolerances: Sequence[float]) -> None:
         # a factor 3 of margin, so a single tolerance still gets a proper axis
         ax.set_xlim(min(tolerances) / 3, max(tolerances) * 3)
     ax.xaxis.set_minor_formatter(NullFormatter())
-    ax.set_xlabel("compression tolerance (looser \u2192)")
+    ax.set_xlabel("compression tolerance (relative; looser \u2192)")
 
 
 def _knob_x(ax: Axes, result: CheckResult, values: Sequence[float]) -> None:
@@ -69,7 +77,8 @@ def _knob_x(ax: Axes, result: CheckResult, values: Sequence[float]) -> None:
         span = max(values) - min(values) or max(abs(max(values)), 1.0)
         ax.set_xlim(min(values) - 0.1 * span, max(values) + 0.1 * span)
     tighter = "larger" if result.knob.get("more_accurate") == "larger" else "smaller"
-    ax.set_xlabel(f"{result.knob_name} ({tighter} is more accurate)")
+    unit = "count" if all(float(v).is_integer() for v in values) else "the solver's scale"
+    ax.set_xlabel(f"{result.knob_name}, {tighter} is more accurate ({unit})")
 
 
 def _values(result: CheckResult) -> list[ToleranceResult]:
@@ -83,8 +92,17 @@ def _values(result: CheckResult) -> list[ToleranceResult]:
 def _legend_for_verdicts(ax: Axes, seen: Sequence[str]) -> None:
     handles = [ax.plot([], [], linestyle="none", markersize=6, label=v,
                        **VERDICT_MARKERS[v])[0] for v in VERDICT_MARKERS if v in seen]
+    handles += [line for line in ax.get_lines() if line.get_label() == BROKEN_LABEL][:1]
     if handles:
         ax.legend(handles=handles, loc="lower right", fontsize=7)
+
+
+def _mark_broken(ax: Axes, values: Sequence[float]) -> None:
+    """A triangle at the top of the panel at each knob value with nothing to draw."""
+    if values:
+        ax.plot(list(values), [BROKEN_HEIGHT] * len(values),
+                transform=ax.get_xaxis_transform(), label=BROKEN_LABEL, clip_on=False,
+                **BROKEN_STYLE)
 
 
 def error_vs_tolerance(result: CheckResult) -> Figure | None:
@@ -102,11 +120,13 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
         for i, name in enumerate(panels):
             ax = fig.add_subplot(rows, cols, i + 1)
             seen: list[str] = []
-            tols, values = [], []
+            tols, values, broken = [], [], []
             limit = None
             for row in _values(result):
                 m = row.metric(name)
                 if m is None or not math.isfinite(m.value):
+                    if row.error:
+                        broken.append(float(row.value or 0.0))
                     continue
                 value = max(abs(m.value), 1e-16)
                 verdict = verdict_of(row)
@@ -127,9 +147,12 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                             xycoords=("axes fraction", "data"), ha="left", va="bottom",
                             fontsize=7)
             ax.set_yscale("log")
-            _knob_x(ax, result, tols)
+            _knob_x(ax, result, tols + broken)
+            _mark_broken(ax, broken)
             _mark_recommended(ax, result.recommended_value)
-            ax.set_title(metric_label(name).label, fontsize=9)
+            label = metric_label(name)
+            ax.set_title(label.label, fontsize=9)
+            ax.set_ylabel(f"|{label.short}| {label.unit}")
             _legend_for_verdicts(ax, seen)
     return fig
 
@@ -141,6 +164,7 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
             if r.speedup is not None and math.isfinite(r.speedup) and r.speedup > 0]
     if not rows:
         return None
+    broken = [float(r.value or 0.0) for r in _values(result) if r.error and r not in rows]
     speedups = [float(r.speedup or 0.0) for r in rows]
     with figure_rc():
         fig = Figure(figsize=(7.2, 2.6), layout="constrained")
@@ -158,7 +182,8 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
                     xy=(0.01, 1.0), xycoords=("axes fraction", "data"), ha="left",
                     va="bottom", fontsize=7)
         ax.set_ylim(bottom=0, top=1.15 * max(1.0, *speedups))
-        _knob_x(ax, result, [float(r.value or 0.0) for r in rows])
+        _knob_x(ax, result, [float(r.value or 0.0) for r in rows] + broken)
+        _mark_broken(ax, broken)
         _mark_recommended(ax, result.recommended_value)
         ax.set_ylabel(f"speed-up over {result.speedup_over} (\u00d7)")
         ax.set_title("How much faster the compressed solver is", fontsize=9)
@@ -166,8 +191,10 @@ def speedup_vs_tolerance(result: CheckResult) -> Figure | None:
     return fig
 
 
-def points_map(points: np.ndarray | None, holdout: np.ndarray | None) -> Figure | None:
-    """The data points (2D only), with the kriging holdout marked by open triangles."""
+def points_map(points: np.ndarray | None, holdout: np.ndarray | None, *,
+               units: str = "coordinate units") -> Figure | None:
+    """The data points (2D only), with the kriging holdout marked by open triangles; both
+    axes in ``units``, the unit of the coordinates as the user gave them."""
     if points is None:
         return None
     pts = np.asarray(points, dtype=float)
@@ -184,8 +211,8 @@ def points_map(points: np.ndarray | None, holdout: np.ndarray | None) -> Figure 
                     markerfacecolor="none", markeredgecolor="#000000",
                     label=f"{len(idx):,} held out for the kriging evaluation")
         ax.set_aspect("equal", adjustable="datalim")
-        ax.set_xlabel("first coordinate")
-        ax.set_ylabel("second coordinate")
+        ax.set_xlabel(f"first coordinate ({units})")
+        ax.set_ylabel(f"second coordinate ({units})")
         ax.set_title("Where the data are", fontsize=9)
         ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.15), fontsize=7,
                   frameon=False)

@@ -1,10 +1,16 @@
-"""Shorten what a report shows: repeated notes as one line with a count, long text cut at a
+"""Shorten what a report shows: repeated notes as one line with a count, one solver
+failure repeated over the solver's seeds as one line naming the seeds, long text cut at a
 word boundary (the full text kept for a note)."""
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterable
 from dataclasses import dataclass
+
+#: How the audit engine prefixes one seed's failure (``seed 0 (1234): message``); the
+#: failures of one knob value are joined by ``"; "``.
+_SEED_PREFIX = re.compile(r"(?:^|; )seed (\d+) \((\d+)\): ")
 
 
 @dataclass(frozen=True)
@@ -62,3 +68,32 @@ def shorten(text: str, width: int = 60) -> str:
     if space > width // 2:
         cut = cut[:space]
     return cut.rstrip(" ,;:") + "\u2026"
+
+
+def _seeds_text(indices: list[str]) -> str:
+    if len(indices) == 1:
+        return f"seed {indices[0]}"
+    return "seeds " + ", ".join(indices[:-1]) + " and " + indices[-1]
+
+
+def per_seed_failures(error: str) -> str:
+    """A knob value's failures with each message once, naming the seeds it came from.
+
+    ``"seed 0 (11): lost definiteness; seed 1 (12): lost definiteness"`` becomes
+    ``"seeds 0 and 1: lost definiteness"``; text before the first seed prefix (a failed
+    reference) is kept as it is, and an ``error`` without seed prefixes is returned
+    unchanged.
+    """
+    parts = _SEED_PREFIX.split(" ".join(str(error).split()))
+    head, rest = parts[0], parts[1:]
+    if not rest:
+        return head
+    seeds: dict[str, list[str]] = {}
+    for i in range(0, len(rest), 3):
+        index, text = rest[i], rest[i + 2].strip()
+        seeds.setdefault(text, [])
+        if index not in seeds[text]:
+            seeds[text].append(index)
+    lines = [head.strip().rstrip(";")] if head.strip() else []
+    lines += [f"{_seeds_text(indices)}: {text}" for text, indices in seeds.items()]
+    return "; ".join(lines)

@@ -4,6 +4,9 @@ records.
 
 Nothing in the paragraph is fixed prose with numbers pasted in: hardware, threads,
 versions, sizes, tolerances and fitted exponents are read from ``run.json`` and the fits.
+A run with too few sizes for a power-law fit (fewer than 3) still gets its scaling tables:
+the measured medians per size, under one line that says why no exponent is given; the same
+line is among the export's notes for the command line to print.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ from harness.analysis.scaling_table import (
     ScalingRow,
     display_table,
     scaling_rows,
+    solver_label,
 )
 from harness.analysis.time_to_accuracy import (
     TimeToAccuracy,
@@ -31,7 +35,9 @@ from harness.analysis.time_to_accuracy import (
 )
 from harness.audit.metric_names import LOGLIK_ERR_NAT
 from harness.report import figures
-from harness.report.run_report import thresholds_for
+from harness.report.condense import collapse_notes
+from harness.report.labels import column_label
+from harness.report.run_report import labelled_scaling, thresholds_for
 from harness.report.style import figure_bytes
 from harness.report.time_to_accuracy_figure import time_to_accuracy_figure
 from harness.report.time_to_accuracy_tables import fits_table, points_table, target_text
@@ -41,6 +47,8 @@ _LATEX_SPECIAL = {"\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$",
                   "^": r"\textasciicircum{}", "\u2013": "--", "\u221e": r"$\infty$",
                   "\u00b2": r"\textsuperscript{2}", "\u2264": r"$\leq$"}
 PARAGRAPH_METRICS: tuple[str, ...] = ("t_factor", "t_total")
+#: Columns of the per-size table written when no scaling fit is possible.
+SIZE_COLUMNS: tuple[str, ...] = ("t_factor", "t_total", "nbytes", "peak_rss_bytes")
 PHASE_WORDS = {"t_factor": "factorization", "t_total": "total evaluation",
                "t_logdet": "log-determinant", "t_solve": "solve", "t_gradient": "gradient"}
 
@@ -51,9 +59,12 @@ class ExportResult:
 
     directory: Path
     files: tuple[Path, ...]
+    #: What a reader should know about what was not written (why no scaling fit).
+    notes: tuple[str, ...] = ()
 
     def to_dict(self) -> dict[str, object]:
-        return {"directory": str(self.directory), "files": [str(f) for f in self.files]}
+        return {"directory": str(self.directory), "files": [str(f) for f in self.files],
+                "notes": list(self.notes)}
 
 
 def latex_escape(text: object) -> str:
@@ -99,6 +110,36 @@ def _join(items: Sequence[str]) -> str:
     if len(items) <= 1:
         return "".join(items)
     return ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def size_medians(run: RunData) -> pd.DataFrame:
+    """The measured medians per solver setting and size (finished tasks), with each
+    column's label and unit: what the scaling fit would have used."""
+    ok = run.ok
+    columns = [c for c in SIZE_COLUMNS if c in ok and ok[c].notna().any()]
+    if ok.empty or not columns:
+        return pd.DataFrame()
+    frame = ok.assign(setting=[
+        solver_label(str(s), t, knob_name=str(k) if isinstance(k, str) else "tol",
+                     knob_value=v)
+        for s, t, k, v in zip(ok["solver"], ok["tol"],
+                              ok["knob_name"] if "knob_name" in ok else ["tol"] * len(ok),
+                              ok["knob_value"] if "knob_value" in ok else ok["tol"],
+                              strict=True)])
+    keys = ["setting", "kernel", "geometry", "n"]
+    med = frame.groupby(keys, sort=True, dropna=False)[columns].median().reset_index()
+    out = pd.DataFrame({"solver": med["setting"], "kernel": med["kernel"],
+                        "geometry": med["geometry"],
+                        "n": med["n"].map(lambda v: f"{int(v):,}")})
+    for c in columns:
+        out[column_label(c)] = med[c].map(lambda v: "\u2013" if pd.isna(v) else f"{v:.3g}")
+    return out
+
+
+def no_fit_reason(rows: Sequence[ScalingRow]) -> str:
+    """Why no scaling fit was possible, each distinct reason once."""
+    reasons = [n.text for n in collapse_notes(r.refused for r in rows if r.refused)]
+    return "; ".join(reasons) or "no finished task has a positive time"
 
 
 def methods_paragraph(run: RunData, rows: Sequence[ScalingRow], *, level: float = 0.95
@@ -172,7 +213,7 @@ def time_to_accuracy_texts(result: TimeToAccuracy, *, run_name: str, level: floa
     target = target_text(result)
     points, fits = points_table(result), fits_table(result, level=level)
     caption = (f"Time to accuracy: per solver and n, the cheapest measured knob value "
-               f"with {target} and its {result.cost} in seconds, median over seeds "
+               f"with {target} and its {column_label(result.cost)}, median over seeds "
                f"(run {run_name}).")
     fit_caption = (f"Fitted exponents b of time to accuracy = c n^b over the sizes "
                    f"reached, with {100 * level:g}% intervals (run {run_name}).")
@@ -215,12 +256,23 @@ def export_methods(run_dir: str | Path, *, to: str | Path, seed: int = 0,
             path.write_text(data, encoding="utf-8")
         written.append(path)
 
-    caption = (f"Fitted scaling exponents b of t = c n^b with {100 * level:g}% intervals "
-               f"(run {run.path.name}).")
-    write("scaling.tex", to_latex(table, caption=caption, label="tab:scaling")
-          if not table.empty else "% no scaling fit was possible\n")
-    write("scaling.md", to_markdown(table) if not table.empty
-          else "No scaling fit was possible.\n")
+    notes: list[str] = []
+    if table.empty:
+        reason = f"No scaling fit: {no_fit_reason(rows)}."
+        notes.append(reason)
+        sizes = size_medians(run)
+        caption = f"Measured medians per size (run {run.path.name})."
+        write("scaling.tex", f"% {reason}\n" + (
+            to_latex(sizes, caption=f"{caption} {reason}", label="tab:scaling")
+            if not sizes.empty else ""))
+        write("scaling.md", f"{reason}\n\n" + (
+            f"{caption}\n\n{to_markdown(sizes)}" if not sizes.empty else ""))
+    else:
+        table = labelled_scaling(table)
+        caption = (f"Fitted scaling exponents b of t = c n^b with {100 * level:g}% "
+                   f"intervals (run {run.path.name}).")
+        write("scaling.tex", to_latex(table, caption=caption, label="tab:scaling"))
+        write("scaling.md", to_markdown(table))
     tex, md = time_to_accuracy_texts(accuracy, run_name=run.path.name, level=level)
     write("time_to_accuracy.tex", tex)
     write("time_to_accuracy.md", md)
@@ -237,4 +289,4 @@ def export_methods(run_dir: str | Path, *, to: str | Path, seed: int = 0,
             continue
         for fmt in ("pdf", "svg"):
             write(f"{name}.{fmt}", figure_bytes(fig, fmt))
-    return ExportResult(out, tuple(written))
+    return ExportResult(out, tuple(written), tuple(notes))

@@ -1,7 +1,9 @@
 """The report's figures, drawn with matplotlib's object API (``Figure``, no pyplot state).
 
 Each function takes the results (and fits) and returns a ``Figure``, or None when the run
-holds nothing to draw. Worst cases over seeds are plotted, as the verdicts use them.
+holds nothing to draw. Worst cases over seeds are plotted, as the verdicts use them. Every
+axis label ends with its unit in parentheses (``METRIC_TITLES``, ``TOLERANCE_LABEL``,
+``N_LABEL``, ``PROBES_LABEL``).
 """
 
 from __future__ import annotations
@@ -17,18 +19,14 @@ from matplotlib.ticker import NullFormatter
 
 from harness.analysis.scaling_table import ScalingRow, solver_label
 from harness.audit.rule import Thresholds
+from harness.report.labels import RESULT_COLUMN_LABELS
 from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
 
-METRIC_TITLES: dict[str, str] = {
-    "loglik_abs_err": "|log-likelihood error| (nats)",
-    "param_shift_se_max": "max implied parameter shift (SE)",
-    "kriging_mean_err_sd_max": "max kriging mean error (predictive SD)",
-    "trace_z_max": "max |trace z-score|",
-    "trace_rel_err_max": "max relative trace error",
-    "t_factor": "factor time (s)", "t_logdet": "log det time (s)", "t_solve": "solve time (s)",
-    "t_gradient": "gradient time (s)", "t_total": "total time (s)",
-    "peak_rss_bytes": "peak RSS (bytes)", "nbytes": "factor storage (bytes)",
-}
+#: Each plotted column's label with its unit (one set, ``harness.report.labels``).
+METRIC_TITLES: dict[str, str] = RESULT_COLUMN_LABELS
+TOLERANCE_LABEL = "compression tolerance (relative)"
+N_LABEL = "problem size n (points)"
+PROBES_LABEL = "probes p (vectors)"
 
 
 def _ok(results: pd.DataFrame) -> pd.DataFrame:
@@ -99,8 +97,8 @@ def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> F
             _threshold(ax, limit, label)
             ax.set_xscale("log")
             ax.xaxis.set_minor_formatter(NullFormatter())
-            ax.set_xlabel("compression tolerance")
-            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+            ax.set_xlabel(TOLERANCE_LABEL)
+            ax.set_ylabel(METRIC_TITLES.get(metric, metric))
         axes[0].legend(loc="best")
     return fig
 
@@ -139,8 +137,8 @@ def error_vs_n(results: pd.DataFrame, *, thresholds: Thresholds) -> Figure | Non
             _threshold(ax, limit, "safe limit")
             _log_axes(ax)
             _value_ticks(ax, worst["n"])
-            ax.set_xlabel("n")
-            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+            ax.set_xlabel(N_LABEL)
+            ax.set_ylabel(METRIC_TITLES.get(metric, metric))
         axes[0].legend(loc="best")
     return fig
 
@@ -176,8 +174,8 @@ def cost_vs_n(results: pd.DataFrame, rows: Sequence[ScalingRow], *,
                             linestyle=style.linestyle, linewidth=1.0)
             _log_axes(ax)
             _value_ticks(ax, med["n"])
-            ax.set_xlabel("n")
-            ax.set_title(METRIC_TITLES.get(metric, metric), fontsize=9)
+            ax.set_xlabel(N_LABEL)
+            ax.set_ylabel(METRIC_TITLES.get(metric, metric))
             ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.2), frameon=False)
     return fig
 
@@ -209,7 +207,7 @@ def trace_vs_probes(results: pd.DataFrame) -> Figure | None:
                     linewidth=1.0, label=f"rate p^-{rate:g}")
         _log_axes(ax)
         _value_ticks(ax, worst["probes"])
-        ax.set_xlabel("probes p")
-        ax.set_title(METRIC_TITLES["trace_rel_err_max"], fontsize=9)
+        ax.set_xlabel(PROBES_LABEL)
+        ax.set_ylabel(METRIC_TITLES["trace_rel_err_max"])
         ax.legend(loc="best", ncols=2)
     return fig

@@ -22,6 +22,11 @@ class MetricLabel:
     label: str
     legend: str
 
+    @property
+    def unit(self) -> str:
+        """The unit in parentheses, ``(nats)``, for an axis label; empty when unknown."""
+        return METRIC_UNITS.get(self.key) or METRIC_UNITS.get(canonical_name(self.key), "")
+
 
 METRIC_LABELS: dict[str, MetricLabel] = {m.key: m for m in (
     MetricLabel("loglik_error", "\u0394 log-lik", "log-likelihood error (nats)",
@@ -52,6 +57,13 @@ METRIC_LABELS: dict[str, MetricLabel] = {m.key: m for m in (
                 "error, as a fraction (Hong et al. 2021)"),
 )}
 
+#: The unit of each metric, as axis labels write it.
+METRIC_UNITS: dict[str, str] = {
+    "loglik_error": "(nats)", "loglik_error_extrapolated": "(nats)",
+    "param_shift_se": "(SE)", "microergodic_shift_se": "(SE)",
+    "kriging_mean_sd": "(pred. SD)", "kriging_var_ratio": "(relative)",
+    "mloe": "(fraction)", "mmom": "(fraction)", "seconds": "(s)", "speedup": "(\u00d7)"}
+
 #: Columns the check report shows beside the metrics.
 COLUMN_LABELS: dict[str, MetricLabel] = {m.key: m for m in (
     MetricLabel("tol", "tolerance", "compression tolerance",
@@ -68,6 +80,28 @@ COLUMN_LABELS: dict[str, MetricLabel] = {m.key: m for m in (
                 "the reference's time divided by the compressed time; below 1 it does not "
                 "pay at this size"),
 )}
+
+#: Columns of a run's ``results.csv`` as the run report, its figures and the export name
+#: them, each with its unit.
+RESULT_COLUMN_LABELS: dict[str, str] = {
+    "loglik_abs_err": "|log-likelihood error| (nats)",
+    "param_shift_se_max": "max implied parameter shift (SE)",
+    "kriging_mean_err_sd_max": "max kriging mean error (predictive SD)",
+    "trace_z_max": "max |trace z-score| (SE)",
+    "trace_rel_err_max": "max trace error (relative)",
+    "kl_nat": "KL divergence (nats)",
+    "reference_certified": "dense reference certified (yes/no)",
+    "t_factor": "factor time (s)", "t_logdet": "log det time (s)", "t_solve": "solve time (s)",
+    "t_gradient": "gradient time (s)", "t_total": "total time (s)",
+    "peak_rss_bytes": "peak RSS (bytes)", "nbytes": "factor storage (bytes)",
+}
+
+
+def column_label(key: str) -> str:
+    """How a ``results.csv`` column is shown (``RESULT_COLUMN_LABELS``), else the check
+    metric's label (``metric_label``); an unknown key is shown as itself."""
+    return RESULT_COLUMN_LABELS.get(key) or metric_label(key).label
+
 
 #: Labels under each metric's canonical name (``harness.audit.metric_names``), taken from
 #: the label of one of its old names.

@@ -33,7 +33,7 @@ from harness.audit.rule import ThresholdError, Thresholds
 from harness.audit.verdict import COMMON_PRACTICE, VerdictSet, judge
 from harness.report import figures
 from harness.report.condense import collapse_notes
-from harness.report.labels import TERMS
+from harness.report.labels import TERMS, column_label
 from harness.report.run_summary import (
     DOES_NOT_PAY,
     dataset_summary,
@@ -52,10 +52,35 @@ STATUS_TEXT = {"safe": "\u2714 safe", "unsafe": "\u2718 unsafe",
                "incomplete": "? incomplete", "unresolved": "? unresolved",
                "failed": "\u2718 no task finished"}
 CASE_TEXT_KEYS = ("case_text", "case_file_text", "case_file")
-TOC = (("summary", "Verdicts"), ("accuracy", "Accuracy"), ("cost", "Time and memory"),
-       ("trace", "Trace estimates"), ("failures", "Failures"),
-       ("environment", "Environment"), ("cautions", "Cautions"),
-       ("results", "Results per dataset"))
+#: (section id, heading) in the report's order; the table of contents and the numbered
+#: headings are both written from this list (``sections``), so they cannot disagree.
+TOC = (("summary", "Which tolerance is safe?"), ("accuracy", "Accuracy against tolerance"),
+       ("cost", "Time and memory"), ("trace", "Stochastic trace estimates"),
+       ("failures", "Failed and skipped tasks"), ("environment", "Environment"),
+       ("cautions", "Cautions"), ("results", "Results per dataset"))
+COMPARISON_SECTION = ("comparison", "Comparison with a baseline")
+#: The unit of a run's coordinates when neither the caller nor the case names one.
+DEFAULT_COORD_UNITS = "coordinate units"
+
+
+def run_coord_units(run: RunData, coord_units: str | None = None) -> str:
+    """The unit of the run's coordinates and length scales: ``coord_units`` when given,
+    else ``coord_units`` of the case table in ``run.json``, else ``DEFAULT_COORD_UNITS``."""
+    case = run.meta.get("case")
+    recorded = case.get("coord_units") if isinstance(case, Mapping) else None
+    for units in (coord_units, recorded):
+        if isinstance(units, str) and units.strip():
+            return units.strip()
+    return DEFAULT_COORD_UNITS
+
+
+def sections(*, comparison: bool) -> dict[str, str]:
+    """Each section's numbered heading (``"3. Time and memory"``), in the report's order;
+    the comparison with a baseline, when there is one, is section 2."""
+    order = list(TOC)
+    if comparison:
+        order.insert(1, COMPARISON_SECTION)
+    return {key: f"{i}. {title}" for i, (key, title) in enumerate(order, start=1)}
 
 
 def _environment() -> jinja2.Environment:
@@ -136,7 +161,7 @@ def _verdict_detail(vs: VerdictSet) -> pd.DataFrame:
                                   "verdict": STATUS_TEXT[v.status],
                                   "tasks ok": v.tasks_ok, "failed": v.tasks_failed}
         for e in v.evidence:
-            rec[e.metric] = _evidence_text(e)
+            rec[column_label(e.metric)] = _evidence_text(e)
         rows.append(rec)
     return pd.DataFrame(rows)
 
@@ -161,7 +186,8 @@ def _failures(results: pd.DataFrame) -> pd.DataFrame:
                   for text in map(setting_text, bad["tol"], names, values)]
     out["n"] = out["n"].map(lambda v: "" if pd.isna(v) else str(int(v)))
     out["seed"] = out["seed"].map(lambda v: "" if pd.isna(v) else str(int(v)))
-    return out.sort_values(["status", "solver", "n", "seed"], kind="stable")
+    return out.sort_values(["status", "solver", "n", "seed"], kind="stable").rename(
+        columns={"error_type": "error", "error_message": "message"})
 
 
 def _flatten(meta: Mapping[str, Any], prefix: str = "") -> list[tuple[str, str]]:
@@ -216,6 +242,13 @@ def _thresholds_table(th: Thresholds) -> pd.DataFrame:
                          for k, v in th.to_dict().items()])
 
 
+def labelled_scaling(table: pd.DataFrame) -> pd.DataFrame:
+    """The scaling table (``display_table``) with each metric named by its label."""
+    if table.empty or "metric" not in table:
+        return table
+    return table.assign(metric=table["metric"].map(column_label))
+
+
 def _comparison_context(comparison: Comparison) -> dict[str, object]:
     findings = pd.DataFrame([{
         "task": f.task, "metric": f.metric, "kind": f.kind, "baseline": f.baseline,
@@ -241,11 +274,15 @@ def _results_table(results: pd.DataFrame) -> pd.DataFrame:
 
 def render_report(run: RunData, *, comparison: Comparison | None = None,
                   thresholds: Thresholds | None = None, level: float = 0.95,
-                  seed: int = 0, results_href: str = "results.csv") -> str:
+                  seed: int = 0, results_href: str = "results.csv",
+                  coord_units: str | None = None) -> str:
     """The report's HTML for ``run`` (same inputs give the same text).
 
     Parameters
     ----------
+    coord_units : str, optional
+        The unit of the point sets' coordinates and the kernels' length scales
+        (``report --coord-units``); default ``run_coord_units``.
     seed : int
         Seed of the bootstrap stream (fixed so reports can be diffed).
     results_href : str
@@ -267,9 +304,7 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
     figs["time_to_accuracy"] = time_to_accuracy_figure(accuracy)
     cases = sorted(set(results["case"].astype(str)) - {""})
     meta = run.meta
-    toc = list(TOC)
-    if comparison is not None:
-        toc.insert(1, ("comparison", "Comparison"))
+    headings = sections(comparison=comparison is not None)
     context = {
         "version": __version__, "title": ", ".join(cases) or run.path.name,
         "run_name": run.path.name, "n_tasks": len(results),
@@ -277,7 +312,8 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "n_failed": int((results["status"] == "failed").sum()),
         "n_skipped": int((results["status"] == "skipped").sum()),
         "started": str(meta.get("started", "")), "finished": str(meta.get("finished", "")),
-        "toc": toc,
+        "headings": headings, "coord_units": run_coord_units(run, coord_units),
+        "section": {key: text.split(".", 1)[0] for key, text in headings.items()},
         "recommendations": html_table(_recommendations(vs))
         if any(v.status != "failed" for v in vs.verdicts) else "",
         "per_tolerance": html_table(_per_tolerance(vs)) if vs.verdicts else "",
@@ -287,7 +323,8 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
         "verdict_detail": html_table(_verdict_detail(vs)) if vs.verdicts else "",
         "figures": {k: (data_uri(f) if f is not None else "") for k, f in figs.items()},
         "level_pct": f"{100 * level:g}",
-        "scaling": html_table(display_table(rows)) if any(r.fit for r in rows) else "",
+        "scaling": html_table(labelled_scaling(display_table(rows)))
+        if any(r.fit for r in rows) else "",
         "scaling_refused": [note.line() for note in collapse_notes(
             (r.label, str(r.refused)) for r in rows if r.fit is None)],
         "fitted_time": fitted_any(rows, ("t_factor", "t_total")),
@@ -315,7 +352,8 @@ def render_report(run: RunData, *, comparison: Comparison | None = None,
 
 def write_report(run_dir: str | Path, *, out: str | Path | None = None,
                  comparison: Comparison | None = None,
-                 thresholds: Thresholds | None = None) -> Path:
+                 thresholds: Thresholds | None = None,
+                 coord_units: str | None = None) -> Path:
     """Write the self-contained HTML report of a run directory.
 
     Parameters
@@ -329,6 +367,8 @@ def write_report(run_dir: str | Path, *, out: str | Path | None = None,
         present.
     thresholds : Thresholds, optional
         Defaults to the case file's ``[verdict]`` table, else ``Thresholds()``.
+    coord_units : str, optional
+        The unit of the coordinates and length scales (``render_report``).
 
     Returns
     -------
@@ -342,7 +382,7 @@ def write_report(run_dir: str | Path, *, out: str | Path | None = None,
     href = Path(os.path.relpath((run.path / RESULTS_FILE).resolve(),
                                 target.resolve().parent)).as_posix()
     html = render_report(run, comparison=comparison, thresholds=thresholds,
-                         results_href=href)
+                         results_href=href, coord_units=coord_units)
     target.parent.mkdir(parents=True, exist_ok=True)
     tmp = target.with_name(target.name + ".tmp")
     tmp.write_text(html, encoding="utf-8")
