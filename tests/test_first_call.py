@@ -1,0 +1,106 @@
+"""The first call's compile notice and ``covaudit warm-up`` (harness.infra.compile_notice).
+
+Each check runs in a child interpreter with its own ``NUMBA_CACHE_DIR`` (a new folder is
+a cleared cache), since numba's listeners and loaded kernels are per process.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from harness.infra.compile_notice import NOTICE
+
+#: Compiles two signatures of one cached kernel, a compiled kernel of the project (the
+#: dense lower-triangle fill of 40 points), and prints how many outermost compilations
+#: ``record_compiles`` saw.
+_CALLS = r"""
+import sys
+import numba
+import numpy as np
+from harness.infra.compile_notice import record_compiles, show_first_compile
+from harness.model.kernels import Matern32, assemble_lower
+sys.path.insert(0, sys.argv[1])
+from tiny_kernel import double
+show_first_compile()
+show_first_compile()  # a second call installs nothing more
+with record_compiles() as log:
+    double(np.ones(3))
+    double(np.ones(3, dtype=np.int64))
+    assemble_lower(Matern32(variance=1.0, lengthscale=0.2, nugget=1e-2),
+                   np.random.default_rng(0).random((40, 2)))
+print(len(log.kernels))
+"""
+
+_TINY_KERNEL = '''
+import numba
+
+@numba.njit(cache=True)
+def double(x):
+    return 2 * x
+'''
+
+
+def _python(code: str, *args: str, cache: Path) -> subprocess.CompletedProcess[str]:
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(cache)}
+    return subprocess.run([sys.executable, "-c", code, *args], env=env, text=True,
+                          capture_output=True, check=False, timeout=300)
+
+
+@pytest.fixture(scope="module")
+def cold_then_warm(tmp_path_factory: pytest.TempPathFactory
+                   ) -> tuple[subprocess.CompletedProcess[str], subprocess.CompletedProcess[str]]:
+    folder = tmp_path_factory.mktemp("first_call")
+    (folder / "tiny_kernel.py").write_text(_TINY_KERNEL)
+    cache = folder / "numba-cache"
+    cold = _python(_CALLS, str(folder), cache=cache)
+    warm = _python(_CALLS, str(folder), cache=cache)
+    return cold, warm
+
+
+def test_notice_once_on_a_cold_cache(cold_then_warm) -> None:
+    cold, _ = cold_then_warm
+    assert cold.returncode == 0, cold.stderr
+    # the notice precedes the first compilation and is not repeated (module docstring)
+    assert cold.stderr.splitlines().count(NOTICE) == 1, cold.stderr
+    # two signatures of ``double`` plus at least the fill kernel: three or more
+    assert int(cold.stdout.split()[-1]) >= 3
+
+
+def test_no_notice_on_a_warm_cache(cold_then_warm) -> None:
+    _, warm = cold_then_warm
+    assert warm.returncode == 0, warm.stderr
+    assert NOTICE not in warm.stderr
+    # everything loaded from the cache: no compilation at all
+    assert warm.stdout.split()[-1] == "0"
+
+
+def test_warm_up_is_listed_in_help() -> None:
+    from harness.cli import build_parser
+
+    text = build_parser().format_help()
+    assert "warm-up" in text
+
+
+def _cli(*argv: str, cache: Path) -> subprocess.CompletedProcess[str]:
+    env = {**os.environ, "NUMBA_CACHE_DIR": str(cache)}
+    return subprocess.run([sys.executable, "-m", "harness", *argv], env=env, text=True,
+                          capture_output=True, check=False, timeout=1800)
+
+
+@pytest.mark.slow
+def test_warm_up_twice_on_a_cleared_cache(tmp_path: Path) -> None:
+    """Minutes: the first run compiles every kernel of the project."""
+    first = _cli("warm-up", cache=tmp_path)
+    assert first.returncode == 0, first.stderr
+    assert first.stderr.splitlines().count(NOTICE) == 1
+    assert "warm-up: compiled" in first.stdout
+    second = _cli("warm-up", cache=tmp_path)
+    assert second.returncode == 0, second.stderr
+    assert NOTICE not in second.stderr
+    assert "warm-up: everything was already compiled" in second.stdout
+    assert "compiled " not in second.stdout.replace("already compiled", "")
