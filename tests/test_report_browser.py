@@ -1,5 +1,7 @@
 """The reports in a real browser at 1280 px: the answer and the speed-up are visible
-without horizontal scrolling, every figure has alt text, no note line is repeated.
+without horizontal scrolling, every figure has alt text, no note line is repeated, no
+shown table cell is cut off (by the window or a scrolling box), and the run report's
+table of contents matches its section headings.
 
 Headless Chromium loads a copy of each report with a measuring script added (the
 reports themselves hold no script); the script writes element positions
@@ -15,6 +17,7 @@ import os
 import re
 import shutil
 import subprocess
+from html import unescape
 from pathlib import Path
 
 import numpy as np
@@ -146,3 +149,83 @@ def test_run_report_answer_fits_1280_px(tmp_path):
     notes = _notes(html)
     assert len(notes) == len(set(notes))
     screenshot(path, "run_report", tmp_path)
+
+
+CELLS = """
+<script>
+(function () {
+  // every shown table cell must lie inside the window and inside any box that clips it
+  var out = {viewport: window.innerWidth, cells: 0, cut: [], toc: [], headings: []};
+  document.querySelectorAll("td, th").forEach(function (cell) {
+    var folded = cell.closest("details");
+    if (folded && !folded.open) { return; }
+    var r = cell.getBoundingClientRect();
+    if (r.width === 0 && r.height === 0) { return; }
+    out.cells += 1;
+    var left = 0, right = window.innerWidth;
+    for (var p = cell.parentElement; p; p = p.parentElement) {
+      if (getComputedStyle(p).overflowX !== "visible") {
+        var b = p.getBoundingClientRect();
+        left = Math.max(left, b.left);
+        right = Math.min(right, b.right);
+      }
+    }
+    if (r.left < left - 0.5 || r.right > right + 0.5 || cell.scrollWidth > cell.clientWidth + 1) {
+      out.cut.push({text: cell.textContent.trim().slice(0, 80), left: r.left,
+                    right: r.right, clip: [left, right]});
+    }
+  });
+  document.querySelectorAll("nav a").forEach(function (a) {
+    out.toc.push([a.getAttribute("href"), a.textContent.trim()]);
+  });
+  document.querySelectorAll("section[id] > h2").forEach(function (h) {
+    out.headings.push(["#" + h.parentElement.id, h.textContent.trim()]);
+  });
+  var pre = document.createElement("pre");
+  pre.id = "covaudit-measure";
+  pre.textContent = JSON.stringify(out);
+  document.body.appendChild(pre);
+})();
+</script>
+"""
+
+
+def measure_cells(html: str, tmp: Path) -> dict:
+    """Every shown table cell's box against the window and its clipping boxes, the table
+    of contents and the section headings, as the browser lays them out at 1280 px."""
+    page = tmp / "cells.html"
+    page.write_text(html.replace("</body>", CELLS + "</body>"), encoding="utf-8")
+    dom = _browser(["--virtual-time-budget=5000", "--dump-dom", page.as_uri()],
+                   tmp / "profile-cells").stdout
+    found = re.search(r'<pre id="covaudit-measure">(.*?)</pre>', dom, re.S)
+    assert found, "the measuring script did not run"
+    return json.loads(unescape(found.group(1)))
+
+
+def test_check_report_cells_are_whole_at_1280_px(tmp_path):
+    from test_report_readability import _seed_breakdown
+
+    points, holdout = example_points()
+    html = render_check_report(_seed_breakdown(example_result()), points=points,
+                               holdout=holdout, coord_units="m")
+    m = measure_cells(html, tmp_path)
+    assert m["viewport"] == WIDTH
+    assert m["cells"] > 40, m["cells"]          # the verdict, parameter and legend tables
+    assert m["cut"] == [], m["cut"]
+
+
+def test_run_report_cells_are_whole_and_contents_match_sections_at_1280_px(tmp_path):
+    from harness.analysis.regression import Comparison
+
+    run = write_synthetic_run(tmp_path / "run", rng=np.random.default_rng(4),
+                              sizes=(500, 1000, 2000, 4000), tolerances=(1e-2, 1e-4, 1e-6),
+                              seeds=(0, 1), probes=(16, 64), dense_max_n=2000)
+    comparison = Comparison(baseline="base", new="new", checks=(), paired=3, findings=(),
+                            missing=(), extra=())
+    for compared in (None, comparison):
+        path = write_report(run, out=tmp_path / "report.html", comparison=compared)
+        m = measure_cells(path.read_text(encoding="utf-8"), tmp_path)
+        assert m["cells"] > 40, m["cells"]
+        assert m["cut"] == [], m["cut"]
+        assert len(m["toc"]) == (8 if compared is None else 9)
+        assert [tuple(t) for t in m["toc"]] == [tuple(h) for h in m["headings"]]
