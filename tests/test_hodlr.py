@@ -285,15 +285,23 @@ def test_bad_vector_shape(problem_3000) -> None:
 
 # -- building blocks ---------------------------------------------------------------
 
-@pytest.mark.parametrize("tol", [1e-4, 1e-7, 1e-10])
-def test_aca_touching_block_meets_tolerance(tol: float) -> None:
-    # the two halves of the root of a 2D tree touch along a line: the hard case for ACA
+@pytest.fixture(scope="module")
+def touching_block() -> tuple[np.ndarray, int, np.ndarray, np.ndarray]:
+    """The root's two touching halves of a 2D tree (scaled points, split index), their
+    exact cross-covariance block and its singular values, shared by every tolerance."""
     kernel = Matern32(lengthscale=0.1)
     points = uniform(2400, 2, rng=np.random.default_rng(2))
     tree = build_tree(points, leaf_size=128)
     xs = kernel.scale_points(points[tree.perm])
     mid = int(tree.bounds[1][1])
     block = kernel.cross_covariance(points[tree.perm[:mid]], points[tree.perm[mid:]])
+    return xs, mid, block, np.linalg.svd(block, compute_uv=False)
+
+
+@pytest.mark.parametrize("tol", [1e-4, 1e-7, 1e-10])
+def test_aca_touching_block_meets_tolerance(touching_block, tol: float) -> None:
+    # the two halves of the root of a 2D tree touch along a line: the hard case for ACA
+    xs, mid, block, s = touching_block
     checks = np.random.default_rng(0).integers(0, mid, size=(8, 8))
     a, b, gram_a, gram_b, _ = aca_compiled(1, xs[:mid], xs[mid:], 0.0, 1.0, 0, 0.5 * tol,
                                            mid, checks, ACA_BLOCK, np.empty(0))
@@ -301,7 +309,7 @@ def test_aca_touching_block_meets_tolerance(tol: float) -> None:
     low = recompress(a, b, tol=0.5 * tol, gram_a=gram_a, gram_b=gram_b)
     err = np.linalg.norm(block - low.u @ low.v.T) / np.linalg.norm(block)
     assert err <= 3 * tol, err  # the ACA half of the bound is an estimate (random rows)
-    s = np.linalg.svd(block, compute_uv=False)  # optimal rank for the same Frobenius error
+    # optimal rank for the same Frobenius error (s: the block's singular values)
     tail = np.sqrt(np.cumsum((s * s)[::-1])[::-1])
     optimal = int(np.count_nonzero(tail > tol * np.linalg.norm(s)))
     assert low.rank <= 1.5 * optimal + 5, (low.rank, optimal)
