@@ -324,3 +324,23 @@ def test_export_with_two_sizes_writes_its_tables_and_says_why_no_fit(tmp_path, c
     assert r"\begin{tabular}" in tex and reason in tex
     result = export_methods(run, to=tmp_path / "again")
     assert result.notes and reason in result.notes[0]
+
+
+def test_run_accuracy_figure_marks_a_tolerance_that_only_failed(tmp_path):
+    run = write_synthetic_run(tmp_path / "run", rng=np.random.default_rng(4),
+                              sizes=(500, 1000), tolerances=(1e-2, 1e-4, 1e-6), seeds=(0, 1),
+                              probes=(16,), dense_max_n=2000)
+    frame = pd.read_csv(run / "results.csv")
+    every = figures.accuracy_vs_tolerance(frame, thresholds=Thresholds())
+    assert every is not None and not [
+        line for ax in every.get_axes() for line in ax.get_lines()
+        if line.get_label() == figures.FAILED_LABEL]
+    # every task at tol 1e-2 and n = 1000 fails: nothing is measured there
+    broken = (frame["tol"] == 1e-2) & (frame["n"] == 1000)
+    frame.loc[broken, "status"] = "failed"
+    assert figures.failed_tolerances(frame) == [1e-2]
+    fig = figures.accuracy_vs_tolerance(frame, thresholds=Thresholds())
+    assert fig is not None
+    marks = [[float(x) for x in line.get_xdata()] for ax in fig.get_axes()
+             for line in ax.get_lines() if line.get_label() == figures.FAILED_LABEL]
+    assert marks == [[1e-2]] * len(fig.get_axes())

@@ -3,7 +3,8 @@
 Each function takes the results (and fits) and returns a ``Figure``, or None when the run
 holds nothing to draw. Worst cases over seeds are plotted, as the verdicts use them. Every
 axis label ends with its unit in parentheses (``METRIC_TITLES``, ``TOLERANCE_LABEL``,
-``N_LABEL``, ``PROBES_LABEL``).
+``N_LABEL``, ``PROBES_LABEL``). A tolerance whose tasks failed where none finished is
+marked at the top of every accuracy panel (``FAILED_LABEL``), not dropped.
 """
 
 from __future__ import annotations
@@ -27,6 +28,10 @@ METRIC_TITLES: dict[str, str] = RESULT_COLUMN_LABELS
 TOLERANCE_LABEL = "compression tolerance (relative)"
 N_LABEL = "problem size n (points)"
 PROBES_LABEL = "probes p (vectors)"
+FAILED_LABEL = "failed, nothing measured"
+#: A tolerance with failed tasks and nothing measured: at the top of the panel.
+FAILED_STYLE: dict[str, object] = {"marker": "v", "markersize": 7, "linestyle": "none",
+                                   "markerfacecolor": "#D55E00", "markeredgecolor": "#000000"}
 
 
 def _ok(results: pd.DataFrame) -> pd.DataFrame:
@@ -35,6 +40,22 @@ def _ok(results: pd.DataFrame) -> pd.DataFrame:
 
 def _positive(frame: pd.DataFrame, column: str) -> pd.DataFrame:
     return frame[frame[column].notna() & (frame[column] > 0)]
+
+
+def failed_tolerances(results: pd.DataFrame) -> list[float]:
+    """Tolerances where a (solver, n) has failed tasks and no finished one."""
+    keys = ["solver", "n", "tol"]
+    tried = results[results["tol"].notna()]
+    done = set(_ok(tried)[keys].itertuples(index=False, name=None))
+    failed = tried[tried["status"] == "failed"]
+    return sorted({float(t) for s, n, t in zip(failed["solver"], failed["n"], failed["tol"],
+                                               strict=True) if (s, n, t) not in done})
+
+
+def _mark_failed(ax: Axes, tolerances: Sequence[float]) -> None:
+    if tolerances:
+        ax.plot(list(tolerances), [0.93] * len(tolerances), transform=ax.get_xaxis_transform(),
+                label=FAILED_LABEL, clip_on=False, **FAILED_STYLE)  # type: ignore[arg-type]
 
 
 def _threshold(ax: Axes, value: float, label: str) -> None:
@@ -80,6 +101,7 @@ def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> F
     panels = [p for p in panels if not _positive(ok, p[0]).empty]
     if not panels:
         return None
+    failed = failed_tolerances(results)
     with figure_rc():
         fig, axes = _grid(len(panels))
         for ax, (metric, limit, label) in zip(axes, panels, strict=True):
@@ -95,6 +117,7 @@ def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> F
                 ax.set_yscale("log")
                 ax.yaxis.set_minor_formatter(NullFormatter())
             _threshold(ax, limit, label)
+            _mark_failed(ax, failed)
             ax.set_xscale("log")
             ax.xaxis.set_minor_formatter(NullFormatter())
             ax.set_xlabel(TOLERANCE_LABEL)
