@@ -26,3 +26,16 @@ def test_beyond_the_dense_limit_the_advice_is_a_runnable_option():
     assert "beyond the memory budget" in advice and "--tolerances" in advice
     assert "--solver" in advice
     assert advice in render_check_report(result).replace("&#39;", "'")
+
+
+def test_a_blank_coordinate_unit_is_refused_before_any_work(tmp_path, capsys):
+    from harness.cli import main
+    from harness.infra.exit_codes import ExitCode
+
+    data = tmp_path / "d.csv"
+    data.write_text("x,y,z\n" + "".join(f"{i},{i % 7},{i % 3}\n" for i in range(60)))
+    code = main(["check", str(data), "--coords", "x,y", "--value", "z",
+                 "--coord-units", " ", "--out", str(tmp_path / "o")])
+    assert code == ExitCode.ERROR
+    assert "--coord-units: expected a unit such as m or km" in capsys.readouterr().err
+    assert not (tmp_path / "o").exists()

@@ -103,6 +103,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "default, other solvers their declared sweep)")
     p.add_argument("--coord-system", choices=("planar", "lonlat"), default="planar",
                    help="lonlat: degrees, embedded on the Earth sphere (chordal km)")
+    p.add_argument("--coord-units", default=None, metavar="UNIT",
+                   help="unit of planar coordinates and length scales in the report, e.g. "
+                        "m or km (default: 'coordinate units'; lonlat is always degrees and "
+                        "chordal km)")
     p.add_argument("--holdout",
                    type=HOLDOUT_FRACTION.argparse_type(),
                    default=0.1,
@@ -299,8 +303,8 @@ def json_text(result: CheckResult) -> str:
 
 def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "check.html",
                   json_name: str = "check.json", extra: dict[str, str] | None = None,
-                  points: np.ndarray | None = None, holdout: np.ndarray | None = None
-                  ) -> Path:
+                  points: np.ndarray | None = None, holdout: np.ndarray | None = None,
+                  coord_units: str | None = None) -> Path:
     """Write the JSON, the HTML report and ``extra`` files (name -> text) into ``out``
     atomically: everything goes to a temporary folder first and is renamed at the end."""
     out = Path(out)
@@ -312,7 +316,9 @@ def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "che
             (tmp / name).parent.mkdir(parents=True, exist_ok=True)
             (tmp / name).write_text(text, encoding="utf-8")
         (tmp / html_name).write_text(render_check_report(result, points=points,
-                                                         holdout=holdout), encoding="utf-8")
+                                                         holdout=holdout,
+                                                         coord_units=coord_units),
+                                     encoding="utf-8")
         out.mkdir(exist_ok=True)
         for item in sorted(tmp.rglob("*")):
             if item.is_file():
@@ -420,6 +426,15 @@ def _short(value: Any) -> str:
     return f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
+def _coord_units(text: str | None) -> str | None:
+    """``--coord-units`` stripped; a blank one is refused (one line, exit 2)."""
+    if text is None:
+        return None
+    if not text.strip():
+        raise CheckError("--coord-units: expected a unit such as m or km, got a blank value")
+    return text.strip()
+
+
 def default_out(datafile: str | Path) -> Path:
     """``reports/check-<data file stem>``: one folder per data file, so checks of different
     files do not overwrite each other."""
@@ -437,6 +452,7 @@ def run(args: argparse.Namespace) -> int:
 
     out = Path(args.out) if args.out else default_out(args.datafile)
     try:
+        coord_units = _coord_units(getattr(args, "coord_units", None))
         options = options_from_args(args)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
         obs = load_observations(args.datafile, coords=coords, value=args.value,
@@ -458,7 +474,8 @@ def run(args: argparse.Namespace) -> int:
             progress.finish()
         finally:
             progress.close()
-        write_outputs(result, out, points=data.points, holdout=holdout_indices(
+        write_outputs(result, out, points=data.points, coord_units=coord_units,
+                      holdout=holdout_indices(
             data.n, fraction=args.holdout, seed=args.seed, cap=args.holdout_points))
     except (DataFileError, CheckDataError, CheckError, KernelParameterError,
             ParamSyntaxError, FitError, MemoryError, np.linalg.LinAlgError, ValueError,

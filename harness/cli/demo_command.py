@@ -56,7 +56,7 @@ def run(args: argparse.Namespace) -> int:
         write_outputs(result, args.out, html_name="demo.html", json_name="demo.json",
                       extra={"demo-data/soil_moisture.csv": frame.to_csv(index=False),
                              "demo-data/soil_moisture.md": demo.dictionary},
-                      points=data.points, holdout=holdout_indices(
+                      points=data.points, coord_units="m", holdout=holdout_indices(
                           data.n, fraction=options.holdout, seed=options.seed))
     except (ValueError, MemoryError, np.linalg.LinAlgError, OSError) as exc:
         print(f"covaudit demo: error: {exc}", file=sys.stderr)
