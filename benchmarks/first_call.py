@@ -3,7 +3,8 @@
 Two calls, each timed in fresh processes (wall seconds from the interpreter's start to
 its exit, imports included):
 
-- ``hodlr``: a HODLR factorization and log-likelihood (value only) of 2D uniform points,
+- ``hodlr``: a HODLR factorization and log-likelihood (value only) of 2D uniform points
+  (a script, not the CLI: no compile notice),
   Matern 3/2, s2 = 1, l = 0.1, nugget 1e-2, tol 1e-6, at ``--n`` (default 131,072);
 - ``check``: ``covaudit check`` on the demo data (``harness.check.demo_data``) at
   ``--check-n`` points (default 2,000) at fixed parameters (the demo's true variance and
@@ -29,6 +30,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 from machine_unit import machine, measure_unit, median, write_run
@@ -74,12 +76,15 @@ def _timed(command: list[str], cache: Path) -> dict:
             "stderr_tail": proc.stderr.strip().splitlines()[-3:]}
 
 
-def _pair(command: list[str], repeats: int) -> dict:
+def _pair(command: Callable[[Path], list[str]], repeats: int) -> dict:
+    """Cold and warm runs of ``command(folder)``, each with a new output folder (a check
+    resumes from the state folder of an earlier run with the same ``--out``)."""
     cold, warm = [], []
     for _ in range(repeats):
-        with tempfile.TemporaryDirectory(prefix="covaudit-numba-") as cache:
-            cold.append(_timed(command, Path(cache)))
-            warm.append(_timed(command, Path(cache)))
+        with tempfile.TemporaryDirectory(prefix="covaudit-numba-") as work:
+            cache = Path(work) / "numba-cache"
+            cold.append(_timed(command(Path(work) / "cold"), cache))
+            warm.append(_timed(command(Path(work) / "warm"), cache))
     cold_s = median([r["seconds"] for r in cold])
     warm_s = median([r["seconds"] for r in warm])
     return {"cold": cold, "warm": warm, "cold_seconds": cold_s, "warm_seconds": warm_s,
@@ -100,10 +105,10 @@ def main(argv: list[str] | None = None) -> int:
     with tempfile.TemporaryDirectory(prefix="covaudit-first-call-") as work:
         folder = Path(work)
         calls["hodlr"] = {"n": args.n, **_pair(
-            [sys.executable, "-c", _HODLR, str(args.n)], args.repeats)}
+            lambda _: [sys.executable, "-c", _HODLR, str(args.n)], args.repeats)}
         csv = _demo_csv(folder, args.check_n)
         calls["check"] = {"n": args.check_n, **_pair(
-            _check_command(csv, folder / "out"), args.repeats)}
+            lambda out: _check_command(csv, out), args.repeats)}
     failed = []
     for name, call in calls.items():
         print(f"{name} (n = {call['n']:,}): cold {call['cold_seconds']:.1f} s, warm "
