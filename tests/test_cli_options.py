@@ -83,8 +83,8 @@ def test_param_alone_gives_a_whole_starting_point():
     # entry short, "operands could not be broadcast"); the others now come from the data
     import numpy as np
 
-    from harness.check.fitting import data_scale
     from harness.check.fit_stage import start_from_params as _start_from_params
+    from harness.check.fitting import data_scale
 
     args = build_parser().parse_args([*CHECK, "--param", "lengthscale=250"])
     options = options_from_args(args)
