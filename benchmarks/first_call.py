@@ -18,7 +18,7 @@ at n = 8,192 measured in the same run (``machine_unit``). Exits 1 when an overhe
 
 Usage::
 
-    flock /tmp/covaudit-bench.lock python benchmarks/first_call.py \
+    python benchmarks/first_call.py \
         --json benchmarks/results/first_call.json
 """
 

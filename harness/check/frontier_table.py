@@ -125,25 +125,23 @@ def frontier_entries(audits: list[SolverAudit], lineup: Lineup, *,
                      exact_seconds: float | None, exact: str, repeats: int
                      ) -> tuple[list[dict[str, Any]], FrontierPick]:
     """The ``solvers`` entries (with non-dominated marks) and the pick across solvers."""
-    points: list[tuple[int, int, float, float]] = []
-    for i, audit in enumerate(audits):
-        for j, row in enumerate(audit.rows):
-            seconds = point_time(audit, j)[0]
-            ratio = limit_ratio(row.to_dict()) if row.status != SOLVER_FAILED else math.nan
-            points.append((i, j, seconds, ratio))
-    marks = dict(zip([(i, j) for i, j, _, _ in points],
-                     nondominated([(t, e) for _, _, t, e in points]), strict=True))
+    times = {(i, j): point_time(audit, j) for i, audit in enumerate(audits)
+             for j in range(len(audit.rows))}
+    keys = list(times)
+    ratios = [limit_ratio(audits[i].rows[j].to_dict())
+              if audits[i].rows[j].status != SOLVER_FAILED else math.nan for i, j in keys]
+    marks = dict(zip(keys, nondominated([(times[k][0], e) for k, e in zip(keys, ratios,
+                                                                           strict=True)]),
+                     strict=True))
     entries: list[dict[str, Any]] = []
     picks: list[SolverPick] = []
     for i, audit in enumerate(audits):
         knob = audit.lined.knob
-        rendered = []
-        for j, row in enumerate(audit.rows):
-            _, _, record = point_time(audit, j)
-            rendered.append(row.to_dict() | {"time": record, "nondominated": marks[(i, j)]})
+        rendered = [row.to_dict() | {"time": times[(i, j)][2], "nondominated": marks[(i, j)]}
+                    for j, row in enumerate(audit.rows)]
         pick = audit.pick
         position = next((j for j, r in enumerate(audit.rows) if r.value == pick), None)
-        pick_repeats = () if position is None else point_time(audit, position)[1]
+        pick_repeats = () if position is None else times[(i, position)][1]
         picks.append(SolverPick(solver=audit.lined.given, knob_name=knob.name,
                                 value=None if position is None else pick,
                                 repeats=pick_repeats,

@@ -293,7 +293,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     if repeats:
         audits, failures = _timed(audits, audit_data, options, repeats, stopwatch, say)
         solver_failures += failures
-    exact = SPEEDUP_OVER.get(kind, f"{first.given} at tol / {options.ladder_factor:g}")
+    # what a speed-up is measured against (the ladder: its one solver at tol / factor)
+    exact = SPEEDUP_OVER.get(kind, f"{first.solver.name} at tol / {options.ladder_factor:g}")
     exact_seconds = exact_time(kind, audit_data, options, audits, bool(repeats), stopwatch)
     entries, pick = frontier_entries(audits, lineup, exact_seconds=exact_seconds,
                                      exact=exact, repeats=repeats)
@@ -307,7 +308,7 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                    reference=reference, audit_data=audit_data, se=se, growth=growth,
                    train=train, hold=hold, variance_at=variance_at, template=template,
                    notes=notes, warnings=warnings, solver_failures=solver_failures,
-                   source=source, truth=truth, start=start, say=say)
+                   source=source, truth=truth, start=start, exact=exact, say=say)
 
 
 def _timed(audits: list[SolverAudit], audit_data: AuditData, options: CheckOptions,
@@ -354,7 +355,7 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
             se: Any, growth: dict[str, Any], train: np.ndarray, hold: np.ndarray,
             variance_at: np.ndarray, template: Kernel, notes: list[str], warnings: list[str],
             solver_failures: list[str], source: str, truth: Mapping[str, Any] | None,
-            start: float, say: Progress) -> CheckResult:
+            start: float, exact: str, say: Progress) -> CheckResult:
     """The CheckResult: the single-solver keys describe ``primary`` (the recommended
     solver, else the first audited), ``solvers`` and ``frontier`` every solver; then the
     end-to-end refit at the primary's pick."""
@@ -396,8 +397,7 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
         knob={"name": knob.name, "range": knob.range_text(),
               "more_accurate": knob.more_accurate, "values": list(lined.values)},
         speedup=None if best is None else best.speedup,
-        speedup_over=SPEEDUP_OVER.get(kind, f"{solver.name} at tol / "
-                                            f"{options.ladder_factor:g}"),
+        speedup_over=exact,
         refit=refit, thresholds=options.thresholds.to_dict(), growth=growth,
         holdout=holdout_info, truth=dict(truth) if truth else None,
         seconds=time.perf_counter() - start, notes=tuple(notes),

@@ -31,6 +31,7 @@ from harness.check import CheckDataError, CheckError, CheckOptions, run_check, v
 from harness.check.check_records import CheckResult
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
+from harness.check.solver_lineup import line_up
 from harness.cli.flag_types import (
     float_range,
     nonnegative_int,
@@ -459,7 +460,8 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        progress = CheckProgress(tolerances=_knob_value_count(options), refit=options.refit,
+        steps = sum(len(s.values) for s in line_up(options, data.n).solvers)
+        progress = CheckProgress(tolerances=steps, refit=options.refit,
                                  enabled=progress_enabled(json_output=args.json))
         reading = {"coords": coords, "value": args.value, "coord_system": args.coord_system,
                    "drop_missing": args.drop_missing,
@@ -509,21 +511,3 @@ def failed_points(result: CheckResult) -> list[str]:
     return [point.get("error") or f"solver {entry['given']!r} failed"
             for entry in result.solvers for point in entry["points"]
             if point.get("status") == SOLVER_FAILED]
-
-
-def _knob_value_count(options: CheckOptions) -> int:
-    """How many knob values the check audits over its solvers (the progress total; a
-    solver that cannot be loaded counts none)."""
-    total = 0
-    for name in dict.fromkeys(options.solver_names):
-        try:
-            knob = resolve_solver(name).knob
-        except (SolverLoadError, TypeError):
-            continue
-        if name in options.sweeps:
-            total += len(options.sweeps[name])
-        elif options.knob_values is not None:
-            total += len(options.knob_values)
-        else:
-            total += len(options.tolerances if knob.is_tol else knob.default_sweep)
-    return total
