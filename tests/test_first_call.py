@@ -22,18 +22,18 @@ _CALLS = r"""
 import sys
 import numba
 import numpy as np
-from harness.infra.compile_notice import record_compiles, show_first_compile
+from harness.infra.compile_notice import first_compile_notice, record_compiles
 from harness.model.kernels import Matern32, assemble_lower
 sys.path.insert(0, sys.argv[1])
 from tiny_kernel import double
-show_first_compile()
-show_first_compile()  # a second call installs nothing more
-with record_compiles() as log:
+with first_compile_notice(), record_compiles() as log:
     double(np.ones(3))
     double(np.ones(3, dtype=np.int64))
     assemble_lower(Matern32(variance=1.0, lengthscale=0.2, nugget=1e-2),
                    np.random.default_rng(0).random((40, 2)))
 print(len(log.kernels))
+with first_compile_notice():  # outside the first block the listener is gone
+    double(np.ones(3, dtype=np.float32))
 """
 
 _TINY_KERNEL = '''
@@ -65,8 +65,10 @@ def cold_then_warm(tmp_path_factory: pytest.TempPathFactory
 def test_notice_once_on_a_cold_cache(cold_then_warm) -> None:
     cold, _ = cold_then_warm
     assert cold.returncode == 0, cold.stderr
-    # the notice precedes the first compilation and is not repeated (module docstring)
-    assert cold.stderr.splitlines().count(NOTICE) == 1, cold.stderr
+    # the notice precedes the first compilation of a block and is not repeated within it
+    # (module docstring): one for the first block's three or more compilations, one for
+    # the second block's one
+    assert cold.stderr.splitlines().count(NOTICE) == 2, cold.stderr
     # two signatures of ``double`` plus at least the fill kernel: three or more
     assert int(cold.stdout.split()[-1]) >= 3
 
@@ -77,6 +79,45 @@ def test_no_notice_on_a_warm_cache(cold_then_warm) -> None:
     assert NOTICE not in warm.stderr
     # everything loaded from the cache: no compilation at all
     assert warm.stdout.split()[-1] == "0"
+
+
+def test_a_closed_stream_never_fails_the_compilation() -> None:
+    # The stream a caller passed (or the standard error a test swapped in) may be closed
+    # by the time a kernel compiles: the notice is dropped and the kernel still runs.
+    import io
+
+    import numba
+    import numpy as np
+
+    from harness.infra.compile_notice import first_compile_notice
+
+    closed = io.StringIO()
+    closed.close()
+
+    @numba.njit
+    def triple(x):
+        return 3 * x
+
+    with first_compile_notice(closed):
+        assert triple(np.ones(2)).tolist() == [3.0, 3.0]
+
+
+def test_the_notice_reads_standard_error_when_it_writes(monkeypatch) -> None:
+    import io
+
+    import numba
+
+    from harness.infra.compile_notice import first_compile_notice
+
+    @numba.njit
+    def quadruple(x):
+        return 4 * x
+
+    with first_compile_notice():
+        swapped = io.StringIO()
+        monkeypatch.setattr(sys, "stderr", swapped)
+        assert quadruple(2) == 8
+    assert swapped.getvalue().splitlines() == [NOTICE]
 
 
 def test_warm_up_is_listed_in_help() -> None:

@@ -11,11 +11,12 @@ import argparse
 import importlib
 import logging
 import sys
+from contextlib import nullcontext
 from collections.abc import Sequence
 
 from harness._version import __version__
 from harness.cli.help_format import DefaultsArgumentParser, DefaultsHelpFormatter
-from harness.infra.compile_notice import show_first_compile
+from harness.infra.compile_notice import first_compile_notice
 from harness.infra.exit_codes import ExitCode
 
 #: Verb modules under ``harness.cli``, in the order ``--help`` lists them.
@@ -54,10 +55,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     logging.basicConfig(level=logging.WARNING - 10 * min(args.verbose, 2),
                         format="%(levelname)s %(name)s: %(message)s")
     module = importlib.import_module(f"harness.cli.{_module(args.verb)}")
-    if args.verb in COMPUTING_VERBS:
-        show_first_compile()
+    notice = first_compile_notice() if args.verb in COMPUTING_VERBS else nullcontext()
     try:
-        return int(module.run(args))
+        with notice:
+            return int(module.run(args))
     except KeyboardInterrupt:
         print("covaudit: interrupted", file=sys.stderr)
         return ExitCode.INTERRUPTED

@@ -14,11 +14,14 @@ really takes, and never on a warm cache: no list of kernels to probe, no timing 
 Kernels compiled inside another kernel's compilation (callees, numba's own overloads) fire
 nested events; only the outermost ones are counted.
 
-- ``show_first_compile(stream)`` registers, once per process, a listener that writes
+- ``first_compile_notice(stream)`` is a context manager: inside it, a listener writes
   ``NOTICE`` on ``stream`` when the first compilation starts and is silent after that.
-  The CLI calls it before a verb that computes. Processes started with ``spawn`` (the
-  child-process guard, the run's workers) do not inherit it: their standard error is a
-  log, not the terminal.
+  The CLI wraps a verb that computes in it. The listener is removed when the block ends,
+  and it looks up standard error when it writes, not when it is installed, so a caller
+  that swaps standard error (a test capturing output) never leaves it writing to a closed
+  stream. A failed write is dropped: the notice is a courtesy, and it must never turn a
+  computation into a failure. Processes started with ``spawn`` (the child-process guard,
+  the run's workers) do not inherit it: their standard error is a log, not the terminal.
 - ``record_compiles()`` is a context manager yielding a ``CompileLog``: the kernels
   compiled inside the block, with the seconds each took (``covaudit warm-up`` prints it).
 
@@ -48,35 +51,33 @@ def _kernel_name(data: Any) -> str:
 
 
 class _FirstCompileNotice(event.Listener):
-    """Writes ``NOTICE`` on the first compile event it sees, and nothing after."""
+    """Writes ``NOTICE`` on the first compile event it sees, and nothing after; ``stream``
+    None means whatever ``sys.stderr`` is at that moment."""
 
-    def __init__(self, stream: TextIO) -> None:
+    def __init__(self, stream: TextIO | None) -> None:
         self.stream = stream
         self.shown = False
 
     def on_start(self, ev: event.Event) -> None:
-        if not self.shown:
-            self.shown = True
-            print(NOTICE, file=self.stream, flush=True)
+        if self.shown:
+            return
+        self.shown = True
+        try:
+            print(NOTICE, file=self.stream or sys.stderr, flush=True)
+        except (OSError, ValueError):
+            pass  # a closed or full stream: the notice is dropped, the compilation goes on
 
     def on_end(self, ev: event.Event) -> None:
         pass
 
 
-def _installed() -> list[_FirstCompileNotice]:
-    return [listener for listener in event._registered[_COMPILE_EVENT]
-            if isinstance(listener, _FirstCompileNotice)]
-
-
-def show_first_compile(stream: TextIO | None = None) -> None:
-    """Write ``NOTICE`` on ``stream`` (default standard error) before this process first
-    compiles a kernel; a second call in the same process changes nothing.
-
-    Numba's listener list is per process, so it is also the record that the notice is
-    installed: the notice is shown at most once per process whoever installs it.
+@contextmanager
+def first_compile_notice(stream: TextIO | None = None) -> Iterator[None]:
+    """Write ``NOTICE`` on ``stream`` (default: standard error at the moment of writing)
+    before the first kernel compiled inside the ``with`` block; nothing on a warm cache.
     """
-    if not _installed():
-        event.register(_COMPILE_EVENT, _FirstCompileNotice(stream or sys.stderr))
+    with event.install_listener(_COMPILE_EVENT, _FirstCompileNotice(stream)):
+        yield
 
 
 @dataclass(frozen=True)
