@@ -27,6 +27,7 @@ from __future__ import annotations
 import importlib.util
 import time
 from collections.abc import Mapping
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -40,7 +41,11 @@ from harness.audit.engine import (
     ReferenceValues,
     ValueReference,
 )
-from harness.audit.reference_choice import OPERATOR_PRECONDITIONER_TOL
+from harness.audit.operator_preconditioner import (
+    BuiltPreconditioner,
+    PreconditionerSpec,
+    build_operator_preconditioner,
+)
 from harness.audit.sides import KrigingSide, evaluate_side, kriging_side
 from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.infra.child_process import run_stage
@@ -145,48 +150,58 @@ class OperatorReference:
     score of all points with their SEs and CG bound, kriging of the held-out points
     conditioned on the other points with CG bounds.
 
-    The built-in solver at ``preconditioner_tol`` only *preconditions* it (the wall
-    between references and solvers, DEVELOPERS.md "Architecture": it changes iteration
-    counts and SEs, never the expected answer).
+    A built-in solver only *preconditions* it (the wall between references and solvers,
+    DEVELOPERS.md "Architecture": it changes iteration counts and SEs, never the expected
+    answer): by default Vecchia with its neighbour count chosen by a pilot on all points
+    and reused for the training points, or HODLR at a tolerance
+    (``harness.audit.operator_preconditioner``). The preconditioner, its pilot and the
+    iteration counts of the real runs are reported in ``info`` and ``by_metric``.
     Certified when every CG and Lanczos run converged and the CG bounds are rigorous
     (a nugget gives lambda_min >= nugget).
     """
 
     def __init__(self, data: AuditData, *, base_seed: int, probes: int = 64,
-                 preconditioner_tol: float = OPERATOR_PRECONDITIONER_TOL, leaf_size: int = 128,
+                 preconditioner: PreconditionerSpec | None = None, leaf_size: int = 128,
                  memory_budget: int | None = None) -> None:
         from harness.references.operator import operator_evaluate, operator_kriging
         from harness.references.operator.products import KernelOperator
-        from harness.solvers.registry import resolve_solver
 
         self.probes = int(probes)
-        hodlr = resolve_solver("hodlr")
+        spec = PreconditionerSpec() if preconditioner is None else preconditioner
         x, kernel, train = data.points, data.kernel, data.train
-        opts = {"leaf_size": leaf_size, "rng": solver_seed(base_seed, 0)}
+        rng = np.random.default_rng(solver_seed(base_seed, 0))
         t0 = time.perf_counter()
-        pre = hodlr.factorize(x, kernel, kernel.theta, tol=preconditioner_tol, **opts)
-        ev = operator_evaluate(x, data.y, kernel, mean=data.mean, preconditioner=pre,
-                               rng=base_seed, score=True, memory_budget=memory_budget,
-                               progress=False)
+        built = build_operator_preconditioner(x, kernel, spec, rng=rng, leaf_size=leaf_size)
+        ev = operator_evaluate(x, data.y, kernel, mean=data.mean,
+                               preconditioner=built.factorization, rng=base_seed, score=True,
+                               memory_budget=memory_budget, progress=False)
         seconds = time.perf_counter() - t0
-        del pre
-        pre_t = hodlr.factorize(x[train], kernel, kernel.theta, tol=preconditioner_tol,
-                                **opts)
+        built_t = build_operator_preconditioner(
+            x[train], kernel, PreconditionerSpec(family=built.family, knob=built.knob_value),
+            rng=rng, leaf_size=leaf_size)
         kr = operator_kriging(x[train], data.y[train], kernel, x[data.holdout],
-                              mean=data.mean, preconditioner=pre_t,
+                              mean=data.mean, preconditioner=built_t.factorization,
                               variance_at=data.variance_positions,
                               memory_budget=memory_budget, progress=False)
-        del pre_t
         certified = bool(ev.converged and kr.converged and kr.rigorous
                          and ev.bound_kind.startswith("residual/nugget"))
         self.messages = tuple(dict.fromkeys((*ev.messages, *kr.messages)))
-        self.info = ReferenceInfo(
+        self.preconditioner = _preconditioner_record(
+            built, training_seconds=built_t.seconds, loglik_iterations=ev.iterations,
+            kriging_iterations=kr.iterations)
+        del built, built_t
+        self.info: ReferenceInfo = OperatorReferenceInfo(
             "operator", certified,
             f"exact operator: loglik SE {ev.loglik_se:.2g} nat, quadratic-form bound "
             f"{ev.quadratic_bound:.2g} ({ev.bound_kind}), {ev.probes} probes, "
-            f"{ev.products:,} exact products; preconditioner: hodlr at tol "
-            f"{preconditioner_tol:g}" + ("" if certified else "; NOT certified: "
-                                         + "; ".join(self.messages)))
+            f"{ev.products:,} exact products, {ev.iterations:,} iterations (kriging "
+            f"{kr.iterations:,}); preconditioner: {self.preconditioner['description']}"
+            + ("" if certified else "; NOT certified: " + "; ".join(self.messages)),
+            preconditioner=self.preconditioner)
+        entry = self.info.to_dict()
+        self.by_metric: dict[str, dict[str, object]] = {
+            "loglik": dict(entry), "score": dict(entry),
+            "kriging": entry | _kriging_counts(data)}
         score_se = (np.zeros(kernel.n_params) if ev.score_se is None
                     else np.asarray(ev.score_se, dtype=float))
         self._values = ReferenceValues(
@@ -203,6 +218,31 @@ class OperatorReference:
 
     def values(self) -> ReferenceValues:
         return self._values
+
+
+@dataclass(frozen=True)
+class OperatorReferenceInfo(ReferenceInfo):
+    """``ReferenceInfo`` of the operator reference, with its preconditioner record (family,
+    knob value, pilot table, iteration counts of the real runs) under ``preconditioner``."""
+
+    preconditioner: Mapping[str, object] = field(default_factory=dict)
+
+    def to_dict(self) -> dict[str, object]:
+        return super().to_dict() | {"preconditioner": dict(self.preconditioner)}
+
+
+def _preconditioner_record(built: BuiltPreconditioner, *, training_seconds: float,
+                           loglik_iterations: int, kriging_iterations: int
+                           ) -> dict[str, object]:
+    """The JSON record of the operator reference's preconditioner: that of all points
+    (``BuiltPreconditioner.to_dict``: family, knob value, fallback, pilot table, seconds
+    with the pilot), the seconds of the training points' one (same family and knob value,
+    no pilot) and the real runs' iteration counts (CG plus Lanczos steps for the
+    log-likelihood and score, CG for kriging) beside the pilot's prediction."""
+    return built.to_dict() | {"seconds_training_points": training_seconds,
+                              "iterations_loglik_score": int(loglik_iterations),
+                              "iterations_kriging": int(kriging_iterations),
+                              "description": built.describe()}
 
 
 class StructuredReference:
@@ -296,9 +336,12 @@ def reference_by_metric(reference: PairedReference | ValueReference, data: Audit
 def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
                     solver_options: Mapping[str, object], base_seed: int,
                     memory_budget: int | None, ladder_factor: float, probes: int,
-                    leaf_size: int = 128, isolate: bool = True
+                    leaf_size: int = 128, isolate: bool = True,
+                    preconditioner: PreconditionerSpec | None = None
                     ) -> PairedReference | ValueReference:
     """The engine's reference of ``kind`` (``harness.audit.reference_choice``) on ``data``.
+
+    ``preconditioner`` is the operator reference's (None: Vecchia, m chosen by a pilot).
 
     ``isolate`` runs the dense reference's factorizations in a child process (``check``;
     a ``run`` task's worker is already one). ``probes`` sets the operator's and the
@@ -310,7 +353,8 @@ def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
         return StructuredReference(kind, data, probes=max(64, probes))
     if kind == "operator":
         return OperatorReference(data, base_seed=base_seed, probes=max(64, probes),
-                                 leaf_size=leaf_size, memory_budget=memory_budget)
+                                 preconditioner=preconditioner, leaf_size=leaf_size,
+                                 memory_budget=memory_budget)
     if kind == "ladder":
         return LadderReference(data, solver, factor=ladder_factor, base_seed=base_seed,
                                options=solver_options)

@@ -59,6 +59,9 @@ class SolverOptions:
     memory_budget: int | None = None
     preconditioner: str = "hodlr"
     preconditioner_tol: float = 1e-8
+    #: ``--preconditioner vecchia``: its neighbour count m (None: chosen by a pilot,
+    #: ``harness.audit.operator_preconditioner.pilot_neighbours``).
+    preconditioner_neighbours: int | None = None
     se_target: float = 0.02
     dask_local: int | None = None
     scheduler: str | None = None
@@ -195,6 +198,38 @@ def build_preconditioner(name: str, points: np.ndarray, kernel: Kernel, *, tol: 
         raise SolverEvaluationError(f"--preconditioner {name!r}: {exc}") from exc
 
 
+def _operator_preconditioner(points: np.ndarray, kernel: Kernel, options: SolverOptions
+                             ) -> tuple[Factorization, dict[str, Any]]:
+    """The operator's preconditioner and what to report of it: ``vecchia`` through
+    ``harness.audit.operator_preconditioner`` (m from ``--preconditioner-neighbours`` or
+    the pilot; the record adds family, knob, knob_value and the pilot table), any other
+    name through ``build_preconditioner`` at ``--preconditioner-tol``."""
+    from harness.audit.operator_preconditioner import (
+        PreconditionerSpec,
+        build_operator_preconditioner,
+    )
+    from harness.solvers.vecchia import VecchiaInputError
+
+    if options.preconditioner != "vecchia":
+        if options.preconditioner_neighbours is not None:
+            raise EvaluationError("--preconditioner-neighbours applies to --preconditioner "
+                                  f"vecchia only, not {options.preconditioner!r}")
+        pre = build_preconditioner(options.preconditioner, points, kernel,
+                                   tol=options.preconditioner_tol, seed=options.seed,
+                                   leaf_size=options.leaf_size)
+        return pre, {}
+    try:
+        spec = PreconditionerSpec(family="vecchia", knob=options.preconditioner_neighbours)
+        built = build_operator_preconditioner(
+            points, kernel, spec, rng=np.random.default_rng(solver_seed(options.seed, 0)),
+            hodlr_fallback=False)
+    except VecchiaInputError as exc:
+        raise EvaluationError(f"--preconditioner vecchia: {exc}") from None
+    record = built.to_dict()
+    record.pop("seconds")
+    return built.factorization, record
+
+
 @contextmanager
 def dask_client(*, dask_local: int | None, scheduler: str | None) -> Iterator[object | None]:
     """A Dask client for ``--dask-local N`` (a LocalCluster) or ``--scheduler ADDR``."""
@@ -227,9 +262,7 @@ def _operator(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str, r
                               "(it would need O(p^2) probe solves); use --solver dense at "
                               "moderate n")
     start = time.perf_counter()
-    pre = build_preconditioner(options.preconditioner, points, kernel,
-                               tol=options.preconditioner_tol, seed=options.seed,
-                               leaf_size=options.leaf_size)
+    pre, chosen = _operator_preconditioner(points, kernel, options)
     seconds_pre = time.perf_counter() - start
     rng = np.random.default_rng(options.seed).spawn(2)[1]
     with dask_client(dask_local=options.dask_local, scheduler=options.scheduler) as client:
@@ -251,7 +284,7 @@ def _operator(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str, r
         "se_target": options.se_target,
         "preconditioner": {"name": options.preconditioner, "tol": options.preconditioner_tol,
                            "logdet": ev.preconditioner_logdet,
-                           "nbytes": int(pre.nbytes)},
+                           "nbytes": int(pre.nbytes), **chosen},
         "dask": ("local" if options.dask_local is not None else options.scheduler),
     }
     seconds = {"preconditioner": seconds_pre, **ev.phases}

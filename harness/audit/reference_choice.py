@@ -32,9 +32,6 @@ from harness.model.kernels import Kernel, smoothness
 HALF_INTEGER_NU: tuple[float, ...] = (0.5, 1.5, 2.5)
 #: The exact references in decreasing order of trust (``--reference auto``).
 AUTO_ORDER: tuple[str, ...] = ("dense", "statespace", "kronecker", "operator")
-#: Tolerance of the built-in solver preconditioning the operator reference (it changes
-#: iteration counts and standard errors only, never the answer); ``check`` and ``run``.
-OPERATOR_PRECONDITIONER_TOL = 1e-10
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -11,7 +11,7 @@ kriging. ``task_reference`` builds the kind that ``harness.audit.reference_choic
   boundary of ``run``);
 * statespace: the Kalman filter, Fisher information by central differences;
 * kronecker: the Kronecker eigen-decomposition;
-* operator: the exact operator, preconditioned by the built-in solver;
+* operator: the exact operator, preconditioned by the built-in Vecchia solver;
 * ladder: the solver under test at tol / ladder_factor.
 
 ``draw_y`` draws y = W z from the dense factor when there is one, else from the solver
@@ -26,7 +26,6 @@ from typing import Any
 
 import numpy as np
 
-from harness.audit.reference_choice import OPERATOR_PRECONDITIONER_TOL
 from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.audit.task_protocol import AuditTask
 from harness.model.kernels import Kernel
@@ -183,20 +182,33 @@ def _ladder(task: AuditTask, points: np.ndarray, kernel: Kernel, solver: Any,
 
 def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
               streams: dict[str, np.random.Generator]) -> Reference:
-    """The exact operator, preconditioned by the built-in solver at
-    ``OPERATOR_PRECONDITIONER_TOL``: every value from exact kernel products, with its
-    standard error (log det, traces) or bound (quadratic form)."""
-    from harness.audit.named_evaluation import build_preconditioner
+    """The exact operator, preconditioned by the default of
+    ``harness.audit.operator_preconditioner`` (Vecchia, m chosen by a pilot at the task's
+    parameters and kept for every later evaluation): every value from exact kernel
+    products, with its standard error (log det, traces) or bound (quadratic form)."""
+    from harness.audit.operator_preconditioner import (
+        PreconditionerSpec,
+        build_operator_preconditioner,
+    )
     from harness.references.operator import operator_evaluate
 
     probe_seed = int(streams["probes"].integers(2 ** 63))
     uncertainty: dict[str, float] = {}
+    chosen: dict[str, PreconditionerSpec] = {}
+    notes = ["operator reference: log-likelihood with a standard error (its "
+             "column reference_loglik_se); no Fisher information, so score "
+             "metrics and parameter shifts are unavailable"]
 
     def evaluate(model: Kernel, y: np.ndarray) -> Any:
-        pre = build_preconditioner("hodlr", points, model, tol=OPERATOR_PRECONDITIONER_TOL,
-                                   seed=task.seed)
+        spec = chosen.get("spec", PreconditionerSpec())
+        built = build_operator_preconditioner(
+            points, model, spec, rng=np.random.default_rng(solver_seed(task.seed, 0)))
+        if "spec" not in chosen:
+            chosen["spec"] = PreconditionerSpec(family=built.family, knob=built.knob_value)
+            notes.append(f"operator reference preconditioned by {built.describe()}")
         ev = operator_evaluate(points, y, model, mean=task.mean, reml=task.reml,
-                               preconditioner=pre, rng=probe_seed, score=True)
+                               preconditioner=built.factorization, rng=probe_seed,
+                               score=True)
         if not ev.converged:
             raise TaskSkipped("operator reference unresolved: " + "; ".join(ev.messages))
         if model is kernel:
@@ -206,12 +218,9 @@ def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
 
     return Reference(kind="operator", evaluate=evaluate,
                      description=("exact operator: tiled kernel products, PCG and Lanczos "
-                                  "quadrature, preconditioned by hodlr at tol "
-                                  f"{OPERATOR_PRECONDITIONER_TOL:g}"),
-                     notes=["operator reference: log-likelihood with a standard error (its "
-                            "column reference_loglik_se); no Fisher information, so score "
-                            "metrics and parameter shifts are unavailable"],
-                     uncertainty=uncertainty)
+                                  "quadrature, preconditioned by vecchia (neighbours chosen "
+                                  "by a pilot) or hodlr where vecchia does not apply"),
+                     notes=notes, uncertainty=uncertainty)
 
 
 def task_reference(kind: str, task: AuditTask, points: np.ndarray, kernel: Kernel,

@@ -9,7 +9,7 @@ from typing import Any
 from harness.audit import engine as audit_engine
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.audit.verdict import Thresholds
-from harness.infra.option_specs import VARIANCE_POINTS
+from harness.infra.option_specs import PRECONDITIONER, VARIANCE_POINTS
 
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)
 REFERENCE_CHOICES = ("auto", "dense", "statespace", "operator", "ladder")
@@ -98,6 +98,9 @@ class CheckOptions:
         Seeds of the solver's randomness per tolerance.
     reference : str
         ``auto``, ``dense``, ``statespace``, ``operator`` or ``ladder``.
+    preconditioner : str
+        The exact-operator reference's preconditioner, ``vecchia`` (its neighbour count
+        chosen by a pilot) or ``hodlr`` (tol 1e-10); ``option_specs.PRECONDITIONER``.
     ladder_factor : float
         The ladder reference is the solver at tol / ladder_factor.
     solver_timeout : float or None
@@ -133,6 +136,7 @@ class CheckOptions:
     solver: str = "hodlr"
     solver_seeds: int = DEFAULT_SOLVER_SEEDS
     reference: str = "auto"
+    preconditioner: str = PRECONDITIONER.default
     ladder_factor: float = audit_engine.LADDER_FACTOR
     solver_timeout: float | None = None
     solvers: tuple[str, ...] = ()

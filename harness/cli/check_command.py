@@ -46,6 +46,7 @@ from harness.infra.exit_codes import ExitCode, combine
 from harness.infra.option_specs import (
     HOLDOUT_FRACTION,
     HOLDOUT_POINTS,
+    PRECONDITIONER,
     PROBES,
     SOLVER_SEEDS,
     SOLVER_TIMEOUT,
@@ -159,6 +160,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="auto (the first that applies: dense within the memory budget, "
                         "statespace for 1D half-integer Matern data, the exact operator), "
                         "dense, statespace, operator, or ladder (extra evidence only)")
+    p.add_argument("--preconditioner", type=PRECONDITIONER.argparse_type(),
+                   default=PRECONDITIONER.default, metavar="{vecchia,hodlr}",
+                   help="the exact-operator reference's preconditioner: vecchia (its "
+                        "neighbour count chosen by a pilot on a subsample) or hodlr at tol "
+                        "1e-10 (default vecchia)")
     p.add_argument("--ladder-factor",
                    type=LADDER_FACTOR_SPEC.argparse_type(),
                    default=LADDER_FACTOR,
@@ -294,7 +300,8 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         solvers=names if len(names) > 1 else (), sweeps=sweeps(args),
         timing_repeats=getattr(args, "timing_repeats", None), kl=getattr(args, "kl", False),
         solver_seeds=args.solver_seeds, reference=args.reference,
-        ladder_factor=args.ladder_factor, solver_timeout=args.solver_timeout)
+        preconditioner=args.preconditioner, ladder_factor=args.ladder_factor,
+        solver_timeout=args.solver_timeout)
 
 
 def json_text(result: CheckResult) -> str:

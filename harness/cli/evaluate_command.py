@@ -89,7 +89,12 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "(default: the built-in hodlr solver)")
     p.add_argument("--preconditioner-tol", type=tolerance("--preconditioner-tol"),
                    default=1e-8, metavar="T",
-                   help="--solver operator: the preconditioner's tolerance (default 1e-8)")
+                   help="--solver operator: the preconditioner's tolerance (default 1e-8; "
+                        "not used by vecchia)")
+    p.add_argument("--preconditioner-neighbours", type=positive_int("--preconditioner-neighbours"),
+                   default=None, metavar="M",
+                   help="--solver operator --preconditioner vecchia: its neighbour count "
+                        "(default: chosen by a pilot on a subsample, by predicted time)")
     p.add_argument("--se-target", type=float_range("--se-target", 0.0, 1e6, low_open=True),
                    default=0.02, metavar="NATS",
                    help="--solver operator: draw probes until the log-likelihood SE is at "
@@ -214,6 +219,7 @@ def run(args: argparse.Namespace) -> int:
             memory_budget=None if args.memory_budget is None
             else int(args.memory_budget * 2**30),
             preconditioner=args.preconditioner, preconditioner_tol=args.preconditioner_tol,
+            preconditioner_neighbours=args.preconditioner_neighbours,
             se_target=args.se_target, dask_local=args.dask_local, scheduler=args.scheduler,
         )
         check_dask_options(dask_local=args.dask_local, scheduler=args.scheduler)

@@ -27,8 +27,8 @@ from typing import Any, Literal
 
 __all__ = [
     "HOLDOUT_FRACTION", "HOLDOUT_POINTS", "IGNORE_BELOW", "LADDER_FACTOR", "MAX_RATIO",
-    "MISSING_TASKS", "PROBES", "SOLVER_SEEDS", "SOLVER_TIMEOUT", "SPECS", "SPEED_CHECKS",
-    "TOLERANCE", "VARIANCE_POINTS", "Interval", "KnobRange",
+    "MISSING_TASKS", "PRECONDITIONER", "PROBES", "SOLVER_SEEDS", "SOLVER_TIMEOUT", "SPECS",
+    "SPEED_CHECKS", "TOLERANCE", "VARIANCE_POINTS", "Interval", "KnobRange",
     "OptionError", "OptionSpec", "StrOptions", "check_values", "knob_option",
 ]
 
@@ -300,7 +300,14 @@ SPEED_CHECKS = OptionSpec(
 MISSING_TASKS = OptionSpec(
     "missing_tasks", str, StrOptions(frozenset({"fail", "list"})), "fail",
     "baseline tasks absent from the new run: fail (a regression) or list (reported only)")
+#: The built-in solver that preconditions the exact-operator reference (``check
+#: --preconditioner``; ``harness.audit.operator_preconditioner``).
+PRECONDITIONER = OptionSpec(
+    "preconditioner", str, StrOptions(frozenset({"vecchia", "hodlr"})), "vecchia",
+    "the exact-operator reference's preconditioner: vecchia (neighbours chosen by a pilot) "
+    "or hodlr (tol 1e-10)")
 
 SPECS: Sequence[OptionSpec] = (SOLVER_SEEDS, HOLDOUT_FRACTION, TOLERANCE, LADDER_FACTOR,
                                PROBES, HOLDOUT_POINTS, VARIANCE_POINTS, SOLVER_TIMEOUT,
-                               MAX_RATIO, IGNORE_BELOW, SPEED_CHECKS, MISSING_TASKS)
+                               MAX_RATIO, IGNORE_BELOW, SPEED_CHECKS, MISSING_TASKS,
+                               PRECONDITIONER)
