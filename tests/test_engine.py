@@ -148,3 +148,40 @@ def test_seed_reaches_only_a_declared_option():
 
 def test_ladder_factor_is_one_setting():
     assert Task.__dataclass_fields__["ladder_factor"].default == LADDER_FACTOR
+
+
+def _raising_factory(error: type[Exception]):
+    def factorize(points, kernel, theta, *, tol=None):
+        raise error("raised on purpose")
+    return factorize
+
+
+@pytest.mark.parametrize(("error", "status"), [(ValueError, "solver failed"),
+                                               (np.linalg.LinAlgError, "unsafe")])
+def test_an_in_process_solver_error_is_classified_as_in_a_child(error, status):
+    # Without isolation (built-in solvers) an exception is classified exactly as
+    # ``harness.audit.solver_calls.guarded`` does in a child: a numerical breakdown
+    # (LinAlgError) makes the knob value unsafe, anything else is a failed solver, never
+    # "unsafe" (exit code 3, not 1).
+    from harness.audit import engine
+    from harness.audit.audit_references import build_reference
+    from harness.audit.audit_sampling import audit_draws
+    from harness.model.kernels import make_kernel
+    from harness.solvers.registry import ResolvedSolver
+
+    rng = np.random.default_rng(5)
+    points = rng.uniform(size=(60, 2))
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 0.3, "nugget": 1e-2})
+    y = np.linalg.cholesky(kernel.covariance(points)) @ rng.normal(size=60)
+    hold, probes = audit_draws(60, holdout=6, probes=4, seed=1)
+    data = engine.AuditData(points=points, y=y, kernel=kernel, mean="constant",
+                            holdout=hold, fisher=None, probes=probes)
+    solver = ResolvedSolver(name="broken", version=None, factory=_raising_factory(error),
+                            origin="builtin")
+    reference = build_reference("dense", data, solver=solver, solver_options={},
+                                base_seed=0, memory_budget=None, ladder_factor=100.0,
+                                probes=4, isolate=False)
+    result = engine.audit_tolerances(data, solver, (1e-6,), reference, seeds=(1,))
+    (audit,) = result.tolerances
+    assert audit.verdict.status == status
+    assert "raised on purpose" in audit.verdict.failures[0]

@@ -33,7 +33,7 @@ from harness.audit.rule import (
     tolerance_verdict,
     worst,
 )
-from harness.audit.solver_calls import SolverIsolation, call_solver
+from harness.audit.solver_calls import SolverCall, SolverIsolation, call_solver, is_breakdown
 from harness.audit.solver_seeds import seeded_options
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
 from harness.model.kernels import Kernel
@@ -438,9 +438,10 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
     process (``harness.audit.solver_calls``); a crash, an exit without a result, a
     timeout or an exception of the solver gives the tolerance the status "solver failed"
     with a one-line reason, its later seeds are not run, and the other tolerances go on.
-    Without it (a ``run`` task, whose worker process is that boundary) the solver runs
-    here and its errors make the tolerance unsafe. With ``saved`` (``SavedAudits``) an
-    audit found there is reused, not rerun, and each
+    Without it (a built-in solver, or a ``run`` task, whose worker process is that
+    boundary) the solver runs here and its errors are classified the same way: a
+    numerical breakdown makes the tolerance unsafe, any other error is a failed solver.
+    With ``saved`` (``SavedAudits``) an audit found there is reused, not rerun, and each
     audit that finishes is handed to it as soon as it does.
     """
     from harness.solvers.fallback import SolverOutputError, SolverProtocolError
@@ -480,17 +481,17 @@ def audit_tolerances(data: AuditData, solver: ResolvedSolver, tolerances: Sequen
                                th)))
             if isolation is None:
                 try:
-                    rows.append(audit_seed(*arguments))
+                    call = SolverCall(value=audit_seed(*arguments))
                 except (SolverRuntimeError, SolverOutputError, SolverProtocolError,
                         np.linalg.LinAlgError) as exc:
-                    failures.append(f"seed {index} ({seed}): {exc}")
-                    continue
-                if saved is not None:
-                    saved.save(tol, index, seed, rows[-1])
-                continue
-            call = call_solver(audit_seed, *arguments, isolation=isolation,
-                               who=f"solver {solver.name!r}",
-                               where=f"at {at}, seed {index} (n = {data.y.size:,})")
+                    # classified as in a child (``solver_calls.guarded``): a numerical
+                    # breakdown is unsafe at this knob value, anything else a failure
+                    call = SolverCall(failure=f"seed {index} ({seed}): {exc}",
+                                      breakdown=is_breakdown(exc))
+            else:
+                call = call_solver(audit_seed, *arguments, isolation=isolation,
+                                   who=f"solver {solver.name!r}",
+                                   where=f"at {at}, seed {index} (n = {data.y.size:,})")
             if not call.failure:
                 rows.append(call.value)
                 if saved is not None:

@@ -11,8 +11,8 @@ import argparse
 import importlib
 import logging
 import sys
-from contextlib import nullcontext
 from collections.abc import Sequence
+from contextlib import nullcontext
 
 from harness._version import __version__
 from harness.cli.help_format import DefaultsArgumentParser, DefaultsHelpFormatter
