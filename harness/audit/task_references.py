@@ -183,8 +183,8 @@ def _ladder(task: AuditTask, points: np.ndarray, kernel: Kernel, solver: Any,
 def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
               streams: dict[str, np.random.Generator]) -> Reference:
     """The exact operator, preconditioned by the default of
-    ``harness.audit.operator_preconditioner`` (Vecchia, m chosen by a pilot at the task's
-    parameters and kept for every later evaluation): every value from exact kernel
+    ``harness.audit.operator_preconditioner`` (HODLR at tol 1e-10; the spec built at the
+    task's parameters is kept for every later evaluation): every value from exact kernel
     products, with its standard error (log det, traces) or bound (quadratic form)."""
     from harness.audit.operator_preconditioner import (
         PreconditionerSpec,
@@ -218,8 +218,7 @@ def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
 
     return Reference(kind="operator", evaluate=evaluate,
                      description=("exact operator: tiled kernel products, PCG and Lanczos "
-                                  "quadrature, preconditioned by vecchia (neighbours chosen "
-                                  "by a pilot) or hodlr where vecchia does not apply"),
+                                  "quadrature, preconditioned by hodlr at tol 1e-10"),
                      notes=notes, uncertainty=uncertainty)
 
 

@@ -57,6 +57,7 @@ from harness.audit.engine import (
     PairedReference,
     ValueReference,
 )
+from harness.audit.operator_preconditioner import PreconditionerSpec
 from harness.audit.reference_choice import (
     AUTO_ORDER,
     NoReference,
@@ -263,7 +264,9 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                                 solver_options=first.options, base_seed=options.seed,
                                 memory_budget=options.memory_budget,
                                 ladder_factor=options.ladder_factor, probes=options.probes,
-                                leaf_size=options.leaf_size)
+                                leaf_size=options.leaf_size,
+                                preconditioner=PreconditionerSpec(
+                                    family=options.preconditioner))
     if isinstance(reference, OperatorReference) and not reference.info.certified:
         warnings.append("the exact operator reference is not certified (" +
                         "; ".join(reference.messages) + "): no verdict can be safe")

@@ -303,9 +303,9 @@ MISSING_TASKS = OptionSpec(
 #: The built-in solver that preconditions the exact-operator reference (``check
 #: --preconditioner``; ``harness.audit.operator_preconditioner``).
 PRECONDITIONER = OptionSpec(
-    "preconditioner", str, StrOptions(frozenset({"vecchia", "hodlr"})), "vecchia",
-    "the exact-operator reference's preconditioner: vecchia (neighbours chosen by a pilot) "
-    "or hodlr (tol 1e-10)")
+    "preconditioner", str, StrOptions(frozenset({"vecchia", "hodlr"})), "hodlr",
+    "the exact-operator reference's preconditioner: hodlr (tol 1e-10) or vecchia "
+    "(neighbours chosen by a pilot; less memory, more iterations)")
 
 SPECS: Sequence[OptionSpec] = (SOLVER_SEEDS, HOLDOUT_FRACTION, TOLERANCE, LADDER_FACTOR,
                                PROBES, HOLDOUT_POINTS, VARIANCE_POINTS, SOLVER_TIMEOUT,
