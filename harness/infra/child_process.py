@@ -10,11 +10,23 @@ started, so start-up is not charged to the call). ``fn`` and its arguments must 
 picklable (a module-level function), and so must its result: only results cross the
 boundary.
 
+How a child starts. Never by a plain ``fork`` of the caller: numba's and OpenMP's thread
+pools are not safe across ``fork``. Where the platform has it, children are forked from
+multiprocessing's ``forkserver``, a clean single-threaded process started on the first
+call, which imports numpy, scipy, numba and the module of the first ``fn`` once; a child
+then starts in milliseconds instead of re-importing everything (about 3 s, which made
+process isolation most of the cost of a small check). The server is one per process
+(multiprocessing keeps it), and so is the record of the environment it was started
+with. Variables that libraries read only when they load (thread counts such as
+``OPENBLAS_NUM_THREADS``, numba's ``NUMBA_*`` settings) cannot change in a forked child,
+so when one of them differs from the server's, that child is started by ``spawn`` instead;
+every other variable is the caller's at the moment of the call, as with ``spawn``.
+
 Children die with their parent: on Linux each asks the kernel for SIGKILL when its parent
-dies (``prctl(PR_SET_PDEATHSIG)``, prctl(2)), and everywhere a watchdog thread exits the
-child when its parent process changes (an orphan is re-parented). Children ignore SIGINT,
-so Ctrl-C reaches only the parent, which stops them. ``spawn``, not ``fork``: numba's and
-OpenMP's thread pools are not safe across ``fork``.
+(the caller, or the server, which exits with the caller) dies (``prctl(PR_SET_PDEATHSIG)``,
+prctl(2)), and everywhere a watchdog thread exits the child when its parent process
+changes (an orphan is re-parented). Children ignore SIGINT, so Ctrl-C reaches only the
+caller, which stops them.
 
 Test hook: a child whose ``stage`` equals the environment variable
 ``COVAUDIT_TEST_CRASH_STAGE`` kills itself with SIGSEGV before calling ``fn``, so tests
@@ -35,6 +47,7 @@ import tempfile
 import threading
 import time
 from collections.abc import Callable
+from dataclasses import dataclass
 from multiprocessing.connection import Connection, wait
 from pathlib import Path
 from typing import Any
@@ -122,10 +135,56 @@ class ChildTimeout(TimeoutError):
         self.timeout = timeout
 
 
-def _child(conn: Connection, stderr_path: str, parent: int, stage: str | None,
-           fn: Callable[..., Any], args: tuple[Any, ...], kwargs: dict[str, Any]) -> None:
+#: Prefixes and suffixes of environment variables read when a library loads (module
+#: docstring): a child forked from the server keeps the server's values of these.
+_LOAD_TIME_PREFIXES = ("NUMBA_", "OMP_", "OPENBLAS_", "GOTO", "MKL_", "BLIS_", "VECLIB_",
+                       "KMP_", "PYTHON", "LD_")
+_LOAD_TIME_SUFFIX = "_NUM_THREADS"
+#: Modules the server imports before its first fork (besides the first ``fn``'s module).
+_PRELOAD = ("numpy", "scipy.linalg", "numba")
+
+
+def _load_time_environment() -> dict[str, str]:
+    return {key: value for key, value in os.environ.items()
+            if key.startswith(_LOAD_TIME_PREFIXES) or key.endswith(_LOAD_TIME_SUFFIX)}
+
+
+@dataclass
+class _ForkServer:
+    """This process's record of multiprocessing's fork server: the load-time environment
+    it was started with (None before its first use)."""
+
+    environment: dict[str, str] | None = None
+
+
+#: One per process, like the server it records (module docstring).
+_SERVER = _ForkServer()
+
+
+def _start_context(fn: Callable[..., Any]) -> tuple[Any, bool]:
+    """The context a child starts from and whether it is forked from the server."""
+    if "forkserver" not in multiprocessing.get_all_start_methods():
+        return multiprocessing.get_context("spawn"), False
+    environment = _load_time_environment()
+    if _SERVER.environment is None:
+        server = multiprocessing.get_context("forkserver")
+        server.set_forkserver_preload([*_PRELOAD, getattr(fn, "__module__", "numpy")])
+        _SERVER.environment = environment
+        return server, True
+    if environment == _SERVER.environment:
+        return multiprocessing.get_context("forkserver"), True
+    return multiprocessing.get_context("spawn"), False
+
+
+def _child(conn: Connection, stderr_path: str, parent: int | None, stage: str | None,
+           environment: dict[str, str], fn: Callable[..., Any], args: tuple[Any, ...],
+           kwargs: dict[str, Any]) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    die_with_parent(parent)
+    # forked from the server (parent None): the server is the parent to outlive
+    die_with_parent(os.getppid() if parent is None else parent)
+    if os.environ != environment:  # the caller's variables at the call, as with spawn
+        os.environ.clear()
+        os.environ.update(environment)
     fd = os.open(stderr_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
     os.dup2(fd, 2)
     os.close(fd)
@@ -160,14 +219,15 @@ def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = No
     the option a timeout message points to. ``daemon=False`` lets the child start
     processes of its own (a local Dask cluster); it still dies with its parent.
     """
-    context = multiprocessing.get_context("spawn")
+    context, forked = _start_context(fn)
     with tempfile.TemporaryDirectory(prefix="covaudit-child-") as folder:
         stderr_path = Path(folder) / "stderr"
         stderr_path.touch()
         parent_conn, child_conn = context.Pipe(duplex=False)
         process = context.Process(target=_child, daemon=daemon,
-                                  args=(child_conn, str(stderr_path), os.getpid(), stage, fn,
-                                        args, kwargs))
+                                  args=(child_conn, str(stderr_path),
+                                        None if forked else os.getpid(), stage,
+                                        dict(os.environ), fn, args, kwargs))
         process.start()
         child_conn.close()
         deadline = None  # counts from the child's READY (start-up is not the call's time)
