@@ -13,33 +13,32 @@ one knob value or more, or in its trial before the fit).
 from __future__ import annotations
 
 import argparse
-import math
-import os
-import shutil
 import sys
-import tempfile
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
 from harness.audit.engine import LADDER_FACTOR
-from harness.audit.rule import SOLVER_FAILED, Thresholds
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.audit.solver_trial import SolverFailed
-from harness.check import CheckDataError, CheckError, CheckOptions, run_check, validate
-from harness.check.check_records import CheckResult
+from harness.check import CheckDataError, CheckError, run_check, validate
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
 from harness.check.solver_lineup import line_up
+from harness.cli.check_arguments import (
+    DEFAULT_TOLERANCES_TEXT,
+    coord_units_option,
+    options_from_args,
+)
+from harness.cli.check_outputs import default_out, json_text, write_outputs, written_files
+from harness.cli.check_summary import failed_points, summary
 from harness.cli.flag_types import (
     float_range,
     nonnegative_int,
     positive_float,
     positive_int,
 )
-from harness.cli.frontier_summary import frontier_lines
-from harness.cli.params import ParamSyntaxError, parse_params
+from harness.cli.params import ParamSyntaxError
 from harness.infra.child_process import StageCrashed
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode, combine
@@ -51,25 +50,16 @@ from harness.infra.option_specs import (
     SOLVER_SEEDS,
     SOLVER_TIMEOUT,
     TIMING_REPEATS,
-    TOLERANCE,
     VARIANCE_POINTS,
-    OptionError,
 )
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
 from harness.linalg.dense_budget import DEFAULT_BUDGET_FRACTION
 from harness.model import MEAN_MODELS
-from harness.model.json_values import json_text as strict_json
-from harness.model.kernels import KERNEL_CLASSES, KERNELS, KernelParameterError
-from harness.report.check_report import render_check_report
-from harness.report.condense import shorten
-from harness.report.labels import metric_label
-from harness.solvers.knobs import KnobSpec
-from harness.solvers.plugins import SolverLoadError
-from harness.solvers.registry import SolverRuntimeError, resolve_solver
+from harness.model.kernels import KERNELS, KernelParameterError
+from harness.solvers.registry import SolverRuntimeError
 
-#: Shape parameters of any family (``Kernel.PARAMETERS``): fixed during the fit.
-SHAPE_NAMES = tuple(dict.fromkeys(spec.name for cls in KERNEL_CLASSES
-                                  for spec in cls.PARAMETERS if spec.shape))
+__all__ = ["add_parser", "default_out", "json_text", "options_from_args", "run", "summary",
+           "write_outputs"]
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -193,274 +183,13 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="seed of holdout, pilot and probes")
 
 
-#: ``--tolerances`` when neither it nor ``--knob-values`` is given to a ``tol`` solver.
-DEFAULT_TOLERANCES_TEXT = "1e-2,1e-4,1e-6,1e-8,1e-10"
-
-
-def _tolerances(text: str) -> tuple[float, ...]:
-    try:
-        return tuple(float(v) for v in TOLERANCE.parse_list(text, where="--tolerances"))
-    except OptionError as exc:
-        raise CheckError(str(exc)) from None
-
-
-def solver_knob(name: str) -> KnobSpec:
-    """The accuracy knob of ``--solver NAME`` (``harness.solvers.knobs``)."""
-    try:
-        return resolve_solver(name).knob
-    except (SolverLoadError, TypeError) as exc:
-        raise CheckError(f"--solver {name!r}: {exc}") from None
-
-
-def solver_names(args: argparse.Namespace) -> tuple[str, ...]:
-    """The solvers under test as given (``--solver``, repeatable; default hodlr)."""
-    given = args.solver if args.solver is not None else ["hodlr"]
-    return tuple(given) if isinstance(given, list | tuple) else (str(given),)
-
-
-def sweeps(args: argparse.Namespace) -> dict[str, tuple[float, ...]]:
-    """``--sweep SOLVER=V1,V2,...`` by solver; the values' ranges are checked per solver
-    by ``harness.check.solver_lineup`` (a solver with a bad sweep is refused alone)."""
-    out: dict[str, tuple[float, ...]] = {}
-    for text in getattr(args, "sweep", None) or ():
-        solver, sep, values = text.partition("=")
-        if not sep or not solver.strip() or not values.strip():
-            raise CheckError(f"--sweep {text!r}: expected SOLVER=V1,V2,... (the solver "
-                             "spelled as given to --solver)")
-        try:
-            parsed = tuple(float(v) for v in values.split(",") if v.strip())
-        except ValueError:
-            raise CheckError(f"--sweep {text!r}: the values must be numbers separated by "
-                             "commas") from None
-        if solver.strip() in out:
-            raise CheckError(f"--sweep {solver.strip()}: given twice")
-        out[solver.strip()] = parsed
-    return out
-
-
-def knob_sweep(args: argparse.Namespace) -> tuple[tuple[float, ...], tuple[float, ...] | None]:
-    """``(tolerances, knob_values)`` of ``CheckOptions`` from ``--tolerances`` and
-    ``--knob-values`` (README, "check"): a single ``tol`` solver takes either, another
-    knob only ``--knob-values`` (default: its declared sweep), each value validated
-    against the knob's declared range. With several solvers ``--knob-values`` is refused
-    (``--sweep`` gives each its values) and ``--tolerances`` serves the ``tol`` solvers."""
-    names = solver_names(args)
-    given_tol = args.tolerances is not None
-    given_knob = getattr(args, "knob_values", None) is not None
-    if given_tol and given_knob:
-        raise CheckError("--tolerances and --knob-values: give one of them, not both")
-    if len(names) > 1:
-        if given_knob:
-            raise CheckError("--knob-values: allowed with a single --solver; with several, "
-                             "give each its values with --sweep SOLVER=V1,V2,...")
-        return _tolerances(args.tolerances or DEFAULT_TOLERANCES_TEXT), None
-    knob = solver_knob(names[0])
-    if given_tol and not knob.is_tol:
-        raise CheckError(f"--tolerances: solver {names[0]!r} has no tol; its knob is "
-                         f"{knob.name} in {knob.range_text()}: use --knob-values")
-    if not given_knob:
-        tolerances = _tolerances(args.tolerances or DEFAULT_TOLERANCES_TEXT)
-        return tolerances, None if knob.is_tol else knob.default_sweep
-    try:
-        values = tuple(float(v) for v in knob.option_spec().parse_list(
-            args.knob_values, where="--knob-values"))
-    except OptionError as exc:
-        raise CheckError(str(exc)) from None
-    if knob.is_tol:
-        return values, None
-    return _tolerances(DEFAULT_TOLERANCES_TEXT), values
-
-
-def options_from_args(args: argparse.Namespace) -> CheckOptions:
-    """CheckOptions from the parsed command line."""
-    extra = parse_params(args.param)
-    shape = {k: float(v) for k, v in extra.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
-    start = {k: v for k, v in extra.items() if k not in SHAPE_NAMES}
-    if start and "lengthscale" not in start:
-        raise ParamSyntaxError("--param: a starting point needs lengthscale=... "
-                               "(variance and nugget are optional)")
-    fixed = parse_params(args.fixed_params, flag="--fixed-params") \
-        if args.fixed_params else None
-    if fixed is not None:
-        shape = shape | {k: float(v) for k, v in fixed.items() if k in SHAPE_NAMES}  # type: ignore[arg-type]
-        fixed = {k: v for k, v in fixed.items() if k not in SHAPE_NAMES}
-    budget = None if args.memory_budget is None else int(args.memory_budget * 2**30)
-    tolerances, knob_values = knob_sweep(args)
-    names = solver_names(args)
-    return CheckOptions(
-        kernel=args.kernel, shape=shape, anisotropic=args.anisotropic,
-        nugget=not args.no_nugget, mean=args.mean, tolerances=tolerances,
-        knob_values=knob_values,
-        holdout=args.holdout, holdout_points=args.holdout_points,
-        variance_points=args.variance_points, seed=args.seed, probes=args.probes,
-        fixed_params=fixed,
-        start_params=start or None, thresholds=Thresholds(),
-        dense_fit_max_n=args.dense_fit_max_n, memory_budget=budget,
-        refit=not args.no_refit, fit_time_budget=args.fit_time_budget, solver=names[0],
-        solvers=names if len(names) > 1 else (), sweeps=sweeps(args),
-        timing_repeats=getattr(args, "timing_repeats", None), kl=getattr(args, "kl", False),
-        solver_seeds=args.solver_seeds, reference=args.reference,
-        preconditioner=args.preconditioner, ladder_factor=args.ladder_factor,
-        solver_timeout=args.solver_timeout)
-
-
-def json_text(result: CheckResult) -> str:
-    """The JSON output (non-finite numbers as null)."""
-    return strict_json(result)
-
-
-def write_outputs(result: CheckResult, out: str | Path, *, html_name: str = "check.html",
-                  json_name: str = "check.json", extra: dict[str, str] | None = None,
-                  points: np.ndarray | None = None, holdout: np.ndarray | None = None,
-                  coord_units: str | None = None) -> Path:
-    """Write the JSON, the HTML report and ``extra`` files (name -> text) into ``out``
-    atomically: everything goes to a temporary folder first and is renamed at the end."""
-    out = Path(out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}-", dir=out.parent))
-    try:
-        (tmp / json_name).write_text(json_text(result), encoding="utf-8")
-        for name, text in (extra or {}).items():
-            (tmp / name).parent.mkdir(parents=True, exist_ok=True)
-            (tmp / name).write_text(text, encoding="utf-8")
-        (tmp / html_name).write_text(render_check_report(result, points=points,
-                                                         holdout=holdout,
-                                                         coord_units=coord_units),
-                                     encoding="utf-8")
-        out.mkdir(exist_ok=True)
-        for item in sorted(tmp.rglob("*")):
-            if item.is_file():
-                target = out / item.relative_to(tmp)
-                target.parent.mkdir(parents=True, exist_ok=True)
-                os.replace(item, target)
-    finally:
-        shutil.rmtree(tmp, ignore_errors=True)
-    return out
-
-
-def summary(result: CheckResult) -> str:
-    """The verdict table for the terminal."""
-    solver = result.solver.get("name", "?")
-    version = result.solver.get("version")
-    per = "tolerance" if result.knob_name == "tol" else f"{result.knob_name} value"
-    lines = [f"covaudit check: {result.source}: {result.n:,} points (all fitted; "
-             f"{result.n_holdout:,} held out for the kriging evaluation), kernel "
-             f"{result.kernel}, mean {result.mean}, reference {result.reference}",
-             f"  solver      {solver}{f' {version}' if version else ''}, "
-             f"{len(result.solver_seeds)} seed(s) per {per} (the worst decides)",
-             "  parameters  " + ", ".join(f"{k} = {_short(v)}" for k, v in result.params.items()),
-             "  SE          " + ", ".join(f"{k} = {_short(v)}"
-                                          for k, v in result.se["natural"].items()),
-             f"  loglik      {result.loglik:.10g}"]
-    if result.se.get("microergodic") is not None:
-        lines.append(f"  s2/l^(2nu)  {result.se['microergodic']:.6g} "
-                     f"(SE {result.se['microergodic_se']:.3g})")
-    shown = ("loglik_error", "param_shift_se", "kriging_mean_sd", "mloe", "mmom")
-    knob = result.knob_name
-    column = metric_label("tol").short if knob == "tol" else knob
-    header = (f"  {column:>9} {metric_label('verdict').short:>10} "
-              + " ".join(f"{metric_label(n).short:>14}" for n in shown)
-              + f" {metric_label('speedup').short:>9}")
-    lines += ["", header]
-    broke: list[str] = []
-    for row in result.tolerances:
-        status = row.status or ("safe" if row.safe else "unsafe")
-        if row.error and not row.metrics:
-            broke.append(f"  [{len(broke) + 1}] {_at(knob, row.value, short=True)}: "
-                         f"{row.error}")
-            lines.append(f"  {_cell(knob, row.value)} {status:>10}  "
-                         f"{shorten(row.error, 60)} [{len(broke)}]")
-            continue
-        vals = [row.metric(n) for n in ("loglik_error", "param_shift_se", "kriging_mean_sd",
-                                        "mloe", "mmom")]
-        cells = " ".join(f"{(v.value if v else float('nan')):>14.3g}" for v in vals)
-        lines.append(f"  {_cell(knob, row.value)} {status:>10} {cells} "
-                     f"{row.speedup or float('nan'):>9.3g}")
-    lines += broke
-    lines.append("  " + "; ".join(f"{metric_label(n).short}: {metric_label(n).label}"
-                                  for n in shown[:3])
-                 + "; MLOE, MMOM: loss of prediction efficiency (see check.html's legend)")
-    lines.append("")
-    if not result.fit_converged:
-        lines.append("  every verdict was measured at an unconverged estimate")
-    picked = result.recommended_value
-    if picked is None:
-        noun = "tolerance" if knob == "tol" else f"{knob} value"
-        lines.append(f"  recommendation: no {noun} in the list qualifies ("
-                     + str(result.recommendation.get("reason", "none is safe")) + ")")
-    else:
-        best = next(r for r in result.tolerances if r.value == picked)
-        speedup = result.speedup if result.speedup is not None else float("nan")
-        times = (f": {best.seconds * speedup:.3g} s against {best.seconds:.3g} s "
-                 "per log-likelihood evaluation"
-                 if result.speedup is not None and math.isfinite(best.seconds) else "")
-        lines.append(f"  recommendation: {_at(knob, picked)} "
-                     f"({speedup:.3g}x faster than {result.speedup_over}{times})")
-    lines += frontier_lines(result)
-    if result.refit:
-        refit_value = (result.refit.tol if result.refit.knob_value is None
-                       else result.refit.knob_value)
-        lines.append(f"  refit at {_at(knob, refit_value)}: largest shift "
-                     f"{result.refit.max_shift_se:.3g} SE, loglik change "
-                     f"{result.refit.loglik_change:.3g} nat, "
-                     f"{result.refit.accepted_steps} step(s) accepted")
-        if result.refit.accepted_steps == 0 or not result.refit.converged:
-            lines.append(f"  refit: {result.refit.note}")
-    lines += [f"WARNING: {w}" for w in dict.fromkeys(result.warnings)]  # each once
-    lines.append("  thresholds are common practice chosen for covaudit, not a published "
-                 "standard")
-    return "\n".join(lines)
-
-
-def _at(knob: str, value: float | None, *, short: bool = False) -> str:
-    """``tol 1e-06`` (``tol 1e-06`` as ``1e-06`` in the short form) or ``rho = 6``."""
-    if value is None:
-        return "exact"
-    if knob == "tol":
-        return f"tol {value:.0e}" if short else f"tol {value:g}"
-    return f"{knob} = {value:g}"
-
-
-def _cell(knob: str, value: float | None) -> str:
-    """A value in the table's first column: ``1e-06`` for tol, ``6`` for another knob."""
-    if value is None:
-        return f"{'exact':>9}"
-    return f"{value:>9.0e}" if knob == "tol" else f"{value:>9g}"
-
-
-def _short(value: Any) -> str:
-    if isinstance(value, list):
-        return "(" + ", ".join(f"{v:.4g}" for v in value) + ")"
-    return f"{value:.4g}" if isinstance(value, float) else str(value)
-
-
-def _coord_units(text: str | None) -> str | None:
-    """``--coord-units`` stripped; a blank one is refused (one line, exit 2)."""
-    if text is None:
-        return None
-    if not text.strip():
-        raise CheckError("--coord-units: expected a unit such as m or km, got a blank value")
-    return text.strip()
-
-
-def default_out(datafile: str | Path) -> Path:
-    """``reports/check-<data file stem>``: one folder per data file, so checks of different
-    files do not overwrite each other."""
-    return Path("reports") / f"check-{Path(datafile).stem}"
-
-
-def written_files(out: str | Path, names: list[str]) -> list[Path]:
-    """The files ``write_outputs`` wrote into ``out``, in order."""
-    return [Path(out) / name for name in names if (Path(out) / name).is_file()]
-
-
 def run(args: argparse.Namespace) -> int:
     from harness.check.check_state import CheckState, state_folder, state_inputs
     from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
 
     out = Path(args.out) if args.out else default_out(args.datafile)
     try:
-        coord_units = _coord_units(getattr(args, "coord_units", None))
+        coord_units = coord_units_option(getattr(args, "coord_units", None))
         options = options_from_args(args)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
         obs = load_observations(args.datafile, coords=coords, value=args.value,
@@ -511,10 +240,3 @@ def run(args: argparse.Namespace) -> int:
                     *([ExitCode.ERROR] if refused else [])])
 
 
-def failed_points(result: CheckResult) -> list[str]:
-    """The reasons of every (solver, knob value) whose status is "solver failed"."""
-    if not result.solvers:
-        return [row.error for row in result.tolerances if row.status == SOLVER_FAILED]
-    return [point.get("error") or f"solver {entry['given']!r} failed"
-            for entry in result.solvers for point in entry["points"]
-            if point.get("status") == SOLVER_FAILED]

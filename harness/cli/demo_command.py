@@ -18,7 +18,8 @@ from harness.audit.rule import Thresholds
 from harness.check import CheckOptions, run_check, validate
 from harness.check.demo_data import DEMO_N, DEMO_SEED, TRUE_KERNEL, generate_demo
 from harness.check.pipeline import holdout_indices
-from harness.cli.check_command import summary, write_outputs
+from harness.cli.check_outputs import write_outputs
+from harness.cli.check_summary import summary
 from harness.cli.flag_types import int_range
 from harness.infra.data_files import observations_from_arrays
 from harness.infra.exit_codes import ExitCode
