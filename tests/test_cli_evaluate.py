@@ -15,13 +15,8 @@ from harness.model.kernels import Matern32
 
 
 @pytest.fixture
-def datafile(tmp_path):
-    rng = np.random.default_rng(4)
-    pts = rng.random((200, 2))
-    frame = pd.DataFrame({"x": pts[:, 0], "y": pts[:, 1], "v": rng.standard_normal(200)})
-    path = tmp_path / "obs.csv"
-    frame.to_csv(path, index=False)
-    return path, frame
+def datafile(plane_csv):
+    return plane_csv
 
 
 BASE = ["--coords", "x,y", "--value", "v", "--kernel", "matern32", "--param", "variance=1",

@@ -13,7 +13,6 @@ import json
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 import pytest
 import scipy.linalg as sl
 
@@ -233,13 +232,8 @@ def test_operator_reference_reports_preconditioner_pilot_and_iterations(problem)
 
 
 @pytest.fixture
-def datafile(tmp_path):
-    rng = np.random.default_rng(4)
-    pts = rng.random((200, 2))
-    frame = pd.DataFrame({"x": pts[:, 0], "y": pts[:, 1], "v": rng.standard_normal(200)})
-    path = tmp_path / "obs.csv"
-    frame.to_csv(path, index=False)
-    return path
+def datafile(plane_csv) -> Path:
+    return plane_csv[0]
 
 
 EVALUATE = ["--coords", "x,y", "--value", "v", "--kernel", "matern32", "--param",

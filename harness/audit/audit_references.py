@@ -152,8 +152,8 @@ class OperatorReference:
 
     A built-in solver only *preconditions* it (the wall between references and solvers,
     DEVELOPERS.md "Architecture": it changes iteration counts and SEs, never the expected
-    answer): by default Vecchia with its neighbour count chosen by a pilot on all points
-    and reused for the training points, or HODLR at a tolerance
+    answer): by default HODLR at tol 1e-10, or Vecchia with its neighbour count chosen by
+    a pilot on all points and reused for the training points
     (``harness.audit.operator_preconditioner``). The preconditioner, its pilot and the
     iteration counts of the real runs are reported in ``info`` and ``by_metric``.
     Certified when every CG and Lanczos run converged and the CG bounds are rigorous
@@ -341,7 +341,7 @@ def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
                     ) -> PairedReference | ValueReference:
     """The engine's reference of ``kind`` (``harness.audit.reference_choice``) on ``data``.
 
-    ``preconditioner`` is the operator reference's (None: Vecchia, m chosen by a pilot).
+    ``preconditioner`` is the operator reference's (None: ``PreconditionerSpec()``, HODLR).
 
     ``isolate`` runs the dense reference's factorizations in a child process (``check``;
     a ``run`` task's worker is already one). ``probes`` sets the operator's and the

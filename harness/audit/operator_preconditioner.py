@@ -26,7 +26,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import asdict, dataclass
 
 import numpy as np
 
@@ -127,13 +127,7 @@ class PilotCandidate:
     predicted_seconds: float
 
     def to_dict(self) -> dict[str, object]:
-        return {"neighbours": self.neighbours, "factor_seconds": self.factor_seconds,
-                "trace_seconds": self.trace_seconds, "pcg_seconds": self.pcg_seconds,
-                "lanczos_seconds": self.lanczos_seconds, "iterations": self.iterations,
-                "lanczos_steps": self.lanczos_steps, "logdet_variance": self.logdet_variance,
-                "converged": self.converged, "predicted_probes": self.predicted_probes,
-                "predicted_products": self.predicted_products,
-                "predicted_seconds": self.predicted_seconds}
+        return asdict(self)
 
 
 @dataclass(frozen=True)
@@ -149,9 +143,7 @@ class NeighbourPilot:
     seconds: float
 
     def to_dict(self) -> dict[str, object]:
-        return {"n": self.n, "pilot_n": self.pilot_n, "product_seconds": self.product_seconds,
-                "block": self.block, "chosen": self.chosen, "seconds": self.seconds,
-                "candidates": [c.to_dict() for c in self.candidates]}
+        return asdict(self) | {"candidates": [c.to_dict() for c in self.candidates]}
 
 
 @dataclass(frozen=True)

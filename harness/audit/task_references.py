@@ -11,7 +11,7 @@ kriging. ``task_reference`` builds the kind that ``harness.audit.reference_choic
   boundary of ``run``);
 * statespace: the Kalman filter, Fisher information by central differences;
 * kronecker: the Kronecker eigen-decomposition;
-* operator: the exact operator, preconditioned by the built-in Vecchia solver;
+* operator: the exact operator, preconditioned by the built-in HODLR solver;
 * ladder: the solver under test at tol / ladder_factor.
 
 ``draw_y`` draws y = W z from the dense factor when there is one, else from the solver
@@ -183,10 +183,11 @@ def _ladder(task: AuditTask, points: np.ndarray, kernel: Kernel, solver: Any,
 def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
               streams: dict[str, np.random.Generator]) -> Reference:
     """The exact operator, preconditioned by the default of
-    ``harness.audit.operator_preconditioner`` (HODLR at tol 1e-10; the spec built at the
-    task's parameters is kept for every later evaluation): every value from exact kernel
-    products, with its standard error (log det, traces) or bound (quadratic form)."""
+    ``harness.audit.operator_preconditioner`` (HODLR at ``HODLR_TOL``): every value from
+    exact kernel products, with its standard error (log det, traces) or bound (quadratic
+    form)."""
     from harness.audit.operator_preconditioner import (
+        HODLR_TOL,
         PreconditionerSpec,
         build_operator_preconditioner,
     )
@@ -194,18 +195,16 @@ def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
 
     probe_seed = int(streams["probes"].integers(2 ** 63))
     uncertainty: dict[str, float] = {}
-    chosen: dict[str, PreconditionerSpec] = {}
+    preconditioner = f"hodlr at tol {HODLR_TOL:g}"
     notes = ["operator reference: log-likelihood with a standard error (its "
              "column reference_loglik_se); no Fisher information, so score "
-             "metrics and parameter shifts are unavailable"]
+             "metrics and parameter shifts are unavailable",
+             f"operator reference preconditioned by {preconditioner}"]
 
     def evaluate(model: Kernel, y: np.ndarray) -> Any:
-        spec = chosen.get("spec", PreconditionerSpec())
         built = build_operator_preconditioner(
-            points, model, spec, rng=np.random.default_rng(solver_seed(task.seed, 0)))
-        if "spec" not in chosen:
-            chosen["spec"] = PreconditionerSpec(family=built.family, knob=built.knob_value)
-            notes.append(f"operator reference preconditioned by {built.describe()}")
+            points, model, PreconditionerSpec(),
+            rng=np.random.default_rng(solver_seed(task.seed, 0)))
         ev = operator_evaluate(points, y, model, mean=task.mean, reml=task.reml,
                                preconditioner=built.factorization, rng=probe_seed,
                                score=True)
@@ -218,7 +217,7 @@ def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
 
     return Reference(kind="operator", evaluate=evaluate,
                      description=("exact operator: tiled kernel products, PCG and Lanczos "
-                                  "quadrature, preconditioned by hodlr at tol 1e-10"),
+                                  f"quadrature, preconditioned by {preconditioner}"),
                      notes=notes, uncertainty=uncertainty)
 
 
