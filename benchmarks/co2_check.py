@@ -27,6 +27,7 @@ from __future__ import annotations
 import argparse
 import json
 import resource
+import shutil
 import subprocess
 import sys
 import threading
@@ -41,6 +42,8 @@ from machine_unit import machine, measure_unit, write_run
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
 from opendata import cache_dir, fetch_rda  # noqa: E402
+
+from harness.check.check_state import state_folder  # noqa: E402
 
 COMMAND = ["check", "co2.csv", "--coords", "lon,lat", "--value", "co2_ppm",
            "--coord-system", "lonlat"]
@@ -109,6 +112,9 @@ def main(argv: list[str] | None = None) -> int:
     work = cache_dir() / "co2-check"
     data = write_data(work)
     out = work / "out"
+    # A measured check starts from nothing: no earlier output and no saved stages to resume.
+    for folder in (out, state_folder(out)):
+        shutil.rmtree(folder, ignore_errors=True)
     argv_run = [sys.executable, "-m", "harness", *command, "--out", str(out)]
     start = time.perf_counter()
     proc = subprocess.Popen(argv_run, cwd=data.parent, stdout=subprocess.PIPE,

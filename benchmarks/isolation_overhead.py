@@ -89,7 +89,7 @@ def main() -> None:
         smoke = timed([sys.executable, "-c", "import sys; from harness.cli import main; "
                        "sys.exit(main())", "run", "cases/smoke.toml", "--out",
                        os.path.join(folder, "smoke")], scratch=folder)
-    faults = timed([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider",
+    faults = timed([sys.executable, "-m", "pytest", "-q", "-p", "no:cacheprovider", "-n", "0",
                     "tests/test_faults.py"])
     payload = {
         "benchmark": "isolation_overhead", "commit": commit(), "machine": machine(),

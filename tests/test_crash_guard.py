@@ -73,6 +73,44 @@ def _covaudit(args: list[str], *, crash_stage: str, cwd: Path) -> subprocess.Com
                           capture_output=True, text=True, timeout=600, check=False)
 
 
+_ORPHAN_SCRIPT = """
+import os, sys, time
+from harness.infra.child_process import call_in_child
+
+
+def nap():
+    print(os.getpid(), flush=True)
+    time.sleep(300)
+
+
+if __name__ == "__main__":
+    call_in_child(nap)
+"""
+
+
+def test_a_child_dies_with_a_killed_caller_and_so_does_the_fork_server(tmp_path):
+    # kill -9 of the caller while its child runs: the child (forked from the fork server)
+    # must not keep the server alive, nor the server the child (harness.infra.child_process
+    # ``enter_child``); both are gone within seconds, not after the child's 300 s.
+    psutil = pytest.importorskip("psutil")
+    script = tmp_path / "caller.py"
+    script.write_text(_ORPHAN_SCRIPT)
+    caller = subprocess.Popen([sys.executable, str(script)], stdout=subprocess.PIPE,
+                              text=True)
+    try:
+        child_pid = int(caller.stdout.readline())
+        family = psutil.Process(caller.pid).children(recursive=True)
+        assert child_pid in {p.pid for p in family}
+    finally:
+        caller.kill()
+        caller.wait(timeout=30)
+    _, alive = psutil.wait_procs(family, timeout=15)
+    alive = [p for p in alive if p.is_running() and p.status() != psutil.STATUS_ZOMBIE]
+    for p in alive:
+        p.kill()
+    assert not alive, f"left behind: {[(p.pid, p.cmdline()[-1:]) for p in alive]}"
+
+
 def test_check_survives_a_crash_of_the_dense_reference(tmp_path):
     data = _data_file(tmp_path)
     proc = _covaudit(["check", str(data), "--coords", "e,n", "--value", "z", "--kernel",

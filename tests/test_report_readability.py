@@ -256,15 +256,21 @@ def run_dir(tmp_path_factory):
                                probes=(16, 64), dense_max_n=2000)
 
 
+@pytest.fixture(scope="module")
+def run_html(run_dir) -> str:
+    """The run report without a comparison, rendered once for the tests that read it."""
+    return render_report(load_run(run_dir))
+
+
 def _comparison() -> Comparison:
     return Comparison(baseline="base", new="new", checks=(), paired=3, findings=(),
                       missing=(), extra=())
 
 
 @pytest.mark.parametrize("with_comparison", [False, True])
-def test_table_of_contents_matches_the_sections(run_dir, with_comparison):
-    html = render_report(load_run(run_dir),
-                         comparison=_comparison() if with_comparison else None)
+def test_table_of_contents_matches_the_sections(run_dir, run_html, with_comparison):
+    html = (render_report(load_run(run_dir), comparison=_comparison()) if with_comparison
+            else run_html)
     found = outline(html)
     assert len(found.toc) == (9 if with_comparison else 8)
     assert found.toc == [(f"#{sid}", text) for sid, text in found.headings]
@@ -278,21 +284,20 @@ def test_table_of_contents_matches_the_sections(run_dir, with_comparison):
         assert "thread settings listed in section 7." in _text(html)
 
 
-def test_run_report_headers_are_labels_not_results_keys(run_dir):
-    found = outline(render_report(load_run(run_dir)))
+def test_run_report_headers_are_labels_not_results_keys(run_html):
+    found = outline(run_html)
     assert found.headers
     raw = [h for h in found.headers if RAW_KEY.match(h)]
     assert raw == [], raw
     for key in ("loglik_abs_err", "param_shift_se_max", "kriging_mean_err_sd_max"):
         assert RESULT_COLUMN_LABELS[key] in found.headers
     # the scaling table names each metric by its label
-    assert "t_total" not in _text(render_report(load_run(run_dir))).split(
+    assert "t_total" not in _text(run_html).split(
         "Fitted exponents")[1].split("Time to accuracy")[0]
 
 
-def test_run_report_coordinate_units_from_the_option_or_the_run(run_dir, tmp_path):
-    assert "coordinates and length scales in coordinate units" in _text(
-        render_report(load_run(run_dir)))
+def test_run_report_coordinate_units_from_the_option_or_the_run(run_dir, run_html, tmp_path):
+    assert "coordinates and length scales in coordinate units" in _text(run_html)
     out = tmp_path / "r.html"
     assert main(["report", str(run_dir), "--out", str(out), "--coord-units", "km"]) == 0
     assert "coordinates and length scales in km" in _text(out.read_text(encoding="utf-8"))

@@ -81,6 +81,31 @@ def die_with_parent(parent: int) -> None:
     threading.Thread(target=watch, name="covaudit-parent-watchdog", daemon=True).start()
 
 
+def enter_child(parent: int | None, environment: dict[str, str]) -> None:
+    """First steps of a child: die with its parent (the server, ``parent`` None, when it
+    was forked from the server) and take the caller's environment, as ``spawn`` would.
+
+    A child forked from the server inherits the write end of the pipe whose end-of-file
+    tells the server that the process that started it has died (CPython's
+    ``multiprocessing.forkserver`` hands it to every child). Held open by the child, it
+    would keep the server alive after a ``kill -9`` of that process, and the server would
+    keep the child alive (it dies with the server): the child closes it. A child that
+    needs a fork server of its own then starts one.
+    """
+    if parent is None:
+        from multiprocessing import forkserver
+
+        server = forkserver._forkserver  # type: ignore[attr-defined]
+        alive = getattr(server, "_forkserver_alive_fd", None)
+        if alive is not None:
+            with contextlib.suppress(OSError):
+                os.close(alive)
+            server._forkserver_alive_fd = None
+    die_with_parent(os.getppid() if parent is None else parent)
+    if os.environ != environment:
+        os.environ.clear()
+        os.environ.update(environment)
+
 
 #: Lines of faulthandler's report that say nothing about the task (module lists and the
 #: frames of the worker machinery itself).
@@ -161,14 +186,18 @@ class _ForkServer:
 _SERVER = _ForkServer()
 
 
-def _start_context(fn: Callable[..., Any]) -> tuple[Any, bool]:
-    """The context a child starts from and whether it is forked from the server."""
+def start_context(module: str) -> tuple[Any, bool]:
+    """The multiprocessing context a child starts from, and whether it is forked from the
+    server (module docstring); ``module`` joins the server's preloaded modules when this
+    call starts the server. A forked child must apply the caller's environment itself and
+    take the server as the parent it dies with (``_child``; the grid's workers do the
+    same)."""
     if "forkserver" not in multiprocessing.get_all_start_methods():
         return multiprocessing.get_context("spawn"), False
     environment = _load_time_environment()
     if _SERVER.environment is None:
         server = multiprocessing.get_context("forkserver")
-        server.set_forkserver_preload([*_PRELOAD, getattr(fn, "__module__", "numpy")])
+        server.set_forkserver_preload([*_PRELOAD, module])
         _SERVER.environment = environment
         return server, True
     if environment == _SERVER.environment:
@@ -180,11 +209,7 @@ def _child(conn: Connection, stderr_path: str, parent: int | None, stage: str | 
            environment: dict[str, str], fn: Callable[..., Any], args: tuple[Any, ...],
            kwargs: dict[str, Any]) -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    # forked from the server (parent None): the server is the parent to outlive
-    die_with_parent(os.getppid() if parent is None else parent)
-    if os.environ != environment:  # the caller's variables at the call, as with spawn
-        os.environ.clear()
-        os.environ.update(environment)
+    enter_child(parent, environment)
     fd = os.open(stderr_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
     os.dup2(fd, 2)
     os.close(fd)
@@ -219,7 +244,7 @@ def call_in_child(fn: Callable[..., Any], *args: Any, timeout: float | None = No
     the option a timeout message points to. ``daemon=False`` lets the child start
     processes of its own (a local Dask cluster); it still dies with its parent.
     """
-    context, forked = _start_context(fn)
+    context, forked = start_context(getattr(fn, "__module__", None) or "numpy")
     with tempfile.TemporaryDirectory(prefix="covaudit-child-") as folder:
         stderr_path = Path(folder) / "stderr"
         stderr_path.touch()

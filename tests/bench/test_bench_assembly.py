@@ -1,7 +1,7 @@
 """Dense assembly against the Cholesky it feeds, at n = 8,000 (one run, same machine).
 
 Target (issue 2): assembling Sigma costs at most a quarter of factoring it.
-Run: ``pytest tests/bench --benchmark-only -k assembly``.
+Run: ``pytest tests/bench --benchmark-only -n 0 -k assembly``.
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """HODLR factorization speed, as ratios measured in one run.
 
-Run with ``pytest tests/bench --benchmark-only``. Setting of the targets: 2D uniform
+Run with ``pytest tests/bench --benchmark-only -n 0``. Setting of the targets: 2D uniform
 points, Matern 3/2, s2 = 1, l = 0.1, nugget 1e-2, leaf 128. Target: at n = 16,000 and
 tol 1e-6 the factorization is at least 15x faster than dense assembly + Cholesky
 (``assemble_lower`` + LAPACK ``dpotrf``) timed in the same run.

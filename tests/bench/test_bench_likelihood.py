@@ -1,6 +1,6 @@
 """Solve, trace-estimator and whole likelihood-plus-score costs of the built-in solver.
 
-Run with ``pytest tests/bench --benchmark-only -k likelihood``. Setting as in
+Run with ``pytest tests/bench --benchmark-only -n 0 -k likelihood``. Setting as in
 ``test_bench_hodlr.py`` (2D uniform, Matern 3/2, s2 = 1, l = 0.1, nugget 1e-2, leaf 128,
 tol 1e-6). Target (issue 3): one log-likelihood + score evaluation (3 parameters,
 Hutch++ with 64 products) at n = 128,000 within 60 s, factorization included.

@@ -1,4 +1,4 @@
-"""Structured exact references at a million points (run: pytest tests/bench --benchmark-only).
+"""Structured exact references at a million points (run: pytest tests/bench --benchmark-only -n 0).
 
 Targets: Kalman log-likelihood + analytic (sensitivity-recursion) score at n = 1e6
 under 30 s per family; Kronecker log-likelihood + analytic score on a 1000 x 1000 grid under 60 s.

@@ -1,11 +1,12 @@
 """Run jobs on local worker processes, ``workers`` at a time.
 
-The workers (``harness.grid.runner.workers.WorkerPool``) are started with ``spawn``,
-reused across jobs, ignore SIGINT and die with their parent. Each job limits its own
-BLAS threads (``harness.grid.runner.jobs.limited_threads``). A worker that dies is
-recorded against its own job only (each worker runs one job at a time, so there is no
-doubt whose job killed it), a job past its timeout is stopped and recorded as
-``TaskTimeout``, and the grid goes on.
+The workers (``harness.grid.runner.workers.WorkerPool``) are forked from the fork server
+(or started with ``spawn``; ``describe`` records which), reused across jobs, ignore
+SIGINT and die with their parent. Each job limits its own BLAS threads
+(``harness.grid.runner.jobs.limited_threads``). A worker that dies is recorded against its
+own job only (each worker runs one job at a time, so there is no doubt whose job killed
+it), a job past its timeout is stopped and recorded as ``TaskTimeout``, and the grid goes
+on.
 """
 
 from __future__ import annotations
@@ -38,4 +39,5 @@ class ProcessBackend:
         self._pool.close()
 
     def describe(self) -> dict[str, Any]:
-        return {"name": self.name, "workers": self.workers, "start_method": "spawn"}
+        return {"name": self.name, "workers": self.workers,
+                "start_method": self._pool.start_method}

@@ -30,4 +30,4 @@ class SerialBackend:
 
     def describe(self) -> dict[str, Any]:
         return {"name": self.name, "workers": self.workers, "isolation": "child process",
-                "start_method": "spawn"}
+                "start_method": self._pool.start_method}

@@ -14,17 +14,20 @@ one task, not the run:
   exits the worker when its parent process changes (an orphan is re-parented);
 - workers ignore SIGINT, so Ctrl-C reaches only the parent, which stops them.
 
-Workers are started with the ``spawn`` method (numba's and OpenMP's thread pools are not
-safe across ``fork``) and reused across jobs, so the start-up cost (imports) is paid once
-per worker, not per task. A worker's standard error goes to a file; what a job wrote
-there is passed on to the parent's standard error after the job, and its tail is kept
-for crash records.
+Workers are forked from multiprocessing's fork server, as the guarded children of
+``harness.infra.child_process`` are (``start_context``: a clean single-threaded process
+that has imported numpy, numba and the audit code but started no numba or OpenMP thread
+pool, so forking it is safe where forking this process would not be), or started with
+``spawn`` where a load-time variable differs from the server's; they take the environment
+of the pool's process when they start. They are reused across jobs, so what start-up
+costs is paid once per worker, not per task. A worker's standard error goes to a file;
+what a job wrote there is passed on to the parent's standard error after the job, and its
+tail is kept for crash records.
 """
 
 from __future__ import annotations
 
 import contextlib
-import multiprocessing
 import os
 import shutil
 import signal
@@ -40,20 +43,30 @@ from typing import Any
 
 from harness.grid.runner.backend import OutcomeCallback
 from harness.grid.runner.jobs import Job, crash_outcome, execute
-from harness.infra.child_process import READY, die_with_parent, signal_description, stderr_tail
+from harness.infra.child_process import (
+    READY,
+    enter_child,
+    signal_description,
+    start_context,
+    stderr_tail,
+)
+
+#: The module a worker imports before it reports ready (the fork server preloads it).
+_WORKER_IMPORTS = "harness.audit.task_audit"
 
 
-def _worker_main(conn: Connection, stderr_path: str, parent: int) -> None:
+def _worker_main(conn: Connection, stderr_path: str, parent: int | None,
+                 environment: dict[str, str]) -> None:
     """Body of a worker process: receive job dicts, send outcomes, until None or EOF."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    die_with_parent(parent)
+    enter_child(parent, environment)
     fd = os.open(stderr_path, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o600)
     os.dup2(fd, 2)
     os.close(fd)
     import faulthandler
 
     faulthandler.enable(file=sys.stderr, all_threads=False)
-    import harness.audit.task_audit  # noqa: F401 - imports before the clock starts
+    import harness.audit.task_audit  # noqa: F401 - _WORKER_IMPORTS, before the clock starts
 
     conn.send(READY)
     while True:
@@ -97,10 +110,15 @@ class WorkerPool:
             raise ValueError(f"worker pool size must be >= 1, got {size}")
         self.size = int(size)
         self.echo_stderr = echo_stderr
-        self._context = multiprocessing.get_context("spawn")
+        self._context, self._forked = start_context(_WORKER_IMPORTS)
         self._idle: list[_Worker] = []
         self._dir: Path | None = None
         self._count = 0
+
+    @property
+    def start_method(self) -> str:
+        """``forkserver`` or ``spawn``: how this pool's workers start (module docstring)."""
+        return "forkserver" if self._forked else "spawn"
 
     # -- workers ---------------------------------------------------------------------
     def _start(self) -> _Worker:
@@ -112,7 +130,9 @@ class WorkerPool:
         parent_conn, child_conn = self._context.Pipe(duplex=True)
         process = self._context.Process(target=_worker_main,
                                         name=f"covaudit-worker-{self._count}",
-                                        args=(child_conn, str(path), os.getpid()),
+                                        args=(child_conn, str(path),
+                                              None if self._forked else os.getpid(),
+                                              dict(os.environ)),
                                         daemon=True)
         process.start()
         child_conn.close()
