@@ -1,7 +1,7 @@
 """Run one function in a child process, so that a native crash or a hang in it is reported.
 
 ``call_in_child(fn, *args, timeout=..., what=..., **kwargs)`` runs ``fn`` in a fresh
-``spawn`` process and returns its result or re-raises its exception here. When the child
+child process and returns its result or re-raises its exception here. When the child
 dies (os.abort, a segmentation fault inside a native library, os._exit, the out-of-memory
 killer) it raises ``ChildCrashed`` with the signal or exit status and the last lines the
 child wrote to standard error (faulthandler's report included); past ``timeout`` seconds
@@ -23,10 +23,10 @@ so when one of them differs from the server's, that child is started by ``spawn`
 every other variable is the caller's at the moment of the call, as with ``spawn``.
 
 Children die with their parent: on Linux each asks the kernel for SIGKILL when its parent
-(the caller, or the server, which exits with the caller) dies (``prctl(PR_SET_PDEATHSIG)``,
-prctl(2)), and everywhere a watchdog thread exits the child when its parent process
-changes (an orphan is re-parented). Children ignore SIGINT, so Ctrl-C reaches only the
-caller, which stops them.
+(the caller, or the server, which exits with the caller: ``enter_child``) dies
+(``prctl(PR_SET_PDEATHSIG)``, prctl(2)), and everywhere a watchdog thread exits the child
+when its parent process changes (an orphan is re-parented). Children ignore SIGINT, so
+Ctrl-C reaches only the caller, which stops them.
 
 Test hook: a child whose ``stage`` equals the environment variable
 ``COVAUDIT_TEST_CRASH_STAGE`` kills itself with SIGSEGV before calling ``fn``, so tests
@@ -189,9 +189,7 @@ _SERVER = _ForkServer()
 def start_context(module: str) -> tuple[Any, bool]:
     """The multiprocessing context a child starts from, and whether it is forked from the
     server (module docstring); ``module`` joins the server's preloaded modules when this
-    call starts the server. A forked child must apply the caller's environment itself and
-    take the server as the parent it dies with (``_child``; the grid's workers do the
-    same)."""
+    call starts the server. A child forked from it calls ``enter_child`` first."""
     if "forkserver" not in multiprocessing.get_all_start_methods():
         return multiprocessing.get_context("spawn"), False
     environment = _load_time_environment()
