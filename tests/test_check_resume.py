@@ -52,6 +52,15 @@ def _write_field(path: Path, *, n: int = 120, change: bool = False) -> Path:
     return path
 
 
+#: Starts ``python -m harness`` with SIGINT handled as in a fresh terminal (default
+#: disposition, not blocked), whatever the test process passes on: an ignored or blocked
+#: SIGINT is inherited across exec, and the Ctrl-C test must not depend on what an earlier
+#: test left in a long-lived pytest-xdist worker.
+_LAUNCH = ("import os, signal, sys; signal.signal(signal.SIGINT, signal.SIG_DFL); "
+           "signal.pthread_sigmask(signal.SIG_UNBLOCK, [signal.SIGINT]); "
+           "os.execv(sys.executable, [sys.executable, '-m', 'harness', *sys.argv[1:]])")
+
+
 def _check(workspace: Path, data: str, out: str, *, label: str,
            env: dict[str, str] | None = None, extra: tuple[str, ...] = ()
            ) -> tuple[subprocess.CompletedProcess, str]:
@@ -59,7 +68,7 @@ def _check(workspace: Path, data: str, out: str, *, label: str,
     the process and that file's text."""
     err = workspace / f"{label}.stderr"
     with open(err, "w", encoding="utf-8") as stream:
-        proc = subprocess.run([sys.executable, "-m", "harness", "check", data, *ARGS, *extra,
+        proc = subprocess.run([sys.executable, "-c", _LAUNCH, "check", data, *ARGS, *extra,
                                "--out", out], cwd=workspace,
                               env=dict(os.environ, OPENBLAS_NUM_THREADS="1", **(env or {})),
                               stdout=subprocess.PIPE, stderr=stream, text=True,

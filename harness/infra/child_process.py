@@ -95,12 +95,12 @@ def enter_child(parent: int | None, environment: dict[str, str]) -> None:
     if parent is None:
         from multiprocessing import forkserver
 
-        server = forkserver._forkserver  # type: ignore[attr-defined]
+        server = forkserver._forkserver
         alive = getattr(server, "_forkserver_alive_fd", None)
         if alive is not None:
             with contextlib.suppress(OSError):
                 os.close(alive)
-            server._forkserver_alive_fd = None
+            server._forkserver_alive_fd = None  # type: ignore[attr-defined]
     die_with_parent(os.getppid() if parent is None else parent)
     if os.environ != environment:
         os.environ.clear()
