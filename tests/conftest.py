@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import signal
+import warnings
+from collections.abc import Iterator
 from pathlib import Path
 
 import numpy as np
@@ -19,3 +22,25 @@ def plane_csv(tmp_path: Path) -> tuple[Path, pd.DataFrame]:
     path = tmp_path / "obs.csv"
     frame.to_csv(path, index=False)
     return path, frame
+
+
+@pytest.fixture(autouse=True)
+def _sigint_as_found(request: pytest.FixtureRequest) -> Iterator[None]:
+    """Every test leaves SIGINT as it found it: the handler, and whether it is blocked.
+
+    Processes a test starts inherit an ignored or blocked SIGINT across exec, and a
+    pytest-xdist worker runs many files in one process, so a change would decide the
+    Ctrl-C tests of later files. A change is undone here and named in a warning."""
+    can_mask = hasattr(signal, "pthread_sigmask")
+    handler = signal.getsignal(signal.SIGINT)
+    mask = signal.pthread_sigmask(signal.SIG_BLOCK, []) if can_mask else set()
+    yield
+    now = signal.getsignal(signal.SIGINT)
+    now_mask = signal.pthread_sigmask(signal.SIG_BLOCK, []) if can_mask else set()
+    if handler is not None:  # None: a handler not set from Python, nothing to restore
+        signal.signal(signal.SIGINT, handler)  # also undoes a change made below Python
+    if can_mask and now_mask != mask:
+        signal.pthread_sigmask(signal.SIG_SETMASK, mask)
+    if now is not handler or now_mask != mask:
+        warnings.warn(f"{request.node.nodeid} changed SIGINT handling (handler {now!r}, "
+                      f"blocked {sorted(now_mask)}); restored", stacklevel=1)
