@@ -26,10 +26,12 @@ from harness.check.frontier import (
     recommend_across,
     tie_p_value,
 )
-from harness.check.solver_timing import ScriptedStopwatch
+from harness.check.solver_timing import ScriptedStopwatch, time_fit_evaluations
 from harness.cli import main
 from harness.infra.data_files import load_observations
 from harness.infra.exit_codes import ExitCode
+from harness.model.kernels import make_kernel
+from harness.solvers.registry import resolve_solver
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLE = ROOT / "examples" / "jittered_solver"
@@ -100,6 +102,22 @@ def test_limit_ratio_takes_the_worst_limited_metric_and_refuses_nan():
     metrics["kriging_mean_sd"] = {"value": None, "threshold": 0.05}
     assert limit_ratio(metrics) == math.inf
     assert math.isnan(limit_ratio({}))
+
+
+def test_a_value_that_breaks_down_when_timed_gets_no_time_and_the_others_are_timed():
+    # HODLR at tol 0.5 loses positive definiteness on this smooth, nearly noise-free
+    # field (a CompressionBreakdownError, a LinAlgError); before, the breakdown escaped
+    # the timing stage and ended a whole check after its audits (found on 26,633 points)
+    rng = np.random.default_rng(0)
+    points, y = rng.random((600, 2)), rng.standard_normal(600)
+    kernel = make_kernel("matern52", {"variance": 1.0, "lengthscale": 0.5, "nugget": 1e-6})
+    broken, fine = time_fit_evaluations(points, y, kernel, mean="constant",
+                                        solver=resolve_solver("hodlr"), label="hodlr",
+                                        values=(0.5, 1e-8), options={"leaf_size": 64},
+                                        base_seed=0, repeats=2)
+    assert broken.repeats == () and math.isnan(broken.seconds)
+    assert broken.to_dict()["seconds"] is None
+    assert len(fine.repeats) == 2 and math.isfinite(fine.seconds)
 
 
 # --- end to end ----------------------------------------------------------------------

@@ -6,7 +6,10 @@ factorization at the fitted parameters, the log-likelihood and its score (Hutch+
 value one untimed warm-up call comes first (it carries first-call compilation and
 caches; its time is reported apart as ``first_call_seconds``, and its peak traced
 allocation as ``peak_bytes``), then ``repeats`` timed calls whose median is the point's
-time. Repeats are not solver seeds: every call uses the solver's first seed.
+time. Repeats are not solver seeds: every call uses the solver's first seed. A value
+whose warm-up call breaks down numerically (``harness.audit.solver_calls.is_breakdown``;
+its audit already says "unsafe: breakdown") gets no time and no repeats, and the other
+values are still timed; any other error is the solver's failure.
 
 The clock is injected (``Stopwatch``): ``ElapsedStopwatch`` reads ``time.perf_counter``;
 ``ScriptedStopwatch`` returns given durations, so tests know the timings exactly.
@@ -27,6 +30,7 @@ from typing import Any, Protocol, cast
 
 import numpy as np
 
+from harness.audit.solver_calls import is_breakdown
 from harness.audit.solver_seeds import solver_seed
 from harness.check.fit_engines import CompressedEngine
 from harness.model.kernels import Kernel
@@ -149,6 +153,13 @@ def time_fit_evaluations(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, m
         try:
             first = watch.measure(f"{label}@{value:g}", evaluate)
             _, traced_peak = tracemalloc.get_traced_memory()
+        except Exception as exc:
+            if not is_breakdown(exc):
+                raise
+            # a value whose factorization breaks down (its audit says "unsafe:
+            # breakdown") has no time; the other values are still timed
+            timings.append(PointTiming(repeats=(), first_call_seconds=math.nan, peak_bytes=0))
+            continue
         finally:
             tracemalloc.stop()
         timed = tuple(watch.measure(f"{label}@{value:g}", evaluate) for _ in range(repeats))
