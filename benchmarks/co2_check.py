@@ -17,6 +17,10 @@ sweep (``check --solver hodlr --solver vecchia``: the frontier across solver fam
 the results file also holds the frontier table (every solver's points with their verdict,
 time and errors), the pick across solvers and its statement.
 
+Each run starts with empty output and state folders; ``--resume`` keeps the state folder,
+so the check reuses the fit and the audits an interrupted or failed run saved (the results
+then say ``resumed`` and time this run alone).
+
 Run: ``python benchmarks/co2_check.py --json benchmarks/results/co2_check.json``, or
 ``python benchmarks/co2_check.py --solver hodlr --solver vecchia
 --json benchmarks/results/co2_frontier.json``
@@ -104,6 +108,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--unit-repeats", type=int, default=3)
     parser.add_argument("--solver", action="append", default=[],
                         help="repeatable: the solvers of the check (default: its default)")
+    parser.add_argument("--resume", action="store_true",
+                        help="keep the saved stages of an earlier run of the same command "
+                             "(the check reuses them and says so; the results then record "
+                             "resumed = true and this run's time only)")
     args = parser.parse_args(argv)
     command = [*COMMAND, *(part for name in args.solver for part in ("--solver", name))]
     info = machine()
@@ -112,9 +120,11 @@ def main(argv: list[str] | None = None) -> int:
     work = cache_dir() / "co2-check"
     data = write_data(work)
     out = work / "out"
-    # A measured check starts from nothing: no earlier output and no saved stages to resume.
-    for folder in (out, state_folder(out)):
-        shutil.rmtree(folder, ignore_errors=True)
+    # A measured check starts from nothing: no earlier output and no saved stages to
+    # resume, unless --resume asks to finish an interrupted or failed run.
+    shutil.rmtree(out, ignore_errors=True)
+    if not args.resume:
+        shutil.rmtree(state_folder(out), ignore_errors=True)
     argv_run = [sys.executable, "-m", "harness", *command, "--out", str(out)]
     start = time.perf_counter()
     proc = subprocess.Popen(argv_run, cwd=data.parent, stdout=subprocess.PIPE,
@@ -126,7 +136,8 @@ def main(argv: list[str] | None = None) -> int:
     largest = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
     print(stdout)
     print(stderr[-3000:], file=sys.stderr)
-    result: dict = {"command": "covaudit " + " ".join(command), "exit_code": proc.returncode,
+    result: dict = {"command": "covaudit " + " ".join(command), "resumed": args.resume,
+                    "exit_code": proc.returncode,
                     "seconds": seconds, "units": seconds / unit["seconds"],
                     "peak_rss_largest_process_gib": largest / 2**30,
                     "peak_rss_process_tree_gib": tree_peak / 2**30,
