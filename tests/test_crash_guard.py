@@ -97,6 +97,7 @@ def test_a_child_dies_with_a_killed_caller_and_so_does_the_fork_server(tmp_path)
     script.write_text(_ORPHAN_SCRIPT)
     caller = subprocess.Popen([sys.executable, str(script)], stdout=subprocess.PIPE,
                               text=True)
+    family: list = []
     try:
         child_pid = int(caller.stdout.readline())
         family = psutil.Process(caller.pid).children(recursive=True)
