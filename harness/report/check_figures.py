@@ -21,7 +21,7 @@ from matplotlib.ticker import NullFormatter
 
 from harness.check.check_records import CheckResult, ToleranceResult
 from harness.report.labels import metric_label
-from harness.report.style import THRESHOLD_STYLE, figure_rc
+from harness.report.style import THRESHOLD_STYLE, figure_rc, log_scale
 
 #: Marker of each verdict: shape and fill differ, so grey-scale prints keep them apart.
 VERDICT_MARKERS: dict[str, dict[str, Any]] = {
@@ -59,7 +59,7 @@ def _mark_recommended(ax: Axes, tol: float | None) -> None:
 
 
 def _log_x(ax: Axes, tolerances: Sequence[float]) -> None:
-    ax.set_xscale("log")
+    log_scale(ax, "x")
     if tolerances:
         # a factor 3 of margin, so a single tolerance still gets a proper axis
         ax.set_xlim(min(tolerances) / 3, max(tolerances) * 3)
@@ -146,7 +146,7 @@ def error_vs_tolerance(result: CheckResult) -> Figure | None:
                 ax.annotate(f"limit {limit:g}", xy=(0.01, limit),
                             xycoords=("axes fraction", "data"), ha="left", va="bottom",
                             fontsize=7)
-            ax.set_yscale("log")
+            log_scale(ax, "y")
             _knob_x(ax, result, tols + broken)
             _mark_broken(ax, broken)
             _mark_recommended(ax, result.recommended_value)

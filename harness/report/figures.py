@@ -21,7 +21,7 @@ from matplotlib.ticker import NullFormatter
 from harness.analysis.scaling_table import ScalingRow, solver_label
 from harness.audit.rule import Thresholds
 from harness.report.labels import RESULT_COLUMN_LABELS
-from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
+from harness.report.style import THRESHOLD_STYLE, figure_rc, log_scale, plain, series_style
 
 #: Each plotted column's label with its unit (one set, ``harness.report.labels``).
 METRIC_TITLES: dict[str, str] = RESULT_COLUMN_LABELS
@@ -65,12 +65,13 @@ def _threshold(ax: Axes, value: float, label: str) -> None:
 
 
 def _log_axes(ax: Axes, *, y: bool = True) -> None:
-    """Log scales; no minor x labels (the measured values are labelled instead), y keeps
-    matplotlib's default, which labels minor ticks only when the range is under a decade."""
-    ax.set_xscale("log")
+    """Log scales (``style.log_scale``); no minor x labels (the measured values are
+    labelled instead), y keeps matplotlib's minor labels, drawn only when the range is
+    under a decade."""
+    log_scale(ax, "x")
     ax.xaxis.set_minor_formatter(NullFormatter())
     if y:
-        ax.set_yscale("log")
+        log_scale(ax, "y")
 
 
 def _value_ticks(ax: Axes, values: object) -> None:
@@ -114,11 +115,11 @@ def accuracy_vs_tolerance(results: pd.DataFrame, *, thresholds: Thresholds) -> F
                     g = g.sort_values("tol")
                     ax.plot(g["tol"], g[metric], label=plain(f"{solver} n={int(n)}"),
                             markersize=4, **series_style(i).kwargs())
-                ax.set_yscale("log")
+                log_scale(ax, "y")
                 ax.yaxis.set_minor_formatter(NullFormatter())
             _threshold(ax, limit, label)
             _mark_failed(ax, failed)
-            ax.set_xscale("log")
+            log_scale(ax, "x")
             ax.xaxis.set_minor_formatter(NullFormatter())
             ax.set_xlabel(TOLERANCE_LABEL)
             ax.set_ylabel(METRIC_TITLES.get(metric, metric))

@@ -31,7 +31,7 @@ from harness.report.frontier_points import (
 )
 from harness.report.labels import metric_label
 from harness.report.number_text import compact
-from harness.report.style import THRESHOLD_STYLE, figure_rc, plain, series_style
+from harness.report.style import THRESHOLD_STYLE, figure_rc, log_scale, plain, series_style
 
 SAFE_SHADE: dict[str, Any] = {"color": "#009E73", "alpha": 0.12, "linewidth": 0}
 EXACT_STYLE: dict[str, Any] = {"color": "#000000", "linestyle": (0, (1, 2)),
@@ -152,7 +152,7 @@ def _panel(ax: Axes, result: CheckResult, name: str,
         times.extend(drawn.seconds)
     limit = limit_of(result.solvers, result.thresholds, name)
     label = metric_label(name).label
-    ax.set_yscale("log")
+    log_scale(ax, "y")
     bottom, top = _limits(errors + ([limit] if limit is not None else []) or [1.0])
     ax.set_ylim(bottom, top)
     if limit is not None:
@@ -239,7 +239,7 @@ def frontier_figure(result: CheckResult) -> FrontierFigure | None:
         for ax in axes:
             if exact_seconds is not None:
                 ax.axvline(exact_seconds, gid="exact", **EXACT_STYLE)
-        axes[0].set_xscale("log")
+        log_scale(axes[0], "x")
         axes[0].set_xlim(*_limits(times + ([exact_seconds] if exact_seconds else [])
                                   or [1.0]))
         axes[-1].set_xlabel(TIME_LABEL)

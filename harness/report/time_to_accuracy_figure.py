@@ -16,7 +16,7 @@ from matplotlib.ticker import NullFormatter
 from matplotlib.transforms import blended_transform_factory
 
 from harness.analysis.time_to_accuracy import AccuracySeries, TimeToAccuracy
-from harness.report.style import figure_rc, plain, series_style
+from harness.report.style import figure_rc, log_scale, plain, series_style
 from harness.report.time_to_accuracy_tables import not_reached_text, target_text
 
 X_LABEL = "problem size n (points)"
@@ -60,8 +60,8 @@ def time_to_accuracy_figure(result: TimeToAccuracy) -> Figure | None:
                         transform=top, linestyle="none", marker="^", markersize=6,
                         markerfacecolor="none", color=style.color, clip_on=False,
                         label="_not reached")
-        ax.set_xscale("log")
-        ax.set_yscale("log")
+        log_scale(ax, "x")
+        log_scale(ax, "y")
         ax.xaxis.set_minor_formatter(NullFormatter())
         if len(sizes) <= 8:
             ax.set_xticks(sizes, [f"{n:g}" for n in sizes])
