@@ -236,6 +236,9 @@ def test_unconverged_fit_is_a_top_level_warning_everywhere(tmp_path):
     assert data["fit_converged"] is False and data["warnings"]
     assert data["fit"]["converged"] is False
     assert all("unconverged estimate" in " ".join(r["reasons"]) for r in data["tolerances"])
+    # nothing is called safe at an unconverged estimate, so nothing is recommended
+    assert all(r["status"] != "safe" for r in data["tolerances"])
+    assert result.recommended_value is None
     assert "did not converge" in render_check_report(result)
 
 

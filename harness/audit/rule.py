@@ -55,7 +55,8 @@ SE_MULTIPLIER = 2.0
 #: tighter tolerance) is the stand-in and never the sole basis of ``safe``.
 REFERENCE_KINDS: tuple[str, ...] = ("dense", "statespace", "kronecker", "operator", "ladder")
 EXACT_REFERENCES: frozenset[str] = frozenset({"dense", "statespace", "kronecker", "operator"})
-UNCONVERGED_REASON = "measured at an unconverged estimate (the fit did not converge)"
+UNCONVERGED_REASON = ("measured at an unconverged estimate (the fit did not converge): "
+                      "never called safe there")
 LADDER_REASON = ("ladder reference only (the solver at a tighter tolerance): extra "
                  "evidence, never the sole basis of safe")
 
@@ -301,6 +302,8 @@ def tolerance_verdict(tol: float, per_seed: Sequence[Sequence[MetricJudgement]],
     required : sequence of str
         Limited metrics that must be present on every seed; a missing one is unresolved.
     fit_converged : bool
+        False makes a tolerance that would be safe unresolved, with
+        ``UNCONVERGED_REASON``.
     info : mapping, optional
         Further per-seed values (information only) whose spread is reported.
     """
@@ -340,6 +343,9 @@ def tolerance_verdict(tol: float, per_seed: Sequence[Sequence[MetricJudgement]],
         status = UNRESOLVED
         reasons.append(LADDER_REASON)
     if not fit_converged:
+        # a setting that passes at a point the fit has not reached is not shown safe at
+        # the maximum-likelihood estimate the user will use
+        status = UNRESOLVED if status == SAFE else status
         reasons.append(UNCONVERGED_REASON)
     spreads = {name: spread(name, [j.value for j in js]) for name, js in by_metric.items()
                if any(math.isfinite(j.value) for j in js)}

@@ -239,7 +239,8 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
         reason = "; ".join(fitted.fit.notes) if fitted.fit else ""
         warnings.append("the maximum-likelihood fit did not converge"
                         + (f" ({reason})" if reason else "")
-                        + ": every verdict was measured at an unconverged estimate")
+                        + ": every verdict was measured at an unconverged estimate, so "
+                        "none is called safe")
     kernel, fisher = fitted.kernel, fitted.fisher
     notes.extend(fitted.notes)
     se = standard_errors(kernel, fisher)

@@ -58,7 +58,9 @@ def summary(result: CheckResult) -> str:
                  + "; MLOE, MMOM: loss of prediction efficiency (see check.html's legend)")
     lines.append("")
     if not result.fit_converged:
-        lines.append("  every verdict was measured at an unconverged estimate")
+        lines.append("  every verdict was measured at an unconverged estimate, so none is "
+                     "safe: rerun with a larger --fit-time-budget, or fix the parameters "
+                     "(--fixed-params NAME=VALUE ...)")
     picked = result.recommended_value
     if picked is None:
         noun = "tolerance" if knob == "tol" else f"{knob} value"

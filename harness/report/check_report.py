@@ -116,10 +116,14 @@ def _knob_columns(result: CheckResult) -> dict[str, MetricLabel]:
 def no_pick_advice(result: CheckResult, values: str) -> str:
     """What to do when nothing is safe, and only what can be done: the exact computation
     only where the dense reference ran (within the memory budget); beyond it, tighter
-    values, and more probes when a verdict was unresolved."""
+    values, more probes when a verdict was unresolved, and a converged fit first when
+    the fit did not converge."""
     statuses = {r.status for r in result.tolerances}
     more = (" For the unresolved verdicts, more probes (--probes 64) shrink the standard "
             "errors." if "unresolved" in statuses else "")
+    if not result.fit_converged:
+        more += (" The fit did not converge, so no verdict can be safe: rerun with a larger "
+                 "--fit-time-budget, or fix the parameters (--fixed-params NAME=VALUE ...).")
     if result.reference == "dense":
         return f"Use the exact computation at this size, or audit tighter {values}s.{more}"
     return (f"At {result.n:,} points the exact computation is beyond the memory budget: "
