@@ -1,15 +1,26 @@
-"""Fixtures shared by several test modules."""
+"""Fixtures shared by several test modules, and the BLAS threads of a parallel run."""
 
 from __future__ import annotations
 
-import signal
-import warnings
-from collections.abc import Iterator
-from pathlib import Path
+import os
 
-import numpy as np
-import pandas as pd
-import pytest
+#: In a pytest-xdist worker, one BLAS thread, set before numpy loads and inherited by every
+#: process a test starts (``check``, ``run``, their children): the default run has one
+#: worker per core, and a threaded BLAS in each would put two threads on every core, whose
+#: spinning waits cost time and decide nothing. A test that needs other thread counts sets
+#: them itself; ``-n 0`` keeps the machine's defaults.
+if os.environ.get("PYTEST_XDIST_WORKER"):
+    for _name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(_name, "1")
+
+import signal  # noqa: E402
+import warnings  # noqa: E402
+from collections.abc import Iterator  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import pytest  # noqa: E402
 
 
 @pytest.fixture
