@@ -4,8 +4,9 @@ The maximum-likelihood fit follows the plan of ``harness.check.fit_plan`` (n and
 memory budget decide, never a timing): the dense exact fit (screened starts, L-BFGS-B,
 Fisher scoring polish, ``harness.check.fitting``) up to ``dense_fit_max_n`` within the
 budget; beyond it the at-scale fit (``harness.check.vecchia_fit``): Fisher scoring on the
-deterministic Vecchia likelihood to a Newton-decrement threshold, then at most two steps
-with the exact score toward the exact MLE where the dense score fits the budget. A kernel
+deterministic Vecchia likelihood to a Newton-decrement threshold, then at most
+``vecchia_fit.REFINE_MAX_STEPS`` steps with the exact score toward the exact MLE where the
+dense score fits the budget. A kernel
 without a compiled Vecchia form falls back to Fisher scoring with the compressed solver's
 stochastic score. ``fit_time_budget`` caps the fit stage. Or the parameters are given
 (``fixed_params``).
