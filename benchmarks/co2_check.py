@@ -141,7 +141,8 @@ def main(argv: list[str] | None = None) -> int:
                     "seconds": seconds, "units": seconds / unit["seconds"],
                     "peak_rss_largest_process_gib": largest / 2**30,
                     "peak_rss_process_tree_gib": tree_peak / 2**30,
-                    "stderr_tail": stderr.strip().splitlines()[-12:]}
+                    "stderr_tail": [line.replace(str(work), "<cache>/co2-check")
+                                    for line in stderr.strip().splitlines()[-12:]]}
     report = out / "check.json"
     if report.is_file():
         check = json.loads(report.read_text())

@@ -239,7 +239,11 @@ def test_unconverged_fit_is_a_top_level_warning_everywhere(tmp_path):
     # nothing is called safe at an unconverged estimate, so nothing is recommended
     assert all(r["status"] != "safe" for r in data["tolerances"])
     assert result.recommended_value is None
-    assert "did not converge" in render_check_report(result)
+    html = render_check_report(result)
+    assert "did not converge" in html
+    # the way to a converged fit, in the terminal and in the report's warning
+    from harness.check.check_records import UNCONVERGED_REMEDY
+    assert UNCONVERGED_REMEDY in check_cli.summary(result) and UNCONVERGED_REMEDY in html
 
 
 def test_reference_option(tmp_path, capsys):

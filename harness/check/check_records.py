@@ -9,7 +9,13 @@ from typing import Any
 from harness.audit.metric_names import canonical_name
 from harness.audit.metric_values import MetricValue, _num
 
-__all__ = ["CheckResult", "MetricValue", "RefitResult", "ToleranceResult"]
+__all__ = ["UNCONVERGED_REMEDY", "CheckResult", "MetricValue", "RefitResult",
+           "ToleranceResult"]
+
+#: What to do when the fit did not converge (``CheckResult.fit_converged`` is False, so no
+#: verdict is safe); the terminal, the report's warning and its advice all say it.
+UNCONVERGED_REMEDY = ("rerun with a larger --fit-time-budget, or fix the parameters "
+                      "(--fixed-params NAME=VALUE ...)")
 
 
 @dataclass(frozen=True)

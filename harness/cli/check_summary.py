@@ -8,7 +8,7 @@ import math
 from typing import Any
 
 from harness.audit.rule import SOLVER_FAILED
-from harness.check.check_records import CheckResult
+from harness.check.check_records import UNCONVERGED_REMEDY, CheckResult
 from harness.cli.frontier_summary import frontier_lines
 from harness.report.condense import shorten
 from harness.report.labels import metric_label
@@ -59,8 +59,7 @@ def summary(result: CheckResult) -> str:
     lines.append("")
     if not result.fit_converged:
         lines.append("  every verdict was measured at an unconverged estimate, so none is "
-                     "safe: rerun with a larger --fit-time-budget, or fix the parameters "
-                     "(--fixed-params NAME=VALUE ...)")
+                     f"safe: {UNCONVERGED_REMEDY}")
     picked = result.recommended_value
     if picked is None:
         noun = "tolerance" if knob == "tol" else f"{knob} value"

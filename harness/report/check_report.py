@@ -25,7 +25,7 @@ import jinja2
 import numpy as np
 
 from harness.audit.verdict import COMMON_PRACTICE
-from harness.check.check_records import CheckResult, ToleranceResult
+from harness.check.check_records import UNCONVERGED_REMEDY, CheckResult, ToleranceResult
 from harness.report import check_figures
 from harness.report.condense import collapse_notes, per_seed_failures
 from harness.report.frontier_figure import frontier_figure
@@ -122,8 +122,7 @@ def no_pick_advice(result: CheckResult, values: str) -> str:
     more = (" For the unresolved verdicts, more probes (--probes 64) shrink the standard "
             "errors." if "unresolved" in statuses else "")
     if not result.fit_converged:
-        more += (" The fit did not converge, so no verdict can be safe: rerun with a larger "
-                 "--fit-time-budget, or fix the parameters (--fixed-params NAME=VALUE ...).")
+        more += f" The fit did not converge, so no verdict can be safe: {UNCONVERGED_REMEDY}."
     if result.reference == "dense":
         return f"Use the exact computation at this size, or audit tighter {values}s.{more}"
     return (f"At {result.n:,} points the exact computation is beyond the memory budget: "
@@ -261,6 +260,7 @@ def render_check_report(result: CheckResult, *, points: np.ndarray | None = None
             result, result.refit.tol if result.refit.knob_value is None
             else result.refit.knob_value),
         terms=TERMS, practice=COMMON_PRACTICE, notes=notes,
+        unconverged_remedy=UNCONVERGED_REMEDY,
         coord_units=given_units, distance_units=distance_units,
         param_units=parameter_units(result, distance_units), value_units=VALUE_UNITS,
         figures={k: (data_uri(f) if f is not None else "") for k, f in figures.items()},
