@@ -73,8 +73,10 @@ order = ["dense"]
     return case
 
 
-def _check_args() -> list[str]:
-    return ["check", str(DATA), "--coords", "east,north", "--value", "value",
+def _check_args(out: Path) -> list[str]:
+    """The check of the same data and settings, writing into ``out`` (a test folder,
+    never the default ``reports/`` of the working directory)."""
+    return ["check", str(DATA), "--out", str(out), "--coords", "east,north", "--value", "value",
             "--kernel", "matern32", "--params",
             *(f"{k}={v}" for k, v in PARAMS.items()),
             "--tolerances", repr(TOL), "--seed", str(SEED), "--holdout", str(HOLDOUT),
@@ -98,7 +100,7 @@ def _judged(entry: dict) -> dict:
                                          "status")} for s in entry["seeds"]]}
 
 
-def _check_single_threaded(monkeypatch) -> int:
+def _check_single_threaded(monkeypatch, out: Path) -> int:
     """``check`` with one BLAS and numba thread, here and in its dense child, as a ``run``
     worker audits (``limited_threads(1)``): a threaded BLAS sums in another order, which
     moves the last digits."""
@@ -107,7 +109,7 @@ def _check_single_threaded(monkeypatch) -> int:
     for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
         monkeypatch.setenv(name, "1")
     with limited_threads(1):
-        return main(_check_args())
+        return main(_check_args(out))
 
 
 def test_run_and_check_give_identical_metrics_and_verdicts(tmp_path, capsys, monkeypatch):
@@ -117,7 +119,7 @@ def test_run_and_check_give_identical_metrics_and_verdicts(tmp_path, capsys, mon
     run_entry = record["result"]["audit"]
     capsys.readouterr()
 
-    code = _check_single_threaded(monkeypatch)
+    code = _check_single_threaded(monkeypatch, tmp_path / "check")
     check = json.loads(capsys.readouterr().out)
     (check_entry,) = check["tolerances"]
     assert code in (0, 1)
@@ -151,7 +153,7 @@ def test_both_verbs_call_the_engine_entry(tmp_path, monkeypatch, capsys):
         return original(data, solver, tolerances, reference, **kwargs)
 
     monkeypatch.setattr(engine, "audit_tolerances", spy)
-    assert main(_check_args()) in (0, 1)
+    assert main(_check_args(tmp_path / "check")) in (0, 1)
     capsys.readouterr()
     assert calls == [(TOL,)]
 
