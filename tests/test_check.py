@@ -283,18 +283,22 @@ def test_operator_reference_agrees_with_dense_within_its_uncertainty(tmp_path):
 
 
 def test_beyond_the_memory_budget_auto_uses_the_operator_with_ses(tmp_path, capsys):
-    # Issue 10's 60,000-point case at small n: a budget too small for the dense
-    # reference makes auto choose the exact operator; every tolerance gets a verdict
-    # with the reference's uncertainty in the JSON and the HTML report.
+    # Issue 10's 60,000-point case at small n: the exact operator reference gives every
+    # tolerance a verdict with the reference's uncertainty in the JSON and the HTML
+    # report. A budget too small for the dense reference makes auto choose it (the plan
+    # says so); at n = 150 that budget is also too small for the operator's HODLR
+    # preconditioners (the cost plan refuses it, tests/test_check_plan.py), so the check
+    # itself runs with --reference operator.
     path = _field_file(tmp_path, n=150)
     out = tmp_path / "o"
-    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-2,1e-8",
-                 *FIXED, "--memory-budget", "0.0005", "--solver-seeds", "1", "--json",
-                 "--out", str(out), "--no-refit"])
+    base = [str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-2,1e-8",
+            *FIXED, "--solver-seeds", "1", "--out", str(out), "--no-refit"]
+    assert _run([*base, "--memory-budget", "0.0005", "--plan-only"]) == 2
+    assert "plan: reference by metric: loglik operator" in capsys.readouterr().out
+    code = _run([*base, "--reference", "operator", "--json"])
     result = json.loads(capsys.readouterr().out)
     assert code in (0, 1)
     assert result["reference"] == "operator"
-    # 0.5 MiB: too small for the dense reference's squares, enough for operator tiles.
     for row in result["tolerances"]:
         assert row["status"] in ("safe", "unsafe", "unresolved")
         assert row["reference"] == "operator"

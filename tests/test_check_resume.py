@@ -164,7 +164,7 @@ def test_progress_to_a_file_is_timestamped_lines(runs):
 
 def test_a_warning_is_printed_once(tmp_path):
     _write_field(tmp_path / "field.csv")
-    # --reference ladder always warns (harness.check.pipeline._reference_kind)
+    # --reference ladder always warns (harness.check.reference_kind.reference_kind)
     proc, err = _check(tmp_path, "field.csv", "ladder", label="ladder",
                        extra=("--reference", "ladder", "--params", "variance=1",
                               "lengthscale=0.5", "nugget=0.01"))

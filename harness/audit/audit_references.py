@@ -319,6 +319,16 @@ def _kriging_counts(data: AuditData) -> dict[str, object]:
 METRIC_GROUPS: tuple[str, ...] = ("loglik", "score", "kriging")
 
 
+def metric_kinds(kind: str) -> dict[str, str | None]:
+    """The reference kind that will serve each metric group (``METRIC_GROUPS``) once a
+    reference of ``kind`` is built, as ``reference_by_metric`` then reports it: ``kind``
+    for all three, except kriging against the Kronecker reference, which offers none at
+    held-out points (None: not measured; ``StructuredReference``). For a plan made
+    before any reference is built."""
+    return {group: None if (group == "kriging" and kind == "kronecker") else kind
+            for group in METRIC_GROUPS}
+
+
 def reference_by_metric(reference: PairedReference | ValueReference, data: AuditData
                         ) -> dict[str, dict[str, object]]:
     """Which reference served which metric group (``METRIC_GROUPS``), each with its

@@ -158,6 +158,9 @@ class CheckResult:
     solvers: tuple[dict[str, Any], ...] = ()
     #: The recommendation across solvers (``harness.check.frontier.FrontierPick``).
     frontier: dict[str, Any] = field(default_factory=dict)
+    #: The cost plan printed before any work (``harness.check.cost_plan.CostPlan.to_dict``):
+    #: reference per metric, fit plan, predicted peak memory and seconds per stage.
+    plan: dict[str, Any] | None = None
 
     @property
     def knob_name(self) -> str:
@@ -191,4 +194,5 @@ class CheckResult:
             "reference_by_metric": self.reference_by_metric,
             "solver_failures": list(self.solver_failures),
             "solvers": list(self.solvers), "frontier": self.frontier,
+            "plan": self.plan,
         }

@@ -40,7 +40,6 @@ from harness.audit import engine as audit_engine
 from harness.audit.audit_references import (
     OperatorReference,
     build_reference,
-    operator_available,
     reference_by_metric,
 )
 from harness.audit.audit_sampling import (
@@ -58,12 +57,6 @@ from harness.audit.engine import (
     ValueReference,
 )
 from harness.audit.operator_preconditioner import PreconditionerSpec
-from harness.audit.reference_choice import (
-    AUTO_ORDER,
-    NoReference,
-    ReferenceProblem,
-    select_reference,
-)
 from harness.audit.sides import rademacher
 from harness.audit.solver_trial import SolverFailed
 from harness.check.check_options import (
@@ -86,6 +79,7 @@ from harness.check.frontier_table import (
     timing_repeats,
 )
 from harness.check.ladder_growth import subsample_growth, with_growth
+from harness.check.reference_kind import reference_kind
 from harness.check.refit import isolated_refit, refit_with_solver
 from harness.check.solver_audit import SolverAudit, audit_solver, trial_before_fit
 from harness.check.solver_lineup import line_up
@@ -140,41 +134,6 @@ def variance_subset(m: int, options: CheckOptions) -> np.ndarray:
         return variance_positions(m, options.variance_points, seed=options.seed)
     except HoldoutSizeError as exc:
         raise _option_error(exc) from None
-
-
-def _reference_kind(options: CheckOptions, points: np.ndarray, kernel: Kernel
-                    ) -> tuple[str, list[str]]:
-    """The reference kind to use (``harness.audit.reference_choice``, the selector of
-    ``run`` too) and warnings about the choice."""
-    if options.reference not in REFERENCE_CHOICES:
-        raise CheckError(f"--reference {options.reference!r}: choose one of "
-                         f"{', '.join(REFERENCE_CHOICES)}")
-    n = int(points.shape[0])
-    if options.reference == "ladder":
-        return "ladder", ["--reference ladder: the ladder is extra evidence only, so no "
-                          "verdict can be better than unresolved"]
-    problem = ReferenceProblem(n=n, d=int(points.shape[1]), kernel=kernel,
-                               memory_budget=options.memory_budget,
-                               operator_installed=operator_available())
-    allowed = AUTO_ORDER if options.reference == "auto" else (options.reference,)
-    try:
-        return select_reference(problem, allowed=allowed).kind, []
-    except NoReference as exc:
-        if options.reference == "dense":
-            raise CheckError(f"--reference dense: n = {n:,} is beyond the dense memory "
-                             "budget; use --reference auto, operator or ladder, or raise "
-                             "--memory-budget") from None
-        if options.reference == "operator":
-            raise CheckError("--reference operator: the exact operator reference "
-                             "(harness.references.operator) is not available in this "
-                             "installation yet; use --reference dense (within the "
-                             "memory budget) or ladder") from None
-        if options.reference != "auto":
-            raise CheckError(f"--reference {options.reference}: "
-                             + "; ".join(exc.declined)) from None
-    return "ladder", [f"n = {n:,} is beyond the dense memory budget and no exact structured "
-                      "or operator reference applies: the tolerance ladder is the only "
-                      "reference, so no verdict can be better than unresolved"]
 
 
 def _validate(options: CheckOptions) -> None:
@@ -244,7 +203,7 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     kernel, fisher = fitted.kernel, fitted.fisher
     notes.extend(fitted.notes)
     se = standard_errors(kernel, fisher)
-    kind, ref_warnings = _reference_kind(options, x, kernel)
+    kind, ref_warnings = reference_kind(options, x, kernel)
     first = lineup.solvers[0]
     if kind == "ladder" and (several or not first.knob.is_tol):
         raise CheckError("--reference: the ladder reference runs the solver at tol / "

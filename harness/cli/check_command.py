@@ -13,7 +13,9 @@ one knob value or more, or in its trial before the fit).
 from __future__ import annotations
 
 import argparse
+import json
 import sys
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -22,6 +24,7 @@ from harness.audit.engine import LADDER_FACTOR
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.audit.solver_trial import SolverFailed
 from harness.check import CheckDataError, CheckError, run_check, validate
+from harness.check.cost_plan import budget_refusal, plan_check
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
 from harness.check.solver_lineup import line_up
@@ -39,6 +42,7 @@ from harness.cli.flag_types import (
     positive_int,
 )
 from harness.cli.params import ParamSyntaxError
+from harness.cli.plan_summary import plan_lines
 from harness.infra.child_process import StageCrashed
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode, combine
@@ -179,6 +183,11 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--out", default=None, help="folder for check.json and check.html "
                                                "(default reports/check-<data file stem>/)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
+    p.add_argument("--plan-only", action="store_true",
+                   help="print the cost plan (reference per metric, fit plan, predicted "
+                        "peak memory and time per stage, from a calibration of a few "
+                        "seconds) and exit 0 without fitting or auditing; with --json the "
+                        "plan as one JSON object")
     p.add_argument("--seed", type=nonnegative_int("--seed"), default=0,
                    help="seed of holdout, pilot and probes")
 
@@ -196,7 +205,19 @@ def run(args: argparse.Namespace) -> int:
                                 drop_missing=args.drop_missing)
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
-        steps = sum(len(s.values) for s in line_up(options, data.n).solvers)
+        lineup = line_up(options, data.n)
+        plan = plan_check(data.points, data.values, options, lineup=lineup)
+        for plan_line in plan_lines(plan):
+            print(plan_line, file=sys.stderr if args.json else sys.stdout)
+        over_budget = budget_refusal(plan, data.points, data.values, options, lineup=lineup)
+        if over_budget is not None:
+            print(f"covaudit check: error: {over_budget}", file=sys.stderr)
+            return ExitCode.ERROR
+        if getattr(args, "plan_only", False):
+            if args.json:
+                print(json.dumps(plan.to_dict(), indent=2))
+            return ExitCode.OK
+        steps = sum(len(s.values) for s in lineup.solvers)
         progress = CheckProgress(tolerances=steps, refit=options.refit,
                                  enabled=progress_enabled(json_output=args.json))
         reading = {"coords": coords, "value": args.value, "coord_system": args.coord_system,
@@ -212,6 +233,7 @@ def run(args: argparse.Namespace) -> int:
             progress.finish()
         finally:
             progress.close()
+        result = replace(result, plan=plan.to_dict())
         write_outputs(result, out, points=data.points, coord_units=coord_units,
                       holdout=holdout_indices(
             data.n, fraction=args.holdout, seed=args.seed, cap=args.holdout_points))

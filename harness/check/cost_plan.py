@@ -1,0 +1,541 @@
+"""A check's cost plan, made before any work: the reference of each metric, the fit plan,
+the predicted peak memory and the predicted time of each stage.
+
+The plan reuses the check's own choices, never a copy of them: the reference kind from
+``harness.check.reference_kind`` (the selector of ``check`` and ``run``) and the metric
+groups it serves from ``harness.audit.audit_references.metric_kinds``; the fit from
+``harness.check.fit_plan.plan_fit``; the holdout and variance counts from
+``harness.audit.audit_sampling``. Times come from the same-run rates of
+``harness.check.plan_calibration`` and are stated in its unit, one dpotrf at n = 8,192.
+
+Memory (bytes; 8 per double; n points in d dimensions, p kernel parameters, k probes,
+m held-out points, t = n - m conditioning points, F(n) a solver's ``nbytes`` at n from
+its ``SolverRate``). The stages run one after the other, so the peak is the resident
+base plus the largest stage:
+
+- base: the points, the values and the probes, 8 n (d + 1 + k);
+- fit: dense, ``dense_bytes_needed(n, score, fisher, p)`` (``harness.linalg.dense_budget``,
+  the model the fit plan itself checks); Vecchia, the larger of the pilot's dense fit at
+  min(``pilot_n``, n), the exact-score refinement ``dense_bytes_needed(n, score)`` when
+  it fits, and the Vecchia factor, 8 n m (p + 2) for m = ``FIT_NEIGHBOURS`` (values,
+  neighbour indices and p derivative factors, O(n m) numbers each; the pilot is an
+  L-BFGS-B fit with the score, no Fisher information); compressed, the first built-in
+  solver's factor at its tightest value with the score's arrays (the fit itself uses
+  HODLR at the tightest tolerance, so this is a stand-in);
+- reference: dense, ``dense_bytes_needed(n, score)`` (the selector's model); operator,
+  the preconditioner of all points and of the conditioning points, both alive at once
+  (``audit_references.OperatorReference``), plus one block product of max(64, k)
+  columns with p outputs, 8 n (1 + p) max(64, k), and a tile per thread,
+  8 x 512^2 (``harness.references.operator.schedule.column_chunk``); state space, 8 n 32
+  (a state of at most 3 and its covariance, filter and smoother: covaudit's bound);
+  Kronecker, 8 n 8; ladder, the solver at all points and one conditioning-point factor
+  kept per knob value (``LadderReference`` caches its sides);
+- one audit (``harness.audit.engine``): the larger of F(n) with the score's arrays,
+  8 n (p (2k + 1) + k + 1) (``harness.audit.sides.evaluate_side``: the derivative
+  products, their solves and the stacked right-hand sides), plus against the dense
+  reference the exact KL divergence's two n x 256 blocks, and F(t) with three t x 64
+  kriging blocks (``harness.model.cross_tiles.TILE_COLUMNS``: no n x m array is formed,
+  so the caps of ``--holdout-points`` and ``--variance-points`` change time, not memory);
+- timing and refit: F(n) with the score's arrays; report: the points and the holdout
+  for the map, 8 n (d + 4).
+
+Time (seconds; U the unit, C(n) = U (n / 8,192)^3 one dpotrf, A kernel entries per
+second, R = (8,192^3 / 3) / U the dense flop rate; Golub and Van Loan, *Matrix
+Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
+
+- a dense evaluation with the score: 3 C(n) + (1 + p) n^2 / A; with the Fisher
+  information 6 p C(n) more (2 p n^3 flops);
+- fit: dense, ``DENSE_FIT_SCORE_EVALUATIONS`` evaluations with the score and
+  ``DENSE_FIT_FISHER_EVALUATIONS`` with the Fisher information (``fit_plan``'s count);
+  Vecchia, the pilot's dense fit, ``fit_max_steps`` Vecchia passes of n m^3 / 3 flops
+  plus n m^2 kernel entries, and ``REFINE_MAX_STEPS`` exact-score evaluations; each
+  capped by ``--fit-time-budget``;
+- reference: dense, two factorizations (all points, conditioning points) with their
+  certificates (an L L' product of n^3 / 3 flops each) and the derivative products,
+  p n^2 / A + 2 p n^2 (k + 1) / R; operator, the preconditioners plus
+  ``estimate_operator_seconds`` (``harness.references.operator.product_cost``) for the
+  log-likelihood and score, and (10 (1 + v)) column products of t^2 entries for kriging;
+- one audit: the solver's factorization at n and at t (at its tightest knob value, so
+  an upper estimate for the looser ones) and its solves with p (2k + 1) + 1 + 2 v
+  right-hand sides, plus m t cross-covariance entries and, against the dense reference,
+  the exact KL divergence's n^2 entries and n solves;
+- timing: (repeats + 1) factorizations and score solves per knob value; refit:
+  ``fit_max_steps`` + 1 of them; report: ``REPORT_UNITS`` units.
+
+A plugin's cost is not predicted (it is never called outside its child process) and
+the plan says so; its stages count as unknown in the totals.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from typing import Any
+
+import numpy as np
+
+from harness.audit.audit_references import metric_kinds
+from harness.audit.audit_sampling import HoldoutSizeError, holdout_size, variance_positions
+from harness.audit.operator_preconditioner import HODLR_TOL, PILOT_CANDIDATES
+from harness.audit.solver_seeds import seed_option
+from harness.check.check_options import CheckError, CheckOptions
+from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, plan_fit
+from harness.check.fit_stage import model_template
+from harness.check.frontier_table import timing_repeats
+from harness.check.plan_calibration import Calibration, SolverRate, calibrate
+from harness.check.plugin_guard import trial_kernel
+from harness.check.reference_kind import reference_kind
+from harness.check.solver_lineup import LinedUpSolver, Lineup, line_up
+from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_MAX_STEPS
+from harness.linalg.dense_budget import default_memory_budget, dense_bytes_needed
+from harness.model.mean import design_matrix
+from harness.references.operator import estimate_operator_seconds
+from harness.references.operator.schedule import DEFAULT_TILE
+from harness.solvers.registry import resolve_solver
+
+#: Dense evaluations of the dense fit: about 40 with the score and a few with the Fisher
+#: information (``harness.check.fit_plan``, the comment on ``DENSE_FIT_MAX_N``).
+DENSE_FIT_SCORE_EVALUATIONS = 40
+DENSE_FIT_FISHER_EVALUATIONS = 3
+#: The check report in units: 4.45 s against a same-run unit of 10.44 s for a 300-point,
+#: two-solver check (``benchmarks/results/figure_drawing.json``, report.covaudit).
+REPORT_UNITS = 0.43
+#: Seconds per point of the state-space reference (filter, score and smoother): covaudit's
+#: estimate, not measured here (O(n); it never decides a plan).
+STATESPACE_SECONDS_PER_POINT = 1e-4
+#: Columns of the exact KL divergence's blocks (``harness.audit.metrics.kl_divergence``).
+KL_BLOCK = 256
+#: Right-hand sides of one kriging block (``harness.model.cross_tiles.TILE_COLUMNS``).
+KRIGING_BLOCK = 64
+#: Probes of the value references' Hutch++ score (``audit_references.build_reference``).
+VALUE_PROBES = 64
+#: CG steps of one operator solve assumed by ``product_cost`` (its default).
+OPERATOR_STEPS = 8
+STAGES: tuple[str, ...] = ("fit", "reference", "audits", "timing", "refit", "report")
+
+
+@dataclass(frozen=True)
+class StagePlan:
+    """One stage's predicted seconds and peak bytes (None: not predicted, ``detail``
+    says why). ``solver``, ``values`` and ``seeds`` describe an audit stage."""
+
+    stage: str
+    seconds: float | None
+    peak_bytes: int | None
+    detail: str
+    solver: str | None = None
+    values: int = 0
+    seeds: int = 0
+
+    def to_dict(self, unit_seconds: float) -> dict[str, Any]:
+        out: dict[str, Any] = {
+            "stage": self.stage, "seconds": self.seconds,
+            "units": None if self.seconds is None else self.seconds / unit_seconds,
+            "peak_bytes": self.peak_bytes, "detail": self.detail}
+        if self.solver is not None:
+            out |= {"solver": self.solver, "knob_values": self.values, "seeds": self.seeds,
+                    "audits": self.values * self.seeds}
+        return out
+
+
+@dataclass(frozen=True)
+class CostPlan:
+    """What a check will do and what it will cost (module docstring)."""
+
+    n: int
+    d: int
+    n_params: int
+    reference: str
+    reference_warnings: tuple[str, ...]
+    reference_by_metric: Mapping[str, str | None]
+    n_holdout: int
+    n_variance_points: int
+    fit: FitPlan | None
+    stages: tuple[StagePlan, ...]
+    base_bytes: int
+    memory_budget: int
+    calibration: Calibration
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+    @property
+    def peak_stage(self) -> StagePlan:
+        return max(self.stages, key=lambda s: s.peak_bytes or 0)
+
+    @property
+    def peak_bytes(self) -> int:
+        return self.base_bytes + int(self.peak_stage.peak_bytes or 0)
+
+    @property
+    def fits_budget(self) -> bool:
+        return self.peak_bytes <= self.memory_budget
+
+    @property
+    def total_seconds(self) -> float:
+        """The sum of the predicted stages (unknown ones count 0; ``unknown`` says so)."""
+        return float(sum(s.seconds or 0.0 for s in self.stages))
+
+    @property
+    def unknown(self) -> tuple[str, ...]:
+        return tuple(s.stage + (f" {s.solver}" if s.solver else "") for s in self.stages
+                     if s.seconds is None)
+
+    def to_dict(self) -> dict[str, Any]:
+        unit = self.calibration.unit_seconds
+        return {
+            "n": self.n, "d": self.d, "n_params": self.n_params,
+            "reference": self.reference,
+            "reference_by_metric": {k: {"kind": v} for k, v in
+                                    self.reference_by_metric.items()},
+            "reference_warnings": list(self.reference_warnings),
+            "n_holdout": self.n_holdout, "n_variance_points": self.n_variance_points,
+            "fit": None if self.fit is None else self.fit.to_dict(),
+            "stages": [s.to_dict(unit) for s in self.stages],
+            "base_bytes": self.base_bytes, "peak_bytes": self.peak_bytes,
+            "peak_stage": self.peak_stage.stage, "memory_budget_bytes": self.memory_budget,
+            "fits_budget": self.fits_budget, "total_seconds": self.total_seconds,
+            "total_units": self.total_seconds / unit, "not_predicted": list(self.unknown),
+            "calibration": self.calibration.to_dict(), "notes": list(self.notes)}
+
+
+@dataclass(frozen=True)
+class _Sizes:
+    n: int
+    d: int
+    p: int
+    k: int
+    m: int
+    v: int
+    mean_columns: int
+
+    @property
+    def t(self) -> int:
+        return self.n - self.m
+
+
+def _cholesky(cal: Calibration, n: int) -> float:
+    return cal.cholesky_seconds(n)
+
+
+def _flop_seconds(cal: Calibration, flops: float) -> float:
+    """Seconds of ``flops`` dense flops at the unit's rate, 8,192^3 / 3 flops per unit."""
+    return flops / (8192.0 ** 3 / 3.0) * cal.unit_seconds
+
+
+def _dense_evaluation(cal: Calibration, n: int, p: int, *, fisher: bool) -> float:
+    seconds = 3 * _cholesky(cal, n) + (1 + p) * n * n / cal.assembly_entries_per_second
+    return seconds + (6 * p * _cholesky(cal, n) if fisher else 0.0)
+
+
+def _score_bytes(n: int, p: int, k: int) -> int:
+    return 8 * n * (p * (2 * k + 1) + k + 1)
+
+
+def _budget(options: CheckOptions) -> int:
+    return (default_memory_budget() if options.memory_budget is None
+            else int(options.memory_budget))
+
+
+def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calibration,
+               tight: SolverRate | None) -> StagePlan:
+    budget = options.fit_time_budget
+    if fit is None and tight is not None and dense_bytes_needed(
+            s.n, fisher=True, n_params=s.p) > _budget(options):
+        return StagePlan("fit", tight.seconds_at(s.n) + tight.solve_seconds_at(
+            s.n, s.p * (2 * s.k + 1) + 1), tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
+            "fixed parameters: the Fisher information by Hutch++ at the tightest tolerance")
+    if fit is None:  # --fixed-params: the dense Fisher information at them
+        return StagePlan("fit", _dense_evaluation(cal, s.n, s.p, fisher=True),
+                         dense_bytes_needed(s.n, fisher=True, n_params=s.p),
+                         "fixed parameters: the dense Fisher information at them")
+    if fit.engine == "dense":
+        seconds = (DENSE_FIT_SCORE_EVALUATIONS * _dense_evaluation(cal, s.n, s.p, fisher=False)
+                   + DENSE_FIT_FISHER_EVALUATIONS * _dense_evaluation(cal, s.n, s.p,
+                                                                      fisher=True))
+        return StagePlan("fit", min(seconds, budget),
+                         dense_bytes_needed(s.n, score=True, fisher=True, n_params=s.p),
+                         f"dense fit, about {DENSE_FIT_SCORE_EVALUATIONS} evaluations with "
+                         f"the score and {DENSE_FIT_FISHER_EVALUATIONS} with the Fisher "
+                         f"information, at most --fit-time-budget {budget:g} s")
+    if fit.engine == "vecchia":
+        pilot = min(options.pilot_n, s.n)
+        m = FIT_NEIGHBOURS
+        passes = options.fit_max_steps * (
+            _flop_seconds(cal, s.n * m ** 3 / 3.0)
+            + s.n * m * m / cal.assembly_entries_per_second)
+        refine = (REFINE_MAX_STEPS * _dense_evaluation(cal, s.n, s.p, fisher=False)
+                  if fit.exact_score_fits else 0.0)
+        seconds = (DENSE_FIT_SCORE_EVALUATIONS * _dense_evaluation(cal, pilot, s.p, fisher=False)
+                   + DENSE_FIT_FISHER_EVALUATIONS * _dense_evaluation(cal, pilot, s.p,
+                                                                      fisher=True)
+                   + passes + refine)
+        peak = max(dense_bytes_needed(pilot, score=True),
+                   dense_bytes_needed(s.n, score=True) if fit.exact_score_fits else 0,
+                   8 * s.n * m * (s.p + 2))
+        return StagePlan("fit", min(seconds, budget), peak,
+                         f"at-scale fit: dense pilot on {pilot:,} points, "
+                         f"{options.fit_max_steps} Vecchia passes (m = {m}), "
+                         + (f"{REFINE_MAX_STEPS} exact-score steps" if fit.exact_score_fits
+                            else "no exact-score steps (over the budget)")
+                         + f", at most --fit-time-budget {budget:g} s")
+    if tight is None:
+        return StagePlan("fit", None, None, "compressed fit by a plugin: not predicted")
+    steps = options.fit_max_steps
+    seconds = steps * (tight.seconds_at(s.n)
+                       + tight.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1))
+    return StagePlan("fit", min(seconds, budget),
+                     tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
+                     f"compressed fit, {steps} Fisher-scoring steps with {tight.name}, at "
+                     f"most --fit-time-budget {budget:g} s")
+
+
+def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibration,
+                     first: SolverRate | None, n_values: int) -> StagePlan:
+    if kind == "dense":
+        seconds = 2 * (2 * _cholesky(cal, s.n) + s.n * s.n / cal.assembly_entries_per_second)
+        seconds += (s.p * s.n * s.n / cal.assembly_entries_per_second
+                    + _flop_seconds(cal, 2.0 * s.p * s.n * s.n * (s.k + 1)))
+        return StagePlan("reference", seconds, dense_bytes_needed(s.n, score=True),
+                         "dense Cholesky of all points and of the conditioning points, "
+                         "certified, in a child process")
+    if kind == "operator":
+        pre = cal.solvers["preconditioner"]
+        probes = max(VALUE_PROBES, s.k)
+        rate = float(cal.product_columns_per_second or 1.0)
+        seconds = (pre.seconds_at(s.n) + pre.seconds_at(s.t)
+                   + estimate_operator_seconds(s.n, rate=rate, n_params=s.p,
+                                               mean_columns=s.mean_columns, probes=probes,
+                                               steps=OPERATOR_STEPS)
+                   + (OPERATOR_STEPS + 2) * (1 + s.v) * s.t * s.t / rate)
+        block = 8 * s.n * (1 + s.p) * probes + 8 * DEFAULT_TILE ** 2
+        return StagePlan("reference", seconds,
+                         pre.nbytes_at(s.n) + pre.nbytes_at(s.t) + block,
+                         f"exact operator, preconditioned by {options.preconditioner} "
+                         f"({pre.knob} {pre.value:g}), {probes} probes")
+    if kind in ("statespace", "kronecker"):
+        return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
+                         8 * s.n * (32 if kind == "statespace" else 8),
+                         f"{kind} reference, O(n)")
+    if first is None:
+        return StagePlan("reference", None, None, "ladder of a plugin: not predicted")
+    return StagePlan("reference", n_values * (first.seconds_at(s.n) + first.seconds_at(s.t)),
+                     first.nbytes_at(s.n) + n_values * first.nbytes_at(s.t),
+                     f"ladder: {first.name} at tol / {options.ladder_factor:g}, per knob "
+                     "value (priced at the tightest measured value)")
+
+
+def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptions,
+                 cal: Calibration, rate: SolverRate | None) -> StagePlan:
+    seeds = options.solver_seeds if seed_option(lined.solver.factory) is not None else 1
+    values = len(lined.values)
+    if rate is None:
+        return StagePlan("audits", None, None,
+                         f"solver {lined.given!r} runs only in child processes: its cost is "
+                         "not predicted", solver=lined.given, values=values, seeds=seeds)
+    paired = kind in ("dense", "ladder")
+    k = s.k if paired else max(VALUE_PROBES, s.k)
+    columns = s.p * (2 * k + 1) + 1 + 2 * s.v
+    seconds = (rate.seconds_at(s.n) + rate.seconds_at(s.t)
+               + rate.solve_seconds_at(s.n, columns)
+               + s.m * s.t / cal.assembly_entries_per_second)
+    full = rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, k)
+    if kind == "dense":
+        seconds += (s.n * s.n / cal.assembly_entries_per_second
+                    + rate.solve_seconds_at(s.n, s.n))
+        full += 2 * 8 * s.n * KL_BLOCK
+    train = rate.nbytes_at(s.t) + 3 * 8 * s.t * KRIGING_BLOCK
+    return StagePlan("audits", values * seeds * seconds, max(full, train),
+                     f"{values} knob values x {seeds} seeds of {lined.given!r}, "
+                     f"{seconds:.3g} s each at most ({rate.knob} {rate.value:g})",
+                     solver=lined.given, values=values, seeds=seeds)
+
+
+def _timing_stage(s: _Sizes, lineup: Lineup, options: CheckOptions, rates: Mapping[
+        str, SolverRate | None], kind: str, cal: Calibration) -> StagePlan:
+    repeats = timing_repeats(options, s.n, len(options.solver_names))
+    if not repeats:
+        return StagePlan("timing", 0.0, 0, "no separate timing (one solver: its audit's "
+                                           "log-likelihood time)")
+    seconds, peak, unknown = 0.0, 0, []
+    for lined in lineup.solvers:
+        rate = rates.get(lined.given)
+        if rate is None:
+            unknown.append(lined.given)
+            continue
+        seconds += len(lined.values) * (repeats + 1) * (
+            rate.seconds_at(s.n) + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1))
+        peak = max(peak, rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k))
+    if kind == "dense":
+        seconds += (repeats + 1) * _dense_evaluation(cal, s.n, s.p, fisher=False)
+        peak = max(peak, dense_bytes_needed(s.n, score=True))
+    return StagePlan("timing", None if unknown else seconds, peak,
+                     f"{repeats} timed fit evaluations per knob value"
+                     + (f" (not predicted for {', '.join(unknown)})" if unknown else ""))
+
+
+def _refit_stage(s: _Sizes, options: CheckOptions, rate: SolverRate | None) -> StagePlan:
+    if not options.refit or options.fixed_params is not None:
+        return StagePlan("refit", 0.0, 0, "no refit")
+    if rate is None:
+        return StagePlan("refit", None, None, "refit by a plugin: not predicted")
+    steps = options.fit_max_steps + 1
+    return StagePlan("refit", steps * (rate.seconds_at(s.n) + rate.solve_seconds_at(
+        s.n, s.p * (2 * s.k + 1) + 1)), rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
+        f"at most {steps} evaluations with the pick (priced at the tightest value)")
+
+
+@dataclass(frozen=True)
+class PlanInputs:
+    """What a plan reads besides the calibration: the data's points, the options, the
+    lined-up solvers and the model before the fit."""
+
+    points: np.ndarray
+    y: np.ndarray
+    options: CheckOptions
+    lineup: Lineup
+
+
+def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
+    """The operator reference's preconditioner to calibrate: HODLR at ``HODLR_TOL`` or
+    Vecchia at the pilot's largest neighbour count (the costliest it may choose)."""
+    if options.preconditioner == "vecchia":
+        return resolve_solver("vecchia"), float(max(PILOT_CANDIDATES)), {}
+    return resolve_solver("hodlr"), HODLR_TOL, {"leaf_size": options.leaf_size}
+
+
+def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, lineup: Lineup,
+                  *, rng: np.random.Generator) -> Calibration:
+    """The calibration of a check: the built-in solvers under test at their tightest knob
+    value and the operator reference's preconditioner (always, so that a plan with
+    another ``--reference`` can be priced without a second calibration)."""
+    kernel = _kernel(points, y, options)
+    solvers = {lined.given: (lined.solver, lined.values[-1], dict(lined.options))
+               for lined in lineup.solvers if lined.solver.origin == "builtin"}
+    return calibrate(points, kernel, solvers=solvers,
+                     preconditioner=_preconditioner(options), rng=rng)
+
+
+def _kernel(points: np.ndarray, y: np.ndarray, options: CheckOptions) -> Any:
+    template = model_template(options, int(points.shape[1]))
+    return trial_kernel(options.kernel, options.shape, options.fixed_params, template,
+                        points, y, mean=options.mean)
+
+
+def _sizes(points: np.ndarray, options: CheckOptions, n_params: int) -> _Sizes:
+    n, d = int(points.shape[0]), int(points.shape[1])
+    try:
+        m = holdout_size(n, options.holdout, cap=options.holdout_points)
+        v = int(variance_positions(m, options.variance_points, seed=options.seed).size)
+    except HoldoutSizeError as exc:
+        raise CheckError(f"--{exc.option.replace('_', '-')}: {exc}") from None
+    mean_columns = int(design_matrix(np.zeros((1, d)), options.mean).shape[1])
+    return _Sizes(n=n, d=d, p=n_params, k=options.probes, m=m, v=v,
+                  mean_columns=mean_columns)
+
+
+def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
+               calibration: Calibration | None = None, lineup: Lineup | None = None,
+               rng: np.random.Generator | None = None) -> CostPlan:
+    """The cost plan of a check of ``points`` and ``y`` with ``options``.
+
+    Parameters
+    ----------
+    points, y : ndarray
+        The validated data.
+    options : CheckOptions
+    calibration : Calibration, optional
+        Rates from ``calibrate_for`` (measured here when None, a few seconds).
+    lineup : Lineup, optional
+        The solvers (``line_up(options, n)`` when None).
+    rng : numpy Generator, optional
+        The calibration's subsets and probes (``default_rng(options.seed)`` when None).
+
+    Raises
+    ------
+    CheckError
+        An option that the check itself would refuse (one line naming it).
+    """
+    n, d = int(points.shape[0]), int(points.shape[1])
+    lineup = line_up(options, n) if lineup is None else lineup
+    template = model_template(options, d)
+    sizes = _sizes(points, options, template.n_params)
+    kind, ref_warnings = reference_kind(options, points, template)
+    if calibration is None:
+        calibration = calibrate_for(points, y, options, lineup,
+                                    rng=rng if rng is not None
+                                    else np.random.default_rng(options.seed))
+    rates: dict[str, SolverRate | None] = {
+        lined.given: calibration.solvers.get(lined.given) for lined in lineup.solvers}
+    first = rates[lineup.solvers[0].given]
+    fit = None
+    if options.fixed_params is None:
+        fit = plan_fit(n, template.n_params, family=template.family,
+                       memory_budget=options.memory_budget,
+                       time_budget=options.fit_time_budget,
+                       dense_max_n=(DENSE_FIT_MAX_N if options.dense_fit_max_n is None
+                                    else options.dense_fit_max_n))
+    tight = next((r for r in rates.values() if r is not None), None)
+    stages = [_fit_stage(sizes, options, fit, calibration, tight),
+              _reference_stage(sizes, kind, options, calibration, first,
+                               len(lineup.solvers[0].values)),
+              *(_audit_stage(sizes, lined, kind, options, calibration, rates[lined.given])
+                for lined in lineup.solvers),
+              _timing_stage(sizes, lineup, options, rates, kind, calibration),
+              _refit_stage(sizes, options, first),
+              StagePlan("report", REPORT_UNITS * calibration.unit_seconds,
+                        8 * n * (d + 4), "check.json and check.html with its figures")]
+    budget = _budget(options)
+    return CostPlan(n=n, d=d, n_params=template.n_params, reference=kind,
+                    reference_warnings=tuple(ref_warnings),
+                    reference_by_metric=metric_kinds(kind), n_holdout=sizes.m,
+                    n_variance_points=sizes.v, fit=fit, stages=tuple(stages),
+                    base_bytes=8 * n * (d + 1 + sizes.k), memory_budget=budget,
+                    calibration=calibration)
+
+
+def _gib(nbytes: float) -> str:
+    return f"{nbytes / 2**30:.3g}"
+
+
+def _alternatives(plan: CostPlan, options: CheckOptions) -> Sequence[tuple[str,
+                                                                           CheckOptions]]:
+    """Options that could lower the peak, each as its flag text and the changed options."""
+    out: list[tuple[str, CheckOptions]] = []
+    if plan.reference not in ("operator", "statespace", "kronecker"):
+        out.append(("--reference operator", replace(options, reference="operator")))
+    if options.probes > 4:
+        out.append((f"--probes {max(4, options.probes // 4)}",
+                    replace(options, probes=max(4, options.probes // 4))))
+    if plan.fit is not None and plan.fit.engine == "dense":
+        out.append(("--dense-fit-max-n 0", replace(options, dense_fit_max_n=0)))
+    if plan.n_holdout > 100:
+        out.append(("--holdout-points 100", replace(options, holdout_points=100)))
+    if plan.n_variance_points > 64:
+        out.append(("--variance-points 64", replace(options, variance_points=64)))
+    return out
+
+
+def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
+                   options: CheckOptions, *, lineup: Lineup | None = None) -> str | None:
+    """None when ``plan`` fits its memory budget, else the one-line refusal: the peak,
+    its stage, the budget, and the options that would make the plan fit (each re-planned
+    with the same calibration; a larger ``--memory-budget`` always)."""
+    if plan.fits_budget:
+        return None
+    fixes: list[str] = []
+    for flag, changed in _alternatives(plan, options):
+        try:
+            other = plan_check(points, y, changed, calibration=plan.calibration,
+                               lineup=lineup)
+        except CheckError:
+            continue
+        if other.fits_budget:
+            fixes.append(flag)
+    need = math.ceil(plan.peak_bytes * 1.1 / 2**30 * 1000) / 1000
+    fixes.append(f"--memory-budget {need:g}")
+    what = ("one of " if len(fixes) > 1 else "") + ", ".join(fixes)
+    return (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
+            f"{plan.peak_stage.stage}"
+            + (f" {plan.peak_stage.solver}" if plan.peak_stage.solver else "")
+            + f"), exceeds the memory budget of {_gib(plan.memory_budget)} GiB; it would "
+            f"fit with {what}")

@@ -1,0 +1,263 @@
+"""The short calibration of a check's cost plan: a few rates measured in the same run.
+
+The plan (``harness.check.cost_plan``) states every predicted time in the project's unit,
+one dpotrf (dense Cholesky) at n = 8,192 on this machine in the same run. Timing that
+call would cost several seconds, so the calibration times a dpotrf at ``PROBE_N`` =
+1,024 points instead and scales it by the Cholesky's n^3 / 3 flops (Golub and Van Loan,
+*Matrix Computations*, 4th ed., sec. 4.2)::
+
+    unit = t_dpotrf(PROBE_N) * (8192 / PROBE_N)^3
+
+The probe runs on one BLAS thread: threaded BLAS on a loaded machine varies tenfold from
+call to call (measured on the project's busy 2-core machine: 0.28 to 0.53 s at n = 1,024
+with two threads, 0.026 to 0.056 s with one), while one thread gets its core. A small
+dpotrf on one thread runs below the rate of a large threaded one, so this *predicted*
+unit is an upper estimate of the measured one (there 14 s against a measured 10.4 s,
+``benchmarks/results/figure_drawing.json``; ``tests/test_check_plan.py`` holds the n^3
+scaling to a factor). What else is timed, each a fraction of a second:
+
+- kernel assembly: the lower triangle of Sigma at ``PROBE_N`` points (entries per
+  second, ``harness.model.kernels.lower_fill.assemble_lower``);
+- each built-in solver under test (``SolverRate``): a factorization of a seeded subset
+  of the data at ``CALIBRATION_SIZES`` points (at most n) at its tightest knob value
+  (the costliest), its ``nbytes`` and one solve with ``SOLVE_COLUMNS`` right-hand sides;
+  the growth from the smaller to the larger size gives the exponent of a power law in n
+  (``SolverRate.seconds_at``, ``nbytes_at``). A plugin is never called here: it runs
+  only in child processes (``harness.check.plugin_guard``), so its cost is not predicted;
+- the exact operator reference, when the plan takes it: one exact block product
+  (``harness.references.operator.measure_product_rate``) and its preconditioner as a
+  ``SolverRate``.
+
+Randomness only through the ``rng`` passed in; the clock is ``time.perf_counter``.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from harness.model.kernels import Kernel
+from harness.solvers.registry import ResolvedSolver
+
+#: The project's time unit: one dpotrf at this n, in the same run.
+UNIT_N = 8192
+#: Size of the timed dpotrf and of the kernel-assembly probe.
+PROBE_N = 1024
+#: Repeats of the dpotrf probe (the median is kept).
+PROBE_REPEATS = 3
+#: Subset sizes at which each built-in solver is factorized (each at most n).
+CALIBRATION_SIZES: tuple[int, int] = (256, 512)
+#: Right-hand sides of the timed solve.
+SOLVE_COLUMNS = 16
+#: Bounds of a fitted growth exponent: time from n to n^3, memory from n to n^2 (the
+#: dense cases; a compressed solver lies between).
+TIME_EXPONENT_RANGE: tuple[float, float] = (1.0, 3.0)
+MEMORY_EXPONENT_RANGE: tuple[float, float] = (1.0, 2.0)
+
+
+def _exponent(small: float, large: float, n_small: int, n_large: int,
+              bounds: tuple[float, float]) -> float:
+    """log(large / small) / log(n_large / n_small) clipped to ``bounds`` (the upper bound
+    when the two sizes coincide: nothing to extrapolate then)."""
+    if n_large <= n_small or small <= 0 or large <= 0:
+        return bounds[1]
+    value = math.log(large / small) / math.log(n_large / n_small)
+    return min(max(value, bounds[0]), bounds[1])
+
+
+@dataclass(frozen=True)
+class SolverRate:
+    """One solver's factorization measured at two subset sizes, as power laws in n.
+
+    seconds(n) = factor_seconds * (n / n_measured)^time_exponent, and the same for the
+    solve per right-hand side and for ``nbytes`` with ``memory_exponent``; the exponents
+    come from the two sizes (``_exponent``), clipped to ``TIME_EXPONENT_RANGE`` and
+    ``MEMORY_EXPONENT_RANGE``. At n = n_measured the values are measured, not predicted.
+    """
+
+    name: str
+    knob: str
+    value: float | None
+    n_measured: int
+    factor_seconds: float
+    solve_seconds_per_column: float
+    nbytes: int
+    time_exponent: float
+    memory_exponent: float
+
+    def seconds_at(self, n: int) -> float:
+        return self.factor_seconds * (n / self.n_measured) ** self.time_exponent
+
+    def solve_seconds_at(self, n: int, columns: float) -> float:
+        """Seconds of solves (or products) with ``columns`` right-hand sides at n: the
+        measured seconds per column scaled like the factorization's memory (a solve
+        touches every stored number once)."""
+        return (columns * self.solve_seconds_per_column
+                * (n / self.n_measured) ** self.memory_exponent)
+
+    def nbytes_at(self, n: int) -> int:
+        return int(self.nbytes * (n / self.n_measured) ** self.memory_exponent)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"solver": self.name, "knob": self.knob, "value": self.value,
+                "n_measured": self.n_measured, "factor_seconds": self.factor_seconds,
+                "solve_seconds_per_column": self.solve_seconds_per_column,
+                "nbytes": self.nbytes, "time_exponent": self.time_exponent,
+                "memory_exponent": self.memory_exponent}
+
+
+@dataclass(frozen=True)
+class Calibration:
+    """The same-run rates of a plan (module docstring).
+
+    Attributes
+    ----------
+    unit_seconds : float
+        The predicted unit: one dpotrf at ``UNIT_N`` (``probe_seconds`` scaled by n^3).
+    probe_n, probe_seconds : int, float
+        The timed dpotrf's size and median seconds.
+    assembly_entries_per_second : float
+        Kernel entries of Sigma assembled per second.
+    solvers : mapping of str to SolverRate
+        By the solver's spelling as given to ``--solver`` (built-in solvers only), and
+        ``"preconditioner"`` for the operator reference's.
+    product_columns_per_second : float or None
+        Exact-product columns of n^2 entries per second (the operator reference only).
+    seconds : float
+        Wall seconds the calibration took.
+    """
+
+    unit_seconds: float
+    probe_n: int
+    probe_seconds: float
+    assembly_entries_per_second: float
+    solvers: Mapping[str, SolverRate] = field(default_factory=dict)
+    product_columns_per_second: float | None = None
+    seconds: float = 0.0
+
+    def cholesky_seconds(self, n: int) -> float:
+        """Predicted seconds of one dpotrf at n: the unit times (n / 8,192)^3."""
+        return self.unit_seconds * (n / UNIT_N) ** 3
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"unit": {"what": f"one dpotrf (Cholesky) at n = {UNIT_N:,} on this "
+                                 "machine in the same run, predicted from a dpotrf at "
+                                 f"n = {self.probe_n:,} scaled by n^3",
+                         "seconds": self.unit_seconds, "probe_n": self.probe_n,
+                         "probe_seconds": self.probe_seconds},
+                "assembly_entries_per_second": self.assembly_entries_per_second,
+                "solvers": {k: v.to_dict() for k, v in self.solvers.items()},
+                "product_columns_per_second": self.product_columns_per_second,
+                "seconds": self.seconds}
+
+
+def time_dpotrf(kernel: Kernel, d: int, *, rng: np.random.Generator, n: int = PROBE_N,
+                repeats: int = PROBE_REPEATS) -> tuple[float, float]:
+    """(median seconds of a dpotrf at n, kernel entries assembled per second).
+
+    The matrix is ``kernel`` at n uniform points of the unit cube in d dimensions with
+    its diagonal raised by n (positive definite whatever the nugget); LAPACK's dpotrf
+    through ``scipy.linalg.lapack`` on a Fortran copy each repeat, on one BLAS thread.
+    n = 1,024 stays below the BLAS guard's operand bound
+    (``harness.linalg.blas_calls.MAX_OPERAND_ELEMENTS``).
+    """
+    from scipy.linalg import lapack
+    from threadpoolctl import threadpool_limits
+
+    from harness.model.kernels.lower_fill import assemble_lower
+
+    points = rng.random((n, d))
+    assemble_lower(kernel, points[:8])  # load the compiled fill first (numba's cache)
+    start = time.perf_counter()
+    lower = assemble_lower(kernel, points)
+    assembly = time.perf_counter() - start
+    lower[np.diag_indices(n)] += n
+    times = []
+    with threadpool_limits(limits=1, user_api="blas"):
+        for _ in range(repeats):
+            a = np.asfortranarray(lower.copy())
+            start = time.perf_counter()
+            _, info = lapack.dpotrf(a, lower=1, overwrite_a=1, clean=0)
+            times.append(time.perf_counter() - start)
+            if info != 0:
+                raise np.linalg.LinAlgError(f"calibration dpotrf: info = {info}")
+    entries = n * (n + 1) / 2
+    return float(np.median(times)), entries / max(assembly, 1e-9)
+
+
+def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
+                kernel: Kernel, *, options: Mapping[str, Any], rng: np.random.Generator,
+                sizes: tuple[int, int] = CALIBRATION_SIZES) -> SolverRate:
+    """``SolverRate`` of a built-in solver at knob ``value`` on seeded subsets of
+    ``points`` (module docstring). Never call it with a plugin."""
+    n = points.shape[0]
+    small, large = (min(size, n) for size in sizes)
+    order = rng.permutation(n)
+    measured: list[tuple[int, float, float, int]] = []
+    arguments = solver.knob.arguments(value) | dict(options)
+    for size in dict.fromkeys((small, large)):
+        x = points[np.sort(order[:size])]
+        start = time.perf_counter()
+        fac = solver.factorize(x, kernel, kernel.theta, **arguments)
+        factor = time.perf_counter() - start
+        block = rng.standard_normal((size, SOLVE_COLUMNS))
+        start = time.perf_counter()
+        fac.solve(block)
+        solve = (time.perf_counter() - start) / SOLVE_COLUMNS
+        measured.append((size, factor, solve, int(fac.nbytes)))
+        del fac
+    (n0, t0, _, b0), (n1, t1, s1, b1) = measured[0], measured[-1]
+    return SolverRate(name=solver.name, knob=solver.knob.name, value=value, n_measured=n1,
+                      factor_seconds=t1, solve_seconds_per_column=s1, nbytes=b1,
+                      time_exponent=_exponent(t0, t1, n0, n1, TIME_EXPONENT_RANGE),
+                      memory_exponent=_exponent(b0, b1, n0, n1, MEMORY_EXPONENT_RANGE))
+
+
+def product_rate(kernel: Kernel, d: int, *, rng: np.random.Generator) -> float:
+    """Exact-product columns of n^2 entries per second: one product of 8 columns at
+    1,024 points (``harness.references.operator.measure_product_rate``)."""
+    from harness.references.operator import measure_product_rate
+
+    return measure_product_rate(kernel, dimension=d, n=PROBE_N, k=8, rng=rng).column_rate
+
+
+def calibrate(points: np.ndarray, kernel: Kernel, *,
+              solvers: Mapping[str, tuple[ResolvedSolver, float | None, Mapping[str, Any]]],
+              preconditioner: tuple[ResolvedSolver, float, Mapping[str, Any]] | None,
+              rng: np.random.Generator) -> Calibration:
+    """The plan's rates (module docstring).
+
+    Parameters
+    ----------
+    points : ndarray, shape (n, d)
+        The data's points (subsets of them calibrate the solvers).
+    kernel : Kernel
+        The model before the fit (``harness.check.plugin_guard.trial_kernel``).
+    solvers : mapping
+        Built-in solvers to time, by spelling: (solver, tightest knob value, options).
+    preconditioner : tuple or None
+        The operator reference's preconditioner (solver, knob value, options), or None
+        when the plan takes no operator reference.
+    rng : numpy Generator
+    """
+    start = time.perf_counter()
+    d = int(points.shape[1])
+    probe_seconds, assembly = time_dpotrf(kernel, d, rng=rng)
+    rates = {given: rate_solver(solver, value, points, kernel, options=options, rng=rng)
+             for given, (solver, value, options) in solvers.items()}
+    columns = None
+    if preconditioner is not None:
+        solver, value, options = preconditioner
+        rates["preconditioner"] = rate_solver(solver, value, points, kernel,
+                                              options=options, rng=rng)
+        columns = product_rate(kernel, d, rng=rng)
+    return Calibration(unit_seconds=probe_seconds * (UNIT_N / PROBE_N) ** 3,
+                       probe_n=PROBE_N, probe_seconds=probe_seconds,
+                       assembly_entries_per_second=assembly, solvers=rates,
+                       product_columns_per_second=columns,
+                       seconds=time.perf_counter() - start)

@@ -1,0 +1,199 @@
+"""``covaudit check``'s cost plan (issue 22, item 5): printed before any work, ``--plan-only``
+stops there, a plan over the memory budget is refused in one line naming what would make
+it fit, the plan is kept in check.json, and its memory model holds against measurements.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import tracemalloc
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harness.audit.audit_references import metric_kinds
+from harness.audit.dense_sides import dense_sides
+from harness.check import CheckOptions
+from harness.check.cost_plan import budget_refusal, plan_check
+from harness.check.plan_calibration import rate_solver
+from harness.cli import check_command as check_cli
+from harness.infra.exit_codes import ExitCode
+from harness.model.kernels import make_kernel
+from harness.references import DenseCholesky
+from harness.solvers.registry import resolve_solver
+
+N = 300
+FIXED = ["--fixed-params", "variance=1.0", "lengthscale=2.0", "nugget=0.1"]
+STAGE_LINES = ("plan: fit:", "plan: reference:", "plan: audits hodlr:", "plan: timing:",
+               "plan: refit:", "plan: report:")
+
+
+def _run(argv: list[str]) -> int:
+    parser = argparse.ArgumentParser()
+    sub = parser.add_subparsers(dest="verb")
+    check_cli.add_parser(sub)
+    return check_cli.run(parser.parse_args(["check", *argv]))
+
+
+def _points(n: int = N, seed: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    rng = np.random.default_rng(seed)
+    x = rng.uniform(0, 10, (n, 2))
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    return x, DenseCholesky(x, kernel).apply_sqrt(rng.standard_normal(n))
+
+
+@pytest.fixture(scope="module")
+def data_file(tmp_path_factory: pytest.TempPathFactory):
+    x, v = _points()
+    path = tmp_path_factory.mktemp("plan") / "field.csv"
+    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    return path
+
+
+def _args(path, out, *extra: str) -> list[str]:
+    return [str(path), "--coords", "e,n", "--value", "z", "--out", str(out), *extra]
+
+
+def test_plan_only_prints_every_stage_and_writes_nothing(data_file, tmp_path, capsys):
+    out = tmp_path / "o"
+    code = _run(_args(data_file, out, "--plan-only"))
+    printed = capsys.readouterr()
+    assert code == ExitCode.OK, printed.err
+    lines = printed.out.splitlines()
+    for start in STAGE_LINES:
+        assert any(line.startswith(start) for line in lines), start
+    assert "plan: reference by metric: loglik dense, score dense, kriging dense" in lines
+    assert any(line.startswith("plan: peak memory") for line in lines)
+    assert any("one dpotrf at n = 8,192" in line for line in lines)
+    # neither outputs nor a state folder: nothing was fitted or audited
+    assert not out.exists() and not (tmp_path / ".o.check-state").exists()
+
+
+def test_plan_only_json_is_the_plan(data_file, tmp_path, capsys):
+    code = _run(_args(data_file, tmp_path / "o", "--plan-only", "--json", *FIXED))
+    printed = capsys.readouterr()
+    assert code == ExitCode.OK
+    plan = json.loads(printed.out)
+    assert [s["stage"] for s in plan["stages"]] == ["fit", "reference", "audits", "timing",
+                                                    "refit", "report"]
+    assert plan["fit"] is None  # fixed parameters: no fit plan
+    assert plan["stages"][2]["audits"] == 5 * 3  # the default ladder x default seeds
+    assert printed.err.count("plan: ") >= len(STAGE_LINES)  # the lines go to stderr
+
+
+def test_plan_only_still_validates_options(data_file, tmp_path, capsys):
+    code = _run(_args(data_file, tmp_path / "o", "--plan-only", "--holdout-points",
+                      str(N)))
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == ExitCode.ERROR
+    assert len(err) == 1 and "--holdout-points" in err[0]
+
+
+def test_over_the_budget_refused_before_any_work_and_the_state_kept(data_file, tmp_path,
+                                                                    capsys):
+    # 2 MiB: below the dense reference's 2.2 MiB at n = 300 (dense_budget.dense_bytes_needed),
+    # so the selector takes the operator, whose two HODLR preconditioners alone need more.
+    state = tmp_path / ".o.check-state"
+    state.mkdir()
+    (state / "fit.pickle").write_bytes(b"saved before")
+    code = _run(_args(data_file, tmp_path / "o", "--memory-budget", "0.002", *FIXED))
+    printed = capsys.readouterr()
+    errors = [line for line in printed.err.splitlines() if "error" in line]
+    assert code == ExitCode.ERROR
+    assert len(errors) == 1
+    assert "exceeds the memory budget" in errors[0] and "--memory-budget" in errors[0]
+    assert (state / "fit.pickle").read_bytes() == b"saved before"
+    assert not (tmp_path / "o").exists()
+
+
+def test_a_budget_too_small_for_any_plan_names_only_the_budget(data_file, tmp_path,
+                                                               capsys):
+    # 1 KiB: less than the data themselves (300 x 3 doubles), whatever the options.
+    code = _run(_args(data_file, tmp_path / "o", "--memory-budget", "0.000001",
+                      "--plan-only"))
+    errors = [line for line in capsys.readouterr().err.splitlines() if "error" in line]
+    assert code == ExitCode.ERROR
+    assert len(errors) == 1 and "one of" not in errors[0]
+    assert "--memory-budget" in errors[0]
+
+
+def test_the_refusal_names_an_option_that_fits():
+    # Many probes make the score's n x p (2k + 1) arrays the peak (cost_plan module
+    # docstring); a budget between the two plans' peaks must name the smaller count.
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    many = CheckOptions(probes=400, fixed_params=fixed, tolerances=(1e-4,))
+    plan = plan_check(x, y, many, rng=np.random.default_rng(0))
+    fewer = plan_check(x, y, CheckOptions(probes=100, fixed_params=fixed,
+                                          tolerances=(1e-4,)),
+                       calibration=plan.calibration)
+    assert fewer.peak_bytes < plan.peak_bytes
+    budget = (plan.peak_bytes + fewer.peak_bytes) // 2
+    tight = CheckOptions(probes=400, fixed_params=fixed, tolerances=(1e-4,),
+                         memory_budget=budget)
+    over = plan_check(x, y, tight, calibration=plan.calibration)
+    message = budget_refusal(over, x, y, tight)
+    assert message is not None and "--probes 100" in message
+    assert "--memory-budget" in message and "\n" not in message
+
+
+def test_the_plan_in_check_json_names_the_references_used(data_file, tmp_path, capsys):
+    out = tmp_path / "o"
+    code = _run(_args(data_file, out, *FIXED, "--tolerances", "1e-2,1e-6",
+                      "--solver-seeds", "1", "--no-refit", "--json"))
+    capsys.readouterr()
+    assert code in (ExitCode.OK, ExitCode.FINDING)
+    result = json.loads((out / "check.json").read_text())
+    plan = result["plan"]
+    assert plan["reference"] == result["reference"] == "dense"
+    used = {group: entry["kind"] for group, entry in result["reference_by_metric"].items()}
+    assert {group: entry["kind"] for group, entry in plan["reference_by_metric"].items()} \
+        == used
+    audits = next(s for s in plan["stages"] if s["stage"] == "audits")
+    assert audits["knob_values"] == 2 and audits["seeds"] == 1
+    assert plan["peak_bytes"] <= plan["memory_budget_bytes"]
+    assert plan["calibration"]["unit"]["seconds"] > 0
+
+
+def test_metric_kinds_kronecker_has_no_kriging():
+    # audit_references.StructuredReference: the Kronecker reference offers no kriging.
+    assert metric_kinds("kronecker") == {"loglik": "kronecker", "score": "kronecker",
+                                         "kriging": None}
+    assert set(metric_kinds("dense").values()) == {"dense"}
+
+
+def test_solver_memory_extrapolation_against_its_nbytes():
+    # Expected value: the solver's own nbytes at n = 1,024 (harness.solvers.hodlr), against
+    # the power law fitted at 256 and 512 points; within a factor 2 either way.
+    x, _ = _points(1024, seed=5)
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    hodlr = resolve_solver("hodlr")
+    rate = rate_solver(hodlr, 1e-8, x, kernel, options={"leaf_size": 128},
+                       rng=np.random.default_rng(1))
+    measured = hodlr.factorize(x, kernel, kernel.theta, tol=1e-8, leaf_size=128).nbytes
+    assert 0.5 <= rate.nbytes_at(1024) / measured <= 2.0
+
+
+def test_dense_reference_memory_against_tracemalloc():
+    # Expected value: the peak that tracemalloc traces (numpy reports its allocations to
+    # it) while the dense reference's child work runs in this process at n = 300; the
+    # plan's stage is dense_budget.dense_bytes_needed(n, score=True). Within a factor 2.
+    x, y = _points()
+    options = CheckOptions(fixed_params={"variance": 1.0, "lengthscale": 2.0,
+                                         "nugget": 0.1}, tolerances=(1e-4,))
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    predicted = next(s for s in plan.stages if s.stage == "reference").peak_bytes
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    holdout = np.arange(0, N, 10)
+    probes = np.random.default_rng(2).choice([-1.0, 1.0], size=(N, 16))
+    tracemalloc.start()
+    try:
+        dense_sides(x, y, kernel, mean="constant", holdout=holdout, probes=probes,
+                    memory_budget=None)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert predicted is not None
+    assert 0.5 <= predicted / peak <= 2.0, (predicted, peak)
