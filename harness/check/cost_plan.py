@@ -22,7 +22,8 @@ base plus the largest stage:
   L-BFGS-B fit with the score, no Fisher information); compressed, the first built-in
   solver's factor at its tightest value with the score's arrays (the fit itself uses
   HODLR at the tightest tolerance, so this is a stand-in);
-- reference: dense, ``dense_bytes_needed(n, score)`` (the selector's model); operator,
+- reference: dense, ``dense_bytes_needed(n, score)`` (the selector's model) plus the
+  derivative blocks of the score, 8 p min(n, 1,024) n (``harness.audit.sides``); operator,
   the preconditioner of all points and of the conditioning points, both alive at once
   (``audit_references.OperatorReference``), plus one block product of max(64, k)
   columns with p outputs, 8 n (1 + p) max(64, k), and a tile per thread,
@@ -110,6 +111,8 @@ KL_BLOCK = 256
 KRIGING_BLOCK = 64
 #: Probes of the value references' Hutch++ score (``audit_references.build_reference``).
 VALUE_PROBES = 64
+#: Rows per block of the dense reference's derivative products (``harness.audit.sides``).
+DERIVATIVE_ROWS = 1024
 #: CG steps of one operator solve assumed by ``product_cost`` (its default).
 OPERATOR_STEPS = 8
 STAGES: tuple[str, ...] = ("fit", "reference", "audits", "timing", "refit", "report")
@@ -295,7 +298,8 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
         seconds = 2 * (2 * _cholesky(cal, s.n) + s.n * s.n / cal.assembly_entries_per_second)
         seconds += (s.p * s.n * s.n / cal.assembly_entries_per_second
                     + _flop_seconds(cal, 2.0 * s.p * s.n * s.n * (s.k + 1)))
-        return StagePlan("reference", seconds, dense_bytes_needed(s.n, score=True),
+        return StagePlan("reference", seconds, dense_bytes_needed(s.n, score=True)
+                         + 8 * s.p * min(s.n, DERIVATIVE_ROWS) * s.n,
                          "dense Cholesky of all points and of the conditioning points, "
                          "certified, in a child process")
     if kind == "operator":
