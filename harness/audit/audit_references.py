@@ -190,23 +190,34 @@ class OperatorReference:
             built, training_seconds=built_t.seconds, loglik_iterations=ev.iterations,
             kriging_iterations=kr.iterations)
         del built, built_t
+        uncertainty = {
+            "loglik": dict(ev.uncertainty), "loglik_se": ev.loglik_se,
+            "loglik_bound": ev.loglik_bound,
+            "score_se": None if ev.score_se is None else [float(v) for v in ev.score_se],
+            "score_bound": None if ev.score_bound is None
+            else [float(v) for v in ev.score_bound],
+            "score_note": "score_se (probes, estimate) enters the verdicts as score_se + "
+                          "score_bound / 2 (the CG bounds and the dots' rounding, bounds)"}
         self.info: ReferenceInfo = OperatorReferenceInfo(
             "operator", certified,
-            f"exact operator: loglik SE {ev.loglik_se:.2g} nat, quadratic-form bound "
-            f"{ev.quadratic_bound:.2g} ({ev.bound_kind}), {ev.probes} probes, "
+            f"exact operator: loglik SE {ev.loglik_se:.2g} nat, bound {ev.loglik_bound:.2g} "
+            f"nat (quadratic-form bound {ev.quadratic_bound:.2g}, {ev.bound_kind}), "
+            f"{ev.probes} probes, "
             f"{ev.products:,} exact products, {ev.iterations:,} iterations (kriging "
             f"{kr.iterations:,}); preconditioner: {self.preconditioner['description']}"
             + ("" if certified else "; NOT certified: " + "; ".join(self.messages)),
-            preconditioner=self.preconditioner)
+            preconditioner=self.preconditioner, uncertainty=uncertainty)
         entry = self.info.to_dict()
         self.by_metric: dict[str, dict[str, object]] = {
             "loglik": dict(entry), "score": dict(entry),
             "kriging": entry | _kriging_counts(data)}
         score_se = (np.zeros(kernel.n_params) if ev.score_se is None
                     else np.asarray(ev.score_se, dtype=float))
+        if ev.score_bound is not None:
+            score_se = score_se + 0.5 * np.asarray(ev.score_bound, dtype=float)
         self._values = ReferenceValues(
             loglik=ReferenceValue(ev.loglik, se=float(ev.loglik_se),
-                                  bound=0.5 * float(ev.quadratic_bound)),
+                                  bound=float(ev.loglik_bound)),
             score=np.asarray(ev.score, dtype=float), score_se=score_se,
             krige_mean=np.asarray(kr.mean), krige_mean_bound=np.asarray(kr.mean_bound),
             krige_var=np.asarray(kr.variance), loglik_seconds=seconds,
@@ -223,12 +234,17 @@ class OperatorReference:
 @dataclass(frozen=True)
 class OperatorReferenceInfo(ReferenceInfo):
     """``ReferenceInfo`` of the operator reference, with its preconditioner record (family,
-    knob value, pilot table, iteration counts of the real runs) under ``preconditioner``."""
+    knob value, pilot table, iteration counts of the real runs) under ``preconditioner``
+    and the terms of its stated uncertainty under ``uncertainty``."""
 
     preconditioner: Mapping[str, object] = field(default_factory=dict)
+    #: Each term of the stated uncertainty, its kind (estimate or bound) and source
+    #: (``OperatorEvaluation.uncertainty``), with the combined loglik SE and bound.
+    uncertainty: Mapping[str, object] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, object]:
-        return super().to_dict() | {"preconditioner": dict(self.preconditioner)}
+        return super().to_dict() | {"preconditioner": dict(self.preconditioner),
+                                    "uncertainty": dict(self.uncertainty)}
 
 
 def _preconditioner_record(built: BuiltPreconditioner, *, training_seconds: float,

@@ -211,8 +211,8 @@ def _operator(task: AuditTask, points: np.ndarray, kernel: Kernel,
         if not ev.converged:
             raise TaskSkipped("operator reference unresolved: " + "; ".join(ev.messages))
         if model is kernel:
-            # L = -Q/2 - ...: the quadratic-form bound enters L halved.
-            uncertainty.update(loglik_se=ev.loglik_se, loglik_bound=0.5 * ev.quadratic_bound)
+            # every term of the operator's stated uncertainty (probes, Lanczos, CG, rounding)
+            uncertainty.update(loglik_se=ev.loglik_se, loglik_bound=ev.loglik_bound)
         return ev.as_model_evaluation()
 
     return Reference(kind="operator", evaluate=evaluate,

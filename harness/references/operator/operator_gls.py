@@ -45,6 +45,14 @@ class GlsSolve:
     iterations : int
     converged, rigorous : bool
     messages : tuple of str
+    residual : ndarray, shape (n,)
+        True residual r^ - Sigma a of the final solve (for ``rounding.quadratic_rounding``).
+    rhs : ndarray, shape (n,)
+        The final solve's right-hand side r^ = y - F beta.
+    dot_rounding : float
+        Rigorous bound of the rounding of the final quadratic form's dot products.
+    lambda_min : float
+        The lambda_min the final solve's bound used (``CgResult.lambda_min``).
     """
 
     beta: np.ndarray
@@ -57,6 +65,10 @@ class GlsSolve:
     converged: bool
     rigorous: bool
     messages: tuple[str, ...]
+    residual: np.ndarray | None = None
+    rhs: np.ndarray | None = None
+    dot_rounding: float = 0.0
+    lambda_min: float = float("nan")
 
 
 def gls_by_cg(apply_a: BlockMap, y: np.ndarray, design: np.ndarray, *,
@@ -74,7 +86,9 @@ def gls_by_cg(apply_a: BlockMap, y: np.ndarray, design: np.ndarray, *,
         return GlsSolve(beta=np.empty(0), quadratic=float(res.quadratic[0]),
                         bound=float(res.bound[0]), a=res.x[:, 0], sinv_design=np.empty((y.size, 0)),
                         gram=np.empty((0, 0)), iterations=res.iterations,
-                        converged=res.converged, rigorous=res.rigorous, messages=res.messages)
+                        converged=res.converged, rigorous=res.rigorous, messages=res.messages,
+                        residual=_column(res.residual), rhs=y,
+                        dot_rounding=_first(res.dot_rounding), lambda_min=res.lambda_min)
     first: CgResult = pcg(apply_a, np.column_stack([y, f]), max_iterations=max_iterations,
                           **kwargs)  # type: ignore[arg-type]
     xy, xf = first.x[:, 0], first.x[:, 1:]
@@ -100,4 +114,15 @@ def gls_by_cg(apply_a: BlockMap, y: np.ndarray, design: np.ndarray, *,
                     bound=float(second.bound[0]) + abs(correction), a=a, sinv_design=xf,
                     gram=gram, iterations=first.iterations + second.iterations,
                     converged=first.converged and second.converged,
-                    rigorous=second.rigorous, messages=messages)
+                    rigorous=second.rigorous, messages=messages,
+                    residual=_column(second.residual), rhs=resid,
+                    dot_rounding=_first(second.dot_rounding) + 2e-16 * abs(correction),
+                    lambda_min=second.lambda_min)
+
+
+def _column(block: np.ndarray | None) -> np.ndarray | None:
+    return None if block is None else np.asarray(block)[:, 0]
+
+
+def _first(values: np.ndarray | None) -> float:
+    return 0.0 if values is None else float(np.asarray(values)[0])

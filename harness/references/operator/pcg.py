@@ -21,6 +21,12 @@ Without a nugget no lower bound of lambda_min is known in O(n^2) work; then the 
 uses an *estimate* (bound_kind "residual/ritz-estimate", not rigorous): one tenth of the
 smallest Ritz value of M^-1 A from the CG coefficients (Saad 2003, section 6.7.3) times
 an estimate of lambda_min(M) from a few Lanczos steps on M^-1.
+
+Rounding. Q^ = b'x + x'r is summed with correctly rounded dot products
+(``rounding.accurate_dots``; a numpy column sum is recursive, error up to gamma_n |b|'|x|,
+Higham 2002, eq. 3.4), with the rigorous bound u (|b|'|x| + |x|'|r|) + 2 u |Q^| of the
+two dots and their sum (``CgResult.dot_rounding``). The rounding of the product K x in
+r is not in this bound: ``rounding.quadratic_rounding`` estimates it.
 """
 
 from __future__ import annotations
@@ -30,6 +36,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import eigh_tridiagonal
+
+from harness.references.operator.rounding import UNIT_ROUNDOFF, accurate_dots, dot_bound
 
 BlockMap = Callable[[np.ndarray], np.ndarray]
 
@@ -66,6 +74,10 @@ class CgResult:
     ritz_min : float
         Smallest Ritz value of M^-1 A seen (nan if none).
     messages : tuple of str
+    residual : ndarray, shape (n, k)
+        The true residual b - A x from the final product.
+    dot_rounding : ndarray, shape (k,)
+        Rigorous bound of the rounding of b'x + x'r and their sum (module docstring).
     """
 
     x: np.ndarray
@@ -78,6 +90,8 @@ class CgResult:
     lambda_min: float
     ritz_min: float
     messages: tuple[str, ...]
+    residual: np.ndarray | None = None
+    dot_rounding: np.ndarray | None = None
 
 
 def _ritz_extremes(alphas: list[float], betas: list[float]) -> tuple[float, float]:
@@ -230,8 +244,11 @@ def pcg(apply_a: BlockMap, b: np.ndarray, *, precondition: BlockMap, rtol: float
         lam = float(lambda_min_fallback(ritz_min))
     else:
         lam = float("nan")
-    quadratic = np.sum(b * x, axis=0) + np.sum(x * r, axis=0)
+    bx, xr = accurate_dots(b, x), accurate_dots(x, r)
+    quadratic = bx + xr
+    dot_rounding = dot_bound(b, x) + dot_bound(x, r) + UNIT_ROUNDOFF * np.abs(quadratic)
     bound = true_norm ** 2 / lam if lam > 0 else np.full(k, np.inf)
     return CgResult(x=x, quadratic=quadratic, bound=bound, relative_residual=rel,
                     iterations=iterations, converged=converged, rigorous=rigorous,
-                    lambda_min=lam, ritz_min=ritz_min, messages=tuple(messages))
+                    lambda_min=lam, ritz_min=ritz_min, messages=tuple(messages),
+                    residual=r, dot_rounding=dot_rounding)

@@ -21,6 +21,29 @@ most ``se_target`` or ``max_probes`` is reached. Caution, measured: with a loose
 preconditioner the per-probe values are skewed and the sample SE from 16-64 probes ran
 low (dL / SE spread about 1.3 over 20 seeds at n = 2,000 with the built-in solver at tol
 1e-5; about 1 at tol 1e-8, benchmarks/results/operator_vs_dense.json).
+Stated uncertainty (issue 22 item 6). ``loglik_se`` and ``loglik_bound`` hold every
+term, listed with its kind and source in ``uncertainty`` (and so in the reference's
+``reference_detail`` / ``reference_by_metric`` entries):
+
+    probes              estimate  sample SD of the probe values / sqrt(N), halved
+    lanczos             bound     1/2 mean of the Gauss/Gauss-Radau brackets (``lanczos``;
+                                  Golub and Meurant 2010, ch. 6), given the Radau node
+    cg                  bound     1/2 ||r||^2 / lambda_min (``pcg``; rigorous with a nugget)
+    rounding_dots       bound     the correctly rounded dots of Q and of L's sum (Higham
+                                  2002, section 3.1; ``rounding``)
+    rounding_products   estimate  measured x'e of the residual product (``rounding``)
+    rounding_entries_q  estimate  model SD of x' dK x (entries to 64 u; Higham 2002, 2.8)
+    rounding_entries_ld estimate  model SD of tr(K^-1 dK)
+    rounding_pivots     estimate  model SD of log det P
+
+The estimates are independent, so their variances add: loglik_se = sqrt(sum se^2); the
+bounds add linearly: loglik_bound = sum b. The verdict rule uses |e| <= 2 se + b, which
+is conservative for the bounds (each is taken whole, at its worst sign). The score's
+``score_se`` is the probes' SE (1/2 ``trace_se``) and ``score_bound`` the CG bound of
+its quadratic term (|a'S_i a - a*'S_i a*| <= 2 ||S_i a|| d + ||S_i a|| d^2 / ||a||,
+d = ||r|| / lambda_min) plus the probes' CG bounds (``score_traces``) plus the dots'
+rounding; the rounding of its per-probe values is in the probes' sample variance.
+
 A preconditioner that is not positive
 definite, a CG that does not converge, or an SE above target give ``converged=False``
 and a message; values that could not be computed are NaN, never presented as exact.
@@ -42,10 +65,19 @@ from harness.references.operator.lanczos import IndefiniteOperatorError, slq_log
 from harness.references.operator.operator_gls import RankDeficientDesignError, gls_by_cg
 from harness.references.operator.pcg import PreconditionerError, lambda_min_estimate, pcg
 from harness.references.operator.products import KernelOperator
+from harness.references.operator.rounding import (
+    ENTRY_ULPS,
+    PIVOT_ULPS,
+    UNIT_ROUNDOFF,
+    accurate_dots,
+    logdet_entry_se,
+    pivot_logdet_se,
+    quadratic_rounding,
+)
 from harness.references.operator.schedule import DEFAULT_TILE
 from harness.references.operator.score_traces import (
     preconditioner_traces,
-    trace_difference_samples,
+    trace_difference_bounded,
 )
 from harness.solvers.protocol import Factorization
 
@@ -65,8 +97,8 @@ class OperatorEvaluation:
     n : int
     param_names : tuple of str
     loglik, loglik_se : float
-        L and the standard error of its stochastic part (1/2 ``logdet_se``); the
-        quadratic form adds at most 1/2 ``quadratic_bound`` more (deterministic).
+        L and its standard error: the probes and the rounding model's estimates
+        combined (module docstring, "Stated uncertainty").
     logdet, logdet_se : float
     preconditioner_logdet : float
         log det P (the rest of ``logdet`` is the Lanczos estimate).
@@ -94,6 +126,14 @@ class OperatorEvaluation:
     reml : bool
     phases : dict of str to float
         Seconds per phase (``preconditioner_traces``, ``quadratic``, ``probes``).
+    loglik_bound : float
+        Deterministic part of L's uncertainty: Lanczos bracket, CG bound and the dots'
+        rounding (module docstring); nan when not computed.
+    score_bound : ndarray or None
+        Deterministic part of the score's uncertainty (module docstring).
+    uncertainty : dict
+        Each term of loglik_se and loglik_bound: {"value" (nats, on L), "kind"
+        ("estimate" or "bound"), "source"}, plus "combination".
     """
 
     n: int
@@ -120,6 +160,9 @@ class OperatorEvaluation:
     mean: str = "zero"
     reml: bool = False
     phases: dict[str, float] = field(default_factory=dict)
+    loglik_bound: float = float("nan")
+    score_bound: np.ndarray | None = None
+    uncertainty: dict[str, object] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, object]:
         def arr(a: np.ndarray | None) -> object:
@@ -136,13 +179,16 @@ class OperatorEvaluation:
             "seconds": self.seconds, "converged": self.converged,
             "messages": list(self.messages), "bound_kind": self.bound_kind,
             "mean": self.mean, "reml": self.reml, "phases": dict(self.phases),
+            "loglik_bound": self.loglik_bound, "score_bound": arr(self.score_bound),
+            "uncertainty": dict(self.uncertainty),
         }
 
     def as_model_evaluation(self) -> ModelEvaluation:
         """The values as a ``ModelEvaluation`` (``source="operator"``, estimated traces
         with their SEs); loglik_se and quadratic_bound stay on this record and in the notes."""
-        notes = (f"operator reference: loglik SE {self.loglik_se:.3g}, quadratic bound "
-                 f"{self.quadratic_bound:.3g} ({self.bound_kind}), converged={self.converged}",
+        notes = (f"operator reference: loglik SE {self.loglik_se:.3g}, bound "
+                 f"{self.loglik_bound:.3g} (quadratic-form bound {self.quadratic_bound:.3g}, "
+                 f"{self.bound_kind}), converged={self.converged}",
                  *self.messages)
         return ModelEvaluation(
             source="operator", n=self.n, param_names=self.param_names, loglik=self.loglik,
@@ -301,7 +347,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             if pre.message:
                 messages.append(pre.message)
             da = op.derivative_matvecs(gls.a)                   # (p, n)
-            quad_terms = da @ gls.a
+            quad_terms = accurate_dots(da.T, np.repeat(gls.a[:, None], p, axis=1))
+            da_norms = np.linalg.norm(da, axis=1)
             if reml and design.shape[1]:
                 dsf = op.derivative_matvecs(gls.sinv_design)    # (p, n, q)
                 ginv = np.linalg.inv(gls.gram)
@@ -310,8 +357,11 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             phases["preconditioner_traces"] = time.perf_counter() - t0
         t0 = time.perf_counter()
         logdet_samples: list[np.ndarray] = []
+        width_samples: list[np.ndarray] = []
         trace_samples: list[np.ndarray] = []
+        trace_bounds: list[np.ndarray] = []
         lanczos_ok = True
+        radau_node = float("inf")
         probes = 0
         se_l = float("inf")
         while probes < max_probes:
@@ -321,14 +371,22 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             iterations += int(slq.steps.max())
             lanczos_ok = lanczos_ok and bool(slq.converged.all())
             logdet_samples.append(slq.values)
+            width_samples.append(slq.widths)
+            radau_node = min(radau_node, slq.radau_node)
             if score and pre is not None:
                 solved = pcg(op.matvec, z, precondition=precondition, rtol=cg_rtol,
                              max_iterations=max_iterations, lambda_min=lam)
                 iterations += solved.iterations
                 if not solved.converged:
                     messages.extend(solved.messages)
-                trace_samples.append(trace_difference_samples(op, preconditioner, z, solved.x,
-                                                              control=pre.available))
+                cg_error = (np.linalg.norm(solved.residual, axis=0) / solved.lambda_min
+                            if solved.residual is not None and solved.lambda_min > 0
+                            else np.full(count, np.inf))
+                values_i, bounds_i = trace_difference_bounded(
+                    op, preconditioner, z, solved.x, control=pre.available,
+                    error_norms=cg_error)
+                trace_samples.append(values_i)
+                trace_bounds.append(bounds_i)
             probes += count
             values = np.concatenate(logdet_samples)
             if values.size > 1:
@@ -336,6 +394,12 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             if probes >= min_probes and se_l <= se_target:
                 break
         phases["probes"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        max_entry = float(model.variance) + float(model.nugget)
+        q_round = (quadratic_rounding(op.matvec, gls.a, gls.rhs, gls.residual,
+                                      max_entry=max_entry)
+                   if gls.residual is not None and gls.rhs is not None else None)
+        phases["rounding"] = time.perf_counter() - t0
     except (PreconditionerError, IndefiniteOperatorError, RankDeficientDesignError) as exc:
         messages.append(str(exc))
         return _failed(n, model, mean=mean, reml=reml, messages=messages, start=start,
@@ -348,10 +412,25 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
     if not lanczos_ok:
         messages.append(f"Lanczos did not converge within lanczos_steps = {lanczos_steps} "
                         "for some probes; raise it or use a better preconditioner")
-    loglik_se = 0.5 * logdet_se
-    if not loglik_se <= se_target:
+    probe_se = 0.5 * logdet_se
+    lam_bound = float(lam) if lam is not None else float(gls.lambda_min)
+    ld_entry = logdet_entry_se(n, max_entry=max_entry, lambda_min=lam_bound)
+    terms = _uncertainty_terms(
+        probe_se=probe_se, widths=np.concatenate(width_samples), radau_node=radau_node,
+        cg_bound=float(gls.bound), bound_kind=bound_kind, dot_bound=float(gls.dot_rounding),
+        q_round=q_round, logdet_entry=ld_entry, pivots=pivot_logdet_se(n)
+        if sqrt_maps is not None else 0.0,
+        combination=UNIT_ROUNDOFF * 2.0 * (abs(gls.quadratic) + abs(pre_logdet)
+                                           + abs(logdet - pre_logdet) + n * LOG_2PI))
+    loglik_se = math.sqrt(sum(float(t["value"]) ** 2 for t in terms.values()
+                              if isinstance(t, dict) and t.get("kind") == "estimate"))
+    loglik_bound = sum(float(t["value"]) for t in terms.values()
+                       if isinstance(t, dict) and t.get("kind") == "bound")
+    logdet_se = math.sqrt(logdet_se ** 2 + (2 * terms["rounding_entries_ld"]["value"]) ** 2  # type: ignore[index]
+                          + (2 * terms["rounding_pivots"]["value"]) ** 2)  # type: ignore[index]
+    if not probe_se <= se_target:
         converged = False
-        messages.append(f"the log-likelihood SE {loglik_se:.3g} nat exceeds se_target = "
+        messages.append(f"the log-likelihood SE {probe_se:.3g} nat exceeds se_target = "
                         f"{se_target:g} after max_probes = {max_probes} probes; raise "
                         "max_probes or use a more accurate preconditioner")
     q = design.shape[1]
@@ -360,7 +439,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         logdet_gram = float(np.linalg.slogdet(gls.gram)[1])
         logdet_ftf = float(np.linalg.slogdet(design.T @ design)[1])
         loglik = -0.5 * (gls.quadratic + logdet + logdet_gram - logdet_ftf + (n - q) * LOG_2PI)
-    score_vec = score_se = trace_terms = trace_se = None
+    score_vec = score_se = trace_terms = trace_se = score_bound = None
     if score and pre is not None and quad_terms is not None:
         diff = np.concatenate(trace_samples, axis=1)
         diff_se = diff.std(axis=1, ddof=1) / math.sqrt(diff.shape[1]) if diff.shape[1] > 1 \
@@ -371,6 +450,13 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         trace_se = np.sqrt(pre.se ** 2 + diff_se ** 2)
         score_vec = 0.5 * quad_terms - 0.5 * trace_terms
         score_se = 0.5 * trace_se
+        d_a = (math.sqrt(float(gls.residual @ gls.residual)) / lam_bound
+               if lam_bound > 0 and gls.residual is not None else float("inf"))
+        a_norm = max(float(np.linalg.norm(gls.a)), 1e-300)
+        quad_bound = 2.0 * da_norms * d_a + da_norms * d_a ** 2 / a_norm
+        probe_bound = np.concatenate(trace_bounds, axis=1).mean(axis=1)
+        dots = UNIT_ROUNDOFF * 2.0 * (np.abs(da) @ np.abs(gls.a) + np.abs(quad_terms))
+        score_bound = 0.5 * (quad_bound + probe_bound + dots)
     return OperatorEvaluation(
         n=n, param_names=model.param_names, loglik=float(loglik), loglik_se=loglik_se,
         logdet=logdet, logdet_se=logdet_se, preconditioner_logdet=pre_logdet,
@@ -378,4 +464,54 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         score_se=score_se, trace_terms=trace_terms, trace_se=trace_se, iterations=iterations,
         products=op.column_products, probes=probes, seconds=time.perf_counter() - start,
         converged=converged, messages=tuple(dict.fromkeys(messages)), bound_kind=bound_kind,
-        mean=mean, reml=reml, phases=phases)
+        mean=mean, reml=reml, phases=phases, loglik_bound=float(loglik_bound),
+        score_bound=score_bound, uncertainty=terms)
+
+
+def _uncertainty_terms(*, probe_se: float, widths: np.ndarray, radau_node: float,
+                       cg_bound: float, bound_kind: str, dot_bound: float,
+                       q_round: object, logdet_entry: float, pivots: float,
+                       combination: float) -> dict[str, object]:
+    """The terms of L's stated uncertainty, on the scale of L (module docstring)."""
+    product_se = float(getattr(q_round, "product_se", float("inf")))
+    entry_se = float(getattr(q_round, "entry_se", float("inf")))
+    rigorous = bound_kind == BOUND_NUGGET
+
+    def term(value: float, kind: str, source: str) -> dict[str, object]:
+        return {"value": float(value), "kind": kind, "source": source}
+
+    return {
+        "probes": term(probe_se, "estimate",
+                       "sample SD of the Lanczos probe values / sqrt(N), halved (Ubaru, Chen "
+                       "and Saad 2017, SIAM J. Matrix Anal. Appl. 38(4), Algorithm 1)"),
+        "lanczos": term(0.5 * float(np.mean(widths)) if widths.size else float("inf"), "bound",
+                        "1/2 mean Gauss minus Gauss-Radau value per probe, Radau node "
+                        f"{radau_node:.3g} = 1/2 smallest Ritz value (an estimate of a lower "
+                        "bound of lambda_min(C)); quadrature and stopping error (Golub and "
+                        "Meurant 2010, Matrices, Moments and Quadrature, ch. 6)"),
+        "cg": term(0.5 * cg_bound, "bound",
+                   "1/2 ||r||^2 / lambda_min of the final true residual "
+                   + ("(lambda_min >= nugget: rigorous)" if rigorous
+                      else "(lambda_min from a Ritz estimate: not rigorous)")
+                   + "; Golub and Meurant 2010, ch. 12"),
+        "rounding_dots": term(0.5 * dot_bound + 0.5 * combination, "bound",
+                              "correctly rounded dots of Q (u sum|a_i b_i| + u|a'b|) and the sum "
+                              "-1/2 (Q + log det + n log 2 pi) (Higham 2002, Accuracy and "
+                              "Stability of Numerical Algorithms, section 3.1; Shewchuk 1997)"),
+        "rounding_products": term(0.5 * product_se, "estimate",
+                                  "measured SD of x'e, e the rounding of the residual product "
+                                  "K x, from four rescaled recomputations (statistical model, "
+                                  "Higham 2002, section 2.8)"),
+        "rounding_entries_q": term(0.5 * entry_se, "estimate",
+                                   f"model SD of x' dK x, entries to {ENTRY_ULPS:g} u, "
+                                   "independent (Higham and Mary 2019, SIAM J. Sci. Comput. "
+                                   "41(5))"),
+        "rounding_entries_ld": term(0.5 * logdet_entry, "estimate",
+                                    f"model SD of tr(K^-1 dK) <= {ENTRY_ULPS:g} u max|K| "
+                                    "sqrt(n) / lambda_min (same model)"),
+        "rounding_pivots": term(0.5 * pivots, "estimate",
+                                f"model SD of log det P: n pivots to {PIVOT_ULPS:g} u, "
+                                "independent (same model)"),
+        "combination": "loglik_se = sqrt(sum of the estimates' squares); loglik_bound = sum "
+                       "of the bounds; the rule's |e| <= 2 se + b takes each bound whole",
+    }

@@ -79,8 +79,21 @@ def trace_difference_samples(operator: KernelOperator, preconditioner: Factoriza
     ``sinv_z`` is Sigma^-1 z from CG; Sigma_i z are exact products. With
     ``control=False`` the second term is omitted.
     """
+    return trace_difference_bounded(operator, preconditioner, z, sinv_z, control=control,
+                                    error_norms=np.zeros(z.shape[1]))[0]
+
+
+def trace_difference_bounded(operator: KernelOperator, preconditioner: Factorization,
+                             z: np.ndarray, sinv_z: np.ndarray, *, control: bool,
+                             error_norms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``trace_difference_samples`` and each value's CG error bound, both shape (p, count).
+
+    ``error_norms`` bounds ||sinv_z - Sigma^-1 z|| per probe (||r|| / lambda_min); then
+    |z' Sigma_i (x - x*)| <= ||Sigma_i z|| ||x - x*|| (Cauchy-Schwarz).
+    """
     exact = operator.derivative_matvecs(z)                    # (p, n, count)
     values = np.einsum("nc,pnc->pc", sinv_z, exact)
     if control:
         values -= _preconditioner_quadratics(preconditioner, z, operator.n_params)
-    return values
+    bounds = np.linalg.norm(exact, axis=1) * np.asarray(error_norms)[None, :]
+    return values, bounds
