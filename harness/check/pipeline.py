@@ -79,6 +79,7 @@ from harness.check.frontier_table import (
     timing_repeats,
 )
 from harness.check.ladder_growth import subsample_growth, with_growth
+from harness.check.plugin_guard import prepare_solver_children
 from harness.check.reference_kind import reference_kind
 from harness.check.refit import isolated_refit, refit_with_solver
 from harness.check.solver_audit import SolverAudit, audit_solver, trial_before_fit
@@ -169,6 +170,7 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
     start = time.perf_counter()
     _validate(options)
     lineup = line_up(options, data.n)
+    prepare_solver_children(lined.solver for lined in lineup.solvers)
     several = len(options.solver_names) > 1
     streams = check_streams(options.seed)
     split_rng, fit_rng, probe_rng, growth_rng = (streams[name] for name in CHECK_STREAMS)
@@ -189,8 +191,10 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                 raise
             failed_trials[lined.given] = str(exc)
         if lined.isolation is not None:
-            notes.append(f"solver {lined.given!r} ran only in child processes: a trial on "
-                         "a few points before the fit, then each (knob value, seed) audit, "
+            trial = ("a trial on a few points before the fit, then "
+                     if lined.solver.origin != "builtin" else "")
+            notes.append(f"solver {lined.given!r} ran only in child processes: {trial}"
+                         "each (knob value, seed) audit, "
                          f"stopped after {lined.isolation.timeout:g} s "
                          f"({lined.isolation.timeout_option})")
     fitted = _fitted(x, y, template, options, d, fit_rng, state, say)

@@ -69,8 +69,9 @@ def tolerance_row(audit: ToleranceAudit, reference: str) -> ToleranceResult:
 def trial_before_fit(lined: LinedUpSolver, x: np.ndarray, y: np.ndarray,
                      options: CheckOptions, template: Kernel, say: Progress) -> list[str]:
     """The trial of a plugin on a few points before the fit
-    (``harness.audit.solver_trial``); its warnings. Raises ``SolverFailed``."""
-    if lined.isolation is None:
+    (``harness.audit.solver_trial``); its warnings (none for a built-in, which is not
+    tried). Raises ``SolverFailed``."""
+    if lined.isolation is None or lined.solver.origin == "builtin":
         return []
     say(f"trial of solver {lined.given!r} on a few points, before the fit")
     return trial_solver(

@@ -32,7 +32,8 @@ from harness.solvers.registry import ResolvedSolver, resolve_solver
 @dataclass(frozen=True)
 class LinedUpSolver:
     """One solver under test: as given, resolved, its knob values (loose to tight), its
-    child-process guard (None for a built-in) and its factory's other options."""
+    child-process guard (``harness.check.plugin_guard``: None only under the benchmark's
+    in-process switch) and its factory's other options."""
 
     given: str
     solver: ResolvedSolver
@@ -122,7 +123,8 @@ def line_up(options: CheckOptions, n: int) -> Lineup:
                                                 f"{solver.knob.range_text()})"))
             continue
         try:
-            isolation = solver_isolation(solver, n, options.solver_timeout)
+            isolation = solver_isolation(solver, n, options.solver_timeout, values=values,
+                                         probes=options.probes)
         except OptionError as exc:
             raise CheckError(str(exc)) from None
         audited.append(LinedUpSolver(given=given, solver=solver, values=values,

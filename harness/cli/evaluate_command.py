@@ -31,7 +31,7 @@ from harness.infra.child_process import ChildCrashed, ChildTimeout, call_in_chil
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode
 from harness.infra.option_specs import PROBES, SOLVER_TIMEOUT, TOLERANCE, OptionError
-from harness.infra.solver_timeout import default_solver_timeout
+from harness.infra.solver_timeout import RULE_TEXT, solver_call_timeout
 from harness.model import MEAN_MODELS
 from harness.model.evaluation import fisher_standard_errors
 from harness.model.json_values import to_jsonable
@@ -44,10 +44,10 @@ DEFAULT_TOL = 1e-8
 #: ``--solver`` names that are references, not registry solvers: no accuracy knob.
 REFERENCE_NAMES = frozenset({"statespace", "kronecker", "operator"})
 
-#: Built-in references and solvers evaluated in this process; anything else is a plugin.
-#: Solvers evaluated in this process; every other one (plugins, and ``dense``, whose BLAS
-#: can crash natively at large n) runs in a child process, so a crash or a hang is reported.
-IN_PROCESS_SOLVERS = frozenset({"statespace", "kronecker", "hodlr", "operator"})
+#: The structured references, evaluated in this process; every solver (plugins and the
+#: built-in dense, hodlr and vecchia) and the operator reference with any preconditioner
+#: run in a child process, so a crash or a hang is reported (exit code 3).
+IN_PROCESS_SOLVERS = frozenset({"statespace", "kronecker"})
 
 
 def add_parser(subparsers: argparse._SubParsersAction) -> None:
@@ -114,10 +114,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
     p.add_argument("--no-score", action="store_true", help="skip the score")
     p.add_argument("--task-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
                    metavar="SECONDS",
-                   help="stop a solver plugin (or a plugin preconditioning --solver "
-                        "operator) after this many seconds; they run in a child process "
-                        "(default: one hour up to 100,000 points, growing like n^1.5 "
-                        "beyond)")
+                   help="stop the solver (or --solver operator with its preconditioner) "
+                        "after this many seconds; it runs in a child process (default: "
+                        f"{RULE_TEXT})")
     p.add_argument("--memory-budget", type=float_range("--memory-budget", 0.0, 1e6,
                                                        low_open=True),
                    default=None, metavar="GIB",
@@ -154,6 +153,29 @@ def knob_options(args: argparse.Namespace) -> tuple[float, float | None]:
     except OptionError as exc:
         raise EvaluationError(f"--knob-value: {exc.core}") from None
     return (value, None) if knob.is_tol else (DEFAULT_TOL, value)
+
+
+def _solver_words(solver: str, preconditioner: str) -> str:
+    """The solver under test as the messages name it."""
+    if solver == "operator":
+        kind = "plugin" if preconditioner not in BUILTIN_SOLVERS else "built-in solver"
+        return f"the operator reference preconditioned by the {kind} {preconditioner!r}"
+    if solver in BUILTIN_SOLVERS:
+        return f"the {solver} solver"
+    return f"the solver plugin {solver!r}"
+
+
+def _default_timeout(args: argparse.Namespace, n: int, params: int, tol: float) -> float:
+    """The limit without ``--task-timeout``: 10 x the cost model's estimate of one
+    evaluation + 60 s for the built-in dense and hodlr solvers, else the rule of n
+    (``harness.infra.solver_timeout``)."""
+    from harness.check.plugin_guard import call_estimate
+
+    estimate = None
+    if args.solver in BUILTIN_SOLVERS:
+        estimate = call_estimate(resolve_solver(args.solver), n, [tol], probes=args.probes,
+                                 evaluations=1 + int(args.fisher), params=params)
+    return solver_call_timeout(n, estimate)
 
 
 def _finite_or_none(value: float | None) -> float | None:
@@ -226,15 +248,10 @@ def run(args: argparse.Namespace) -> int:
         if args.solver != "operator" and (args.dask_local is not None
                                           or args.scheduler is not None):
             raise EvaluationError("--dask-local and --scheduler apply to --solver operator")
-        plugin_preconditioner = (args.solver == "operator"
-                                 and args.preconditioner not in BUILTIN_SOLVERS)
-        if args.solver not in IN_PROCESS_SOLVERS or plugin_preconditioner:
-            what = ("the dense solver" if args.solver == "dense"
-                    else "the operator reference preconditioned by the plugin "
-                         f"{args.preconditioner!r}" if plugin_preconditioner
-                    else f"the solver plugin {args.solver!r}")
-            timeout = (default_solver_timeout(obs.n) if args.task_timeout is None
-                       else args.task_timeout)
+        if args.solver not in IN_PROCESS_SOLVERS:
+            what = _solver_words(args.solver, args.preconditioner)
+            timeout = (_default_timeout(args, obs.n, kernel.n_params, tol)
+                       if args.task_timeout is None else args.task_timeout)
             outcome = call_in_child(evaluate_with_solver, args.solver, obs.points, obs.values,
                                     kernel, mean=args.mean, reml=args.reml,
                                     score=not args.no_score, fisher=args.fisher,

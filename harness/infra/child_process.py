@@ -46,7 +46,7 @@ import sys
 import tempfile
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from multiprocessing.connection import Connection, wait
 from pathlib import Path
@@ -201,6 +201,29 @@ def start_context(module: str) -> tuple[Any, bool]:
     if environment == _SERVER.environment:
         return multiprocessing.get_context("forkserver"), True
     return multiprocessing.get_context("spawn"), False
+
+
+def prepare_server(modules: Sequence[str]) -> bool:
+    """Start the fork server now, with ``modules`` preloaded beside numpy, scipy and numba.
+
+    A command that will start many children (``check``) calls this first, naming the
+    modules its children need, among them a warm-up module whose import loads compiled
+    kernels from numba's cache (``harness.solvers.compiled_preload``): the server does
+    the imports and the loading once, while the caller goes on (the server is a separate
+    process and this call does not wait for it), and every child forked later inherits
+    them. Returns False, doing nothing, where the server has already started in this
+    process (its preload cannot change; children then import and load what they need
+    themselves) or the platform has no fork server.
+    """
+    if "forkserver" not in multiprocessing.get_all_start_methods() \
+            or _SERVER.environment is not None:
+        return False
+    from multiprocessing import forkserver
+
+    multiprocessing.get_context("forkserver").set_forkserver_preload([*_PRELOAD, *modules])
+    _SERVER.environment = _load_time_environment()
+    forkserver.ensure_running()
+    return True
 
 
 def _child(conn: Connection, stderr_path: str, parent: int | None, stage: str | None,

@@ -21,7 +21,9 @@ rate of this machine (``measure_dense_rate``: a Cholesky factorization of an n =
 matrix on one thread, median of 5, about 0.25 s), calibrates the whole model. The
 constants were fitted to measured runs of ``cases/smoke.toml`` on a 2-core machine (see
 ``benchmarks/results/cost_model.json``); elsewhere they are estimates, shown as such.
-Without a measured rate the model assumes ``DENSE_FLOPS``.
+Without a measured rate the model assumes ``DENSE_FLOPS``. The solver's share (dense and
+compressed evaluations, the rank, ``DENSE_FLOPS``) lives in ``harness.infra.solver_cost``,
+which the default time limit of a solver call (``harness.infra.solver_timeout``) uses too.
 
 The probe runs for a fraction of a second on one thread and so sees a core to itself
 even on a busy machine, while the run then shares the cores with everything else: the
@@ -42,13 +44,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from harness.grid.tasks import Task
+from harness.infra.solver_cost import DENSE_FLOPS, dense_flops, evaluation_flops
 
-#: Assumed single-thread dense throughput (flop/s) when none was measured.
-DENSE_FLOPS = 7e9
-#: Dense-work flops per (n log2(n)^2 rank) unit of one compressed evaluation with gradient.
-COMPRESSED_UNIT_FLOPS = 400.0
-#: Dense-work flops of the fixed cost of one compressed evaluation (tree, Python loops).
-EVAL_OVERHEAD_FLOPS = 1.4e9
 #: Dense-work flops of the fixed cost of one job (accuracy or timing).
 JOB_OVERHEAD_FLOPS = 3.6e9
 #: Dense-work flops of a run's start-up when it holds a compressed-solver task.
@@ -157,16 +154,6 @@ def _params(task: Task) -> int:
     return 1 + k + (1 if float(task.kernel_params.get("nugget", 0.0)) > 0 else 0)
 
 
-def _rank(tol: float | None) -> float:
-    return 4.0 + 6.0 * math.log10(1.0 / tol) if tol else 0.0
-
-
-def _dense_flops(n: int, p: int) -> tuple[float, int]:
-    # Cholesky n^3/3, inverse 2n^3/3, Fisher 2 p n^3, twice (theta_0 and perturbed).
-    flops = 2 * (n ** 3 / 3 + 2 * n ** 3 / 3 + 2 * p * n ** 3)
-    return flops, int(8 * n * n * (p + 3))
-
-
 def _jobs(task: Task) -> int:
     return 2 if task.timing and task.exclusive_timing else 1
 
@@ -203,18 +190,12 @@ def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
     if not (math.isfinite(flops_per_second) and flops_per_second > 0):
         raise ValueError(f"estimate_cost: rate must be a positive flop/s, got {rate!r}")
     n, p = task.n, _params(task)
-    dense_work, dense_bytes = _dense_flops(n, p)
+    dense_work, dense_bytes = dense_flops(n, p)
     use_dense = "dense" in task.references and (dense_limit_bytes is None
                                                 or dense_bytes <= dense_limit_bytes)
-    if task.solver == "dense":
-        solver_work, solver_bytes = dense_work / 2, 8 * n * n
-    else:
-        rank = _rank(task.tol) or 20.0
-        units = n * max(math.log2(max(n, 2)), 1.0) ** 2 * rank
-        probes = 0 if task.trace_method == "exact" else task.probes
-        solver_work = (COMPRESSED_UNIT_FLOPS * units * (1 + probes * p / 50)
-                       + EVAL_OVERHEAD_FLOPS)
-        solver_bytes = int(8 * n * rank * max(math.log2(max(n, 2)), 1.0) * 2)
+    solver_work, solver_bytes = evaluation_flops(
+        n, p, dense=task.solver == "dense", tol=task.tol,
+        probes=0 if task.trace_method == "exact" else task.probes)
     work = solver_work * (2 if "perturbed" in task.metrics else 1)
     if task.timing:
         work += solver_work * (task.repeats + task.warmup)

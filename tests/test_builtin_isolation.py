@@ -1,0 +1,144 @@
+"""Every solver under test runs in a child process in ``check`` and ``evaluate``, the
+built-in ones too (``harness.check.plugin_guard``): a crash of a built-in in its child is
+"solver failed" and exit code 3 as for a plugin (DEVELOPERS.md, "Exit codes"), a numerical
+breakdown stays "unsafe", the verdicts equal those computed in process, and the default
+limit of a call is 10 x its cost estimate + 60 s where the cost model has one
+(``harness.infra.solver_timeout``).
+
+The checks stay small: 120 points, fixed parameters, one tolerance, one solver seed, no
+refit. The crash is real: a SIGSEGV in the solver's child, through the test hook
+``COVAUDIT_TEST_CRASH_STAGE`` (``harness.infra.child_process``).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from harness.audit.solver_calls import SOLVER_STAGE, SolverIsolation
+from harness.check.plugin_guard import IN_PROCESS_VARIABLE, call_estimate, solver_isolation
+from harness.cli import main
+from harness.infra.child_process import CRASH_STAGE_VARIABLE
+from harness.infra.solver_timeout import default_solver_timeout, timeout_from_estimate
+from harness.solvers.registry import ResolvedSolver, resolve_solver
+
+N = 120
+
+
+@pytest.fixture(scope="module")
+def field(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    root = tmp_path_factory.mktemp("builtin")
+    rng = np.random.default_rng(11)
+    pd.DataFrame({"e": rng.uniform(0, 10, N), "n": rng.uniform(0, 10, N),
+                  "z": rng.normal(size=N)}).to_csv(root / "field.csv", index=False)
+    return root / "field.csv"
+
+
+def _check_args(data: Path, out: Path, solver: str = "hodlr") -> list[str]:
+    return ["check", str(data), "--coords", "e,n", "--value", "z", "--kernel", "matern32",
+            "--params", "variance=1", "lengthscale=2", "nugget=0.1", "--tolerances", "1e-6",
+            "--solver-seeds", "1", "--no-refit", "--solver", solver, "--out", str(out),
+            "--json"]
+
+
+def test_builtins_get_a_guard_with_the_cost_estimate_rule(monkeypatch) -> None:
+    monkeypatch.delenv(IN_PROCESS_VARIABLE, raising=False)
+    hodlr = resolve_solver("hodlr")
+    guard = solver_isolation(hodlr, 2_000, None, values=(1e-4, 1e-8), probes=16)
+    assert guard is not None
+    estimate = call_estimate(hodlr, 2_000, (1e-4, 1e-8), probes=16)
+    assert estimate is not None and estimate > 0
+    assert guard.timeout == pytest.approx(10 * estimate + 60)  # the rule at tol 1e-8
+    assert call_estimate(hodlr, 2_000, (1e-8,), probes=16) == estimate
+    assert solver_isolation(resolve_solver("dense"), 500, None) is not None
+    # no estimate (Vecchia's knob has no rank in the model): the rule of n
+    vecchia = solver_isolation(resolve_solver("vecchia"), 2_000, None, values=(30.0,))
+    assert vecchia is not None and vecchia.timeout == default_solver_timeout(2_000)
+    assert solver_isolation(hodlr, 2_000, 5.0).timeout == 5.0  # type: ignore[union-attr]
+    monkeypatch.setenv(IN_PROCESS_VARIABLE, "1")  # the benchmark's switch only
+    assert solver_isolation(hodlr, 2_000, None) is None
+
+
+def test_timeout_from_estimate_rule() -> None:
+    assert timeout_from_estimate(0.0) == 60.0
+    assert timeout_from_estimate(12.5) == 185.0
+    for bad in (-1.0, float("nan"), float("inf")):
+        with pytest.raises(ValueError):
+            timeout_from_estimate(bad)
+
+
+def _breaks_down(points, kernel, theta, *, tol=None):
+    from harness.solvers.hodlr import CompressionBreakdownError
+
+    raise CompressionBreakdownError(level=1, block=0, rows=(0, 8), depth=2,
+                                    detail="on purpose")
+
+
+def _raises(points, kernel, theta, *, tol=None):
+    raise ValueError("raised on purpose")
+
+
+@pytest.mark.parametrize(("factory", "status"), [(_raises, "solver failed"),
+                                                 (_breaks_down, "unsafe")])
+def test_an_isolated_builtin_error_is_classified(factory, status) -> None:
+    # In its child a built-in's HODLR breakdown is a finding (unsafe), anything else a
+    # failed solver (harness.audit.solver_calls.is_breakdown).
+    from harness.audit import engine
+    from harness.audit.audit_references import build_reference
+    from harness.audit.audit_sampling import audit_draws
+    from harness.model.kernels import make_kernel
+
+    rng = np.random.default_rng(5)
+    points = rng.uniform(size=(60, 2))
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 0.3, "nugget": 1e-2})
+    y = np.linalg.cholesky(kernel.covariance(points)) @ rng.normal(size=60)
+    hold, probes = audit_draws(60, holdout=6, probes=4, seed=1)
+    data = engine.AuditData(points=points, y=y, kernel=kernel, mean="constant",
+                            holdout=hold, fisher=None, probes=probes)
+    solver = ResolvedSolver(name="hodlr", version=None, factory=factory, origin="builtin")
+    reference = build_reference("dense", data, solver=solver, solver_options={},
+                                base_seed=0, memory_budget=None, ladder_factor=100.0,
+                                probes=4, isolate=False)
+    result = engine.audit_tolerances(data, solver, (1e-6,), reference, seeds=(1,),
+                                     isolation=SolverIsolation(timeout=120.0))
+    (audit,) = result.tolerances
+    assert audit.verdict.status == status
+    assert "on purpose" in audit.verdict.failures[0]
+
+
+def test_a_crash_of_hodlr_in_its_child_is_a_failed_solver(field: Path, tmp_path: Path) -> None:
+    env = dict(os.environ, **{CRASH_STAGE_VARIABLE: SOLVER_STAGE})
+    env.pop(IN_PROCESS_VARIABLE, None)
+    proc = subprocess.run([sys.executable, "-m", "harness",
+                           *_check_args(field, tmp_path / "out")], cwd=tmp_path, env=env,
+                          capture_output=True, text=True, timeout=600, check=False)
+    assert proc.returncode == 3, proc.stderr  # DEVELOPERS.md, "Exit codes"
+    result = json.loads(proc.stdout)
+    (row,) = result["tolerances"]
+    assert row["status"] == "solver failed"
+    assert "solver 'hodlr' crashed with signal 11 (SIGSEGV) at tol 1e-06, seed 0" in row["error"]
+    assert "Traceback" not in proc.stderr
+
+
+def test_isolated_verdicts_equal_in_process_ones(field: Path, tmp_path: Path, capsys,
+                                                 monkeypatch) -> None:
+    monkeypatch.delenv(IN_PROCESS_VARIABLE, raising=False)
+    assert main(_check_args(field, tmp_path / "child")) == 0
+    isolated = json.loads(capsys.readouterr().out)
+    monkeypatch.setenv(IN_PROCESS_VARIABLE, "1")
+    assert main(_check_args(field, tmp_path / "here")) == 0
+    in_process = json.loads(capsys.readouterr().out)
+    assert any("ran only in child processes" in note for note in isolated["notes"])
+    assert not any("ran only in child processes" in note for note in in_process["notes"])
+    for a, b in zip(isolated["tolerances"], in_process["tolerances"], strict=True):
+        assert a["status"] == b["status"] and a["reasons"] == b["reasons"]
+        for name in ("loglik_err_nat", "param_shift_se", "kriging_mean_err_sd"):
+            assert a[name] == b[name], name
+        assert [s["loglik"] for s in a["seeds"]] == [s["loglik"] for s in b["seeds"]]
