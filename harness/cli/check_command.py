@@ -57,6 +57,7 @@ from harness.infra.option_specs import (
     VARIANCE_POINTS,
 )
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
+from harness.infra.solver_timeout import RULE_TEXT as SOLVER_TIMEOUT_RULE
 from harness.linalg.dense_budget import DEFAULT_BUDGET_FRACTION
 from harness.model import MEAN_MODELS
 from harness.model.kernels import KERNELS, KernelParameterError
@@ -177,9 +178,9 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "dense reference it is always measured exactly)")
     p.add_argument("--solver-timeout", type=SOLVER_TIMEOUT.argparse_type(), default=None,
                    metavar="SECONDS",
-                   help="stop one call into a solver plugin (each knob value and seed runs "
-                        "in a child process) after this many seconds (default: one hour up "
-                        "to 100,000 points, growing like n^1.5 beyond)")
+                   help="stop one call into the solver under test (each knob value and "
+                        "seed runs in a child process, built-in solvers and plugins alike) "
+                        f"after this many seconds (default: {SOLVER_TIMEOUT_RULE})")
     p.add_argument("--out", default=None, help="folder for check.json and check.html "
                                                "(default reports/check-<data file stem>/)")
     p.add_argument("--json", action="store_true", help="one JSON object on standard output")
