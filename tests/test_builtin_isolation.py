@@ -142,3 +142,34 @@ def test_isolated_verdicts_equal_in_process_ones(field: Path, tmp_path: Path, ca
         for name in ("loglik_err_nat", "param_shift_se", "kriging_mean_err_sd"):
             assert a[name] == b[name], name
         assert [s["loglik"] for s in a["seeds"]] == [s["loglik"] for s in b["seeds"]]
+
+
+_PRELOAD_THEN_FORK = """
+import json, os
+import numpy as np
+import numba.np.ufunc.parallel as parallel
+from harness.solvers.compiled_preload import LOADED
+from harness.model.kernels import make_kernel
+from harness.solvers.registry import resolve_solver
+
+started = parallel._is_initialized
+kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 0.2, "nugget": 1e-2})
+points = np.random.default_rng(0).random((400, 2))
+pid = os.fork()
+if pid == 0:  # a parallel kernel in a child forked after the preload
+    fac = resolve_solver("vecchia").factorize(points, kernel, None, tol=None, neighbours=10)
+    os._exit(0 if np.isfinite(fac.logdet()) else 1)
+_, status = os.waitpid(pid, 0)
+print(json.dumps([started, os.waitstatus_to_exitcode(status), len(LOADED.parallel_skipped)]))
+"""
+
+
+def test_the_kernel_preload_leaves_forked_children_able_to_run_parallel_kernels() -> None:
+    # harness.infra.kernel_cache: loading a parallel kernel would start numba's threading
+    # layer, and a child forked after that dies (SIGTERM) at its first parallel loop.
+    proc = subprocess.run([sys.executable, "-c", _PRELOAD_THEN_FORK], capture_output=True,
+                          text=True, timeout=600, check=False)
+    assert proc.returncode == 0, proc.stderr
+    started, child_status, skipped = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert started is False and skipped > 0
+    assert child_status == 0, proc.stderr

@@ -20,7 +20,11 @@ process isolation most of the cost of a small check). The server is one per proc
 with. Variables that libraries read only when they load (thread counts such as
 ``OPENBLAS_NUM_THREADS``, numba's ``NUMBA_*`` settings) cannot change in a forked child,
 so when one of them differs from the server's, that child is started by ``spawn`` instead;
-every other variable is the caller's at the moment of the call, as with ``spawn``.
+every other variable is the caller's at the moment of the call, as with ``spawn``. A
+command that will start many children starts the server itself first
+(``prepare_server``), naming more modules to preload, among them one whose import loads
+compiled kernels from numba's cache (``harness.infra.kernel_cache``), so that no child
+loads them again.
 
 Children die with their parent: on Linux each asks the kernel for SIGKILL when its parent
 (the caller, or the server, which exits with the caller: ``enter_child``) dies
