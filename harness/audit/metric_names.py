@@ -23,9 +23,10 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-import pandas as pd
+if TYPE_CHECKING:  # pandas loads only where a results frame is read
+    import pandas as pd
 
 __all__ = [
     "ALIASES", "FACTOR_ERR_REL", "KRIGING_MEAN_ERR_SD", "KRIGING_VAR_ERR_REL",
@@ -167,6 +168,8 @@ def with_canonical_columns(frame: pd.DataFrame) -> pd.DataFrame:
     frame : DataFrame
         Rows as in ``results.csv`` (``harness.analysis.load.load_run(...).results``).
     """
+    import pandas as pd
+
     out = frame.copy()
     for m in METRICS:
         source = next((c for c in (m.column, m.canonical, *m.aliases) if c in out.columns),

@@ -7,8 +7,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from harness.audit import engine as audit_engine
+from harness.audit.rule import Thresholds
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
-from harness.audit.verdict import Thresholds
 from harness.infra.option_specs import PRECONDITIONER, VARIANCE_POINTS
 
 DEFAULT_TOLERANCES = (1e-2, 1e-4, 1e-6, 1e-8, 1e-10)

@@ -26,8 +26,6 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
-from scipy.stats import mannwhitneyu
-
 #: Significance level of the tie test between the two fastest picks (common practice).
 TIE_ALPHA = 0.05
 #: Metrics whose limit-relative size places a point on the frontier (the figure's panels).
@@ -124,6 +122,8 @@ def tie_p_value(a: Sequence[float], b: Sequence[float]) -> float:
         return 1.0
     if len(set(a) | set(b)) == 1:
         return 1.0
+    from scipy.stats import mannwhitneyu  # loads only with several solvers
+
     return float(mannwhitneyu(list(a), list(b), alternative="two-sided").pvalue)
 
 
