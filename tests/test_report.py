@@ -297,3 +297,16 @@ def test_terminal_summary_uses_the_same_labels_and_keeps_words_whole():
     assert f"[1] tol 1e-03: {BREAKDOWN}" in text
     # dense time = 0.25 s x 3.2 = 0.8 s (hand arithmetic)
     assert "0.8 s against 0.25 s" in text
+
+
+def test_terminal_recommendation_below_one_reads_as_slower_not_faster():
+    from check_example import example_result
+
+    from harness.cli.check_command import summary
+    from harness.report.run_summary import DOES_NOT_PAY
+
+    # speed-up at the pick 3.2 x 0.3 = 0.96 (hand arithmetic): the dense evaluation is faster
+    line = next(x for x in summary(example_result(slow=True)).splitlines()
+                if "recommendation:" in x)
+    assert "faster" not in line
+    assert "speed-up 0.96x: slower than dense" in line and DOES_NOT_PAY in line

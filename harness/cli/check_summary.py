@@ -12,6 +12,7 @@ from harness.check.check_records import UNCONVERGED_REMEDY, CheckResult
 from harness.cli.frontier_summary import frontier_lines
 from harness.report.condense import shorten
 from harness.report.labels import metric_label
+from harness.report.run_summary import DOES_NOT_PAY
 
 
 def summary(result: CheckResult) -> str:
@@ -71,8 +72,10 @@ def summary(result: CheckResult) -> str:
         times = (f": {best.seconds * speedup:.3g} s against {best.seconds:.3g} s "
                  "per log-likelihood evaluation"
                  if result.speedup is not None and math.isfinite(best.seconds) else "")
-        lines.append(f"  recommendation: {_at(knob, picked)} "
-                     f"({speedup:.3g}x faster than {result.speedup_over}{times})")
+        pace = (f"{speedup:.3g}x faster than {result.speedup_over}" if not speedup < 1 else
+                f"speed-up {speedup:.3g}x: slower than {result.speedup_over}, "
+                f"{DOES_NOT_PAY}")
+        lines.append(f"  recommendation: {_at(knob, picked)} ({pace}{times})")
     lines += frontier_lines(result)
     if result.refit:
         refit_value = (result.refit.tol if result.refit.knob_value is None
