@@ -21,7 +21,7 @@ most ``se_target`` or ``max_probes`` is reached. Caution, measured: with a loose
 preconditioner the per-probe values are skewed and the sample SE from 16-64 probes ran
 low (dL / SE spread about 1.3 over 20 seeds at n = 2,000 with the built-in solver at tol
 1e-5; about 1 at tol 1e-8, benchmarks/results/operator_vs_dense.json).
-Stated uncertainty (issue 22 item 6). ``loglik_se`` and ``loglik_bound`` hold every
+Stated uncertainty. ``loglik_se`` and ``loglik_bound`` hold every
 term, listed with its kind and source in ``uncertainty`` (and so in the reference's
 ``reference_detail`` / ``reference_by_metric`` entries):
 
