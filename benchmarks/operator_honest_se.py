@@ -1,4 +1,4 @@
-"""The exact operator's stated uncertainty against a long-double Kalman truth (issue 22 item 6).
+"""The exact operator's stated uncertainty against a long-double Kalman truth.
 
 Points: n uniform on [0, 1] (seed 0) on a line; Matern 1/2 and 3/2, s2 = 1, l = 0.1,
 nugget 1e-2; data drawn from the model by the float64 state-space recursion (seeds
