@@ -22,21 +22,6 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import pytest  # noqa: E402
 
-#: Fixture scopes whose value a whole module shares: its tests stay on one worker.
-SHARED_SCOPES = frozenset({"module", "package", "class"})
-
-
-def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
-    """Under ``--dist loadgroup`` (the default run), a test that uses a module-scoped
-    fixture joins its module's group, so that the fixture (often a whole ``check`` or
-    ``run``) is computed once, on one worker; every other test is dealt out on its own,
-    which keeps the two workers busy to the end (whole files, ``--dist loadfile``, left
-    one worker alone with the last long file)."""
-    for item in items:
-        definitions = getattr(getattr(item, "_fixtureinfo", None), "name2fixturedefs", {})
-        if any(d and d[-1].scope in SHARED_SCOPES for d in definitions.values()):
-            item.add_marker(pytest.mark.xdist_group(item.nodeid.split("::")[0]))
-
 
 @pytest.fixture
 def plane_csv(tmp_path: Path) -> tuple[Path, pd.DataFrame]:
