@@ -1,7 +1,7 @@
 """How good is ``covaudit cases``' cost estimate? Estimate a case, run it, compare.
 
 Measures, in one process: the dense-rate probe that calibrates the estimate
-(``harness.grid.cases.cost.measure_dense_rate``), the same-run unit (one
+(``harness.linalg.dense_rate.measure_dense_rate``), the same-run unit (one
 ``scipy.linalg.cho_factor`` at n = 8,192, default threads, median of ``--unit-repeats``),
 the estimate of every task of CASEFILE, and the measured serial run of the grid
 (``run_grid`` seconds, as ``covaudit run`` prints them; median of ``--repeats`` fresh
@@ -76,8 +76,9 @@ def main(argv: list[str] | None = None) -> int:
 
     from harness._version import __version__
     from harness.grid.cases import load_case
-    from harness.grid.cases.cost import contention, estimate_grid, measure_dense_rate
+    from harness.grid.cases.cost import contention, estimate_grid
     from harness.grid.store.environment import environment
+    from harness.linalg.dense_rate import measure_dense_rate
 
     case = load_case(args.casefile)
     rate = measure_dense_rate(rng=0)

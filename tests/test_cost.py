@@ -12,13 +12,8 @@ from pathlib import Path
 import pytest
 
 from harness.grid.cases import load_case
-from harness.grid.cases.cost import (
-    DENSE_FLOPS,
-    DenseRate,
-    estimate_cost,
-    estimate_grid,
-    measure_dense_rate,
-)
+from harness.grid.cases.cost import DENSE_FLOPS, estimate_cost, estimate_grid
+from harness.linalg.dense_rate import DenseRate, measure_dense_rate
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -8,13 +8,15 @@ call would cost several seconds, so the calibration times a dpotrf at ``PROBE_N`
 
     unit = t_dpotrf(PROBE_N) * (8192 / PROBE_N)^3
 
-The probe runs on one BLAS thread: threaded BLAS on a loaded machine varies tenfold from
-call to call (measured on the project's busy 2-core machine: 0.28 to 0.53 s at n = 1,024
-with two threads, 0.026 to 0.056 s with one), while one thread gets its core. A small
-dpotrf on one thread runs below the rate of a large threaded one, so this *predicted*
-unit is an upper estimate of the measured one (there 14 s against a measured 10.4 s,
-``benchmarks/results/figure_drawing.json``; ``tests/test_check_plan.py`` holds the n^3
-scaling to a factor). What else is timed, each a fraction of a second:
+The probe is the project's dense-rate probe (``harness.linalg.dense_rate``, which the
+grid's cost model uses too). It runs on one BLAS thread: threaded BLAS on a loaded
+machine varies tenfold from call to call (measured on the project's busy 2-core machine:
+0.28 to 0.53 s at n = 1,024 with two threads, 0.026 to 0.056 s with one), while one
+thread gets its core. A small dpotrf on one thread runs below the rate of a large
+threaded one, so this *predicted* unit is an upper estimate of the measured one (there
+14 s against a measured 10.4 s, ``benchmarks/results/figure_drawing.json``;
+``tests/test_check_plan.py`` holds the n^3 scaling to a factor). What else is timed,
+each a fraction of a second:
 
 - kernel assembly: the lower triangle of Sigma at ``PROBE_N`` points (entries per
   second, ``harness.model.kernels.lower_fill.assemble_lower``);
@@ -41,13 +43,12 @@ from typing import Any
 
 import numpy as np
 
+from harness.linalg.dense_rate import PROBE_N, measure_dense_rate
 from harness.model.kernels import Kernel
 from harness.solvers.registry import ResolvedSolver
 
 #: The project's time unit: one dpotrf at this n, in the same run.
 UNIT_N = 8192
-#: Size of the timed dpotrf and of the kernel-assembly probe.
-PROBE_N = 1024
 #: Repeats of the dpotrf probe (the median is kept).
 PROBE_REPEATS = 3
 #: Subset sizes at which each built-in solver is factorized (each at most n).
@@ -156,38 +157,18 @@ class Calibration:
                 "seconds": self.seconds}
 
 
-def time_dpotrf(kernel: Kernel, d: int, *, rng: np.random.Generator, n: int = PROBE_N,
-                repeats: int = PROBE_REPEATS) -> tuple[float, float]:
-    """(median seconds of a dpotrf at n, kernel entries assembled per second).
-
-    The matrix is ``kernel`` at n uniform points of the unit cube in d dimensions with
-    its diagonal raised by n (positive definite whatever the nugget); LAPACK's dpotrf
-    through ``scipy.linalg.lapack`` on a Fortran copy each repeat, on one BLAS thread.
-    n = 1,024 stays below the BLAS guard's operand bound
-    (``harness.linalg.blas_calls.MAX_OPERAND_ELEMENTS``).
-    """
-    from scipy.linalg import lapack
-    from threadpoolctl import threadpool_limits
-
+def assembly_rate(kernel: Kernel, d: int, *, rng: np.random.Generator,
+                  n: int = PROBE_N) -> float:
+    """Kernel entries of the lower triangle of Sigma assembled per second, at n uniform
+    points of the unit cube in d dimensions
+    (``harness.model.kernels.lower_fill.assemble_lower``)."""
     from harness.model.kernels.lower_fill import assemble_lower
 
     points = rng.random((n, d))
     assemble_lower(kernel, points[:8])  # load the compiled fill first (numba's cache)
     start = time.perf_counter()
-    lower = assemble_lower(kernel, points)
-    assembly = time.perf_counter() - start
-    lower[np.diag_indices(n)] += n
-    times = []
-    with threadpool_limits(limits=1, user_api="blas"):
-        for _ in range(repeats):
-            a = np.asfortranarray(lower.copy())
-            start = time.perf_counter()
-            _, info = lapack.dpotrf(a, lower=1, overwrite_a=1, clean=0)
-            times.append(time.perf_counter() - start)
-            if info != 0:
-                raise np.linalg.LinAlgError(f"calibration dpotrf: info = {info}")
-    entries = n * (n + 1) / 2
-    return float(np.median(times)), entries / max(assembly, 1e-9)
+    assemble_lower(kernel, points)
+    return n * (n + 1) / 2 / max(time.perf_counter() - start, 1e-9)
 
 
 def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
@@ -247,7 +228,8 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
     """
     start = time.perf_counter()
     d = int(points.shape[1])
-    probe_seconds, assembly = time_dpotrf(kernel, d, rng=rng)
+    probe_seconds = measure_dense_rate(n=PROBE_N, repeats=PROBE_REPEATS, rng=rng).seconds
+    assembly = assembly_rate(kernel, d, rng=rng)
     rates = {given: rate_solver(solver, value, points, kernel, options=options, rng=rng)
              for given, (solver, value, options) in solvers.items()}
     columns = None

@@ -28,9 +28,10 @@ def add_parser(subparsers: Any) -> argparse.ArgumentParser:
 
 def run(args: argparse.Namespace) -> int:
     from harness.grid.cases import CaseFileError, format_bytes, load_case
-    from harness.grid.cases.cost import contention, estimate_grid, measure_dense_rate
+    from harness.grid.cases.cost import contention, estimate_grid
     from harness.grid.runner import select_tasks
     from harness.linalg.dense_budget import default_memory_budget
+    from harness.linalg.dense_rate import measure_dense_rate
 
     try:
         case = load_case(args.casefile)

@@ -17,10 +17,11 @@ The model, per task (seconds):
 - timing repeats and warm-up runs repeat the solver's evaluation.
 
 Every constant is expressed in flops of dense work, so one measured number, the dense
-rate of this machine (``measure_dense_rate``: a Cholesky factorization of an n = 1,024
-matrix on one thread, median of 5, about 0.25 s), calibrates the whole model. The
-constants were fitted to measured runs of ``cases/smoke.toml`` on a 2-core machine (see
-``benchmarks/results/cost_model.json``); elsewhere they are estimates, shown as such.
+rate of this machine (``harness.linalg.dense_rate.measure_dense_rate``: a Cholesky
+factorization of an n = 1,024 matrix on one thread, median of 5, about 0.25 s),
+calibrates the whole model. The constants were fitted to measured runs of
+``cases/smoke.toml`` on a 2-core machine (see ``benchmarks/results/cost_model.json``);
+elsewhere they are estimates, shown as such.
 Without a measured rate the model assumes ``DENSE_FLOPS``. The solver's share (dense and
 compressed evaluations, the rank, ``DENSE_FLOPS``) lives in ``harness.infra.solver_cost``,
 which the default time limit of a solver call (``harness.infra.solver_timeout``) uses too.
@@ -37,7 +38,6 @@ from __future__ import annotations
 
 import math
 import os
-import time
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -45,56 +45,16 @@ import numpy as np
 
 from harness.grid.tasks import Task
 from harness.infra.solver_cost import DENSE_FLOPS, dense_flops, evaluation_flops
+from harness.linalg.dense_rate import DenseRate
 
 #: Dense-work flops of the fixed cost of one job (accuracy or timing).
 JOB_OVERHEAD_FLOPS = 3.6e9
 #: Dense-work flops of a run's start-up when it holds a compressed-solver task.
 STARTUP_FLOPS = 8.1e10
-#: Matrix size of the dense-rate probe.
-PROBE_N = 1024
 #: Assumed exact-product speed (n^2-entry columns per second, both cores) when none was
 #: measured: benchmarks/results/operator_reference.json measured 1.5e10 at n = 131,072
 #: (Matern 3/2, 2D) on a loaded 2-core machine; 1e10 leaves room for slower kernels.
 OPERATOR_COLUMN_RATE = 1e10
-
-
-@dataclass(frozen=True)
-class DenseRate:
-    """A measured dense rate: ``flops`` per second from a Cholesky of size ``n``."""
-
-    flops: float
-    n: int
-    seconds: float
-
-    def to_dict(self) -> dict[str, float | int]:
-        return {"flops_per_second": self.flops, "n": self.n, "seconds": self.seconds}
-
-
-def measure_dense_rate(*, n: int = PROBE_N, repeats: int = 5,
-                       rng: np.random.Generator | int | None = None) -> DenseRate:
-    """Time ``scipy.linalg.cho_factor`` (LAPACK dpotrf) on an n x n SPD matrix, on one
-    BLAS thread (a multi-threaded probe on a loaded machine varies tenfold from call to
-    call; one thread gets its core).
-
-    Returns the rate n^3/3 / (median seconds) (Golub & Van Loan, section 4.2).
-    """
-    from scipy.linalg import cho_factor
-    from threadpoolctl import threadpool_limits
-
-    if n < 64 or repeats < 1:
-        raise ValueError(f"measure_dense_rate: n must be >= 64 and repeats >= 1, got "
-                         f"n={n}, repeats={repeats}")
-    gen = np.random.default_rng(rng)
-    a = gen.standard_normal((n, n))
-    spd = a @ a.T / n + np.eye(n)
-    times = []
-    with threadpool_limits(limits=1, user_api="blas"):
-        for _ in range(repeats):
-            start = time.perf_counter()
-            cho_factor(spd, lower=True, overwrite_a=False, check_finite=False)
-            times.append(time.perf_counter() - start)
-    seconds = float(np.median(times))
-    return DenseRate(flops=n ** 3 / 3 / max(seconds, 1e-9), n=n, seconds=seconds)
 
 
 @dataclass(frozen=True)
