@@ -90,25 +90,10 @@ def _raises(points, kernel, theta, *, tol=None):
 def test_an_isolated_builtin_error_is_classified(factory, status) -> None:
     # In its child a built-in's HODLR breakdown is a finding (unsafe), anything else a
     # failed solver (harness.audit.solver_calls.is_breakdown).
-    from harness.audit import engine
-    from harness.audit.audit_references import build_reference
-    from harness.audit.audit_sampling import audit_draws
-    from harness.model.kernels import make_kernel
+    from small_audit import audit_one_value
 
-    rng = np.random.default_rng(5)
-    points = rng.uniform(size=(60, 2))
-    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 0.3, "nugget": 1e-2})
-    y = np.linalg.cholesky(kernel.covariance(points)) @ rng.normal(size=60)
-    hold, probes = audit_draws(60, holdout=6, probes=4, seed=1)
-    data = engine.AuditData(points=points, y=y, kernel=kernel, mean="constant",
-                            holdout=hold, fisher=None, probes=probes)
     solver = ResolvedSolver(name="hodlr", version=None, factory=factory, origin="builtin")
-    reference = build_reference("dense", data, solver=solver, solver_options={},
-                                base_seed=0, memory_budget=None, ladder_factor=100.0,
-                                probes=4, isolate=False)
-    result = engine.audit_tolerances(data, solver, (1e-6,), reference, seeds=(1,),
-                                     isolation=SolverIsolation(timeout=120.0))
-    (audit,) = result.tolerances
+    audit = audit_one_value(solver, isolation=SolverIsolation(timeout=120.0))
     assert audit.verdict.status == status
     assert "on purpose" in audit.verdict.failures[0]
 

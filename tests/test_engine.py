@@ -164,25 +164,12 @@ def test_an_in_process_solver_error_is_classified_as_in_a_child(error, status):
     # ``harness.audit.solver_calls.guarded`` does in a child: a numerical breakdown
     # (LinAlgError) makes the knob value unsafe, anything else is a failed solver, never
     # "unsafe" (exit code 3, not 1).
-    from harness.audit import engine
-    from harness.audit.audit_references import build_reference
-    from harness.audit.audit_sampling import audit_draws
-    from harness.model.kernels import make_kernel
+    from small_audit import audit_one_value
+
     from harness.solvers.registry import ResolvedSolver
 
-    rng = np.random.default_rng(5)
-    points = rng.uniform(size=(60, 2))
-    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 0.3, "nugget": 1e-2})
-    y = np.linalg.cholesky(kernel.covariance(points)) @ rng.normal(size=60)
-    hold, probes = audit_draws(60, holdout=6, probes=4, seed=1)
-    data = engine.AuditData(points=points, y=y, kernel=kernel, mean="constant",
-                            holdout=hold, fisher=None, probes=probes)
     solver = ResolvedSolver(name="broken", version=None, factory=_raising_factory(error),
                             origin="builtin")
-    reference = build_reference("dense", data, solver=solver, solver_options={},
-                                base_seed=0, memory_budget=None, ladder_factor=100.0,
-                                probes=4, isolate=False)
-    result = engine.audit_tolerances(data, solver, (1e-6,), reference, seeds=(1,))
-    (audit,) = result.tolerances
+    audit = audit_one_value(solver)
     assert audit.verdict.status == status
     assert "raised on purpose" in audit.verdict.failures[0]
