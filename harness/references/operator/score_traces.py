@@ -71,24 +71,15 @@ def preconditioner_traces(preconditioner: Factorization, n_params: int, *, probe
     return PreconditionerTraces(values.mean(axis=1), se, values.shape[1], True, None)
 
 
-def trace_difference_samples(operator: KernelOperator, preconditioner: Factorization,
-                             z: np.ndarray, sinv_z: np.ndarray, *, control: bool
-                             ) -> np.ndarray:
-    """Per-probe z' Sigma^-1 Sigma_i z - z' P^-1 P_i z, shape (p, count).
-
-    ``sinv_z`` is Sigma^-1 z from CG; Sigma_i z are exact products. With
-    ``control=False`` the second term is omitted.
-    """
-    return trace_difference_bounded(operator, preconditioner, z, sinv_z, control=control,
-                                    error_norms=np.zeros(z.shape[1]))[0]
-
-
 def trace_difference_bounded(operator: KernelOperator, preconditioner: Factorization,
                              z: np.ndarray, sinv_z: np.ndarray, *, control: bool,
                              error_norms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``trace_difference_samples`` and each value's CG error bound, both shape (p, count).
+    """Per-probe z' Sigma^-1 Sigma_i z - z' P^-1 P_i z and each value's CG error bound,
+    both shape (p, count).
 
-    ``error_norms`` bounds ||sinv_z - Sigma^-1 z|| per probe (||r|| / lambda_min); then
+    ``sinv_z`` is Sigma^-1 z from CG; Sigma_i z are exact products. With
+    ``control=False`` the second term is omitted. ``error_norms`` bounds
+    ||sinv_z - Sigma^-1 z|| per probe (||r|| / lambda_min); then
     |z' Sigma_i (x - x*)| <= ||Sigma_i z|| ||x - x*|| (Cauchy-Schwarz).
     """
     exact = operator.derivative_matvecs(z)                    # (p, n, count)
