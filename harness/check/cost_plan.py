@@ -84,7 +84,7 @@ from harness.check.check_options import CheckError, CheckOptions
 from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, plan_fit
 from harness.check.fit_stage import model_template
 from harness.check.frontier_table import timing_repeats
-from harness.check.plan_calibration import Calibration, SolverRate, calibrate
+from harness.check.plan_calibration import UNIT_N, Calibration, SolverRate, calibrate
 from harness.check.plugin_guard import trial_kernel
 from harness.check.reference_kind import reference_kind
 from harness.check.solver_lineup import LinedUpSolver, Lineup, line_up
@@ -216,18 +216,14 @@ class _Sizes:
         return self.n - self.m
 
 
-def _cholesky(cal: Calibration, n: int) -> float:
-    return cal.cholesky_seconds(n)
-
-
 def _flop_seconds(cal: Calibration, flops: float) -> float:
-    """Seconds of ``flops`` dense flops at the unit's rate, 8,192^3 / 3 flops per unit."""
-    return flops / (8192.0 ** 3 / 3.0) * cal.unit_seconds
+    """Seconds of ``flops`` dense flops at the unit's rate, ``UNIT_N``^3 / 3 flops per unit."""
+    return flops / (UNIT_N ** 3 / 3.0) * cal.unit_seconds
 
 
 def _dense_evaluation(cal: Calibration, n: int, p: int, *, fisher: bool) -> float:
-    seconds = 3 * _cholesky(cal, n) + (1 + p) * n * n / cal.assembly_entries_per_second
-    return seconds + (6 * p * _cholesky(cal, n) if fisher else 0.0)
+    seconds = 3 * cal.cholesky_seconds(n) + (1 + p) * n * n / cal.assembly_entries_per_second
+    return seconds + (6 * p * cal.cholesky_seconds(n) if fisher else 0.0)
 
 
 def _score_bytes(n: int, p: int, k: int) -> int:
@@ -295,7 +291,7 @@ def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calib
 def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibration,
                      first: SolverRate | None, n_values: int) -> StagePlan:
     if kind == "dense":
-        seconds = 2 * (2 * _cholesky(cal, s.n) + s.n * s.n / cal.assembly_entries_per_second)
+        seconds = 2 * (2 * cal.cholesky_seconds(s.n) + s.n * s.n / cal.assembly_entries_per_second)
         seconds += (s.p * s.n * s.n / cal.assembly_entries_per_second
                     + _flop_seconds(cal, 2.0 * s.p * s.n * s.n * (s.k + 1)))
         return StagePlan("reference", seconds, dense_bytes_needed(s.n, score=True)
