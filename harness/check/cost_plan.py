@@ -384,17 +384,6 @@ def _refit_stage(s: _Sizes, options: CheckOptions, rate: SolverRate | None) -> S
         f"at most {steps} evaluations with the pick (priced at the tightest value)")
 
 
-@dataclass(frozen=True)
-class PlanInputs:
-    """What a plan reads besides the calibration: the data's points, the options, the
-    lined-up solvers and the model before the fit."""
-
-    points: np.ndarray
-    y: np.ndarray
-    options: CheckOptions
-    lineup: Lineup
-
-
 def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
     """The operator reference's preconditioner to calibrate: HODLR at ``HODLR_TOL`` or
     Vecchia at the pilot's largest neighbour count (the costliest it may choose)."""
