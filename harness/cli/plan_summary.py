@@ -5,15 +5,11 @@ from __future__ import annotations
 
 from harness.check.cost_plan import CostPlan, StagePlan
 from harness.check.plan_calibration import UNIT_N
+from harness.grid.cases.units import format_bytes
 
 
 def _size(nbytes: float | None) -> str:
-    if nbytes is None:
-        return "not predicted"
-    for unit, scale in (("GiB", 2**30), ("MiB", 2**20), ("KiB", 2**10)):
-        if nbytes >= scale:
-            return f"{nbytes / scale:.3g} {unit}"
-    return f"{int(nbytes)} B"
+    return "not predicted" if nbytes is None else format_bytes(nbytes)
 
 
 def _time(seconds: float | None, unit: float) -> str:
