@@ -55,3 +55,41 @@ def _sigint_as_found(request: pytest.FixtureRequest) -> Iterator[None]:
     if now is not handler or now_mask != mask:
         warnings.warn(f"{request.node.nodeid} changed SIGINT handling (handler {now!r}, "
                       f"blocked {sorted(now_mask)}); restored", stacklevel=1)
+
+
+#: Warm-up steps whose label holds this word go to one process, the rest to the other: the
+#: Vecchia solver's kernels take about as long to compile as all the others together.
+_WARM_UP_SPLIT = "vecchia"
+_WARM_UP_PART = """
+import sys
+from harness.cli.warm_up_command import warm_up_steps
+vecchia = sys.argv[1] == "vecchia"
+for label, step in warm_up_steps():
+    if ({split!r} in label) == vecchia:
+        step()
+"""
+
+
+def pytest_configure(config: pytest.Config) -> None:
+    """Before a parallel run's workers start, compile every kernel once, in two processes.
+
+    A fresh checkout (CI) has an empty numba cache (``covaudit warm-up``'s docstring), and
+    the tests' many processes would each compile the kernels they call, often the same
+    ones at the same time. Here the controller of a ``-n N`` run compiles them all into the
+    cache first, the Vecchia solver's in one process and the rest in another; every later
+    process loads them. With a warm cache this takes a few seconds. A failure only prints a
+    line: each test then compiles what it needs, as without this step."""
+    import subprocess
+    import sys
+
+    if hasattr(config, "workerinput") or not config.getoption("numprocesses", None):
+        return
+    code = _WARM_UP_PART.format(split=_WARM_UP_SPLIT)
+    parts = [subprocess.Popen([sys.executable, "-c", code, part], stdout=subprocess.DEVNULL,
+                              stderr=subprocess.PIPE, text=True)
+             for part in ("vecchia", "other")]
+    for process in parts:
+        _, err = process.communicate()
+        if process.returncode != 0:
+            print(f"conftest: the kernel warm-up failed ({err.strip()[-300:]}); each test "
+                  "compiles what it needs", file=sys.stderr)
