@@ -114,6 +114,7 @@ def test_check_on_a_line_beyond_the_budget_krige_by_the_smoother(tmp_path, capsy
     (row,) = result["tolerances"]
     assert row["kriging_mean_sd"]["value"] < 0.05       # the solver at 1e-8 on 300 points
     assert "40 held-out points" in row["kriging_mean_sd"]["note"]
+    assert "Kalman filter" in row["loglik_error"]["note"]   # not "the exact operator"
     assert result["holdout"]["points"] == 40 and result["holdout"]["variance_points"] == 9
 
 

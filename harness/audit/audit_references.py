@@ -300,7 +300,7 @@ class StructuredReference:
             loglik=ReferenceValue(float(ev.loglik)), score=np.asarray(ev.score, dtype=float),
             score_se=np.zeros(data.kernel.n_params), krige_mean=krige_mean,
             krige_mean_bound=None if krige_mean is None else np.zeros_like(krige_mean),
-            krige_var=krige_var, loglik_seconds=seconds)
+            krige_var=krige_var, loglik_seconds=seconds, loglik_source=f"the {what}")
         entry = {"kind": kind, "certified": True, "exact": True, "description": what}
         self.by_metric: dict[str, dict[str, object]] = {
             "loglik": dict(entry), "score": dict(entry),

@@ -52,9 +52,9 @@ UNIT_N = 8192
 #: Repeats of the dpotrf probe (the median is kept).
 PROBE_REPEATS = 3
 #: Subset sizes at which each built-in solver is factorized (each at most n).
-CALIBRATION_SIZES: tuple[int, int] = (256, 512)
+CALIBRATION_SIZES: tuple[int, int] = (512, 2048)
 #: Right-hand sides of the timed solve.
-SOLVE_COLUMNS = 16
+SOLVE_COLUMNS = 64
 #: Bounds of a fitted growth exponent: time from n to n^3, memory from n to n^2 (the
 #: dense cases; a compressed solver lies between).
 TIME_EXPONENT_RANGE: tuple[float, float] = (1.0, 3.0)
