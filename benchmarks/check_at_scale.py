@@ -136,7 +136,10 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
     statuses = {repr(t["tol"]) if t.get("tol") is not None else str(t.get("knob_value")):
                 t.get("status") for t in check.get("tolerances", [])}
     predicted_seconds = plan.get("total_seconds")
-    predicted_gib = None if plan.get("peak_bytes") is None else plan["peak_bytes"] / 2**30
+    # The plan's prediction of the process tree's resident memory (arrays plus one
+    # interpreter per process, harness.check.cost_plan), what TreeMemory measures.
+    resident = plan.get("resident_bytes")
+    predicted_gib = None if resident is None else resident / 2**30
     limits = {
         "units": units <= scenario.max_units,
         "memory": None if scenario.max_gib is None else tree_gib <= scenario.max_gib,

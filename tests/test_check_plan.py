@@ -199,3 +199,22 @@ def test_dense_reference_memory_against_tracemalloc():
         tracemalloc.stop()
     assert predicted is not None
     assert 0.5 <= predicted / peak <= 2.0, (predicted, peak)
+
+
+def test_resident_memory_counts_an_interpreter_per_process():
+    # The resident prediction adds the check's own resident memory, measured by psutil when
+    # the calibration began, once per process alive at the peak (cost_plan's docstring).
+    # Expected value: psutil's reading of this process now, which has numpy, scipy, numba
+    # and harness loaded as the check has; the calibration's reading is within 2x of it.
+    import psutil
+
+    from harness.check.cost_plan import RESIDENT_PROCESSES
+
+    x, y = _points()
+    plan = plan_check(x, y, CheckOptions(fixed_params={"variance": 1.0, "lengthscale": 2.0,
+                                                       "nugget": 0.1}, tolerances=(1e-4,)),
+                      rng=np.random.default_rng(0))
+    runtime = plan.calibration.runtime_bytes
+    assert 0.5 <= runtime / psutil.Process().memory_info().rss <= 2.0
+    assert plan.resident_bytes == plan.peak_bytes + RESIDENT_PROCESSES * runtime
+    assert plan.to_dict()["resident_bytes"] == plan.resident_bytes

@@ -40,6 +40,13 @@ base plus the largest stage:
 - timing and refit: F(n) with the score's arrays; report: the points and the holdout
   for the map, 8 n (d + 4).
 
+The budget (``--memory-budget``) bounds these arrays. What a process monitor shows, the
+resident memory of the check's process tree, is larger by the interpreters: the check,
+its fork server and the one child at work each hold numpy, scipy, numba, harness and the
+compiled kernels (``RESIDENT_PROCESSES`` times ``Calibration.runtime_bytes``, the check's
+own resident memory when the plan was made; the child shares the server's pages, but a
+monitor counts them in each). ``resident_bytes`` is that prediction.
+
 Time (seconds; U the unit, C(n) = U (n / 8,192)^3 one dpotrf, A kernel entries per
 second, R = (8,192^3 / 3) / U the dense flop rate; Golub and Van Loan, *Matrix
 Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
@@ -115,6 +122,9 @@ VALUE_PROBES = 64
 DERIVATIVE_ROWS = 1024
 #: CG steps of one operator solve assumed by ``product_cost`` (its default).
 OPERATOR_STEPS = 8
+#: Processes alive at a check's peak, each with its own interpreter and libraries: the
+#: check, its fork server and one child (module docstring).
+RESIDENT_PROCESSES = 3
 STAGES: tuple[str, ...] = ("fit", "reference", "audits", "timing", "refit", "report")
 
 
@@ -170,6 +180,11 @@ class CostPlan:
         return self.base_bytes + int(self.peak_stage.peak_bytes or 0)
 
     @property
+    def resident_bytes(self) -> int:
+        """Predicted resident memory of the process tree at the peak (module docstring)."""
+        return self.peak_bytes + RESIDENT_PROCESSES * self.calibration.runtime_bytes
+
+    @property
     def fits_budget(self) -> bool:
         return self.peak_bytes <= self.memory_budget
 
@@ -195,6 +210,7 @@ class CostPlan:
             "fit": None if self.fit is None else self.fit.to_dict(),
             "stages": [s.to_dict(unit) for s in self.stages],
             "base_bytes": self.base_bytes, "peak_bytes": self.peak_bytes,
+            "resident_bytes": self.resident_bytes,
             "peak_stage": self.peak_stage.stage, "memory_budget_bytes": self.memory_budget,
             "fits_budget": self.fits_budget, "total_seconds": self.total_seconds,
             "total_units": self.total_seconds / unit, "not_predicted": list(self.unknown),

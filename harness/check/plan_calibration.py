@@ -131,6 +131,9 @@ class Calibration:
         Exact-product columns of n^2 entries per second (the operator reference only).
     seconds : float
         Wall seconds the calibration took.
+    runtime_bytes : int
+        Resident memory of this process when the calibration began: the interpreter with
+        numpy, scipy, numba and harness loaded, and the data (``psutil``).
     """
 
     unit_seconds: float
@@ -140,6 +143,7 @@ class Calibration:
     solvers: Mapping[str, SolverRate] = field(default_factory=dict)
     product_columns_per_second: float | None = None
     seconds: float = 0.0
+    runtime_bytes: int = 0
 
     def cholesky_seconds(self, n: int) -> float:
         """Predicted seconds of one dpotrf at n: the unit times (n / 8,192)^3."""
@@ -154,7 +158,7 @@ class Calibration:
                 "assembly_entries_per_second": self.assembly_entries_per_second,
                 "solvers": {k: v.to_dict() for k, v in self.solvers.items()},
                 "product_columns_per_second": self.product_columns_per_second,
-                "seconds": self.seconds}
+                "seconds": self.seconds, "runtime_bytes": self.runtime_bytes}
 
 
 def assembly_rate(kernel: Kernel, d: int, *, rng: np.random.Generator,
@@ -226,6 +230,9 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
         when the plan takes no operator reference.
     rng : numpy Generator
     """
+    import psutil
+
+    runtime = int(psutil.Process().memory_info().rss)
     start = time.perf_counter()
     d = int(points.shape[1])
     probe_seconds = measure_dense_rate(n=PROBE_N, repeats=PROBE_REPEATS, rng=rng).seconds
@@ -242,4 +249,4 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
                        probe_n=PROBE_N, probe_seconds=probe_seconds,
                        assembly_entries_per_second=assembly, solvers=rates,
                        product_columns_per_second=columns,
-                       seconds=time.perf_counter() - start)
+                       seconds=time.perf_counter() - start, runtime_bytes=runtime)

@@ -3,7 +3,7 @@ each starting ``plan:`` (``harness.check.cost_plan.CostPlan``)."""
 
 from __future__ import annotations
 
-from harness.check.cost_plan import CostPlan, StagePlan
+from harness.check.cost_plan import RESIDENT_PROCESSES, CostPlan, StagePlan
 from harness.check.plan_calibration import UNIT_N
 from harness.grid.cases.units import format_bytes
 
@@ -43,7 +43,9 @@ def plan_lines(plan: CostPlan) -> list[str]:
     lines += [f"plan: peak memory {_size(plan.peak_bytes)} (stage {plan.peak_stage.stage}"
               + (f" {plan.peak_stage.solver}" if plan.peak_stage.solver else "")
               + f"), memory budget {_size(plan.memory_budget)}"
-              + ("" if plan.fits_budget else ": OVER THE BUDGET"),
+              + ("" if plan.fits_budget else ": OVER THE BUDGET")
+              + f"; resident with {RESIDENT_PROCESSES} interpreters (check, fork server, "
+              f"child) {_size(plan.resident_bytes)}",
               f"plan: total {_time(plan.total_seconds, unit)}{unknown}",
               f"plan: unit = one dpotrf at n = {UNIT_N:,} here, predicted {unit:.3g} s "
               f"from a dpotrf at n = {cal.probe_n:,} ({cal.probe_seconds:.3g} s) x "
