@@ -38,7 +38,9 @@ with z standard normal in d dimensions and g chi-squared with 2 nu degrees of fr
 
 Run: ``python benchmarks/check_at_scale.py line-100k --json
 benchmarks/results/check_at_scale_line-100k.json`` (one scenario per call; each takes
-minutes to an hour).
+minutes to hours). ``--plan-only`` records only the plan the check prints before it starts
+(``check --plan-only``): its predicted time per stage and resident memory, in seconds and
+same-run units, within a minute.
 """
 
 from __future__ import annotations
@@ -170,6 +172,33 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
             "passed": all(v is not False for v in limits.values())}
 
 
+def _record_plan(args: argparse.Namespace, command: list[str], work: Path, info: dict,
+                 unit: dict) -> int:
+    """``check --plan-only --json``: the plan alone, recorded with the same-run unit."""
+    done = subprocess.run([sys.executable, "-m", "harness", *command, "--plan-only", "--json"],
+                          cwd=work, capture_output=True, text=True)
+    if done.returncode != 0:
+        print(done.stderr[-3000:], file=sys.stderr)
+        return 1
+    plan = json.loads(done.stdout)
+    plan = plan.get("plan", plan)
+    result = {"scenario": args.scenario, "command": "covaudit " + " ".join(command)
+              + " --plan-only", "data_seed": args.seed, "plan_only": True,
+              "plan": {"total_seconds": plan.get("total_seconds"),
+                       "total_in_same_run_units": plan["total_seconds"] / unit["seconds"],
+                       "resident_gib": plan["resident_bytes"] / 2**30,
+                       "peak_stage": plan.get("peak_stage"),
+                       "stages": [{"stage": s.get("stage"), "seconds": s.get("seconds"),
+                                   "peak_bytes": s.get("peak_bytes"),
+                                   "detail": s.get("detail")}
+                                  for s in plan.get("stages", [])]}}
+    print(json.dumps(result["plan"], indent=1))
+    if args.json:
+        write_run(args.json, "check_at_scale", None,
+                  info, unit=unit, result=result)
+    return 0
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__,
                                      formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -179,6 +208,8 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=7, help="seed of the synthetic data")
     parser.add_argument("--keep", type=Path, help="folder for the data and the check's output "
                                                   "(default: a temporary one)")
+    parser.add_argument("--plan-only", action="store_true",
+                        help="record the check's plan (check --plan-only) without running it")
     args = parser.parse_args(argv)
     scenario = SCENARIOS[args.scenario]
     info = machine()
@@ -193,6 +224,8 @@ def main(argv: list[str] | None = None) -> int:
         shutil.rmtree(state_folder(out), ignore_errors=True)
         command = ["check", data.name, *columns, "--kernel", "matern32", *scenario.options,
                    "--out", "out"]
+        if args.plan_only:
+            return _record_plan(args, command, work, info, unit)
         start = time.perf_counter()
         proc = subprocess.Popen([sys.executable, "-m", "harness", *command], cwd=work,
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
