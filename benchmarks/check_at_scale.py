@@ -177,14 +177,20 @@ def _record_plan(args: argparse.Namespace, command: list[str], work: Path, info:
     """``check --plan-only --json``: the plan alone, recorded with the same-run unit."""
     done = subprocess.run([sys.executable, "-m", "harness", *command, "--plan-only", "--json"],
                           cwd=work, capture_output=True, text=True)
+    result: dict = {"scenario": args.scenario, "command": "covaudit " + " ".join(command)
+                    + " --plan-only", "data_seed": args.seed, "plan_only": True,
+                    "exit_code": done.returncode}
+    errors = [line for line in done.stderr.splitlines() if "error:" in line]
     if done.returncode != 0:
+        # A refusal (exit 2, over the memory budget) is a result: record its line.
         print(done.stderr[-3000:], file=sys.stderr)
+        result["refusal"] = errors[-1] if errors else done.stderr.strip()[-500:]
+        if args.json:
+            write_run(args.json, "check_at_scale", None, info, unit=unit, result=result)
         return 1
     plan = json.loads(done.stdout)
     plan = plan.get("plan", plan)
-    result = {"scenario": args.scenario, "command": "covaudit " + " ".join(command)
-              + " --plan-only", "data_seed": args.seed, "plan_only": True,
-              "plan": {"total_seconds": plan.get("total_seconds"),
+    result |= {"plan": {"total_seconds": plan.get("total_seconds"),
                        "total_in_same_run_units": plan["total_seconds"] / unit["seconds"],
                        "resident_gib": plan["resident_bytes"] / 2**30,
                        "peak_stage": plan.get("peak_stage"),

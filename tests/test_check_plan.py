@@ -8,6 +8,7 @@ from __future__ import annotations
 import argparse
 import json
 import tracemalloc
+from dataclasses import replace
 
 import numpy as np
 import pandas as pd
@@ -218,3 +219,39 @@ def test_resident_memory_counts_an_interpreter_per_process():
     assert 0.5 <= runtime / psutil.Process().memory_info().rss <= 2.0
     assert plan.resident_bytes == plan.peak_bytes + RESIDENT_PROCESSES * runtime
     assert plan.to_dict()["resident_bytes"] == plan.resident_bytes
+
+
+def test_no_budget_beyond_the_machine_is_advised(monkeypatch):
+    # Never impossible advice (issue 22): a --memory-budget above this machine's memory is
+    # not offered; with nothing else that fits, the refusal says so. The machine's memory
+    # is set to 1 MiB here (harness.linalg.dense_budget.total_memory, as read by the plan).
+    import harness.check.cost_plan as cost_plan
+
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    tight = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), memory_budget=1024)
+    plan = plan_check(x, y, tight, rng=np.random.default_rng(0))
+    assert not plan.fits_budget
+    monkeypatch.setattr(cost_plan, "total_memory", lambda: 2**20)
+    message = budget_refusal(plan, x, y, tight)
+    assert message is not None and "--memory-budget" not in message
+    assert "machine with more memory" in message and "\n" not in message
+
+
+def test_an_operator_plan_over_the_budget_is_offered_the_vecchia_preconditioner():
+    # The Vecchia factor needs O(n m) memory where HODLR at tol 1e-10 needs far more
+    # (harness.audit.operator_preconditioner); the refusal re-plans with it and names it
+    # when it fits. A budget between the two plans' peaks.
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    hodlr = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), reference="operator",
+                         refit=False)
+    plan = plan_check(x, y, hodlr, rng=np.random.default_rng(0))
+    vecchia = plan_check(x, y, replace(hodlr, preconditioner="vecchia"),
+                         rng=np.random.default_rng(0))
+    assert vecchia.peak_bytes < plan.peak_bytes
+    budget = (plan.peak_bytes + vecchia.peak_bytes) // 2
+    over = plan_check(x, y, replace(hodlr, memory_budget=budget),
+                      calibration=plan.calibration)
+    message = budget_refusal(over, x, y, replace(hodlr, memory_budget=budget))
+    assert message is not None and "--preconditioner vecchia" in message

@@ -91,12 +91,12 @@ from harness.check.check_options import CheckError, CheckOptions
 from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, plan_fit
 from harness.check.fit_stage import model_template
 from harness.check.frontier_table import timing_repeats
-from harness.check.plan_calibration import UNIT_N, Calibration, SolverRate, calibrate
+from harness.check.plan_calibration import UNIT_N, Calibration, SolverRate, calibrate, rate_solver
 from harness.check.plugin_guard import trial_kernel
 from harness.check.reference_kind import reference_kind
 from harness.check.solver_lineup import LinedUpSolver, Lineup, line_up
 from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_MAX_STEPS
-from harness.linalg.dense_budget import default_memory_budget, dense_bytes_needed
+from harness.linalg.dense_budget import default_memory_budget, dense_bytes_needed, total_memory
 from harness.model.mean import design_matrix
 from harness.references.operator import estimate_operator_seconds
 from harness.references.operator.schedule import DEFAULT_TILE
@@ -506,8 +506,14 @@ def _alternatives(plan: CostPlan, options: CheckOptions) -> Sequence[tuple[str,
                                                                            CheckOptions]]:
     """Options that could lower the peak, each as its flag text and the changed options."""
     out: list[tuple[str, CheckOptions]] = []
+    hodlr_preconditioned = options.preconditioner != "vecchia"
     if plan.reference not in ("operator", "statespace", "kronecker"):
         out.append(("--reference operator", replace(options, reference="operator")))
+        if hodlr_preconditioned:
+            out.append(("--reference operator --preconditioner vecchia",
+                        replace(options, reference="operator", preconditioner="vecchia")))
+    elif plan.reference == "operator" and hodlr_preconditioned:
+        out.append(("--preconditioner vecchia", replace(options, preconditioner="vecchia")))
     if options.probes > 4:
         out.append((f"--probes {max(4, options.probes // 4)}",
                     replace(options, probes=max(4, options.probes // 4))))
@@ -529,15 +535,31 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
         return None
     fixes: list[str] = []
     for flag, changed in _alternatives(plan, options):
+        calibration = plan.calibration
+        if changed.preconditioner != options.preconditioner:
+            # The calibration rated the configured preconditioner only: rate the other.
+            solver, value, solver_options = _preconditioner(changed)
+            rate = rate_solver(solver, value, points, _kernel(points, y, changed),
+                               options=solver_options, rng=np.random.default_rng(changed.seed))
+            calibration = replace(calibration,
+                                  solvers={**calibration.solvers, "preconditioner": rate})
         try:
-            other = plan_check(points, y, changed, calibration=plan.calibration,
-                               lineup=lineup)
+            other = plan_check(points, y, changed, calibration=calibration, lineup=lineup)
         except CheckError:
             continue
         if other.fits_budget:
             fixes.append(flag)
     need = math.ceil(plan.peak_bytes * 1.1 / 2**30 * 1000) / 1000
-    fixes.append(f"--memory-budget {need:g}")
+    machine = total_memory()
+    if need * 2**30 <= machine:
+        fixes.append(f"--memory-budget {need:g}")
+    if not fixes:
+        return (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
+                f"{plan.peak_stage.stage}), exceeds the memory budget of "
+                f"{_gib(plan.memory_budget)} GiB and this machine's {_gib(machine)} GiB, "
+                "and none of --reference operator, --preconditioner vecchia, --probes, "
+                "--holdout-points or --variance-points brings it within the budget: run it "
+                "on a machine with more memory")
     what = ("one of " if len(fixes) > 1 else "") + ", ".join(fixes)
     return (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
             f"{plan.peak_stage.stage}"
