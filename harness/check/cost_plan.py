@@ -534,7 +534,8 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
     if plan.fits_budget:
         return None
     fixes: list[str] = []
-    for flag, changed in _alternatives(plan, options):
+    alternatives = _alternatives(plan, options)
+    for flag, changed in alternatives:
         calibration = plan.calibration
         if changed.preconditioner != options.preconditioner:
             # The calibration rated the configured preconditioner only: rate the other.
@@ -553,16 +554,14 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
     machine = total_memory()
     if need * 2**30 <= machine:
         fixes.append(f"--memory-budget {need:g}")
-    if not fixes:
-        return (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
-                f"{plan.peak_stage.stage}), exceeds the memory budget of "
-                f"{_gib(plan.memory_budget)} GiB and this machine's {_gib(machine)} GiB, "
-                "and none of --reference operator, --preconditioner vecchia, --probes, "
-                "--holdout-points or --variance-points brings it within the budget: run it "
-                "on a machine with more memory")
-    what = ("one of " if len(fixes) > 1 else "") + ", ".join(fixes)
-    return (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
+    over = (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
             f"{plan.peak_stage.stage}"
             + (f" {plan.peak_stage.solver}" if plan.peak_stage.solver else "")
-            + f"), exceeds the memory budget of {_gib(plan.memory_budget)} GiB; it would "
-            f"fit with {what}")
+            + f"), exceeds the memory budget of {_gib(plan.memory_budget)} GiB")
+    if not fixes:
+        tried = ", ".join(flag for flag, _ in alternatives)
+        return (f"{over} and this machine's {_gib(machine)} GiB"
+                + (f", and none of {tried} brings it within the budget" if tried else "")
+                + ": run it on a machine with more memory")
+    what = ("one of " if len(fixes) > 1 else "") + ", ".join(fixes)
+    return f"{over}; it would fit with {what}"
