@@ -255,3 +255,28 @@ def test_an_operator_plan_over_the_budget_is_offered_the_vecchia_preconditioner(
                       calibration=plan.calibration)
     message = budget_refusal(over, x, y, replace(hodlr, memory_budget=budget))
     assert message is not None and "--preconditioner vecchia" in message
+
+
+def test_beyond_the_machine_an_option_with_a_budget_is_advised(monkeypatch):
+    # When no budget this machine has holds the plan and no option alone fits the budget,
+    # the option that lowers the peak most is named with the budget it needs (the 131,072
+    # point plan of benchmarks/check_at_scale.py: --preconditioner vecchia with 16.4 GiB).
+    # The machine's memory is set between the lowest alternative's peak and the plan's.
+    import harness.check.cost_plan as cost_plan
+
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    hodlr = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), reference="operator",
+                         refit=False, memory_budget=1024)
+    plan = plan_check(x, y, hodlr, rng=np.random.default_rng(0))
+    vecchia = plan_check(x, y, replace(hodlr, preconditioner="vecchia"),
+                         rng=np.random.default_rng(0))
+    monkeypatch.setattr(cost_plan, "total_memory",
+                        lambda: (plan.peak_bytes + 2 * vecchia.peak_bytes) // 2)
+    message = budget_refusal(plan, x, y, hodlr)
+    assert message is not None and " --memory-budget " in message
+    suggestion = message.split("it would fit with ")[1].split()
+    assert suggestion[0].startswith("--") and suggestion[0] != "--memory-budget"
+    assert suggestion.count("--memory-budget") == 1
+    budget_gib = float(suggestion[suggestion.index("--memory-budget") + 1])
+    assert budget_gib * 2**30 <= cost_plan.total_memory()

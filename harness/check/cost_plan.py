@@ -526,14 +526,25 @@ def _alternatives(plan: CostPlan, options: CheckOptions) -> Sequence[tuple[str,
     return out
 
 
+def _budget_for(peak_bytes: int) -> float:
+    """The ``--memory-budget`` (GiB, rounded up to 1/1000) that holds a peak with 10% to
+    spare."""
+    return math.ceil(peak_bytes * 1.1 / 2**30 * 1000) / 1000
+
+
 def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
                    options: CheckOptions, *, lineup: Lineup | None = None) -> str | None:
     """None when ``plan`` fits its memory budget, else the one-line refusal: the peak,
     its stage, the budget, and the options that would make the plan fit (each re-planned
-    with the same calibration; a larger ``--memory-budget`` always)."""
+    with the same calibration, another preconditioner rated on its own), and a larger
+    ``--memory-budget`` where this machine has that much memory. Where it has not and no
+    option alone fits, the option that lowers the peak most with the budget it needs; where
+    nothing fits this machine, the line says so. Never advice that cannot be followed."""
     if plan.fits_budget:
         return None
     fixes: list[str] = []
+    machine = total_memory()
+    smallest: tuple[int, str] = (plan.peak_bytes, "")
     alternatives = _alternatives(plan, options)
     for flag, changed in alternatives:
         calibration = plan.calibration
@@ -550,10 +561,13 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
             continue
         if other.fits_budget:
             fixes.append(flag)
-    need = math.ceil(plan.peak_bytes * 1.1 / 2**30 * 1000) / 1000
-    machine = total_memory()
-    if need * 2**30 <= machine:
-        fixes.append(f"--memory-budget {need:g}")
+        smallest = min(smallest, (other.peak_bytes, flag))
+    if _budget_for(plan.peak_bytes) * 2**30 <= machine:
+        fixes.append(f"--memory-budget {_budget_for(plan.peak_bytes):g}")
+    elif not fixes and smallest[1] and _budget_for(smallest[0]) * 2**30 <= machine:
+        # Neither an option alone nor a budget this machine has fits, but the option that
+        # lowers the peak most does, with such a budget.
+        fixes.append(f"{smallest[1]} --memory-budget {_budget_for(smallest[0]):g}")
     over = (f"the plan's predicted peak memory, {_gib(plan.peak_bytes)} GiB (stage "
             f"{plan.peak_stage.stage}"
             + (f" {plan.peak_stage.solver}" if plan.peak_stage.solver else "")
