@@ -261,7 +261,7 @@ def test_beyond_the_machine_an_option_with_a_budget_is_advised(monkeypatch):
     # When no budget this machine has holds the plan and no option alone fits the budget,
     # the option that lowers the peak most is named with the budget it needs (the 131,072
     # point plan of benchmarks/check_at_scale.py: --preconditioner vecchia with 16.4 GiB).
-    # The machine's memory is set between the lowest alternative's peak and the plan's.
+    # The machine's memory is set between the Vecchia plan's budget and the plan's.
     import harness.check.cost_plan as cost_plan
 
     x, y = _points()
@@ -271,8 +271,9 @@ def test_beyond_the_machine_an_option_with_a_budget_is_advised(monkeypatch):
     plan = plan_check(x, y, hodlr, rng=np.random.default_rng(0))
     vecchia = plan_check(x, y, replace(hodlr, preconditioner="vecchia"),
                          rng=np.random.default_rng(0))
-    monkeypatch.setattr(cost_plan, "total_memory",
-                        lambda: (plan.peak_bytes + 2 * vecchia.peak_bytes) // 2)
+    machine = int(1.05 * plan.peak_bytes)       # below the plain budget, 1.1 x the peak
+    assert cost_plan._budget_for(vecchia.peak_bytes) * 2**30 < machine
+    monkeypatch.setattr(cost_plan, "total_memory", lambda: machine)
     message = budget_refusal(plan, x, y, hodlr)
     assert message is not None and " --memory-budget " in message
     suggestion = message.split("it would fit with ")[1].split()

@@ -527,9 +527,11 @@ def _alternatives(plan: CostPlan, options: CheckOptions) -> Sequence[tuple[str,
 
 
 def _budget_for(peak_bytes: int) -> float:
-    """The ``--memory-budget`` (GiB, rounded up to 1/1000) that holds a peak with 10% to
-    spare."""
-    return math.ceil(peak_bytes * 1.1 / 2**30 * 1000) / 1000
+    """The ``--memory-budget`` (GiB, rounded up to 3 significant digits) that holds a peak
+    with 10% to spare."""
+    need = max(peak_bytes, 1) * 1.1 / 2**30
+    scale = 10.0 ** (2 - math.floor(math.log10(need)))
+    return math.ceil(need * scale) / scale
 
 
 def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
