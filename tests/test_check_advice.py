@@ -39,3 +39,23 @@ def test_a_blank_coordinate_unit_is_refused_before_any_work(tmp_path, capsys):
     assert code == ExitCode.ERROR
     assert "--coord-units: expected a unit such as m or km" in capsys.readouterr().err
     assert not (tmp_path / "o").exists()
+
+
+def test_unresolved_reasons_and_advice_reach_the_terminal():
+    # Issue 23: "unresolved" gives its reason and a remedy that can be run on the terminal,
+    # not only in check.json; the probe count advised exceeds the count used (a value
+    # reference's Hutch++ score takes at least 64, harness.audit.audit_references).
+    from harness.cli.check_summary import summary
+
+    result = replace(example_result(recommended=False), reference="statespace", n=100_000,
+                     score_probes=64)
+    unresolved = [r for r in result.tolerances if r.status == "unresolved"]
+    assert unresolved and all(r.reasons for r in unresolved)
+    text = summary(result)
+    lines = text.splitlines()
+    for row in unresolved:
+        assert any(line.startswith("  unresolved at tol ") and row.reasons[0] in line
+                   for line in lines)
+    assert "what to do:" in text and "--probes 256 (4 x the 64 used)" in text
+    assert "Kalman filter ran at 100,000 points" in text
+    assert "beyond the memory budget" not in text

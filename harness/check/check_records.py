@@ -161,6 +161,9 @@ class CheckResult:
     #: The cost plan printed before any work (``harness.check.cost_plan.CostPlan.to_dict``):
     #: reference per metric, fit plan, predicted peak memory and seconds per stage.
     plan: dict[str, Any] | None = None
+    #: Probes of the solver's score estimate: of the difference trace against a paired
+    #: (dense) reference, of Hutch++ against a value reference (at least 64).
+    score_probes: int | None = None
 
     @property
     def knob_name(self) -> str:
@@ -194,5 +197,5 @@ class CheckResult:
             "reference_by_metric": self.reference_by_metric,
             "solver_failures": list(self.solver_failures),
             "solvers": list(self.solvers), "frontier": self.frontier,
-            "plan": self.plan,
+            "plan": self.plan, "score_probes": self.score_probes,
         }

@@ -374,7 +374,8 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
         n_variance_points=int(variance_at.size),
         reference_by_metric=reference_by_metric(reference, audit_data),
         solver_failures=tuple(solver_failures), solvers=tuple(entries),
-        frontier=pick.to_dict())
+        frontier=pick.to_dict(),
+        score_probes=int(getattr(reference, "probes", options.probes)))
 
 
 def _holdout_info(reference: PairedReference | ValueReference, tol: float, y: np.ndarray,

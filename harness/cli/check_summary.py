@@ -1,5 +1,6 @@
 """``covaudit check``'s terminal output: the fitted model, the verdict table, the
-recommendation, the frontier across solvers, the refit and the warnings (each once), and
+recommendation (when none qualifies, each unresolved value's reasons and what to do, the
+report's advice), the frontier across solvers, the refit and the warnings (each once), and
 the failed (solver, knob value) points that make the exit code 3."""
 
 from __future__ import annotations
@@ -10,6 +11,7 @@ from typing import Any
 from harness.audit.rule import SOLVER_FAILED
 from harness.check.check_records import UNCONVERGED_REMEDY, CheckResult
 from harness.cli.frontier_summary import frontier_lines
+from harness.report.check_report import no_pick_advice
 from harness.report.condense import shorten
 from harness.report.labels import metric_label
 from harness.report.run_summary import DOES_NOT_PAY
@@ -66,6 +68,10 @@ def summary(result: CheckResult) -> str:
         noun = "tolerance" if knob == "tol" else f"{knob} value"
         lines.append(f"  recommendation: no {noun} in the list qualifies ("
                      + str(result.recommendation.get("reason", "none is safe")) + ")")
+        lines += [f"  unresolved at {_at(knob, row.value, short=True)}: "
+                  + "; ".join(row.reasons)
+                  for row in result.tolerances if row.status == "unresolved" and row.reasons]
+        lines.append(f"  what to do: {no_pick_advice(result, noun)}")
     else:
         best = next(r for r in result.tolerances if r.value == picked)
         speedup = result.speedup if result.speedup is not None else float("nan")

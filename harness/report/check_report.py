@@ -115,16 +115,25 @@ def _knob_columns(result: CheckResult) -> dict[str, MetricLabel]:
 
 def no_pick_advice(result: CheckResult, values: str) -> str:
     """What to do when nothing is safe, and only what can be done: the exact computation
-    only where the dense reference ran (within the memory budget); beyond it, tighter
-    values, more probes when a verdict was unresolved, and a converged fit first when
-    the fit did not converge."""
+    only where it ran (the dense reference within the memory budget, or an exact
+    structured reference); beyond it, tighter values, more probes when a verdict was
+    unresolved (4 x the count used), and a converged fit first when the fit did not
+    converge."""
     statuses = {r.status for r in result.tolerances}
-    more = (" For the unresolved verdicts, more probes (--probes 64) shrink the standard "
-            "errors." if "unresolved" in statuses else "")
+    used = result.score_probes or 16
+    more = (f" For the unresolved verdicts, more probes shrink the standard errors as "
+            f"1/sqrt(probes): --probes {4 * used} (4 x the {used} used) halves them."
+            if "unresolved" in statuses else "")
     if not result.fit_converged:
         more += f" The fit did not converge, so no verdict can be safe: {UNCONVERGED_REMEDY}."
     if result.reference == "dense":
         return f"Use the exact computation at this size, or audit tighter {values}s.{more}"
+    structured = {"statespace": "Kalman filter", "kronecker": "Kronecker algebra"}
+    if result.reference in structured:
+        return (f"The exact computation by the {structured[result.reference]} ran at "
+                f"{result.n:,} points (it serves these data exactly): use it, or audit "
+                f"tighter {values}s (--tolerances or --knob-values) or another solver "
+                f"(--solver).{more}")
     return (f"At {result.n:,} points the exact computation is beyond the memory budget: "
             f"audit tighter {values}s (--tolerances or --knob-values), or another solver "
             f"(--solver).{more}")
