@@ -153,7 +153,13 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
     if scenario.statespace_everywhere:
         limits["statespace_for_every_metric"] = bool(kinds) and all(
             kind == "statespace" for kind in kinds.values())
-    return {"n": check.get("n"), "reference": check.get("reference"),
+    rows = [{"knob_value": t.get("knob_value"), "status": t.get("status"),
+             "reasons": t.get("reasons"),
+             "metrics": {name: {key: (t.get(name) or {}).get(key)
+                                for key in ("value", "uncertainty", "threshold")}
+                         for name in ("loglik_error", "param_shift_se", "kriging_mean_sd")}}
+            for t in check.get("tolerances", [])]
+    return {"n": check.get("n"), "reference": check.get("reference"), "rows": rows,
             "reference_by_metric": kinds, "fit_converged": check.get("fit_converged"),
             "fit": {key: (check.get("fit") or {}).get(key)
                     for key in ("engine", "method", "converged", "loglik")},
