@@ -57,15 +57,14 @@ def _sigint_as_found(request: pytest.FixtureRequest) -> Iterator[None]:
                       f"blocked {sorted(now_mask)}); restored", stacklevel=1)
 
 
-#: Warm-up steps whose label holds this word go to one process, the rest to the other: the
-#: Vecchia solver's kernels take about as long to compile as all the others together.
-_WARM_UP_SPLIT = "vecchia"
+#: One part of the kernel warm-up (``sys.argv[1]``: "vecchia" or "other"): the Vecchia
+#: solver's steps in one process, the rest in the other, since its kernels take about as
+#: long to compile as all the others together.
 _WARM_UP_PART = """
 import sys
 from harness.cli.warm_up_command import warm_up_steps
-vecchia = sys.argv[1] == "vecchia"
 for label, step in warm_up_steps():
-    if ({split!r} in label) == vecchia:
+    if ("vecchia" in label) == (sys.argv[1] == "vecchia"):
         step()
 """
 
@@ -84,9 +83,8 @@ def pytest_configure(config: pytest.Config) -> None:
 
     if hasattr(config, "workerinput") or not config.getoption("numprocesses", None):
         return
-    code = _WARM_UP_PART.format(split=_WARM_UP_SPLIT)
-    parts = [subprocess.Popen([sys.executable, "-c", code, part], stdout=subprocess.DEVNULL,
-                              stderr=subprocess.PIPE, text=True)
+    parts = [subprocess.Popen([sys.executable, "-c", _WARM_UP_PART, part],
+                              stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
              for part in ("vecchia", "other")]
     for process in parts:
         _, err = process.communicate()

@@ -42,6 +42,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import psutil
 
 from harness.linalg.dense_rate import PROBE_N, measure_dense_rate
 from harness.model.kernels import Kernel
@@ -230,8 +231,6 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
         when the plan takes no operator reference.
     rng : numpy Generator
     """
-    import psutil
-
     runtime = int(psutil.Process().memory_info().rss)
     start = time.perf_counter()
     d = int(points.shape[1])

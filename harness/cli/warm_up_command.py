@@ -57,12 +57,13 @@ def _solver(name: str, options: dict[str, float | int | None], kernel: Kernel,
     """One built-in solver with the log-likelihood, score and Fisher information."""
     tol = options.get("tol")
     knobs = {k: v for k, v in options.items() if k != "tol"}
-    factor = resolve_solver(name).factorize(points, kernel, None, tol=tol, **knobs)
+    solver = resolve_solver(name)
+    factor = solver.factorize(points, kernel, None, tol=tol, **knobs)
     evaluate_likelihood(factor, points, y, kernel, mean="constant", fisher=True)
     if name == "vecchia":
         # The radius rule's pattern, and the row-wise triangular products and solves
         # that a block of right-hand sides takes (kriging, probes).
-        by_radius = resolve_solver(name).factorize(points, kernel, None, tol=None, rho=3.0)
+        by_radius = solver.factorize(points, kernel, None, tol=None, rho=3.0)
         block = np.ones((points.shape[0], 16))
         by_radius.matvec(by_radius.solve(block))
     return None

@@ -26,6 +26,7 @@ import numpy as np
 
 from harness.audit.verdict import COMMON_PRACTICE
 from harness.check.check_records import UNCONVERGED_REMEDY, CheckResult, ToleranceResult
+from harness.infra.option_specs import PROBES
 from harness.report import check_figures
 from harness.report.condense import collapse_notes, per_seed_failures
 from harness.report.frontier_figure import frontier_figure
@@ -120,7 +121,7 @@ def no_pick_advice(result: CheckResult, values: str) -> str:
     unresolved (4 x the count used), and a converged fit first when the fit did not
     converge."""
     statuses = {r.status for r in result.tolerances}
-    used = result.score_probes or 16
+    used = result.score_probes or PROBES.default
     more = (f" For the unresolved verdicts, more probes shrink the standard errors as "
             f"1/sqrt(probes): --probes {4 * used} (4 x the {used} used) halves them."
             if "unresolved" in statuses else "")
@@ -128,15 +129,14 @@ def no_pick_advice(result: CheckResult, values: str) -> str:
         more += f" The fit did not converge, so no verdict can be safe: {UNCONVERGED_REMEDY}."
     if result.reference == "dense":
         return f"Use the exact computation at this size, or audit tighter {values}s.{more}"
+    tighter = (f"audit tighter {values}s (--tolerances or --knob-values) or another solver "
+               f"(--solver).{more}")
     structured = {"statespace": "Kalman filter", "kronecker": "Kronecker algebra"}
     if result.reference in structured:
         return (f"The exact computation by the {structured[result.reference]} ran at "
-                f"{result.n:,} points (it serves these data exactly): use it, or audit "
-                f"tighter {values}s (--tolerances or --knob-values) or another solver "
-                f"(--solver).{more}")
+                f"{result.n:,} points (it serves these data exactly): use it, or {tighter}")
     return (f"At {result.n:,} points the exact computation is beyond the memory budget: "
-            f"audit tighter {values}s (--tolerances or --knob-values), or another solver "
-            f"(--solver).{more}")
+            f"{tighter}")
 
 
 def coordinate_units(result: CheckResult, coord_units: str | None) -> tuple[str, str]:
