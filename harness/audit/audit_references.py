@@ -15,8 +15,10 @@ points and the reference log-likelihood's own standard error (0 when exact).
   installed (``operator_available``); it reports values with standard errors and CG
   bounds (``ReferenceValues``), not a factorization.
 * ``StructuredReference``: the exact state-space (Kalman) or Kronecker reference, as
-  values (log-likelihood and score, exact); neither offers kriging at held-out data
-  points, so the kriging metric is not measured against them.
+  values (log-likelihood and score, exact). The state-space kind also kriges the
+  held-out points exactly and gives the exact side of shared probes for the solver's
+  score traces (``harness.audit.line_trace_control``); the Kronecker kind offers
+  neither, so the kriging metric is not measured against it.
 
 ``build_reference`` builds the kind that ``harness.audit.reference_choice`` chose, for
 ``check`` and for every ``run`` task alike.
@@ -41,6 +43,7 @@ from harness.audit.engine import (
     ReferenceValues,
     ValueReference,
 )
+from harness.audit.line_trace_control import line_trace_control
 from harness.audit.operator_preconditioner import (
     BuiltPreconditioner,
     PreconditionerSpec,
@@ -282,6 +285,7 @@ class StructuredReference:
             what = "Kalman filter (exact)"
             seconds = time.perf_counter() - t0
             kriging = _smoother_values(data)
+            control, control_note = line_trace_control(data.points, data.kernel, data.probes)
         elif kind == "kronecker":
             from harness.references.kronecker import KroneckerReference
 
@@ -290,6 +294,8 @@ class StructuredReference:
             what = "Kronecker eigen-decomposition (exact)"
             seconds = time.perf_counter() - t0
             kriging = None
+            control, control_note = None, ("no shared-probe control: the solver's traces "
+                                           "are estimated on their own")
         else:
             raise ValueError(f"{kind!r} is no structured reference kind")
         krige_what = ("; kriging by the Rauch-Tung-Striebel smoother (exact)"
@@ -300,10 +306,11 @@ class StructuredReference:
             loglik=ReferenceValue(float(ev.loglik)), score=np.asarray(ev.score, dtype=float),
             score_se=np.zeros(data.kernel.n_params), krige_mean=krige_mean,
             krige_mean_bound=None if krige_mean is None else np.zeros_like(krige_mean),
-            krige_var=krige_var, loglik_seconds=seconds, loglik_source=f"the {what}")
+            krige_var=krige_var, loglik_seconds=seconds, loglik_source=f"the {what}",
+            trace_control=control)
         entry = {"kind": kind, "certified": True, "exact": True, "description": what}
         self.by_metric: dict[str, dict[str, object]] = {
-            "loglik": dict(entry), "score": dict(entry),
+            "loglik": dict(entry), "score": entry | {"shared_probes": control_note},
             "kriging": (entry | {"description": "Rauch-Tung-Striebel smoother (exact)",
                                  **_kriging_counts(data)}
                         if kriging is not None else

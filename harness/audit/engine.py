@@ -36,6 +36,7 @@ from harness.audit.rule import (
 from harness.audit.solver_calls import SolverCall, SolverIsolation, call_solver, is_breakdown
 from harness.audit.solver_seeds import seeded_options
 from harness.infra.option_specs import LADDER_FACTOR as LADDER_FACTOR_SPEC
+from harness.likelihood.trace.control import TraceControl
 from harness.model.kernels import Kernel
 
 if TYPE_CHECKING:
@@ -157,6 +158,10 @@ class ReferenceValues:
     products: Callable[[np.ndarray], np.ndarray] | None = None
     #: What the log-likelihood was measured against, for the metric's note.
     loglik_source: str = "the exact operator (its SE and CG bound)"
+    #: The exact side of shared probes for the solver's score traces
+    #: (``harness.likelihood.trace.control``); None: the solver's traces are estimated
+    #: on their own.
+    trace_control: TraceControl | None = None
 
 
 class ValueReference(Protocol):
@@ -334,9 +339,11 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                       ref: ReferenceValues, probes: int,
                       thresholds: Thresholds) -> SeedAudit:
     """One seed against a value reference: the solver's own likelihood and Hutch++ score
-    (its SE and the reference's combined, independent) and kriging conditioned on the
-    other points. A deterministic bound b enters a metric's uncertainty as b / 2, so that
-    the rule's 2 x uncertainty covers it."""
+    (its SE and the reference's combined, independent), its trace terms sharpened by
+    the reference's shared-probe control where it offers one
+    (``ReferenceValues.trace_control``), and kriging conditioned on the other points.
+    A deterministic bound b enters a metric's uncertainty as b / 2, so that the rule's
+    2 x uncertainty covers it."""
     from harness.audit.metrics.held_out_scale import held_out_scale
     from harness.audit.sides import kriging_side
     from harness.audit.tolerance_metrics import shift_metrics
@@ -347,7 +354,8 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     t0 = time.perf_counter()
     fac = solver.factorize(x, kernel, kernel.theta, **opts)
     ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=True,
-                             trace="hutchpp", probes=probes, rng=seed, fisher=False)
+                             trace="hutchpp", probes=probes, rng=seed, fisher=False,
+                             control=ref.trace_control)
     seconds = time.perf_counter() - t0
     notes = tuple(getattr(fac, "notes", ()))
     nbytes = int(fac.nbytes)

@@ -25,6 +25,7 @@ from harness.infra.exit_codes import ExitCode
 from harness.likelihood import evaluate_likelihood
 from harness.model.kernels import KERNELS, Kernel, make_kernel
 from harness.references import StateSpaceError, StateSpaceReference, dense_kriging
+from harness.references.line_products import LineProducts
 from harness.references.operator import operator_evaluate
 from harness.references.statespace_kriging import smoother_kriging
 from harness.solvers.registry import resolve_solver
@@ -84,13 +85,15 @@ def _operator_reference(kernel: Kernel, points: np.ndarray, y: np.ndarray) -> st
 
 
 def _state_space(kernel: Kernel, line: np.ndarray, y: np.ndarray) -> str | None:
-    """The Kalman filter, its sensitivities and the RTS smoother (half-integer Matern)."""
+    """The Kalman filter, its sensitivities, the RTS smoother (half-integer Matern) and
+    the exact O(n) line products of the audit's shared probes."""
     try:
         reference = StateSpaceReference(line, kernel)
     except StateSpaceError:
         return "no state-space form"
     reference.evaluate(y, mean="constant")
     smoother_kriging(line, y, kernel, line[:16] + 1e-3, mean="constant")
+    LineProducts(line, kernel).matvec(np.ones((line.shape[0], 2)))
     return None
 
 

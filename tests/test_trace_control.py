@@ -1,0 +1,147 @@
+"""Shared probes against the Kalman reference (issue 22, item 6): exact O(n) products on a
+line, the exact side of the control, its combination with Hutch++, and ``check`` on a
+line resolving the parameter shift."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+import scipy.linalg as sl
+import sklearn.gaussian_process.kernels as sk
+
+from harness.audit.line_trace_control import line_trace_control
+from harness.infra.exit_codes import ExitCode
+from harness.likelihood import evaluate_likelihood
+from harness.likelihood.trace.control import TraceControl, combine_estimates
+from harness.linalg.rademacher import rademacher_probes
+from harness.model.kernels import make_kernel
+from harness.references import DenseCholesky
+from harness.references.line_products import (
+    LineProductError,
+    LineProducts,
+    lengthscale_polynomial,
+    matern_polynomial,
+)
+from tests.test_statespace_kriging import FIXED, _line_file, _run
+
+NU = {"exponential": 0.5, "matern32": 1.5, "matern52": 2.5}
+
+
+def test_matern_polynomials_match_the_closed_forms():
+    # Source: Rasmussen and Williams 2006, eq. 4.17: 1 + s and 1 + s + s^2 / 3.
+    np.testing.assert_allclose(matern_polynomial(0), [1.0])
+    np.testing.assert_allclose(matern_polynomial(1), [1.0, 1.0])
+    np.testing.assert_allclose(matern_polynomial(2), [1.0, 1.0, 1.0 / 3.0])
+    # d/d log l of e^-s (1 + s) is e^-s s^2 (s = sqrt(3) r / l): s (P - P') = s^2.
+    np.testing.assert_allclose(lengthscale_polynomial(matern_polynomial(1)), [0.0, 0.0, 1.0])
+
+
+@pytest.mark.parametrize("family", sorted(NU))
+def test_line_products_equal_sklearn_and_the_kernels_derivatives(family):
+    # Source: scikit-learn's Matern kernel (covariance) and its eval_gradient (the
+    # derivative in log length scale), on unsorted points with a nugget.
+    rng = np.random.default_rng(4)
+    x = rng.uniform(0.0, 15.0, 400)
+    kernel = make_kernel(family, {"variance": 1.7, "lengthscale": 0.8, "nugget": 0.03})
+    skl = sk.ConstantKernel(1.7) * sk.Matern(length_scale=0.8, nu=NU[family])
+    cov, grad = skl(x[:, None], eval_gradient=True)     # grad: d/d log c, d/d log l
+    v = rng.standard_normal((400, 3))
+    products = LineProducts(x, kernel)
+    np.testing.assert_allclose(products.matvec(v), cov @ v + 0.03 * v, rtol=0, atol=1e-11)
+    np.testing.assert_allclose(products.derivative_matvec(0, v), grad[:, :, 0] @ v,
+                               rtol=0, atol=1e-11)
+    np.testing.assert_allclose(products.derivative_matvec(1, v), grad[:, :, 1] @ v,
+                               rtol=0, atol=1e-11)
+    np.testing.assert_allclose(products.derivative_matvec(2, v), 0.03 * v, rtol=0, atol=0)
+
+
+def test_line_products_refuse_what_they_do_not_cover():
+    with pytest.raises(LineProductError, match="line"):
+        LineProducts(np.ones((5, 2)), make_kernel("matern32", {"lengthscale": 1.0}))
+    with pytest.raises(LineProductError, match="half-integer"):
+        LineProducts(np.arange(5.0), make_kernel("gaussian", {"lengthscale": 1.0}))
+
+
+def _dense_operators(x, kernel):
+    n = x.size
+    factor = sl.cho_factor(kernel.covariance(x[:, None]))
+    _, derivs = kernel.block_with_derivatives(x[:, None], np.arange(n), np.arange(n))
+    return [sl.cho_solve(factor, d) for d in derivs]
+
+
+def test_the_control_is_the_exact_operator_on_its_probes():
+    # Source: scipy's dense Cholesky: tr(Sigma^-1 Sigma_i) and z' Sigma^-1 Sigma_i z,
+    # within the control's stated CG bound (plus rounding).
+    rng = np.random.default_rng(8)
+    x = rng.uniform(0.0, 20.0, 500)
+    kernel = make_kernel("matern32", {"variance": 1.3, "lengthscale": 0.7, "nugget": 0.02})
+    z = rademacher_probes(500, 8, np.random.default_rng(1))
+    control, note = line_trace_control(x, kernel, z)
+    assert control is not None, note
+    dense = _dense_operators(x, kernel)
+    np.testing.assert_allclose(control.exact, [np.trace(s) for s in dense], rtol=1e-9)
+    for i, s in enumerate(dense):
+        truth = np.einsum("nk,nk->k", z, s @ z)
+        assert np.max(np.abs(control.per_probe[i] - truth)) <= control.bound[i] + 1e-8
+    assert "shared-probe control" in note and "8 probes" in note
+
+
+def test_no_control_without_a_nugget_or_probes():
+    x = np.linspace(0.0, 10.0, 50)
+    control, note = line_trace_control(x, make_kernel("matern32", {"lengthscale": 1.0}),
+                                       np.ones((50, 4)))
+    assert control is None and "nugget" in note
+    kernel = make_kernel("matern32", {"lengthscale": 1.0, "nugget": 0.1})
+    control, note = line_trace_control(x, kernel, np.ones((50, 1)))
+    assert control is None and "fewer than 2" in note
+
+
+def test_combined_estimate_weighs_by_inverse_variance():
+    # Closed form: equal SEs give the plain mean with SE / sqrt(2); a zero SE wins whole.
+    mean, se = combine_estimates(np.array([1.0, 5.0]), np.array([2.0, 0.0]),
+                                 np.array([3.0, 7.0]), np.array([2.0, 1.0]))
+    np.testing.assert_allclose(mean, [2.0, 5.0])
+    np.testing.assert_allclose(se, [np.sqrt(2.0), 0.0])
+    mean, se = combine_estimates(np.array([0.0]), np.array([1.0]), np.array([10.0]),
+                                 np.array([3.0]))
+    np.testing.assert_allclose(mean, [1.0])                  # weights 9/10 and 1/10
+    np.testing.assert_allclose(se, [np.sqrt(0.9)])
+
+
+def test_an_exact_solver_against_the_control_has_the_exact_score():
+    # Source: the dense score (exact traces, scipy Cholesky inside DenseCholesky); with
+    # the exact Sigma^-1 Sigma_i as the control the differences vanish, so the combined
+    # trace is the exact one within the control's bound, far inside Hutch++'s own SE.
+    rng = np.random.default_rng(3)
+    x = np.sort(rng.uniform(0.0, 30.0, 400))
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 1.5, "nugget": 0.05})
+    fac = DenseCholesky(x[:, None], kernel)
+    y = fac.apply_sqrt(rng.standard_normal(400))
+    control, _ = line_trace_control(x, kernel, rademacher_probes(400, 16, rng))
+    assert isinstance(control, TraceControl)
+    exact = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant", trace="exact")
+    alone = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant",
+                                trace="hutchpp", probes=64, rng=2)
+    shared = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant",
+                                 trace="hutchpp", probes=64, rng=2, control=control)
+    np.testing.assert_allclose(shared.trace_terms, exact.trace_terms, rtol=0, atol=1e-6)
+    assert np.all(shared.trace_stderr < 1e-3 * alone.trace_stderr)
+    assert any("control variate" in note for note in shared.notes)
+
+
+def test_check_on_a_line_resolves_the_parameter_shift(tmp_path, capsys):
+    # Against the Kalman reference the solver's score shares the audit's probes with the
+    # exact side: the shift's uncertainty falls far below the 0.1 SE limit (it was about
+    # 1 SE with Hutch++ alone), so the tight tolerance is judged on every metric.
+    path = _line_file(tmp_path, n=600)
+    code = _run([str(path), "--coords", "t", "--value", "z", "--tolerances", "1e-8",
+                 *FIXED, "--reference", "statespace", "--solver-seeds", "2", "--json",
+                 "--out", str(tmp_path / "o"), "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code == ExitCode.OK
+    assert "shared-probe control" in result["reference_by_metric"]["score"]["shared_probes"]
+    (row,) = result["tolerances"]
+    assert row["status"] == "safe"
+    assert row["param_shift_se"]["uncertainty"] < 0.01
