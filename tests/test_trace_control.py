@@ -7,11 +7,18 @@ from __future__ import annotations
 import json
 
 import numpy as np
+import pandas as pd
 import pytest
 import scipy.linalg as sl
 import sklearn.gaussian_process.kernels as sk
 
 from harness.audit.line_trace_control import line_trace_control
+from harness.audit.shared_probes import (
+    merge,
+    own_score_error,
+    shared_score_error,
+    solver_quadratics,
+)
 from harness.infra.exit_codes import ExitCode
 from harness.likelihood import evaluate_likelihood
 from harness.likelihood.trace.control import TraceControl, combine_estimates
@@ -24,6 +31,7 @@ from harness.references.line_products import (
     lengthscale_polynomial,
     matern_polynomial,
 )
+from harness.solvers.fallback import adapt
 from tests.test_statespace_kriging import FIXED, _line_file, _run
 
 NU = {"exponential": 0.5, "matern32": 1.5, "matern52": 2.5}
@@ -110,25 +118,32 @@ def test_combined_estimate_weighs_by_inverse_variance():
     np.testing.assert_allclose(se, [np.sqrt(0.9)])
 
 
-def test_an_exact_solver_against_the_control_has_the_exact_score():
-    # Source: the dense score (exact traces, scipy Cholesky inside DenseCholesky); with
-    # the exact Sigma^-1 Sigma_i as the control the differences vanish, so the combined
-    # trace is the exact one within the control's bound, far inside Hutch++'s own SE.
+def test_an_exact_solver_on_shared_probes_has_no_score_error():
+    # Source: the dense score with exact traces (scipy's Cholesky inside DenseCholesky)
+    # as the reference; the dense factorization as the "solver": on shared probes the
+    # differences vanish, so the error is 0 within the control's bound, far inside the
+    # SE of the solver's own Hutch++ estimate.
     rng = np.random.default_rng(3)
     x = np.sort(rng.uniform(0.0, 30.0, 400))
     kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 1.5, "nugget": 0.05})
-    fac = DenseCholesky(x[:, None], kernel)
+    fac = adapt(DenseCholesky(x[:, None], kernel), x[:, None], kernel)
     y = fac.apply_sqrt(rng.standard_normal(400))
     control, _ = line_trace_control(x, kernel, rademacher_probes(400, 16, rng))
     assert isinstance(control, TraceControl)
     exact = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant", trace="exact")
+    np.testing.assert_allclose(control.exact, exact.trace_terms, rtol=1e-9)
     alone = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant",
                                 trace="hutchpp", probes=64, rng=2)
-    shared = evaluate_likelihood(fac, x[:, None], y, kernel, mean="constant",
-                                 trace="hutchpp", probes=64, rng=2, control=control)
-    np.testing.assert_allclose(shared.trace_terms, exact.trace_terms, rtol=0, atol=1e-6)
-    assert np.all(shared.trace_stderr < 1e-3 * alone.trace_stderr)
-    assert any("control variate" in note for note in shared.notes)
+    quadratics = solver_quadratics(fac, x[:, None], y, kernel, mean="constant",
+                                   beta=exact.beta)
+    shared = shared_score_error(fac, quadratics, exact.score, control, None)
+    own = own_score_error(alone.score, alone.trace_stderr, exact.score,
+                          np.zeros(kernel.n_params))
+    np.testing.assert_allclose(shared.error, 0.0, atol=1e-6)
+    assert np.all(shared.stderr < 1e-3 * own.stderr)
+    merged = merge(shared, own, control)
+    np.testing.assert_allclose(merged.error, shared.error, atol=1e-6)
+    assert "inverse-variance" in merged.note
 
 
 def test_check_on_a_line_resolves_the_parameter_shift(tmp_path, capsys):
@@ -145,3 +160,27 @@ def test_check_on_a_line_resolves_the_parameter_shift(tmp_path, capsys):
     (row,) = result["tolerances"]
     assert row["status"] == "safe"
     assert row["param_shift_se"]["uncertainty"] < 0.01
+    assert "shared with" in row["param_shift_se"]["note"]
+
+
+def test_check_against_the_operator_shares_its_score_probes(tmp_path, capsys):
+    # In the plane the exact operator's own score probes are shared with the solver:
+    # its trace noise cancels, and the shift's uncertainty falls below the limit's tenth
+    # (with each side's probes on their own it was of order 1 SE).
+    rng = np.random.default_rng(6)
+    x = rng.uniform(0, 10, (300, 2))
+    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    v = DenseCholesky(x, kernel).apply_sqrt(rng.standard_normal(300))
+    path = tmp_path / "plane.csv"
+    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
+                 *FIXED, "--reference", "operator", "--solver-seeds", "2", "--json",
+                 "--out", str(tmp_path / "o"), "--no-refit"])
+    result = json.loads(capsys.readouterr().out)
+    assert code == ExitCode.OK
+    shared = result["reference_by_metric"]["score"]["shared_probes"]
+    assert "exact operator's score probes" in shared
+    (row,) = result["tolerances"]
+    assert row["status"] == "safe"
+    assert row["param_shift_se"]["uncertainty"] < 0.01
+    assert "shared with the exact operator" in row["param_shift_se"]["note"]

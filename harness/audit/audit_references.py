@@ -30,6 +30,7 @@ import importlib.util
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -52,9 +53,13 @@ from harness.audit.operator_preconditioner import (
 from harness.audit.sides import KrigingSide, evaluate_side, kriging_side
 from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.infra.child_process import run_stage
+from harness.likelihood.trace.control import TraceControl
 from harness.references import CERTIFICATE_THRESHOLD
 from harness.references.operator.products import KernelOperator
 from harness.solvers.registry import ResolvedSolver
+
+if TYPE_CHECKING:
+    from harness.references.operator.reference import OperatorEvaluation
 
 OPERATOR_MODULE = "harness.references.operator"
 
@@ -218,10 +223,18 @@ class OperatorReference:
                     else np.asarray(ev.score_se, dtype=float))
         if ev.score_bound is not None:
             score_se = score_se + 0.5 * np.asarray(ev.score_bound, dtype=float)
+        control = _operator_trace_control(ev)
+        self.by_metric["score"]["shared_probes"] = (
+            "no shared-probe control: the solver's traces are estimated on their own"
+            if control is None else
+            f"shared-probe control: {control.source}, {control.probes.shape[1]} probes")
         self._values = ReferenceValues(
             loglik=ReferenceValue(ev.loglik, se=float(ev.loglik_se),
                                   bound=float(ev.loglik_bound)),
             score=np.asarray(ev.score, dtype=float), score_se=score_se,
+            trace_control=control,
+            score_se_shared=(None if ev.shared_probes is None
+                             else np.asarray(ev.shared_probes.other_score_bound) / 2.0),
             krige_mean=np.asarray(kr.mean), krige_mean_bound=np.asarray(kr.mean_bound),
             krige_var=np.asarray(kr.variance), loglik_seconds=seconds,
             logdet=ReferenceValue(float(ev.logdet), se=float(ev.logdet_se)),
@@ -232,6 +245,20 @@ class OperatorReference:
 
     def values(self) -> ReferenceValues:
         return self._values
+
+
+def _operator_trace_control(ev: OperatorEvaluation) -> TraceControl | None:
+    """The operator's own score probes as the shared-probe control
+    (``harness.audit.shared_probes``): its ML traces, estimated on these probes, with
+    the exact per-probe values z_j' Sigma^-1 Sigma_i z_j and their CG bound."""
+    shared = ev.shared_probes
+    if shared is None or ev.reml or shared.columns.shape[1] < 2:
+        return None
+    return TraceControl(
+        probes=shared.columns, exact=np.asarray(shared.trace_terms, dtype=float),
+        per_probe=shared.per_probe, bound=np.asarray(shared.bound, dtype=float),
+        source="the exact operator's score probes (CG with exact products)",
+        estimated_on_probes=True)
 
 
 @dataclass(frozen=True)

@@ -40,6 +40,7 @@ from harness.likelihood.trace.control import TraceControl
 from harness.model.kernels import Kernel
 
 if TYPE_CHECKING:
+    from harness.audit.shared_probes import ScoreError
     from harness.audit.sides import KrigingSide, Side
     from harness.audit.task_metrics import DetailRequest
     from harness.solvers.registry import ResolvedSolver
@@ -159,9 +160,12 @@ class ReferenceValues:
     #: What the log-likelihood was measured against, for the metric's note.
     loglik_source: str = "the exact operator (its SE and CG bound)"
     #: The exact side of shared probes for the solver's score traces
-    #: (``harness.likelihood.trace.control``); None: the solver's traces are estimated
-    #: on their own.
+    #: (``harness.audit.shared_probes``); None: the solver's traces are estimated on
+    #: their own.
     trace_control: TraceControl | None = None
+    #: The score's uncertainty that remains when the solver shares ``trace_control``'s
+    #: probes (the part not from the trace probes); None: zeros.
+    score_se_shared: np.ndarray | None = None
 
 
 class ValueReference(Protocol):
@@ -338,12 +342,10 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                       solver: ResolvedSolver, options: Mapping[str, object],
                       ref: ReferenceValues, probes: int,
                       thresholds: Thresholds) -> SeedAudit:
-    """One seed against a value reference: the solver's own likelihood and Hutch++ score
-    (its SE and the reference's combined, independent), its trace terms sharpened by
-    the reference's shared-probe control where it offers one
-    (``ReferenceValues.trace_control``), and kriging conditioned on the other points.
-    A deterministic bound b enters a metric's uncertainty as b / 2, so that the rule's
-    2 x uncertainty covers it."""
+    """One seed against a value reference: the solver's own likelihood, its score error
+    on the reference's shared probes or by its own Hutch++ traces (``_value_score_error``)
+    and kriging conditioned on the other points. A deterministic bound b enters a
+    metric's uncertainty as b / 2, so that the rule's 2 x uncertainty covers it."""
     from harness.audit.metrics.held_out_scale import held_out_scale
     from harness.audit.sides import kriging_side
     from harness.audit.tolerance_metrics import shift_metrics
@@ -353,10 +355,10 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
     kernel, x, train = data.kernel, data.points, data.train
     t0 = time.perf_counter()
     fac = solver.factorize(x, kernel, kernel.theta, **opts)
-    ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=True,
-                             trace="hutchpp", probes=probes, rng=seed, fisher=False,
-                             control=ref.trace_control)
+    ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=False)
     seconds = time.perf_counter() - t0
+    score = _value_score_error(fac, ev.beta, data, ref, probes=probes, seed=seed,
+                               thresholds=thresholds)
     notes = tuple(getattr(fac, "notes", ()))
     nbytes = int(fac.nbytes)
     kl = _estimated_kl(fac, ref, data, seed) if data.kl else None
@@ -368,12 +370,10 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                            thresholds.loglik_nats,
                            uncertainty=ref.loglik.se + ref.loglik.bound / 2.0,
                            note=f"nats; against {ref.loglik_source}")]
-    solver_se = (np.zeros_like(ref.score_se) if ev.trace_stderr is None
-                 else 0.5 * np.asarray(ev.trace_stderr, dtype=float))
-    e = np.asarray(ev.score, dtype=float) - ref.score
-    e_se = np.sqrt(ref.score_se ** 2 + solver_se ** 2)
-    metrics.extend(shift_metrics(e, e_se, kernel=kernel, fisher=data.fisher,
-                                 thresholds=thresholds))
+    shift = shift_metrics(score.error, score.stderr, kernel=kernel, fisher=data.fisher,
+                          thresholds=thresholds)
+    metrics.extend(replace(m, note=f"{m.note}; {score.note}") if m.name == "param_shift_se"
+                   else m for m in shift)
     if kl is not None:
         metrics.append(kl)
     if ref.krige_mean is not None and ref.krige_var is not None:
@@ -401,6 +401,41 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                      f"[{ratio.min():.6g}, {ratio.max():.6g}]"))
     return SeedAudit(index=index, seed=seed, loglik=ev.loglik, metrics=tuple(metrics),
                      judgements=_judge(metrics), seconds=seconds, nbytes=nbytes, notes=notes)
+
+
+def _value_score_error(fac: object, beta: np.ndarray, data: AuditData,
+                       ref: ReferenceValues, *, probes: int, seed: int,
+                       thresholds: Thresholds) -> ScoreError:
+    """The solver's score error against a value reference (``harness.audit.shared_probes``):
+    on the reference's shared probes first; the solver's own Hutch++ estimate too when
+    there are none, or when the shared one's shift SE is above ``SHARP_ENOUGH`` of the
+    limit."""
+    from harness.audit.shared_probes import (
+        SHARP_ENOUGH,
+        merge,
+        own_score_error,
+        shared_score_error,
+        solver_quadratics,
+    )
+    from harness.audit.tolerance_metrics import shift_uncertainty
+    from harness.likelihood import evaluate_likelihood
+    from harness.solvers.fallback import adapt
+
+    kernel, x, y = data.kernel, data.points, data.y
+    control = ref.trace_control
+    shared = None
+    if control is not None:
+        fac = adapt(fac, x, kernel)  # type: ignore[arg-type]
+        quadratics = solver_quadratics(fac, x, y, kernel, mean=data.mean, beta=beta)
+        shared = shared_score_error(fac, quadratics, ref.score, control,
+                                    ref.score_se_shared)
+        if data.fisher is None or np.all(shift_uncertainty(shared.stderr, data.fisher)
+                                         <= SHARP_ENOUGH * thresholds.param_shift_se):
+            return shared
+    ev = evaluate_likelihood(fac, x, y, kernel, mean=data.mean, score=True,  # type: ignore[arg-type]
+                             trace="hutchpp", probes=probes, rng=seed, fisher=False)
+    own = own_score_error(np.asarray(ev.score), ev.trace_stderr, ref.score, ref.score_se)
+    return own if shared is None or control is None else merge(shared, own, control)
 
 
 def _estimated_kl(fac: object, ref: ReferenceValues, data: AuditData, seed: int

@@ -54,6 +54,15 @@ def likelihood_metrics(test: Side, ref: Side, *, kernel: Kernel, fisher: np.ndar
     return metrics
 
 
+def shift_uncertainty(e_se: np.ndarray, fisher: np.ndarray) -> np.ndarray:
+    """SD of each implied parameter shift (F^-1 e)_i / SE_i from independent score errors
+    with SDs ``e_se``: sqrt((F^-1 diag(e_se^2) F^-1)_ii) / sqrt((F^-1)_ii) (linear
+    propagation; common practice)."""
+    f_inv = np.linalg.inv(0.5 * (fisher + fisher.T))
+    se = np.sqrt(np.diag(f_inv))
+    return np.sqrt(np.diag(f_inv @ np.diag(np.asarray(e_se) ** 2) @ f_inv)) / se
+
+
 def shift_metrics(e: np.ndarray, e_se: np.ndarray, *, kernel: Kernel,
                   fisher: np.ndarray | None, thresholds: Thresholds) -> list[MetricValue]:
     """Implied parameter shift F^-1 e in SE units from a score error e with per-component
@@ -66,9 +75,7 @@ def shift_metrics(e: np.ndarray, e_se: np.ndarray, *, kernel: Kernel,
     if fisher is None:
         return []
     errs = score_errors(e, np.zeros_like(e), fisher, kernel.param_names)
-    f_inv = np.linalg.inv(0.5 * (fisher + fisher.T))
-    se = np.sqrt(np.diag(f_inv))
-    shift_sd = np.sqrt(np.diag(f_inv @ np.diag(np.asarray(e_se) ** 2) @ f_inv)) / se
+    shift_sd = shift_uncertainty(e_se, fisher)
     upper = np.abs(errs.shift_se) + 2.0 * np.nan_to_num(shift_sd, nan=np.inf)
     worst = int(np.argmax(upper))
     metrics = [MetricValue(

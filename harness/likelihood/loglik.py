@@ -20,7 +20,6 @@ import time
 
 import numpy as np
 
-from harness.likelihood.trace.control import TraceControl, combine_estimates, controlled_traces
 from harness.likelihood.traces import EXACT_TRACE_MAX_N, trace_terms
 from harness.likelihood.whitening import fit_mean
 from harness.model.evaluation import ModelEvaluation
@@ -54,8 +53,7 @@ def evaluate_likelihood(factorization: Factorization, points: np.ndarray, y: np.
                         kernel: Kernel, *, mean: str = "zero", reml: bool = False,
                         score: bool = True, trace: str = "exact", probes: int = 64,
                         rng: np.random.Generator | int | None = None, fisher: bool = False,
-                        exact_max_n: int = EXACT_TRACE_MAX_N,
-                        control: TraceControl | None = None) -> ModelEvaluation:
+                        exact_max_n: int = EXACT_TRACE_MAX_N) -> ModelEvaluation:
     """Log-likelihood, score and Fisher information at the factorization's parameters.
 
     Parameters
@@ -81,11 +79,6 @@ def evaluate_likelihood(factorization: Factorization, points: np.ndarray, y: np.
         Probe source.
     fisher : bool
         Also the expected Fisher information (exact or estimated like the traces).
-    control : TraceControl, optional
-        Also estimate the traces by this control variate on its probe columns and
-        combine the two estimates by inverse-variance weights
-        (``harness.likelihood.trace.control``). ML score only: no Fisher information,
-        no REML.
 
     Returns
     -------
@@ -117,9 +110,6 @@ def evaluate_likelihood(factorization: Factorization, points: np.ndarray, y: np.
     if need_score and a is not None:
         start = time.perf_counter()
         quad = np.array([float(a @ fac.derivative_matvec(i, a)) for i in range(p)])
-        if control is not None and (fisher or reml):
-            raise ValueError("a trace control serves the ML score only (no Fisher "
-                             "information, no REML)")
         sinv_design = fac.solve(design) if (reml and design.shape[1]) else None
         terms = trace_terms(fac, p, method=trace, probes=probes, rng=rng, fisher=fisher,
                             sinv_design=sinv_design,
@@ -127,15 +117,6 @@ def evaluate_likelihood(factorization: Factorization, points: np.ndarray, y: np.
                             exact_max_n=exact_max_n)
         traces, stderr, fisher_mat = terms.traces, terms.stderr, terms.fisher
         probes_used, solves, matvecs = terms.probes, terms.solves + 1, terms.matvecs + p
-        if control is not None:
-            controlled = controlled_traces(fac, p, control)
-            traces, stderr = combine_estimates(controlled.traces, controlled.stderr,
-                                               traces, stderr)
-            probes_used += controlled.probes
-            solves += p * controlled.probes
-            matvecs += p * controlled.probes
-            notes.append(controlled.note + f"; combined with the {trace} estimate by "
-                         "inverse-variance weights")
         score_vec = 0.5 * quad - 0.5 * traces
         notes.extend(terms.notes)
         seconds["score"] = time.perf_counter() - start

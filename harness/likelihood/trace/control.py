@@ -19,20 +19,13 @@ variate; Glasserman 2004, *Monte Carlo Methods in Financial Engineering*, sec. 4
 unbiased for any B_i, with a variance of order ||S~_i - B_i||_F^2 / k. ``b_i`` bounds
 the error of the mean of the known per-probe values (for example a CG residual bound);
 it enters as b / 2, so that the audit rule's 2 x uncertainty covers it, as every
-deterministic bound does there. The audit's B_i is the exact Sigma^-1 Sigma_i itself
-(``harness.audit.line_trace_control``): the estimate is then that of common random
-numbers, as in the dense audit (``harness.audit.sides``), and its noise is that of
-the solver's compression error alone.
+deterministic bound does there.
 
-When that error is large (a loose knob value) the difference is no longer small and an
-estimate made on its own (Hutch++, which deflates the dominant directions) can be the
-sharper one. The two estimates use independent probes and are both unbiased, so
-``combine_estimates`` weighs them by their inverse variances per parameter (Graybill
-and Deal 1959, Biometrics 15, "from memory": with weights estimated from independent
-samples the result stays unbiased, and its variance is at most that of the better one up
-to the weights' own noise). In a development run on 20,000 points on a line (not a
-contract figure) the control took HODLR's shift SE from 1.1 to 2e-5 SE, while against
-Vecchia with 3 neighbours the Hutch++ estimate was about 60x sharper.
+The audit's B_i is the exact Sigma^-1 Sigma_i itself, on the audit's shared probes
+(``harness.audit.shared_probes``): the estimate is then that of common random numbers,
+as in the dense audit (``harness.audit.sides``), and its noise is that of the solver's
+compression error alone. In a development run on 20,000 points on a line (not a
+contract figure) it took HODLR's shift SE from 1.1 to 2e-5 SE.
 
 A tight Vecchia approximation was tried as B_i and rejected: on 2,000 points on a line
 (Matern 3/2, l = 0.5, nugget 1e-2) the off-diagonal Frobenius norm of S_i - B_i was
@@ -56,7 +49,10 @@ class TraceControl:
 
     ``probes`` holds the probe columns Z (n, k), ``exact`` tr(B_i), ``per_probe``
     z_j' B_i z_j with shape (p, k), ``bound`` a bound (p,) on the error of the mean of
-    each row of ``per_probe``; ``source`` says what B_i is.
+    each row of ``per_probe``; ``source`` says what B_i is. ``estimated_on_probes``: the
+    traces in ``exact`` are themselves estimated from these probes (the exact operator's)
+    rather than known (the Kalman filter's), so an estimate made with the control is
+    correlated with them.
     """
 
     probes: np.ndarray
@@ -64,6 +60,7 @@ class TraceControl:
     per_probe: np.ndarray
     bound: np.ndarray
     source: str
+    estimated_on_probes: bool = False
 
 
 @dataclass(frozen=True)
@@ -98,8 +95,14 @@ def probe_quadratics(factorization: object, count: int, probes: np.ndarray, *,
 
 def combine_estimates(first: np.ndarray, first_se: np.ndarray, second: np.ndarray,
                       second_se: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Inverse-variance weighted mean of two independent unbiased estimates and its SE
-    (module docstring), per entry; an entry with a zero SE is taken whole."""
+    """Inverse-variance weighted mean of two independent unbiased estimates, per entry.
+
+    mean = (a / sa^2 + b / sb^2) / (1 / sa^2 + 1 / sb^2), SE = (1 / sa^2 + 1 / sb^2)^-1/2
+    (Graybill and Deal 1959, Biometrics 15, "from memory": with weights estimated from
+    independent samples the mean stays unbiased and its variance is at most that of the
+    better estimate, up to the weights' own noise). An entry with a zero SE is taken
+    whole.
+    """
     a, sa = np.asarray(first, dtype=float), np.asarray(first_se, dtype=float)
     b, sb = np.asarray(second, dtype=float), np.asarray(second_se, dtype=float)
     va, vb = sa ** 2, sb ** 2

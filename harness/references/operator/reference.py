@@ -89,6 +89,25 @@ BOUND_ESTIMATE = "residual/ritz-estimate"
 
 
 @dataclass(frozen=True)
+class SharedProbes:
+    """The score's trace probes of one evaluation, for common random numbers.
+
+    ``columns`` holds the Rademacher probes Z (n, k); ``per_probe`` z_j' Sigma^-1
+    Sigma_i z_j (p, k) from CG and exact products; ``bound`` the mean over j of their CG
+    error bounds (p,); ``trace_terms`` the ML traces tr(Sigma^-1 Sigma_i) the score used
+    (estimated from these probes and the preconditioner's); ``other_score_bound`` the
+    score's deterministic uncertainty other than the probes' CG bound (the quadratic
+    term's CG bound and the dots' rounding, halved as in the score).
+    """
+
+    columns: np.ndarray
+    per_probe: np.ndarray
+    bound: np.ndarray
+    trace_terms: np.ndarray
+    other_score_bound: np.ndarray
+
+
+@dataclass(frozen=True)
 class OperatorEvaluation:
     """One evaluation by the exact-operator reference, each value with its uncertainty.
 
@@ -134,6 +153,9 @@ class OperatorEvaluation:
     uncertainty : dict
         Each term of loglik_se and loglik_bound: {"value" (nats, on L), "kind"
         ("estimate" or "bound"), "source"}, plus "combination".
+    shared_probes : SharedProbes or None
+        The score's trace probes with their exact per-probe values, for a solver's
+        audit on the same probes; None without a score. Not in ``to_dict``.
     """
 
     n: int
@@ -163,6 +185,7 @@ class OperatorEvaluation:
     loglik_bound: float = float("nan")
     score_bound: np.ndarray | None = None
     uncertainty: dict[str, object] = field(default_factory=dict)
+    shared_probes: SharedProbes | None = None
 
     def to_dict(self) -> dict[str, object]:
         def arr(a: np.ndarray | None) -> object:
@@ -360,6 +383,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         width_samples: list[np.ndarray] = []
         trace_samples: list[np.ndarray] = []
         trace_bounds: list[np.ndarray] = []
+        exact_samples: list[np.ndarray] = []
+        probe_columns: list[np.ndarray] = []
         lanczos_ok = True
         radau_node = float("inf")
         probes = 0
@@ -382,11 +407,13 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                 cg_error = (np.linalg.norm(solved.residual, axis=0) / solved.lambda_min
                             if solved.residual is not None and solved.lambda_min > 0
                             else np.full(count, np.inf))
-                values_i, bounds_i = trace_difference_bounded(
+                values_i, exact_i, bounds_i = trace_difference_bounded(
                     op, preconditioner, z, solved.x, control=pre.available,
                     error_norms=cg_error)
                 trace_samples.append(values_i)
+                exact_samples.append(exact_i)
                 trace_bounds.append(bounds_i)
+                probe_columns.append(z)
             probes += count
             values = np.concatenate(logdet_samples)
             if values.size > 1:
@@ -440,6 +467,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         logdet_ftf = float(np.linalg.slogdet(design.T @ design)[1])
         loglik = -0.5 * (gls.quadratic + logdet + logdet_gram - logdet_ftf + (n - q) * LOG_2PI)
     score_vec = score_se = trace_terms = trace_se = score_bound = None
+    shared = None
     if score and pre is not None and quad_terms is not None:
         diff = np.concatenate(trace_samples, axis=1)
         diff_se = diff.std(axis=1, ddof=1) / math.sqrt(diff.shape[1]) if diff.shape[1] > 1 \
@@ -457,6 +485,10 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         probe_bound = np.concatenate(trace_bounds, axis=1).mean(axis=1)
         dots = UNIT_ROUNDOFF * 2.0 * (np.abs(da) @ np.abs(gls.a) + np.abs(quad_terms))
         score_bound = 0.5 * (quad_bound + probe_bound + dots)
+        shared = SharedProbes(columns=np.concatenate(probe_columns, axis=1),
+                              per_probe=np.concatenate(exact_samples, axis=1),
+                              bound=probe_bound, trace_terms=pre.estimate + diff.mean(axis=1),
+                              other_score_bound=0.5 * (quad_bound + dots))
     return OperatorEvaluation(
         n=n, param_names=model.param_names, loglik=float(loglik), loglik_se=loglik_se,
         logdet=logdet, logdet_se=logdet_se, preconditioner_logdet=pre_logdet,
@@ -465,7 +497,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         products=op.column_products, probes=probes, seconds=time.perf_counter() - start,
         converged=converged, messages=tuple(dict.fromkeys(messages)), bound_kind=bound_kind,
         mean=mean, reml=reml, phases=phases, loglik_bound=float(loglik_bound),
-        score_bound=score_bound, uncertainty=terms)
+        score_bound=score_bound, uncertainty=terms, shared_probes=shared)
 
 
 def _uncertainty_terms(*, probe_se: float, widths: np.ndarray, radau_node: float,

@@ -73,9 +73,10 @@ def preconditioner_traces(preconditioner: Factorization, n_params: int, *, probe
 
 def trace_difference_bounded(operator: KernelOperator, preconditioner: Factorization,
                              z: np.ndarray, sinv_z: np.ndarray, *, control: bool,
-                             error_norms: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Per-probe z' Sigma^-1 Sigma_i z - z' P^-1 P_i z and each value's CG error bound,
-    both shape (p, count).
+                             error_norms: np.ndarray
+                             ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per-probe z' Sigma^-1 Sigma_i z - z' P^-1 P_i z, the exact part z' Sigma^-1 Sigma_i z
+    alone, and each value's CG error bound, all shape (p, count).
 
     ``sinv_z`` is Sigma^-1 z from CG; Sigma_i z are exact products. With
     ``control=False`` the second term is omitted. ``error_norms`` bounds
@@ -83,8 +84,9 @@ def trace_difference_bounded(operator: KernelOperator, preconditioner: Factoriza
     |z' Sigma_i (x - x*)| <= ||Sigma_i z|| ||x - x*|| (Cauchy-Schwarz).
     """
     exact = operator.derivative_matvecs(z)                    # (p, n, count)
-    values = np.einsum("nc,pnc->pc", sinv_z, exact)
+    per_probe = np.einsum("nc,pnc->pc", sinv_z, exact)
+    values = per_probe.copy()
     if control:
         values -= _preconditioner_quadratics(preconditioner, z, operator.n_params)
     bounds = np.linalg.norm(exact, axis=1) * np.asarray(error_norms)[None, :]
-    return values, bounds
+    return values, per_probe, bounds
