@@ -425,7 +425,7 @@ def _value_score_error(fac: object, beta: np.ndarray, data: AuditData,
     control = ref.trace_control
     shared = None
     if control is not None:
-        fac = adapt(fac, x, kernel)  # type: ignore[arg-type]
+        fac = adapt(fac, x, kernel)
         quadratics = solver_quadratics(fac, x, y, kernel, mean=data.mean, beta=beta)
         shared = shared_score_error(fac, quadratics, ref.score, control,
                                     ref.score_se_shared)
