@@ -165,12 +165,13 @@ class OperatorReference:
     (``harness.audit.operator_preconditioner``). The preconditioner, its pilot and the
     iteration counts of the real runs are reported in ``info`` and ``by_metric``.
     Certified when every CG and Lanczos run converged and the CG bounds are rigorous
-    (a nugget gives lambda_min >= nugget).
+    (a nugget gives lambda_min >= nugget). With a Dask ``client`` the exact products run
+    on its workers, with the same values (a fixed summation order).
     """
 
     def __init__(self, data: AuditData, *, base_seed: int, probes: int = 64,
                  preconditioner: PreconditionerSpec | None = None, leaf_size: int = 128,
-                 memory_budget: int | None = None) -> None:
+                 memory_budget: int | None = None, client: object | None = None) -> None:
         from harness.references.operator import operator_evaluate, operator_kriging
         from harness.references.operator.products import KernelOperator
 
@@ -182,7 +183,7 @@ class OperatorReference:
         built = build_operator_preconditioner(x, kernel, spec, rng=rng, leaf_size=leaf_size)
         ev = operator_evaluate(x, data.y, kernel, mean=data.mean,
                                preconditioner=built.factorization, rng=base_seed, score=True,
-                               memory_budget=memory_budget, progress=False)
+                               memory_budget=memory_budget, client=client, progress=False)
         seconds = time.perf_counter() - t0
         built_t = build_operator_preconditioner(
             x[train], kernel, PreconditionerSpec(family=built.family, knob=built.knob_value),
@@ -190,7 +191,7 @@ class OperatorReference:
         kr = operator_kriging(x[train], data.y[train], kernel, x[data.holdout],
                               mean=data.mean, preconditioner=built_t.factorization,
                               variance_at=data.variance_positions,
-                              memory_budget=memory_budget, progress=False)
+                              memory_budget=memory_budget, client=client, progress=False)
         certified = bool(ev.converged and kr.converged and kr.rigorous
                          and ev.bound_kind.startswith("residual/nugget"))
         self.messages = tuple(dict.fromkeys((*ev.messages, *kr.messages)))
@@ -397,8 +398,8 @@ def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
                     solver_options: Mapping[str, object], base_seed: int,
                     memory_budget: int | None, ladder_factor: float, probes: int,
                     leaf_size: int = 128, isolate: bool = True,
-                    preconditioner: PreconditionerSpec | None = None
-                    ) -> PairedReference | ValueReference:
+                    preconditioner: PreconditionerSpec | None = None,
+                    client: object | None = None) -> PairedReference | ValueReference:
     """The engine's reference of ``kind`` (``harness.audit.reference_choice``) on ``data``.
 
     ``preconditioner`` is the operator reference's (None: ``PreconditionerSpec()``, HODLR).
@@ -406,6 +407,7 @@ def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
     ``isolate`` runs the dense reference's factorizations in a child process (``check``;
     a ``run`` task's worker is already one). ``probes`` sets the operator's and the
     structured references' Hutch++ probes of the solver's score (at least 64).
+    ``client``: a Dask client for the operator's exact products (None: this process).
     """
     if kind == "dense":
         return DenseReference(data, memory_budget=memory_budget, isolate=isolate)
@@ -414,7 +416,7 @@ def build_reference(kind: str, data: AuditData, *, solver: ResolvedSolver,
     if kind == "operator":
         return OperatorReference(data, base_seed=base_seed, probes=max(64, probes),
                                  preconditioner=preconditioner, leaf_size=leaf_size,
-                                 memory_budget=memory_budget)
+                                 memory_budget=memory_budget, client=client)
     if kind == "ladder":
         return LadderReference(data, solver, factor=ladder_factor, base_seed=base_seed,
                                options=solver_options)

@@ -106,6 +106,10 @@ class CheckOptions:
     solver_timeout : float or None
         Seconds one call into a solver plugin may take in its child process
         (``harness.check.plugin_guard``); None: ``default_solver_timeout(n)``.
+    dask_local, scheduler : int or str, optional
+        Run the exact-operator reference's products on a local Dask cluster of this many
+        workers, or on the Dask scheduler at this address (at most one; the values do
+        not depend on where the products run: a fixed summation order).
     """
 
     kernel: str = "matern32"
@@ -143,6 +147,8 @@ class CheckOptions:
     sweeps: Mapping[str, tuple[float, ...]] = field(default_factory=dict)
     timing_repeats: int | None = None
     kl: bool = False
+    dask_local: int | None = None
+    scheduler: str | None = None
 
     @property
     def solver_names(self) -> tuple[str, ...]:

@@ -49,7 +49,8 @@ FIT_FILE = "fit.pickle"
 KILL_AFTER_SAVES_VARIABLE = "COVAUDIT_TEST_KILL_AFTER_SAVES"
 #: ``CheckOptions`` fields that change no saved result: the limit of a solver call (a
 #: call that times out is not saved) and whether the refit follows (it is not saved).
-RESULT_FREE_OPTIONS = frozenset({"solver_timeout", "refit", "timing_repeats"})
+RESULT_FREE_OPTIONS = frozenset({"solver_timeout", "refit", "timing_repeats", "dask_local",
+                                 "scheduler"})
 #: The name of the data file's input in ``inputs.json`` and in messages.
 DATA_FILE_INPUT = "the data file"
 _FORMAT = 1

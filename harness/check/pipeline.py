@@ -56,6 +56,7 @@ from harness.audit.engine import (
     PairedReference,
     ValueReference,
 )
+from harness.audit.named_evaluation import dask_client
 from harness.audit.operator_preconditioner import PreconditionerSpec
 from harness.audit.sides import rademacher
 from harness.audit.solver_trial import SolverFailed
@@ -224,13 +225,19 @@ def run_check(data: ValidatedData, options: CheckOptions, *, source: str,
                            fisher=fisher, probes=rademacher(y.size, options.probes, probe_rng),
                            variance_at=variance_at, kl=options.kl)
     say(f"{kind} reference at n = {y.size:,}")
-    reference = build_reference(kind, audit_data, solver=first.solver,
-                                solver_options=first.options, base_seed=options.seed,
-                                memory_budget=options.memory_budget,
-                                ladder_factor=options.ladder_factor, probes=options.probes,
-                                leaf_size=options.leaf_size,
-                                preconditioner=PreconditionerSpec(
-                                    family=options.preconditioner))
+    distributed = options.dask_local is not None or options.scheduler is not None
+    if distributed and kind != "operator":
+        notes.append(f"--dask-local/--scheduler: the {kind} reference makes no exact-operator "
+                     "products, so it ran in this process")
+    with dask_client(dask_local=options.dask_local if kind == "operator" else None,
+                     scheduler=options.scheduler if kind == "operator" else None) as client:
+        reference = build_reference(kind, audit_data, solver=first.solver,
+                                    solver_options=first.options, base_seed=options.seed,
+                                    memory_budget=options.memory_budget,
+                                    ladder_factor=options.ladder_factor,
+                                    probes=options.probes, leaf_size=options.leaf_size,
+                                    preconditioner=PreconditionerSpec(
+                                        family=options.preconditioner), client=client)
     if isinstance(reference, OperatorReference) and not reference.info.certified:
         warnings.append("the exact operator reference is not certified (" +
                         "; ".join(reference.messages) + "): no verdict can be safe")

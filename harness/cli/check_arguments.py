@@ -128,6 +128,7 @@ def options_from_args(args: argparse.Namespace) -> CheckOptions:
         timing_repeats=getattr(args, "timing_repeats", None), kl=getattr(args, "kl", False),
         solver_seeds=args.solver_seeds, reference=args.reference,
         preconditioner=args.preconditioner, ladder_factor=args.ladder_factor,
+        dask_local=getattr(args, "dask_local", None), scheduler=getattr(args, "scheduler", None),
         solver_timeout=args.solver_timeout)
 
 

@@ -43,6 +43,7 @@ from harness.cli.flag_types import (
 )
 from harness.cli.params import ParamSyntaxError
 from harness.cli.plan_summary import plan_lines
+from harness.grid.runner.dask_check import check_dask_options
 from harness.infra.child_process import StageCrashed
 from harness.infra.data_files import DataFileError, load_observations
 from harness.infra.exit_codes import ExitCode, combine
@@ -160,6 +161,15 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                    help="the exact-operator reference's preconditioner: vecchia (its "
                         "neighbour count chosen by a pilot on a subsample) or hodlr at tol "
                         "1e-10 (default vecchia)")
+    where = p.add_mutually_exclusive_group()
+    where.add_argument("--dask-local", type=positive_int("--dask-local"), metavar="N",
+                       default=None,
+                       help="the exact-operator reference's products on a local Dask "
+                            "cluster of N workers (same values as in this process)")
+    where.add_argument("--scheduler", metavar="ADDR", default=None,
+                       help="the exact-operator reference's products on the Dask scheduler "
+                            "at ADDR, e.g. tcp://host:8786 (every worker with covaudit "
+                            "installed)")
     p.add_argument("--ladder-factor",
                    type=LADDER_FACTOR_SPEC.argparse_type(),
                    default=LADDER_FACTOR,
@@ -201,6 +211,7 @@ def run(args: argparse.Namespace) -> int:
     try:
         coord_units = coord_units_option(getattr(args, "coord_units", None))
         options = options_from_args(args)
+        check_dask_options(dask_local=options.dask_local, scheduler=options.scheduler)
         coords = [c.strip() for c in args.coords.split(",") if c.strip()]
         obs = load_observations(args.datafile, coords=coords, value=args.value,
                                 drop_missing=args.drop_missing)
