@@ -85,17 +85,20 @@ def _raises(points, kernel, theta, *, tol=None):
     raise ValueError("raised on purpose")
 
 
-@pytest.mark.parametrize(("factory", "status"), [(_raises, "solver failed"),
-                                                 (_breaks_down, "unsafe")])
-def test_an_isolated_builtin_error_is_classified(factory, status) -> None:
+@pytest.mark.parametrize(("factory", "status", "words"),
+                         [(_raises, "solver failed", "solver 'hodlr' failed at"),
+                          (_breaks_down, "unsafe", "solver 'hodlr' broke down at")])
+def test_an_isolated_builtin_error_is_classified(factory, status, words) -> None:
     # In its child a built-in's HODLR breakdown is a finding (unsafe), anything else a
-    # failed solver (harness.audit.solver_calls.is_breakdown).
+    # failed solver (harness.audit.solver_calls.is_breakdown); the reason says which, so
+    # an unsafe row never reads "failed".
     from small_audit import audit_one_value
 
     solver = ResolvedSolver(name="hodlr", version=None, factory=factory, origin="builtin")
     audit = audit_one_value(solver, isolation=SolverIsolation(timeout=120.0))
     assert audit.verdict.status == status
     assert "on purpose" in audit.verdict.failures[0]
+    assert audit.verdict.failures[0].startswith(words)
 
 
 def test_a_crash_of_hodlr_in_its_child_is_a_failed_solver(field: Path, tmp_path: Path) -> None:

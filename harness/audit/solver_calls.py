@@ -111,6 +111,7 @@ def call_solver(fn: Callable[..., Any], *args: Any, isolation: SolverIsolation, 
         return SolverCall(failure=f"{who} returned {type(outcome).__name__} {where}, "
                                   "not a result")
     if outcome.failure:
-        return SolverCall(failure=f"{who} failed {where}: {outcome.failure}",
+        verb = "broke down" if outcome.breakdown else "failed"
+        return SolverCall(failure=f"{who} {verb} {where}: {outcome.failure}",
                           breakdown=outcome.breakdown)
     return outcome
