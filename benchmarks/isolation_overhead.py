@@ -116,11 +116,12 @@ def timed(command: list[str], *, scratch: str | None = None,
     proc = subprocess.run(command, capture_output=True, text=True, check=False, env=env)
     shown = " ".join("python" if part == sys.executable else
                      "<code>" if "\n" in part else part for part in command)
+    last_line = (proc.stdout.strip().splitlines() or [""])[-1]
     if scratch:
         shown = shown.replace(scratch, "$TMP")
+        last_line = last_line.replace(scratch, "$TMP")
     return {"command": shown, "seconds": time.perf_counter() - start,
-            "exit_code": proc.returncode,
-            "last_line": (proc.stdout.strip().splitlines() or [""])[-1]}
+            "exit_code": proc.returncode, "last_line": last_line}
 
 
 def _covaudit(arguments: list[str], *, in_process: bool, smoke: bool) -> list[str]:

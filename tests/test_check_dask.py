@@ -8,24 +8,10 @@ import json
 import socket
 import sys
 
-import numpy as np
-import pandas as pd
 import pytest
 
 from harness.infra.exit_codes import ExitCode
-from harness.model.kernels import make_kernel
-from harness.references import DenseCholesky
-from tests.test_statespace_kriging import FIXED, _run
-
-
-def _plane_file(tmp_path, n=150):
-    rng = np.random.default_rng(6)
-    x = rng.uniform(0, 10, (n, 2))
-    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
-    v = DenseCholesky(x, kernel).apply_sqrt(rng.standard_normal(n))
-    path = tmp_path / "plane.csv"
-    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
-    return path
+from tests.test_statespace_kriging import FIXED, _plane_file, _run
 
 
 def _check(path, out, *extra):

@@ -89,6 +89,16 @@ def _line_file(tmp_path, n=300):
     return path
 
 
+def _plane_file(tmp_path, n=150):
+    rng = np.random.default_rng(6)
+    x = rng.uniform(0, 10, (n, 2))
+    k = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
+    v = DenseCholesky(x, k).apply_sqrt(rng.standard_normal(n))
+    path = tmp_path / "plane.csv"
+    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    return path
+
+
 FIXED = ["--params", "variance=1.0", "lengthscale=2.0", "nugget=0.1"]
 
 
@@ -155,12 +165,7 @@ def test_check_holdout_errors_exit_2_in_one_line(tmp_path, capsys, flags, messag
 def test_check_in_the_plane_beyond_the_budget_krige_by_the_operator(tmp_path, capsys):
     # In 2D the exact operator serves every metric, kriging included,
     # at the capped counts (issue 22, items 2 and 5).
-    rng = np.random.default_rng(6)
-    x = rng.uniform(0, 10, (150, 2))
-    k = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
-    v = DenseCholesky(x, k).apply_sqrt(rng.standard_normal(150))
-    path = tmp_path / "plane.csv"
-    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    path = _plane_file(tmp_path)
     code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
                  *FIXED, "--reference", "operator", "--solver-seeds", "1", "--json",
                  "--holdout-points", "12", "--variance-points", "5",

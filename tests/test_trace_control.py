@@ -7,7 +7,6 @@ from __future__ import annotations
 import json
 
 import numpy as np
-import pandas as pd
 import pytest
 import scipy.linalg as sl
 import sklearn.gaussian_process.kernels as sk
@@ -32,7 +31,7 @@ from harness.references.line_products import (
     matern_polynomial,
 )
 from harness.solvers.fallback import adapt
-from tests.test_statespace_kriging import FIXED, _line_file, _run
+from tests.test_statespace_kriging import FIXED, _line_file, _plane_file, _run
 
 NU = {"exponential": 0.5, "matern32": 1.5, "matern52": 2.5}
 
@@ -167,12 +166,7 @@ def test_check_against_the_operator_shares_its_score_probes(tmp_path, capsys):
     # In the plane the exact operator's own score probes are shared with the solver:
     # its trace noise cancels, and the shift's uncertainty falls below the limit's tenth
     # (with each side's probes on their own it was of order 1 SE).
-    rng = np.random.default_rng(6)
-    x = rng.uniform(0, 10, (300, 2))
-    kernel = make_kernel("matern32", {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1})
-    v = DenseCholesky(x, kernel).apply_sqrt(rng.standard_normal(300))
-    path = tmp_path / "plane.csv"
-    pd.DataFrame({"e": x[:, 0], "n": x[:, 1], "z": v}).to_csv(path, index=False)
+    path = _plane_file(tmp_path, n=300)
     code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
                  *FIXED, "--reference", "operator", "--solver-seeds", "2", "--json",
                  "--out", str(tmp_path / "o"), "--no-refit"])

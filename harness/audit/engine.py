@@ -343,22 +343,28 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                       ref: ReferenceValues, probes: int,
                       thresholds: Thresholds) -> SeedAudit:
     """One seed against a value reference: the solver's own likelihood, its score error
-    on the reference's shared probes or by its own Hutch++ traces (``_value_score_error``)
-    and kriging conditioned on the other points. A deterministic bound b enters a
-    metric's uncertainty as b / 2, so that the rule's 2 x uncertainty covers it."""
+    (by its own Hutch++ traces, or first on the reference's shared probes where it offers
+    them: ``_shared_score_error``) and kriging conditioned on the other points. A
+    deterministic bound b enters a metric's uncertainty as b / 2, so that the rule's
+    2 x uncertainty covers it."""
     from harness.audit.metrics.held_out_scale import held_out_scale
+    from harness.audit.shared_probes import own_score_error
     from harness.audit.sides import kriging_side
     from harness.audit.tolerance_metrics import shift_metrics
     from harness.likelihood import evaluate_likelihood
 
     opts = seeded_options(solver.factory, options, seed) | solver.knob.arguments(tol)
     kernel, x, train = data.kernel, data.points, data.train
+    control = ref.trace_control
     t0 = time.perf_counter()
     fac = solver.factorize(x, kernel, kernel.theta, **opts)
-    ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=False)
+    ev = evaluate_likelihood(fac, x, data.y, kernel, mean=data.mean, score=control is None,
+                             trace="hutchpp", probes=probes, rng=seed, fisher=False)
     seconds = time.perf_counter() - t0
-    score = _value_score_error(fac, ev.beta, data, ref, probes=probes, seed=seed,
-                               thresholds=thresholds)
+    score = (own_score_error(np.asarray(ev.score), ev.trace_stderr, ref.score, ref.score_se)
+             if control is None else
+             _shared_score_error(fac, ev.beta, data, ref, control, probes=probes, seed=seed,
+                                 thresholds=thresholds))
     notes = tuple(getattr(fac, "notes", ()))
     nbytes = int(fac.nbytes)
     kl = _estimated_kl(fac, ref, data, seed) if data.kl else None
@@ -403,13 +409,12 @@ def _value_seed_audit(index: int, seed: int, tol: float, data: AuditData,
                      judgements=_judge(metrics), seconds=seconds, nbytes=nbytes, notes=notes)
 
 
-def _value_score_error(fac: object, beta: np.ndarray, data: AuditData,
-                       ref: ReferenceValues, *, probes: int, seed: int,
-                       thresholds: Thresholds) -> ScoreError:
-    """The solver's score error against a value reference (``harness.audit.shared_probes``):
-    on the reference's shared probes first; the solver's own Hutch++ estimate too when
-    there are none, or when the shared one's shift SE is above ``SHARP_ENOUGH`` of the
-    limit."""
+def _shared_score_error(fac: object, beta: np.ndarray, data: AuditData,
+                        ref: ReferenceValues, control: TraceControl, *, probes: int,
+                        seed: int, thresholds: Thresholds) -> ScoreError:
+    """The solver's score error on the reference's shared probes
+    (``harness.audit.shared_probes``), merged with its own Hutch++ estimate only when the
+    shared one's shift SE is above ``SHARP_ENOUGH`` of the limit."""
     from harness.audit.shared_probes import (
         SHARP_ENOUGH,
         merge,
@@ -418,24 +423,20 @@ def _value_score_error(fac: object, beta: np.ndarray, data: AuditData,
         solver_quadratics,
     )
     from harness.audit.tolerance_metrics import shift_uncertainty
-    from harness.likelihood import evaluate_likelihood
+    from harness.likelihood.traces import trace_terms
     from harness.solvers.fallback import adapt
 
-    kernel, x, y = data.kernel, data.points, data.y
-    control = ref.trace_control
-    shared = None
-    if control is not None:
-        fac = adapt(fac, x, kernel)
-        quadratics = solver_quadratics(fac, x, y, kernel, mean=data.mean, beta=beta)
-        shared = shared_score_error(fac, quadratics, ref.score, control,
-                                    ref.score_se_shared)
-        if data.fisher is None or np.all(shift_uncertainty(shared.stderr, data.fisher)
-                                         <= SHARP_ENOUGH * thresholds.param_shift_se):
-            return shared
-    ev = evaluate_likelihood(fac, x, y, kernel, mean=data.mean, score=True,  # type: ignore[arg-type]
-                             trace="hutchpp", probes=probes, rng=seed, fisher=False)
-    own = own_score_error(np.asarray(ev.score), ev.trace_stderr, ref.score, ref.score_se)
-    return own if shared is None or control is None else merge(shared, own, control)
+    kernel, x = data.kernel, data.points
+    adapted = adapt(fac, x, kernel)
+    quadratics = solver_quadratics(adapted, x, data.y, kernel, mean=data.mean, beta=beta)
+    shared = shared_score_error(adapted, quadratics, ref.score, control, ref.score_se_shared)
+    if data.fisher is None or np.all(shift_uncertainty(shared.stderr, data.fisher)
+                                     <= SHARP_ENOUGH * thresholds.param_shift_se):
+        return shared
+    # the solver's own Hutch++ traces, as evaluate_likelihood takes them (same probes)
+    own = trace_terms(adapted, kernel.n_params, method="hutchpp", probes=probes, rng=seed)
+    return merge(shared, own_score_error(0.5 * quadratics - 0.5 * own.traces, own.stderr,
+                                         ref.score, ref.score_se), control)
 
 
 def _estimated_kl(fac: object, ref: ReferenceValues, data: AuditData, seed: int

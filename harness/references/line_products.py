@@ -57,6 +57,25 @@ def lengthscale_polynomial(coefficients: np.ndarray) -> np.ndarray:
 
 
 @njit(cache=True)
+def _shift(state: np.ndarray, delta: float, binom: np.ndarray, powers: np.ndarray,
+           shifted: np.ndarray) -> None:
+    """M_t <- e^-delta sum_{t' <= t} C(t, t') delta^(t - t') M_t' for every column, in
+    place (the module docstring's recursion)."""
+    d, k = state.shape
+    decay = math.exp(-delta)
+    powers[0] = 1.0
+    for t in range(1, d):
+        powers[t] = powers[t - 1] * delta
+    for t in range(d):
+        for c in range(k):
+            acc = 0.0
+            for s in range(t + 1):
+                acc += binom[t, s] * powers[t - s] * state[s, c]
+            shifted[t, c] = decay * acc
+    state[:, :] = shifted
+
+
+@njit(cache=True)
 def _exp_poly_product(u: np.ndarray, coefficients: np.ndarray, z: np.ndarray) -> np.ndarray:
     n, k = z.shape
     d = coefficients.size
@@ -67,45 +86,22 @@ def _exp_poly_product(u: np.ndarray, coefficients: np.ndarray, z: np.ndarray) ->
         for s in range(1, t + 1):
             binom[t, s] = binom[t - 1, s - 1] + (binom[t - 1, s] if s < t else 0.0)
     powers = np.empty(d)
-    forward = np.zeros((d, k))
     shifted = np.zeros((d, k))
+    forward = np.zeros((d, k))       # the points at or before i
     for i in range(n):
         if i > 0:
-            delta = u[i] - u[i - 1]
-            decay = math.exp(-delta)
-            powers[0] = 1.0
-            for t in range(1, d):
-                powers[t] = powers[t - 1] * delta
-            for t in range(d):
-                for c in range(k):
-                    acc = 0.0
-                    for s in range(t + 1):
-                        acc += binom[t, s] * powers[t - s] * forward[s, c]
-                    shifted[t, c] = decay * acc
-            forward[:, :] = shifted
+            _shift(forward, u[i] - u[i - 1], binom, powers, shifted)
         for c in range(k):
             forward[0, c] += z[i, c]
-        for c in range(k):
             acc = 0.0
             for t in range(d):
                 acc += coefficients[t] * forward[t, c]
             out[i, c] = acc
-    backward = np.zeros((d, k))
+    backward = np.zeros((d, k))      # the points after i
     for i in range(n - 2, -1, -1):
-        delta = u[i + 1] - u[i]
-        decay = math.exp(-delta)
-        powers[0] = 1.0
-        for t in range(1, d):
-            powers[t] = powers[t - 1] * delta
         for c in range(k):
             backward[0, c] += z[i + 1, c]
-        for t in range(d):
-            for c in range(k):
-                acc = 0.0
-                for s in range(t + 1):
-                    acc += binom[t, s] * powers[t - s] * backward[s, c]
-                shifted[t, c] = decay * acc
-        backward[:, :] = shifted
+        _shift(backward, u[i + 1] - u[i], binom, powers, shifted)
         for c in range(k):
             acc = 0.0
             for t in range(d):

@@ -472,9 +472,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         diff = np.concatenate(trace_samples, axis=1)
         diff_se = diff.std(axis=1, ddof=1) / math.sqrt(diff.shape[1]) if diff.shape[1] > 1 \
             else np.full(model.n_params, np.inf)
-        trace_terms = pre.estimate + diff.mean(axis=1)
-        if reml_terms is not None:
-            trace_terms = trace_terms - reml_terms
+        ml_traces = pre.estimate + diff.mean(axis=1)
+        trace_terms = ml_traces if reml_terms is None else ml_traces - reml_terms
         trace_se = np.sqrt(pre.se ** 2 + diff_se ** 2)
         score_vec = 0.5 * quad_terms - 0.5 * trace_terms
         score_se = 0.5 * trace_se
@@ -487,7 +486,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         score_bound = 0.5 * (quad_bound + probe_bound + dots)
         shared = SharedProbes(columns=np.concatenate(probe_columns, axis=1),
                               per_probe=np.concatenate(exact_samples, axis=1),
-                              bound=probe_bound, trace_terms=pre.estimate + diff.mean(axis=1),
+                              bound=probe_bound, trace_terms=ml_traces,
                               other_score_bound=0.5 * (quad_bound + dots))
     return OperatorEvaluation(
         n=n, param_names=model.param_names, loglik=float(loglik), loglik_se=loglik_se,
