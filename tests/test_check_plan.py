@@ -257,6 +257,39 @@ def test_an_operator_plan_over_the_budget_is_offered_the_vecchia_preconditioner(
     assert message is not None and "--preconditioner vecchia" in message
 
 
+def test_the_operator_is_calibrated_only_for_a_plan_that_takes_it(monkeypatch):
+    # A dense-reference plan never runs exact products, so it does not time them (on a
+    # fresh install that would compile the product kernel for nothing); the refusal's
+    # alternatives that take the operator rate it when they are priced.
+    import harness.check.cost_plan as cost_plan
+
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    dense = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), refit=False)
+    plan = plan_check(x, y, dense, rng=np.random.default_rng(0))
+    assert plan.reference == "dense"
+    assert plan.calibration.product_columns_per_second is None
+    assert "preconditioner" not in plan.calibration.solvers
+    operator = plan_check(x, y, replace(dense, reference="operator"),
+                          rng=np.random.default_rng(0))
+    assert operator.calibration.product_columns_per_second > 0
+    assert operator.calibration.solvers["preconditioner"].name == "hodlr"
+    rated: list[bool] = []
+    original = cost_plan._with_operator_rates
+
+    def spy(calibration, points, values, options):
+        rated.append(calibration.product_columns_per_second is None)
+        return original(calibration, points, values, options)
+
+    monkeypatch.setattr(cost_plan, "_with_operator_rates", spy)
+    # A budget no plan fits: the dense reference does not, so the plan takes the
+    # operator, and the dense calibration gets the operator's rates added
+    over = plan_check(x, y, replace(dense, memory_budget=1), calibration=plan.calibration)
+    assert over.reference == "operator" and rated == [True]
+    assert over.calibration.product_columns_per_second > 0
+    assert budget_refusal(over, x, y, replace(dense, memory_budget=1)) is not None
+
+
 def test_beyond_the_machine_an_option_with_a_budget_is_advised(monkeypatch):
     # When no budget this machine has holds the plan and no option alone fits the budget,
     # the option that lowers the peak most is named with the budget it needs (the 131,072

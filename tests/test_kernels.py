@@ -149,6 +149,32 @@ def test_lower_assembly_equals_block(cls):
     np.testing.assert_allclose(lower, np.tril(full), rtol=1e-13, atol=1e-15)
 
 
+@pytest.mark.parametrize("cls", KERNEL_CLASSES)
+def test_threaded_fills_do_not_depend_on_the_thread_count(cls):
+    # The compiled fills split their columns over numba.get_num_threads() threads, each
+    # writing its own columns: 1 and 2 threads give the same bits. 600 points is above the
+    # size below which a fill stays on the calling thread.
+    import numba
+
+    pts = np.random.default_rng(6).random((600, 2))
+    kernel = build(cls)
+    rows, cols = np.arange(600), np.arange(0, 600, 2)
+    before = numba.get_num_threads()
+    results = []
+    try:
+        for threads in (1, min(2, numba.config.NUMBA_NUM_THREADS)):
+            numba.set_num_threads(threads)
+            results.append((assemble_lower(kernel, pts), kernel.covariance(pts),
+                            kernel.block_with_derivatives(pts, rows, cols)))
+    finally:
+        numba.set_num_threads(before)
+    (lower1, full1, (block1, derivs1)), (lower2, full2, (block2, derivs2)) = results
+    np.testing.assert_array_equal(np.tril(lower1), np.tril(lower2))
+    np.testing.assert_array_equal(full1, full2)
+    np.testing.assert_array_equal(block1, block2)
+    np.testing.assert_array_equal(derivs1, derivs2)
+
+
 def test_theta_round_trip_and_names():
     k = Matern52(2.0, (0.1, 0.2), 0.01)
     assert k.param_names == ("log_variance", "log_lengthscale_1", "log_lengthscale_2",

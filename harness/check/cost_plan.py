@@ -91,7 +91,14 @@ from harness.check.check_options import CheckError, CheckOptions
 from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, plan_fit
 from harness.check.fit_stage import model_template
 from harness.check.frontier_table import timing_repeats
-from harness.check.plan_calibration import UNIT_N, Calibration, SolverRate, calibrate, rate_solver
+from harness.check.plan_calibration import (
+    UNIT_N,
+    Calibration,
+    SolverRate,
+    calibrate,
+    product_rate,
+    rate_solver,
+)
 from harness.check.plugin_guard import trial_kernel
 from harness.check.reference_kind import reference_kind
 from harness.check.solver_lineup import LinedUpSolver, Lineup, line_up
@@ -409,15 +416,35 @@ def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
 
 
 def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, lineup: Lineup,
-                  *, rng: np.random.Generator) -> Calibration:
+                  *, operator: bool, rng: np.random.Generator) -> Calibration:
     """The calibration of a check: the built-in solvers under test at their tightest knob
-    value and the operator reference's preconditioner (always, so that a plan with
-    another ``--reference`` can be priced without a second calibration)."""
+    value and, when the plan takes the exact operator (``operator``), its preconditioner
+    and the product rate. A plan without the operator never runs them, so it does not
+    time them either: on a fresh install that would compile the product kernel, about
+    13 s, for nothing. ``plan_check`` adds them to a calibration that lacks them when its
+    plan takes the operator (an alternative priced by ``budget_refusal``, for example)."""
     kernel = _kernel(points, y, options)
     solvers = {lined.given: (lined.solver, lined.values[-1], dict(lined.options))
                for lined in lineup.solvers if lined.solver.origin == "builtin"}
     return calibrate(points, kernel, solvers=solvers,
-                     preconditioner=_preconditioner(options), rng=rng)
+                     preconditioner=_preconditioner(options) if operator else None, rng=rng)
+
+
+def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.ndarray,
+                         options: CheckOptions) -> Calibration:
+    """``calibration`` with the operator's rates for ``options``: its preconditioner (rated
+    here unless the calibration rated this one) and the product rate."""
+    solvers, columns = calibration.solvers, calibration.product_columns_per_second
+    rated = solvers.get("preconditioner")
+    solver, value, solver_options = _preconditioner(options)
+    rng = np.random.default_rng(options.seed)
+    if rated is None or rated.name != solver.name:
+        kernel = _kernel(points, y, options)
+        solvers = {**solvers, "preconditioner": rate_solver(
+            solver, value, points, kernel, options=solver_options, rng=rng)}
+    if columns is None:
+        columns = product_rate(_kernel(points, y, options), int(points.shape[1]), rng=rng)
+    return replace(calibration, solvers=solvers, product_columns_per_second=columns)
 
 
 def _kernel(points: np.ndarray, y: np.ndarray, options: CheckOptions) -> Any:
@@ -466,9 +493,11 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     sizes = _sizes(points, options, template.n_params)
     kind, ref_warnings = reference_kind(options, points, template)
     if calibration is None:
-        calibration = calibrate_for(points, y, options, lineup,
+        calibration = calibrate_for(points, y, options, lineup, operator=kind == "operator",
                                     rng=rng if rng is not None
                                     else np.random.default_rng(options.seed))
+    if kind == "operator":
+        calibration = _with_operator_rates(calibration, points, y, options)
     rates: dict[str, SolverRate | None] = {
         lined.given: calibration.solvers.get(lined.given) for lined in lineup.solvers}
     first = rates[lineup.solvers[0].given]
@@ -538,7 +567,7 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
                    options: CheckOptions, *, lineup: Lineup | None = None) -> str | None:
     """None when ``plan`` fits its memory budget, else the one-line refusal: the peak,
     its stage, the budget, and the options that would make the plan fit (each re-planned
-    with the same calibration, another preconditioner rated on its own), and a larger
+    with the same calibration, the operator's rates added where it lacks them), and a larger
     ``--memory-budget`` where this machine has that much memory. Where it has not and no
     option alone fits, the option that lowers the peak most with the budget it needs; where
     nothing fits this machine, the line says so. Never advice that cannot be followed."""
@@ -549,16 +578,9 @@ def budget_refusal(plan: CostPlan, points: np.ndarray, y: np.ndarray,
     smallest: tuple[int, str] = (plan.peak_bytes, "")
     alternatives = _alternatives(plan, options)
     for flag, changed in alternatives:
-        calibration = plan.calibration
-        if changed.preconditioner != options.preconditioner:
-            # The calibration rated the configured preconditioner only: rate the other.
-            solver, value, solver_options = _preconditioner(changed)
-            rate = rate_solver(solver, value, points, _kernel(points, y, changed),
-                               options=solver_options, rng=np.random.default_rng(changed.seed))
-            calibration = replace(calibration,
-                                  solvers={**calibration.solvers, "preconditioner": rate})
         try:
-            other = plan_check(points, y, changed, calibration=calibration, lineup=lineup)
+            other = plan_check(points, y, changed, calibration=plan.calibration,
+                               lineup=lineup)
         except CheckError:
             continue
         if other.fits_budget:

@@ -6,7 +6,7 @@ factorization, so the closed-form families are filled here by a fused numba loop
 pass over the entries computes the scaled squared distance coordinate by coordinate
 (no cancellation, unlike the ||x||^2 + ||y||^2 - 2 x.y matrix-product form), the
 correlation and, when asked, the derivative factors. Columns are spread over threads
-with ``prange``; a lower-triangle fill in Fortran order feeds LAPACK's ``dpotrf``
+(``_over_threads``); a lower-triangle fill in Fortran order feeds LAPACK's ``dpotrf``
 without a transpose or a second n x n copy.
 
 The closed form of each family is a compiled scalar function handed to the loops
@@ -17,6 +17,8 @@ function, goes through the numpy path in ``harness.model.kernels.classes``.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 
 import numba
 import numpy as np
@@ -106,7 +108,10 @@ FAMILY_FUNCTIONS = {
 FAMILY_CODES = {"exponential": 0, "matern32": 1, "matern52": 2, "gaussian": 3,
                 "rational_quadratic": 4}
 _CODE_OF = {fn: FAMILY_CODES[name] for name, pair in FAMILY_FUNCTIONS.items() for fn in pair}
-_PARALLEL = {"cache": True, "fastmath": True, "parallel": True}
+#: The fills are serial and release the GIL; ``_over_threads`` spreads their columns over
+#: threads. A ``parallel=True`` (prange) fill compiled 1-2 s slower on a fresh install, and
+#: the fork server cannot preload parallel kernels (``harness.infra.kernel_cache``).
+_SERIAL = {"cache": True, "fastmath": True, "nogil": True}
 
 
 @numba.njit(cache=True, fastmath=True, nogil=True)
@@ -166,25 +171,26 @@ def _squared_distances(xs, y, buf, i0):
         buf[i] = q
 
 
-@numba.njit(**_PARALLEL)
-def _fill_correlation(family, xs, ys, shape, scale, out):
+@numba.njit(**_SERIAL)
+def _fill_correlation(family, xs, ys, shape, scale, out, j0, j1):
+    """Columns j0 <= j < j1 of out[i, j] = scale * rho(||xs_i - ys_j||)."""
     m = xs.shape[0]
-    for j in numba.prange(ys.shape[0]):
-        buf = np.empty(m)
+    buf = np.empty(m)
+    for j in range(j0, j1):
         _squared_distances(xs, ys[j], buf, 0)
         apply_rho(family, shape, scale, buf, 0, m)
-        out[:, j] = buf
+        for i in range(m):
+            out[i, j] = buf[i]
 
 
-@numba.njit(**_PARALLEL)
-def _fill_lower_symmetric(family, xs, shape, scale, nugget, out):
+@numba.njit(**_SERIAL)
+def _fill_lower_symmetric(family, xs, shape, scale, nugget, out, p0, p1):
+    """Columns p and n - 1 - p of the lower triangle, for p0 <= p < p1."""
     n = xs.shape[0]
-    half = (n + 1) // 2
-    for p in numba.prange(half):
-        first = np.int64(p)
+    for p in range(p0, p1):
         for side in range(2):
-            j = first if side == 0 else n - 1 - first
-            if side == 1 and j == first:
+            j = p if side == 0 else n - 1 - p
+            if side == 1 and j == p:
                 continue
             col = out[:, j]
             _squared_distances(xs, xs[j], col, j)
@@ -192,13 +198,14 @@ def _fill_lower_symmetric(family, xs, shape, scale, nugget, out):
             col[j] += nugget
 
 
-@numba.njit(**_PARALLEL)
-def _fill_with_derivatives(family, xs, ys, shape, scale, isotropic, out, derivs):
+@numba.njit(**_SERIAL)
+def _fill_with_derivatives(family, xs, ys, shape, scale, isotropic, out, derivs, j0, j1):
+    """Columns j0 <= j < j1 of the covariance and its derivatives (``fill_with_derivatives``)."""
     m, d = xs.shape
-    for j in numba.prange(ys.shape[0]):
-        q = np.empty(m)
-        values = np.empty(m)
-        slopes = np.empty(m)
+    q = np.empty(m)
+    values = np.empty(m)
+    slopes = np.empty(m)
+    for j in range(j0, j1):
         _squared_distances(xs, ys[j], q, 0)
         _apply_rho_slope(family, shape, q, values, slopes)
         for i in range(m):
@@ -215,6 +222,27 @@ def _fill_with_derivatives(family, xs, ys, shape, scale, isotropic, out, derivs)
                     derivs[k, i, j] = 0.0
 
 
+#: Entries below which a fill runs on the calling thread alone (a thread pool's start
+#: costs about as much as filling this many entries; common practice, not tuned)
+_THREADED_ENTRIES = 1 << 16
+
+
+def _over_threads(fill: Callable[[int, int], None], count: int, entries: int) -> None:
+    """Run ``fill(start, stop)`` over ``range(count)`` split into one contiguous range per
+    thread (``numba.get_num_threads()``, so ``NUMBA_NUM_THREADS`` and
+    ``numba.set_num_threads`` still set the width). The compiled fills release the GIL,
+    so the ranges run at once; each writes its own columns, so the result does not depend
+    on the thread count."""
+    threads = min(numba.get_num_threads(), count)
+    if threads <= 1 or entries < _THREADED_ENTRIES:
+        fill(0, count)
+        return
+    bounds = [count * t // threads for t in range(threads + 1)]
+    with ThreadPoolExecutor(max_workers=threads) as pool:
+        for done in [pool.submit(fill, bounds[t], bounds[t + 1]) for t in range(threads)]:
+            done.result()
+
+
 def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
                      scale: float, out: np.ndarray) -> None:
     """out[i, j] = scale * rho(||xs_i - ys_j||) for pre-scaled coordinates (x / l).
@@ -222,7 +250,9 @@ def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,
     ``rho`` is a compiled closed form of ``FAMILY_FUNCTIONS``; ``out`` may be C- or
     Fortran-ordered; columns run in parallel (cached compiled code).
     """
-    _fill_correlation(_CODE_OF[rho], xs, ys, float(shape), float(scale), out)
+    code, shape, scale = _CODE_OF[rho], float(shape), float(scale)
+    _over_threads(lambda j0, j1: _fill_correlation(code, xs, ys, shape, scale, out, j0, j1),
+                  ys.shape[0], xs.shape[0] * ys.shape[0])
 
 
 def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget: float,
@@ -233,7 +263,10 @@ def fill_lower_symmetric(rho, xs: np.ndarray, shape: float, scale: float, nugget
     ``lower=True`` reads. ``out`` must be Fortran-ordered (each column contiguous).
     Column j is paired with column n-1-j so both threads get equal work.
     """
-    _fill_lower_symmetric(_CODE_OF[rho], xs, float(shape), float(scale), float(nugget), out)
+    code, shape, scale, nugget = _CODE_OF[rho], float(shape), float(scale), float(nugget)
+    n = xs.shape[0]
+    _over_threads(lambda p0, p1: _fill_lower_symmetric(code, xs, shape, scale, nugget, out,
+                                                       p0, p1), (n + 1) // 2, n * n // 2)
 
 
 def fill_with_derivatives(rho_slope, xs: np.ndarray, ys: np.ndarray, shape: float,
@@ -244,5 +277,8 @@ def fill_with_derivatives(rho_slope, xs: np.ndarray, ys: np.ndarray, shape: floa
     out[i, j] = scale * rho; derivs[k, i, j] = scale * s(r) * w_k, where w = 1 for an
     isotropic kernel and w_k = (xs_ik - ys_jk)^2 / r^2 otherwise (0 at r = 0).
     """
-    _fill_with_derivatives(_CODE_OF[rho_slope], xs, ys, float(shape), float(scale),
-                           bool(isotropic), out, derivs)
+    code, shape, scale, isotropic = _CODE_OF[rho_slope], float(shape), float(scale), bool(
+        isotropic)
+    _over_threads(lambda j0, j1: _fill_with_derivatives(code, xs, ys, shape, scale, isotropic,
+                                                        out, derivs, j0, j1),
+                  ys.shape[0], xs.shape[0] * ys.shape[0])

@@ -7,7 +7,7 @@ out[I] += K_IJ B[J] and out[J] += K_IJ' B[I]. Memory is O(n k) plus one tile per
 time O(n^2 k).
 
 Parallelism and reproducibility: the pairs of one round write disjoint rows, so a round
-runs with ``numba.prange`` over its pairs; the rounds run in their fixed order, so each
+runs its pairs on threads (``_compiled_round``); the rounds run in their fixed order, so each
 output row sums its contributions in the same order whatever the thread count (results
 are bitwise equal for 1 and 2 threads: ``tests/test_operator_products.py``). BLAS runs on
 one thread inside the tiles.
@@ -26,6 +26,7 @@ numpy blocks in Python (slower, same numbers up to rounding of the Bessel functi
 from __future__ import annotations
 
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 import numba
 import numpy as np
@@ -42,10 +43,13 @@ from harness.references.operator.tile_entries import fill_tile, kernel_modes
 DEFAULT_PRODUCT_FRACTION = 0.25
 
 
-@numba.njit(parallel=True, cache=True)
-def _round_product(family, xs, shape, scale, modes, b, out, starts, first, second):
-    """One round: for each pair (I, J) and mode m, out[m, I] += K_m B[J] (and the mirror)."""
-    for q in numba.prange(first.shape[0]):
+@numba.njit(cache=True, nogil=True)
+def _round_product(family, xs, shape, scale, modes, b, out, starts, first, second, q0, q1):
+    """Pairs q0 <= q < q1 of one round: for each pair (I, J) and mode m,
+    out[m, I] += K_m B[J] (and the mirror). The sums are loops, not ``+=`` on slices:
+    that form compiles numba's shape-mismatch message, seconds of a first compilation."""
+    k = b.shape[1]
+    for q in range(q0, q1):
         ti = first[q]
         tj = second[q]
         i0 = starts[ti]
@@ -55,9 +59,15 @@ def _round_product(family, xs, shape, scale, modes, b, out, starts, first, secon
         tile = np.empty((i1 - i0, j1 - j0))
         for mi in range(modes.shape[0]):
             fill_tile(family, xs[i0:i1], xs[j0:j1], shape, scale, modes[mi], tile)
-            out[mi, i0:i1] += np.dot(tile, b[j0:j1])
+            part = np.dot(tile, b[j0:j1])
+            for r in range(i1 - i0):
+                for c in range(k):
+                    out[mi, i0 + r, c] += part[r, c]
             if ti != tj:
-                out[mi, j0:j1] += np.dot(tile.T, b[i0:i1])
+                part = np.dot(tile.T, b[i0:i1])
+                for r in range(j1 - j0):
+                    for c in range(k):
+                        out[mi, j0 + r, c] += part[r, c]
 
 
 def _as_block(b: np.ndarray, n: int) -> tuple[np.ndarray, bool]:
@@ -180,16 +190,31 @@ class KernelOperator:
                                                                        user_api="blas"):
             if self._family >= 0:
                 modes = kernel_modes(self.kernel, which)
-                for first, second in rounds:
-                    _round_product(self._family, self._scaled, self.kernel.shape_value,
-                                   self.kernel.variance, modes, part, out, self.plan.starts,
-                                   first, second)
-                    bar.update(1)
+                threads = numba.get_num_threads()
+                with ThreadPoolExecutor(max_workers=threads) as pool:
+                    for first, second in rounds:
+                        self._compiled_round(pool, threads, modes, part, out, first, second)
+                        bar.update(1)
             else:
                 for first, second in rounds:
                     self._generic_round(part, which, out, first, second)
                     bar.update(1)
         return out
+
+    def _compiled_round(self, pool: ThreadPoolExecutor, threads: int, modes: np.ndarray,
+                        part: np.ndarray, out: np.ndarray, first: np.ndarray,
+                        second: np.ndarray) -> None:
+        """One round's pairs split into ``threads`` contiguous ranges, run at once (the
+        compiled round releases the GIL); the pairs of a round write disjoint rows, so
+        the sums do not depend on the split."""
+        pairs = int(first.shape[0])
+        bounds = [pairs * t // threads for t in range(threads + 1)]
+        jobs = [pool.submit(_round_product, self._family, self._scaled,
+                            self.kernel.shape_value, self.kernel.variance, modes, part, out,
+                            self.plan.starts, first, second, bounds[t], bounds[t + 1])
+                for t in range(threads) if bounds[t + 1] > bounds[t]]
+        for job in jobs:
+            job.result()
 
     def _generic_round(self, part: np.ndarray, which: tuple[int, ...], out: np.ndarray,
                        first: np.ndarray, second: np.ndarray) -> None:

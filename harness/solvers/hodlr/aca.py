@@ -58,6 +58,12 @@ from harness.model.kernels.rows import eval_row
 from harness.solvers.hodlr.orth import apply_basis, basis_factor, rcond_for
 
 _JIT = {"fastmath": True, "nogil": True, "cache": True}
+#: Kernels called only from other kernels: without the Python and C-callable wrappers
+#: that numba otherwise builds for each, the first compilation is about 0.5 s shorter.
+#: This module's kernels avoid slice assignments, in-place operators on array slices and
+#: np.dot on small operands for the same reason (``_copy_rows``, ``_cross_pivots``): on a
+#: fresh install they compiled in 19 s, now in about 9 (``benchmarks/first_call.py``).
+_INNER = {**_JIT, "no_cpython_wrapper": True, "no_cfunc_wrapper": True}
 
 #: Residual rows taken per step of the blocked ACA: 16 rows turn the memory-bound
 #: update of one row at a time into a matrix product (2.5x faster on the 16,384 x
@@ -66,7 +72,7 @@ _JIT = {"fastmath": True, "nogil": True, "cache": True}
 ACA_BLOCK = 16
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _residuals(family, points, others, idx, count, shape, scale, mode, own, other, k, out):
     """out[t] = K(points[idx[t]], others) - sum_{l<k} own[l, idx[t]] other[l], t < count.
 
@@ -81,10 +87,13 @@ def _residuals(family, points, others, idx, count, shape, scale, mode, own, othe
         for t in range(count):
             for ell in range(k):
                 coef[t, ell] = own[ell, idx[t]]
-        out[:count] -= np.dot(coef, other[:k])
+        update = np.dot(coef, other[:k])
+        for t in range(count):
+            for j in range(n):
+                out[t, j] -= update[t, j]
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _cross_pivots(res, count, limit, rows, cols):
     """Pivots of the residual rows res[:count]: Gaussian elimination with the pivot row
     of largest norm and, in it, the entry of largest magnitude (at most ``limit`` steps;
@@ -97,44 +106,73 @@ def _cross_pivots(res, count, limit, rows, cols):
     step reads ``res`` once (the pivot row E[i] res). Fills rows[s] (indices into res)
     and cols[s] in pivot order; returns how many were found.
     """
+    # The small count x count products are loops, not np.dot: each distinct np.dot
+    # signature adds about 0.5 s to the first compilation, and these gain nothing from BLAS
     rows_now = np.ascontiguousarray(res[:count])
+    n = rows_now.shape[1]
     gram = np.dot(rows_now, rows_now.T)
-    elim = np.eye(count)
-    active = np.ones(count, dtype=np.bool_)
+    elim = _identity(count)
+    active = np.empty(count, dtype=np.bool_)
+    for i in range(count):
+        active[i] = True
+    pivot_row = np.empty(n)
+    at_col = np.empty(count)
+    step = np.empty(count)
     first = -1.0
     found = np.int64(0)  # not the literal 0: see aca_compiled
     while found < limit:
-        eg = np.dot(elim, gram)
         best, bi = 0.0, -1
         for i in range(count):
             if active[i]:
-                v = np.dot(eg[i], elim[i])
+                v = 0.0  # (E G E')_ii
+                for a in range(count):
+                    eg = 0.0
+                    for b in range(count):
+                        eg += elim[i, b] * gram[b, a]
+                    v += eg * elim[i, a]
                 if v > best:
                     best, bi = v, i
         if bi < 0:
             break
         active[bi] = False
         # the Gram estimate only ranks the rows; the pivot row itself is formed exactly
-        pivot_row = np.dot(elim[bi], rows_now)
-        norm2 = np.dot(pivot_row, pivot_row)
+        for j in range(n):
+            pivot_row[j] = 0.0
+        for a in range(count):
+            e = elim[bi, a]
+            if e != 0.0:
+                for j in range(n):
+                    pivot_row[j] += e * rows_now[a, j]
+        norm2 = _squared_norm(pivot_row)
+        bj, largest = 0, -1.0
+        for j in range(n):
+            if abs(pivot_row[j]) > largest:
+                bj, largest = j, abs(pivot_row[j])
         if first < 0.0:
             first = norm2
-        bj = int(np.argmax(np.abs(pivot_row)))
         if norm2 <= 1e-20 * first or _listed(cols, found, bj):
             continue  # rounding noise of rows already eliminated: not a pivot
-        at_col = np.dot(elim, np.ascontiguousarray(rows_now[:, bj]))
+        for i in range(count):
+            acc = 0.0
+            for a in range(count):
+                acc += elim[i, a] * rows_now[a, bj]
+            at_col[i] = acc
         pivot = at_col[bi]
         rows[found], cols[found] = bi, bj
         found += 1
-        step = elim[bi].copy()
+        for j in range(count):
+            step[j] = elim[bi, j]
         for i in range(count):
             if active[i]:
-                elim[i] -= (at_col[i] / pivot) * step
-        elim[bi] = 0.0
+                f = at_col[i] / pivot
+                for j in range(count):
+                    elim[i, j] -= f * step[j]
+        for j in range(count):
+            elim[bi, j] = 0.0
     return found
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _skeleton_factors(core):
     """(inv(U)', inv(L)) for core = L U (L unit lower, U upper, no pivoting: ``core``
     is already in pivot order), so that C core^-1 R = (C U^-1)(L^-1 R).
@@ -143,7 +181,7 @@ def _skeleton_factors(core):
     (t = the returned factors' size; the rest was lost to rounding).
     """
     size = core.shape[0]
-    low = np.eye(size)
+    low = _identity(size)
     up = core.copy()
     t = size
     for s in range(size):
@@ -153,13 +191,14 @@ def _skeleton_factors(core):
         for i in range(s + 1, size):
             f = up[i, s] / up[s, s]
             low[i, s] = f
-            up[i, s:] -= f * up[s, s:]
-    low = np.ascontiguousarray(low[:t, :t])
-    up = np.ascontiguousarray(up[:t, :t])
-    inv_low = np.eye(t)
+            for j in range(s, size):
+                up[i, j] -= f * up[s, j]
+    inv_low = _identity(t)
     for i in range(t):  # forward substitution, column by column of the identity
         for ell in range(i):
-            inv_low[i, :] -= low[i, ell] * inv_low[ell, :]
+            f = low[i, ell]
+            for j in range(t):
+                inv_low[i, j] -= f * inv_low[ell, j]
     inv_up = np.zeros((t, t))
     for i in range(t - 1, -1, -1):
         inv_up[i, i] = 1.0 / up[i, i]
@@ -168,10 +207,42 @@ def _skeleton_factors(core):
             for ell in range(i + 1, j + 1):
                 acc += up[i, ell] * inv_up[ell, j]
             inv_up[i, j] = -acc / up[i, i]
-    return np.ascontiguousarray(inv_up.T), inv_low
+    inv_up_t = np.empty((t, t))
+    for i in range(t):
+        for j in range(t):
+            inv_up_t[i, j] = inv_up[j, i]
+    return inv_up_t, inv_low
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
+def _squared_norm(v):
+    """v'v, a loop rather than np.dot (one compiled np.dot signature fewer)."""
+    acc = 0.0
+    for j in range(v.shape[0]):
+        acc += v[j] * v[j]
+    return acc
+
+
+@numba.njit(**_INNER)
+def _identity(size):
+    """np.eye(size) from np.zeros, whose compiled form the callers already have."""
+    out = np.zeros((size, size))
+    for i in range(size):
+        out[i, i] = 1.0
+    return out
+
+
+@numba.njit(**_INNER)
+def _copy_rows(dst, d0, src, count):
+    """dst[d0 + r] = src[r] for r < count, element by element: a slice assignment
+    between arrays compiles numba's shape-mismatch message builder, about 4 s of the
+    first compilation here, for a check these callers never need."""
+    for r in range(count):
+        for j in range(src.shape[1]):
+            dst[d0 + r, j] = src[r, j]
+
+
+@numba.njit(**_INNER)
 def _layout(scratch, cap, m, n):
     """Views A (cap x m) and B (cap x n) on the front of the flat buffer ``scratch``."""
     a_vecs = scratch[:cap * m].reshape((cap, m))
@@ -179,7 +250,7 @@ def _layout(scratch, cap, m, n):
     return a_vecs, b_vecs
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _grow(scratch, a_vecs, b_vecs, k, need, cap_limit):
     """A buffer with room for ``need`` rows of A and B (doubling, at most ``cap_limit``),
     the first k rows carried over; returns (buffer, A, B)."""
@@ -189,8 +260,8 @@ def _grow(scratch, a_vecs, b_vecs, k, need, cap_limit):
     cap = min(cap_limit, max(2 * a_vecs.shape[0], need))
     grown = np.empty(cap * (m + n))
     new_a, new_b = _layout(grown, cap, m, n)
-    new_a[:k] = a_vecs[:k]
-    new_b[:k] = b_vecs[:k]
+    _copy_rows(new_a, 0, a_vecs, k)
+    _copy_rows(new_b, 0, b_vecs, k)
     return grown, new_a, new_b
 
 
@@ -199,13 +270,15 @@ def _grow(scratch, a_vecs, b_vecs, k, need, cap_limit):
 _GRAM_CHUNK = 64
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _extend_gram(gram, vecs, k0, k):
     """vecs[:k] vecs[:k]' given ``gram`` = vecs[:k0] vecs[:k0]' (only rows k0..k new)."""
     out = gram
     if gram.shape[0] < k:
         out = np.empty((vecs.shape[0], vecs.shape[0]))
-        out[:k0, :k0] = gram[:k0, :k0]
+        for i in range(k0):
+            for j in range(k0):
+                out[i, j] = gram[i, j]
     for j0 in range(k0, k, _GRAM_CHUNK):
         j1 = min(k, j0 + _GRAM_CHUNK)
         new = np.dot(vecs[j0:j1], vecs[:j1].T)
@@ -216,7 +289,7 @@ def _extend_gram(gram, vecs, k0, k):
     return out
 
 
-@numba.njit(**_JIT)
+@numba.njit(**_INNER)
 def _listed(idx, count, i):
     for u in range(count):
         if idx[u] == i:
@@ -289,13 +362,13 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
                        k, col_res)
             rows_sel = np.empty((found, n))
             for s in range(found):
-                rows_sel[s] = res[sel_rows[s]]
+                for j in range(n):
+                    rows_sel[s, j] = res[sel_rows[s], j]
             scratch, a_vecs, b_vecs = _grow(scratch, a_vecs, b_vecs, k, k + found, cap_limit)
-            a_vecs[k:k + found] = np.dot(left, col_res)
-            b_vecs[k:k + found] = np.dot(right, rows_sel)
+            _copy_rows(a_vecs, k, np.dot(left, col_res), found)
+            _copy_rows(b_vecs, k, np.dot(right, rows_sel), found)
             for s in range(found):
-                last2 = np.dot(a_vecs[k + s], a_vecs[k + s]) * np.dot(b_vecs[k + s],
-                                                                      b_vecs[k + s])
+                last2 = _squared_norm(a_vecs[k + s]) * _squared_norm(b_vecs[k + s])
                 diag2 += last2
             k += found
             # cheap test on the diagonal part of ||S_k||^2 (scaled by the last exact
@@ -305,7 +378,10 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
                 gram_a = _extend_gram(gram_a, a_vecs, k_gram, k)
                 gram_b = _extend_gram(gram_b, b_vecs, k_gram, k)
                 k_gram = k
-                norm2 = np.sum(gram_a[:k, :k] * gram_b[:k, :k])
+                norm2 = 0.0
+                for i in range(k):
+                    for j in range(k):
+                        norm2 += gram_a[i, j] * gram_b[i, j]
                 ratio = norm2 / diag2 if diag2 > 0.0 else 1.0
                 candidate = last2 <= tol2 * norm2
         if candidate:
@@ -325,7 +401,7 @@ def aca_compiled(family, xs, ys, shape, scale, mode, tol, max_rank, checks, bloc
                        k, res)
             est = 0.0
             for t in range(count):
-                est += np.dot(res[t], res[t])
+                est += _squared_norm(res[t])
             if est * (m / count) <= tol2 * norm2:
                 break
             ready = True
