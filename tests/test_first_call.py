@@ -1,4 +1,5 @@
-"""The first call's compile notice and ``covaudit warm-up`` (harness.infra.compile_notice).
+"""The first call: the compile notice, ``covaudit warm-up`` and the check's compile-ahead
+helper (harness.infra.compile_notice, harness.check.compile_ahead).
 
 Each check runs in a child interpreter with its own ``NUMBA_CACHE_DIR`` (a new folder is
 a cleared cache), since numba's listeners and loaded kernels are per process.
@@ -145,3 +146,34 @@ def test_warm_up_twice_on_a_cleared_cache(tmp_path: Path) -> None:
     assert NOTICE not in second.stderr
     assert "warm-up: everything was already compiled" in second.stdout
     assert "compiled " not in second.stdout.replace("already compiled", "")
+
+
+_AHEAD = r"""
+from harness.check.compile_ahead import PART_KERNELS, missing_parts, start_compile_ahead
+parts = tuple(PART_KERNELS)
+print(",".join(missing_parts(parts)))
+ahead = start_compile_ahead("matern32", parts)
+print(ahead.process.wait(timeout=600))
+print(",".join(missing_parts(parts)))
+print(start_compile_ahead("matern32", parts) is None)
+"""
+
+
+def test_the_helper_compiles_what_the_cache_lacks_and_nothing_when_warm(tmp_path) -> None:
+    # harness.check.compile_ahead: on a cleared cache every part is missing; the helper
+    # process compiles each into numba's cache, after which none is missing and no
+    # helper starts
+    done = _python(_AHEAD, cache=tmp_path / "numba-cache")
+    assert done.returncode == 0, done.stderr
+    before, code, after, none_started = done.stdout.split("\n")[:4]
+    assert before == "dense,products"
+    assert code == "0" and after == "" and none_started == "True"
+
+
+def test_the_helper_parts_follow_the_reference() -> None:
+    from harness.check.compile_ahead import parts_for
+
+    assert parts_for("dense", compiled_family=True) == ("dense", "products")
+    assert parts_for("operator", compiled_family=True) == ("products",)
+    assert parts_for("ladder", compiled_family=True) == ()
+    assert parts_for("dense", compiled_family=False) == ()

@@ -235,9 +235,11 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
     start = time.perf_counter()
     d = int(points.shape[1])
     probe_seconds = measure_dense_rate(n=PROBE_N, repeats=PROBE_REPEATS, rng=rng).seconds
-    assembly = assembly_rate(kernel, d, rng=rng)
+    # The solvers before the dense fill: on a cold cache the solvers' kernels compile
+    # here while ``harness.check.compile_ahead`` compiles the fill on the other core
     rates = {given: rate_solver(solver, value, points, kernel, options=options, rng=rng)
              for given, (solver, value, options) in solvers.items()}
+    assembly = assembly_rate(kernel, d, rng=rng)
     columns = None
     if preconditioner is not None:
         solver, value, options = preconditioner

@@ -24,6 +24,7 @@ from harness.audit.engine import LADDER_FACTOR
 from harness.audit.solver_seeds import DEFAULT_SOLVER_SEEDS
 from harness.audit.solver_trial import SolverFailed
 from harness.check import CheckDataError, CheckError, run_check, validate
+from harness.check.compile_ahead import CompileAhead, compile_ahead_for
 from harness.check.cost_plan import budget_refusal, plan_check
 from harness.check.fitting import FitError
 from harness.check.pipeline import DEFAULT_FIT_TIME_BUDGET, REFERENCE_CHOICES, holdout_indices
@@ -208,6 +209,7 @@ def run(args: argparse.Namespace) -> int:
     from harness.cli.progress import CheckProgress, progress_enabled, wrote_lines
 
     out = Path(args.out) if args.out else default_out(args.datafile)
+    ahead: CompileAhead | None = None
     try:
         coord_units = coord_units_option(getattr(args, "coord_units", None))
         options = options_from_args(args)
@@ -218,6 +220,8 @@ def run(args: argparse.Namespace) -> int:
         data = validate(obs, coord_system=args.coord_system,
                         average_duplicates=args.average_duplicates)
         lineup = line_up(options, data.n)
+        if not getattr(args, "plan_only", False):
+            ahead = compile_ahead_for(options, data.points)
         plan = plan_check(data.points, data.values, options, lineup=lineup)
         for plan_line in plan_lines(plan):
             print(plan_line, file=sys.stderr if args.json else sys.stdout)
@@ -257,6 +261,9 @@ def run(args: argparse.Namespace) -> int:
     except SolverFailed as exc:  # the solver under test failed its trial, before the fit
         print(f"covaudit check: solver failed: {exc}", file=sys.stderr)
         return ExitCode.SOLVER_FAILED
+    finally:
+        if ahead is not None:
+            ahead.finish()
     print(json_text(result) if args.json else summary(result))
     for warning in dict.fromkeys(result.warnings) if args.json else ():
         print(f"covaudit check: warning: {warning}", file=sys.stderr)

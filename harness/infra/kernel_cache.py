@@ -36,7 +36,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["LoadedKernels", "ThreadingLayerRefused", "load_cached_kernels"]
+__all__ = ["LoadedKernels", "ThreadingLayerRefused", "has_cached_signature", "load_cached_kernels"]
 
 
 class ThreadingLayerRefused(RuntimeError):
@@ -69,6 +69,16 @@ def _cached_signatures(dispatcher: Any) -> list[Any]:
     codegen = dispatcher.targetctx.codegen()
     index = cache._cache_file._load_index()
     return [key[0] for key in index if cache._index_key(key[0], codegen) == key]
+
+
+def has_cached_signature(dispatcher: Any) -> bool:
+    """Whether ``dispatcher`` has a signature in this process or in numba's disk cache for
+    the current source and compiler; False where the private cache API is not as expected
+    (the caller then treats the kernel as not yet compiled)."""
+    try:
+        return bool(dispatcher.signatures) or bool(_cached_signatures(dispatcher))
+    except Exception:  # noqa: BLE001 - numba's private cache API changed
+        return False
 
 
 @contextmanager
