@@ -565,3 +565,64 @@ def test_inverse_maps_equal_the_substitutions() -> None:
     _inverse_transpose_update(f, ua, ub, got_a, got_b)
     np.testing.assert_allclose(got_a, expected_a, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(got_b, expected_b, rtol=1e-12, atol=1e-12)
+
+
+_SPLIT = r"""
+import sys
+import numpy as np
+from numba.core import event
+from harness.solvers.hodlr import aca
+from harness.solvers.hodlr.aca_compile import SHARES, prepare_aca
+
+class Seen(event.Listener):
+    def __init__(self):
+        self.names = []
+    def on_start(self, ev):
+        self.names.append(ev.data["dispatcher"].py_func.__module__ + "."
+                          + ev.data["dispatcher"].py_func.__name__)
+    def on_end(self, ev):
+        pass
+
+xs = np.random.default_rng(0).random((200, 2))
+checks = np.zeros((2, 8), dtype=np.int64)
+if sys.argv[1] == "plain":
+    from harness.model.kernels.rows import fill_block
+    aca.aca_compiled(1, xs, xs + 2.0, 0.0, 1.0, 0, 1e-6, 100, checks, 16, np.empty(10))
+    fill_block(1, xs, xs, 0.0, 1.0, 0, np.empty((200, 200)))
+    for share in SHARES.values():
+        for kernel, signature in share:
+            print(kernel.py_func.__name__, tuple(signature) in kernel.signatures)
+else:
+    prepare_aca()
+    seen = Seen()
+    with event.install_listener("numba:compile", seen):
+        aca.aca_compiled(1, xs, xs + 2.0, 0.0, 1.0, 0, 1e-6, 100, checks, 16, np.empty(10))
+    print(" ".join(name for name in seen.names if name.startswith("harness.")))
+"""
+
+
+def _fresh_cache_run(mode: str, cache) -> str:
+    import os
+    import subprocess
+    import sys
+
+    done = subprocess.run([sys.executable, "-c", _SPLIT, mode], capture_output=True, text=True,
+                          env={**os.environ, "NUMBA_CACHE_DIR": str(cache)}, timeout=600,
+                          check=False)
+    assert done.returncode == 0, done.stderr
+    return done.stdout
+
+
+def test_the_split_compilation_names_the_signatures_the_kernel_uses(tmp_path):
+    # harness.solvers.hodlr.aca_compile: each share's signature is the one a plain
+    # compilation of aca_compiled (and of the leaves' fill) produces
+    lines = _fresh_cache_run("plain", tmp_path / "plain").split("\n")
+    found = dict(line.split() for line in lines if line)
+    assert found and all(flag == "True" for flag in found.values()), found
+
+
+def test_after_the_split_compilation_the_kernel_compiles_no_callee(tmp_path):
+    # The two shares leave only aca_compiled itself to compile: every callee is loaded
+    # from numba's cache (the helper's share) or was compiled in this process (the main's)
+    compiled = _fresh_cache_run("split", tmp_path / "split").split()
+    assert compiled == ["harness.solvers.hodlr.aca.aca_compiled"], compiled

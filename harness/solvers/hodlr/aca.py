@@ -144,7 +144,7 @@ def _cross_pivots(res, count, limit, rows, cols):
                 for j in range(n):
                     pivot_row[j] += e * rows_now[a, j]
         norm2 = _squared_norm(pivot_row)
-        bj, largest = 0, -1.0
+        bj, largest = np.int64(0), -1.0  # np.int64: see aca_compiled's counters
         for j in range(n):
             if abs(pivot_row[j]) > largest:
                 bj, largest = j, abs(pivot_row[j])
@@ -260,8 +260,9 @@ def _grow(scratch, a_vecs, b_vecs, k, need, cap_limit):
     cap = min(cap_limit, max(2 * a_vecs.shape[0], need))
     grown = np.empty(cap * (m + n))
     new_a, new_b = _layout(grown, cap, m, n)
-    _copy_rows(new_a, 0, a_vecs, k)
-    _copy_rows(new_b, 0, b_vecs, k)
+    start = np.int64(0)  # not the literal 0 (a second compiled signature)
+    _copy_rows(new_a, start, a_vecs, k)
+    _copy_rows(new_b, start, b_vecs, k)
     return grown, new_a, new_b
 
 

@@ -21,6 +21,7 @@ import numpy as np
 
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.aca import FactorScratch, LowRank
+from harness.solvers.hodlr.aca_compile import prepare_aca
 from harness.solvers.hodlr.entries import KernelEntries
 from harness.solvers.hodlr.parallel import for_each_node, node_pool
 
@@ -105,6 +106,8 @@ def build_hodlr(entries: KernelEntries, tree: ClusterTree, *, tol: float,
         Worker threads for leaves and small blocks.
     """
     scaled = entries.scaled
+    if entries.kernel.compiled:
+        prepare_aca()  # on a cold cache, its compilation on two processes
     jobs = []
     for level in range(tree.depth):
         b = tree.bounds[level + 1]
