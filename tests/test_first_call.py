@@ -177,3 +177,15 @@ def test_the_helper_parts_follow_the_reference() -> None:
     assert parts_for("operator", compiled_family=True) == ("products",)
     assert parts_for("ladder", compiled_family=True) == ()
     assert parts_for("dense", compiled_family=False) == ()
+
+
+def test_finishing_stops_a_helper_still_running() -> None:
+    # The check has ended: nothing waits for the helper, which is stopped at once
+    import time
+
+    from harness.check.compile_ahead import CompileAhead
+
+    sleeper = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    start = time.perf_counter()
+    CompileAhead(process=sleeper, parts=("dense",)).finish()
+    assert sleeper.returncode is not None and time.perf_counter() - start < 10

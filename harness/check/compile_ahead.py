@@ -13,7 +13,7 @@ Only what this check will call, and only what the cache lacks (``missing_parts``
 warm cache no helper starts. The helper is a courtesy, never a dependency: its output is
 discarded, a failure or a kernel it has not finished leaves that kernel to be compiled
 where it is called, as without it, and ``CompileAhead.finish`` stops it when the check
-ends (at most ``FINISH_SECONDS`` after it).
+ends.
 
 Parts (the reference kind decides which apply, ``parts_for``):
 
@@ -48,8 +48,6 @@ PART_KERNELS: dict[str, tuple[tuple[str, str], ...]] = {
               ("harness.model.kernels.assembly", "_fill_correlation")),
     "products": (("harness.references.operator.products", "_round_product"),),
 }
-#: Seconds ``finish`` waits for a helper still compiling before it stops it.
-FINISH_SECONDS = 5.0
 #: Points of the tiny problems the helper compiles on.
 _POINTS = 64
 
@@ -95,12 +93,12 @@ class CompileAhead:
     parts: tuple[str, ...]
 
     def finish(self) -> None:
-        """Wait up to ``FINISH_SECONDS`` for the helper, then stop it."""
-        try:
-            self.process.wait(timeout=FINISH_SECONDS)
-        except subprocess.TimeoutExpired:
+        """Stop the helper if it is still running: once the check has ended nothing waits
+        for it (numba writes each cache file whole, so a stopped helper leaves none
+        half-written)."""
+        if self.process.poll() is None:
             self.process.kill()
-            self.process.wait()
+        self.process.wait()
 
 
 def start_compile_ahead(family: str, parts: Sequence[str]) -> CompileAhead | None:

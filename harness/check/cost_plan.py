@@ -437,13 +437,14 @@ def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.nda
     solvers, columns = calibration.solvers, calibration.product_columns_per_second
     rated = solvers.get("preconditioner")
     solver, value, solver_options = _preconditioner(options)
-    rng = np.random.default_rng(options.seed)
+    if rated is not None and rated.name == solver.name and columns is not None:
+        return calibration
+    kernel, rng = _kernel(points, y, options), np.random.default_rng(options.seed)
     if rated is None or rated.name != solver.name:
-        kernel = _kernel(points, y, options)
         solvers = {**solvers, "preconditioner": rate_solver(
             solver, value, points, kernel, options=solver_options, rng=rng)}
     if columns is None:
-        columns = product_rate(_kernel(points, y, options), int(points.shape[1]), rng=rng)
+        columns = product_rate(kernel, int(points.shape[1]), rng=rng)
     return replace(calibration, solvers=solvers, product_columns_per_second=columns)
 
 

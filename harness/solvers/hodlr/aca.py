@@ -236,7 +236,7 @@ def _identity(size):
 def _copy_rows(dst, d0, src, count):
     """dst[d0 + r] = src[r] for r < count, element by element: a slice assignment
     between arrays compiles numba's shape-mismatch message builder, about 4 s of the
-    first compilation here, for a check these callers never need."""
+    first compilation here, for a shape check these callers never need."""
     for r in range(count):
         for j in range(src.shape[1]):
             dst[d0 + r, j] = src[r, j]
