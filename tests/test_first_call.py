@@ -176,6 +176,7 @@ def test_the_helper_parts_follow_the_reference() -> None:
     assert parts_for("dense", compiled_family=True) == ("dense", "products")
     assert parts_for("operator", compiled_family=True) == ("products",)
     assert parts_for("ladder", compiled_family=True) == ()
+    assert parts_for("statespace", compiled_family=True) == ()
     assert parts_for("dense", compiled_family=False) == ()
 
 

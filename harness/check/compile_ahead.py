@@ -21,8 +21,9 @@ Parts (the reference kind decides which apply, ``parts_for``):
   calibration times after the solvers, ``plan_calibration.calibrate``), with derivatives,
   and cross-covariances (``harness.model.kernels.assembly``);
 - ``products``: the exact products from kernel tiles
-  (``harness.references.operator.products``), behind the efficiency criteria with every
-  exact reference and the whole exact-operator reference.
+  (``harness.references.operator.products``), behind the dense reference's efficiency
+  criteria and the whole exact-operator reference (the structured references use
+  neither part).
 
 Run as ``python -m harness.check.compile_ahead FAMILY PART...`` by ``start_compile_ahead``.
 """
@@ -62,7 +63,7 @@ def parts_for(reference: str, *, compiled_family: bool) -> tuple[str, ...]:
         return ()
     if reference == "dense":
         return ("dense", "products")
-    if reference in ("operator", "statespace", "kronecker"):
+    if reference == "operator":
         return ("products",)
     return ()
 
