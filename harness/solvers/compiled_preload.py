@@ -6,9 +6,9 @@ multiprocessing's fork server (``harness.infra.child_process``), and a fork serv
 only imports before it forks. ``check`` names this module among the server's preloaded
 modules (``harness.check.plugin_guard.prepare_solver_children``); its import loads the
 serial kernels of ``COMPILED_MODULES`` (``harness.infra.kernel_cache``: the kernel
-families' scalar closed forms and row fills, HODLR's adaptive cross approximation,
-Vecchia's ordering, neighbour search and sparsity patterns). The parallel kernels (the
-block fills, Vecchia's triangular products) are not: loading one would start numba's
+families' scalar closed forms, row and block fills, HODLR's adaptive cross approximation,
+Vecchia's ordering and neighbour search). The parallel kernels (Vecchia's sparsity
+patterns, supernode passes and triangular products) are not: loading one would start numba's
 threading layer in the server, which a forked child cannot survive; every child loads
 those itself. What was loaded is kept in ``LOADED``.
 
