@@ -145,36 +145,29 @@ def test_an_exact_solver_on_shared_probes_has_no_score_error():
     assert "inverse-variance" in merged.note
 
 
-def test_check_on_a_line_resolves_the_parameter_shift(tmp_path, capsys):
-    # Against the Kalman reference the solver's score shares the audit's probes with the
-    # exact side: the shift's uncertainty falls far below the 0.1 SE limit (it was about
-    # 1 SE with Hutch++ alone), so the tight tolerance is judged on every metric.
-    path = _line_file(tmp_path, n=600)
-    code = _run([str(path), "--coords", "t", "--value", "z", "--tolerances", "1e-8",
-                 *FIXED, "--reference", "statespace", "--solver-seeds", "2", "--json",
+@pytest.mark.parametrize("reference, data, coords, source, note", [
+    # Against the Kalman reference on a line the solver's score shares the audit's
+    # probes with the exact side (with Hutch++ alone the shift's uncertainty was about
+    # 1 SE)
+    ("statespace", "line", "t", "shared-probe control", "shared with"),
+    # In the plane the exact operator's own score probes are shared with the solver: its
+    # trace noise cancels (with each side's probes on their own it was of order 1 SE)
+    ("operator", "plane", "e,n", "exact operator's score probes",
+     "shared with the exact operator"),
+])
+def test_check_shares_the_reference_probes_and_resolves_the_shift(tmp_path, capsys, reference,
+                                                                   data, coords, source,
+                                                                   note):
+    # The shift's uncertainty falls far below the 0.1 SE limit, so the tight tolerance
+    # is judged safe on every metric
+    path = (_line_file(tmp_path, n=600) if data == "line" else _plane_file(tmp_path, n=300))
+    code = _run([str(path), "--coords", coords, "--value", "z", "--tolerances", "1e-8",
+                 *FIXED, "--reference", reference, "--solver-seeds", "2", "--json",
                  "--out", str(tmp_path / "o"), "--no-refit"])
     result = json.loads(capsys.readouterr().out)
     assert code == ExitCode.OK
-    assert "shared-probe control" in result["reference_by_metric"]["score"]["shared_probes"]
+    assert source in result["reference_by_metric"]["score"]["shared_probes"]
     (row,) = result["tolerances"]
     assert row["status"] == "safe"
     assert row["param_shift_se"]["uncertainty"] < 0.01
-    assert "shared with" in row["param_shift_se"]["note"]
-
-
-def test_check_against_the_operator_shares_its_score_probes(tmp_path, capsys):
-    # In the plane the exact operator's own score probes are shared with the solver:
-    # its trace noise cancels, and the shift's uncertainty falls below the limit's tenth
-    # (with each side's probes on their own it was of order 1 SE).
-    path = _plane_file(tmp_path, n=300)
-    code = _run([str(path), "--coords", "e,n", "--value", "z", "--tolerances", "1e-8",
-                 *FIXED, "--reference", "operator", "--solver-seeds", "2", "--json",
-                 "--out", str(tmp_path / "o"), "--no-refit"])
-    result = json.loads(capsys.readouterr().out)
-    assert code == ExitCode.OK
-    shared = result["reference_by_metric"]["score"]["shared_probes"]
-    assert "exact operator's score probes" in shared
-    (row,) = result["tolerances"]
-    assert row["status"] == "safe"
-    assert row["param_shift_se"]["uncertainty"] < 0.01
-    assert "shared with the exact operator" in row["param_shift_se"]["note"]
+    assert note in row["param_shift_se"]["note"]

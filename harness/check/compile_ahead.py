@@ -30,6 +30,7 @@ Run as ``python -m harness.check.compile_ahead FAMILY PART...`` by ``start_compi
 
 from __future__ import annotations
 
+import importlib
 import os
 import subprocess
 import sys
@@ -41,7 +42,7 @@ import numpy as np
 from harness.check.check_options import CheckOptions
 from harness.check.fit_stage import model_template
 from harness.check.reference_kind import reference_kind
-from harness.infra.kernel_cache import has_cached_signature
+from harness.infra.kernel_cache import has_cached_signature, start_compile_helper
 
 #: part -> (module, kernel) whose cached signature says the part is already compiled
 PART_KERNELS: dict[str, tuple[tuple[str, str], ...]] = {
@@ -78,8 +79,6 @@ def compile_ahead_for(options: CheckOptions, points: np.ndarray) -> CompileAhead
 
 def missing_parts(parts: Sequence[str]) -> tuple[str, ...]:
     """The parts with a kernel that has no signature in numba's cache."""
-    import importlib
-
     out = []
     for part in parts:
         for module, name in PART_KERNELS[part]:
@@ -111,13 +110,8 @@ def start_compile_ahead(family: str, parts: Sequence[str]) -> CompileAhead | Non
     todo = missing_parts(parts)
     if not todo:
         return None
-    try:
-        process = subprocess.Popen(
-            [sys.executable, "-m", "harness.check.compile_ahead", family, *todo],
-            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    except OSError:
-        return None
-    return CompileAhead(process=process, parts=todo)
+    process = start_compile_helper("harness.check.compile_ahead", family, *todo)
+    return None if process is None else CompileAhead(process=process, parts=todo)
 
 
 def compile_parts(family: str, parts: Sequence[str]) -> None:

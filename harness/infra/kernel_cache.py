@@ -30,13 +30,21 @@ This module is infrastructure: it imports nothing from the rest of ``harness``.
 from __future__ import annotations
 
 import importlib
+import subprocess
+import sys
 import time
 from collections.abc import Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["LoadedKernels", "ThreadingLayerRefused", "has_cached_signature", "load_cached_kernels"]
+__all__ = [
+    "LoadedKernels",
+    "ThreadingLayerRefused",
+    "has_cached_signature",
+    "load_cached_kernels",
+    "start_compile_helper",
+]
 
 
 class ThreadingLayerRefused(RuntimeError):
@@ -79,6 +87,19 @@ def has_cached_signature(dispatcher: Any) -> bool:
         return bool(dispatcher.signatures) or bool(_cached_signatures(dispatcher))
     except Exception:  # noqa: BLE001 - numba's private cache API changed
         return False
+
+
+def start_compile_helper(module: str, *args: str) -> subprocess.Popen[bytes] | None:
+    """``python -m module args...`` started quietly (no input, output discarded) to
+    compile kernels into numba's cache while this process works; None when it cannot
+    start. Its compiled kernels reach this process through the cache only, so a helper
+    that fails or is stopped leaves them to be compiled where they are called."""
+    try:
+        return subprocess.Popen([sys.executable, "-m", module, *args],
+                                stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL,
+                                stderr=subprocess.DEVNULL)
+    except OSError:
+        return None
 
 
 @contextmanager

@@ -18,10 +18,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from concurrent.futures import ThreadPoolExecutor
 
 import numba
 import numpy as np
+
+from harness.infra.thread_ranges import over_threads, thread_count
 
 _SQRT3 = math.sqrt(3.0)
 _SQRT5 = math.sqrt(5.0)
@@ -228,19 +229,11 @@ _THREADED_ENTRIES = 1 << 16
 
 
 def _over_threads(fill: Callable[[int, int], None], count: int, entries: int) -> None:
-    """Run ``fill(start, stop)`` over ``range(count)`` split into one contiguous range per
-    thread (``numba.get_num_threads()``, so ``NUMBA_NUM_THREADS`` and
-    ``numba.set_num_threads`` still set the width). The compiled fills release the GIL,
-    so the ranges run at once; each writes its own columns, so the result does not depend
-    on the thread count."""
-    threads = min(numba.get_num_threads(), count)
-    if threads <= 1 or entries < _THREADED_ENTRIES:
-        fill(0, count)
-        return
-    bounds = [count * t // threads for t in range(threads + 1)]
-    with ThreadPoolExecutor(max_workers=threads) as pool:
-        for done in [pool.submit(fill, bounds[t], bounds[t + 1]) for t in range(threads)]:
-            done.result()
+    """``fill(start, stop)`` over ``range(count)`` on numba's thread count
+    (``harness.infra.thread_ranges``), or on the calling thread alone below
+    ``_THREADED_ENTRIES`` entries."""
+    threads = thread_count() if entries >= _THREADED_ENTRIES else 1
+    over_threads(fill, count, threads=threads)
 
 
 def fill_correlation(rho, xs: np.ndarray, ys: np.ndarray, shape: float,

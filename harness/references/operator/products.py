@@ -7,10 +7,10 @@ out[I] += K_IJ B[J] and out[J] += K_IJ' B[I]. Memory is O(n k) plus one tile per
 time O(n^2 k).
 
 Parallelism and reproducibility: the pairs of one round write disjoint rows, so a round
-runs its pairs on threads (``_compiled_round``); the rounds run in their fixed order, so each
-output row sums its contributions in the same order whatever the thread count (results
-are bitwise equal for 1 and 2 threads: ``tests/test_operator_products.py``). BLAS runs on
-one thread inside the tiles.
+runs its pairs on threads (``harness.infra.thread_ranges``); the rounds run in their
+fixed order, so each output row sums its contributions in the same order whatever the
+thread count (results are bitwise equal for 1 and 2 threads:
+``tests/test_operator_products.py``). BLAS runs on one thread inside the tiles.
 
 Derivatives (Rasmussen and Williams 2006, eq. 5.9 needs dSigma/dtheta_i; the entries are
 those of ``harness.model.kernels.classes``):
@@ -27,11 +27,13 @@ from __future__ import annotations
 
 import time
 from concurrent.futures import ThreadPoolExecutor
+from functools import partial
 
 import numba
 import numpy as np
 from threadpoolctl import threadpool_limits
 
+from harness.infra.thread_ranges import over_threads, thread_count
 from harness.linalg.dense_budget import default_memory_budget
 from harness.model.kernels import Kernel
 from harness.model.kernels.rows import family_code
@@ -190,31 +192,22 @@ class KernelOperator:
                                                                        user_api="blas"):
             if self._family >= 0:
                 modes = kernel_modes(self.kernel, which)
-                threads = numba.get_num_threads()
+                threads = thread_count()
                 with ThreadPoolExecutor(max_workers=threads) as pool:
                     for first, second in rounds:
-                        self._compiled_round(pool, threads, modes, part, out, first, second)
+                        # the pairs of a round write disjoint rows: the sums do not
+                        # depend on how the round is split over threads
+                        over_threads(partial(_round_product, self._family, self._scaled,
+                                             self.kernel.shape_value, self.kernel.variance,
+                                             modes, part, out, self.plan.starts, first,
+                                             second), int(first.shape[0]),
+                                     threads=threads, pool=pool)
                         bar.update(1)
             else:
                 for first, second in rounds:
                     self._generic_round(part, which, out, first, second)
                     bar.update(1)
         return out
-
-    def _compiled_round(self, pool: ThreadPoolExecutor, threads: int, modes: np.ndarray,
-                        part: np.ndarray, out: np.ndarray, first: np.ndarray,
-                        second: np.ndarray) -> None:
-        """One round's pairs split into ``threads`` contiguous ranges, run at once (the
-        compiled round releases the GIL); the pairs of a round write disjoint rows, so
-        the sums do not depend on the split."""
-        pairs = int(first.shape[0])
-        bounds = [pairs * t // threads for t in range(threads + 1)]
-        jobs = [pool.submit(_round_product, self._family, self._scaled,
-                            self.kernel.shape_value, self.kernel.variance, modes, part, out,
-                            self.plan.starts, first, second, bounds[t], bounds[t + 1])
-                for t in range(threads) if bounds[t + 1] > bounds[t]]
-        for job in jobs:
-            job.result()
 
     def _generic_round(self, part: np.ndarray, which: tuple[int, ...], out: np.ndarray,
                        first: np.ndarray, second: np.ndarray) -> None:

@@ -20,12 +20,11 @@ the kernel in the cache (every call after the first on a machine) nothing starts
 from __future__ import annotations
 
 import subprocess
-import sys
 from typing import Any
 
 from numba import types
 
-from harness.infra.kernel_cache import has_cached_signature
+from harness.infra.kernel_cache import has_cached_signature, start_compile_helper
 from harness.model.kernels.rows import fill_block
 from harness.solvers.hodlr import aca
 
@@ -62,11 +61,8 @@ def prepare_aca() -> None:
     (module docstring); a no-op when it has it."""
     if has_cached_signature(aca.aca_compiled):
         return
-    try:
-        helper = subprocess.Popen(
-            [sys.executable, "-m", "harness.solvers.hodlr.aca_compile"],
-            stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    except OSError:
+    helper = start_compile_helper("harness.solvers.hodlr.aca_compile")
+    if helper is None:
         return
     try:
         compile_share("main")
