@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import sklearn.gaussian_process.kernels as sk
 
 from harness.audit import engine
 from harness.audit.audit_references import build_reference, reference_by_metric
@@ -21,11 +22,12 @@ from harness.audit.audit_sampling import (
 )
 from harness.audit.metrics.efficiency import prediction_efficiency
 from harness.audit.metrics.held_out_scale import held_out_scale
-from harness.audit.sides import kriging_weights, predictor_mse
+from harness.audit.sides import kriging_side, kriging_weights, line_cross_product, predictor_mse
 from harness.likelihood import kriging
 from harness.linalg.dense_cholesky import DenseCholesky
 from harness.model import cross_tiles, design_matrix
 from harness.model.kernels import Kernel, make_kernel
+from harness.references.line_products import LineCrossProducts
 from harness.references.operator import operator_kriging
 from harness.solvers.registry import resolve_solver
 
@@ -215,3 +217,39 @@ def test_the_audit_forms_no_whole_cross_covariance(field, shrunk_tiles, monkeypa
     assert by_metric["kriging"]["kind"] == kind
     assert by_metric["kriging"]["n_holdout"] == 40
     assert by_metric["kriging"]["n_variance_points"] == 12
+
+
+@pytest.mark.parametrize("family,nu", [("exponential", 0.5), ("matern32", 1.5),
+                                       ("matern52", 2.5)])
+def test_line_cross_products_equal_sklearns_cross_covariance(family, nu):
+    # Source: scikit-learn's Matern kernel (sklearn.gaussian_process.kernels.Matern, the
+    # R&W 2006 eq. 4.14 form) times s2: k(x*, X) z, with a new point on an observed one.
+    rng = np.random.default_rng(8)
+    x, new = rng.random(300) * 4.0, rng.random(37) * 5.0 - 0.5
+    new[3] = x[10]
+    z = rng.standard_normal((300, 2))
+    kernel = make_kernel(family, {"variance": 1.7, "lengthscale": 0.4, "nugget": 0.03})
+    expected = 1.7 * sk.Matern(length_scale=0.4, nu=nu)(new[:, None], x[:, None]) @ z
+    got = LineCrossProducts(x[:, None], new[:, None], kernel)(z)
+    np.testing.assert_allclose(got, expected, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(LineCrossProducts(x, new, kernel)(z[:, 0]), expected[:, 0],
+                               rtol=1e-12, atol=1e-12)
+
+
+def test_line_kriging_takes_the_exact_cross_product_and_matches_the_formula(monkeypatch):
+    # Source: the dense formula above (R&W 2006 eqs. 2.25-2.26, Cressie 1993 eq. 3.4.60):
+    # on a line the audit's kriging side forms no cross-covariance tile for the means.
+    rng = np.random.default_rng(9)
+    points, new = rng.random((240, 1)) * 3.0, rng.random((30, 1)) * 3.0
+    y = 1.0 + np.sin(3 * points[:, 0]) + 0.2 * rng.standard_normal(240)
+    expected_mean, expected_var = universal_kriging(points, y, KERNEL, new, "constant")
+    shapes = _record_held_out_tiles(monkeypatch, new)
+    at = np.array([2, 5, 7])
+    side = kriging_side("dense", DenseCholesky(points, KERNEL), points, y, KERNEL, new,
+                        mean="constant", variance_at=at)
+    assert sum(cols for _, cols in shapes) == at.size      # the variances' tile only
+    np.testing.assert_allclose(side.mean, expected_mean, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(side.variance, expected_var[at], rtol=0, atol=1e-10)
+    assert line_cross_product(np.c_[points, points], np.c_[new, new], KERNEL) is None
+    assert line_cross_product(points, new, make_kernel("gaussian", {"lengthscale": 1.0})
+                              ) is None

@@ -17,6 +17,7 @@ from harness.model.kernels import Exponential, Gaussian, Kernel, Matern, Matern3
 from harness.solvers.hodlr import CompressionBreakdownError, HodlrFactorization, factorize
 from harness.solvers.hodlr.aca import ACA_BLOCK, aca_compiled, recompress
 from harness.solvers.hodlr.orth import thin_qr
+from harness.solvers.hodlr.parallel import contiguous_runs, for_each_node, node_pool
 from harness.solvers.protocol import SymmetricFactorization
 
 TOLS = (1e-4, 1e-6, 1e-8, 1e-10)
@@ -626,3 +627,17 @@ def test_after_the_split_compilation_the_kernel_compiles_no_callee(tmp_path):
     # from numba's cache (the helper's share) or was compiled in this process (the main's)
     compiled = _fresh_cache_run("split", tmp_path / "split").split()
     assert compiled == ["harness.solvers.hodlr.aca.aca_compiled"], compiled
+
+
+def test_level_nodes_run_in_even_contiguous_runs_each_node_once():
+    # One task per thread, each a run of consecutive nodes (parallel module docstring).
+    for count, parts in [(1, 2), (2, 2), (7, 2), (781, 2), (5, 8)]:
+        runs = contiguous_runs(count, parts)
+        assert [k for run in runs for k in run] == list(range(count))
+        assert len(runs) == min(count, parts)
+        assert max(map(len, runs)) - min(map(len, runs)) <= 1
+    seen: list[int] = []
+    with node_pool(2) as pool:
+        assert pool is not None and pool.threads == 2
+        for_each_node(pool, seen.append, list(range(50)))
+    assert sorted(seen) == list(range(50))

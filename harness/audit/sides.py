@@ -40,6 +40,7 @@ from harness.model import design_matrix
 from harness.model.cross_tiles import column_blocks
 from harness.model.kernels import Kernel
 from harness.references import DenseCholesky
+from harness.references.line_products import LineCrossProducts, LineProductError
 from harness.solvers.protocol import Factorization
 
 _ROWS = 1024
@@ -171,6 +172,18 @@ def evaluate_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarr
                 nbytes=int(getattr(fac, "nbytes", 0)), logdet=logdet)
 
 
+def line_cross_product(points: np.ndarray, new_points: np.ndarray, kernel: Kernel
+                       ) -> LineCrossProducts | None:
+    """The exact O(n + m) product with the cross-covariance for 1D points and a
+    half-integer Matern kernel (``LineCrossProducts``), else None (the tiled product)."""
+    if np.ndim(points) != 2 or np.shape(points)[1] != 1:
+        return None
+    try:
+        return LineCrossProducts(points, new_points, kernel)
+    except LineProductError:
+        return None
+
+
 def kriging_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
                  new_points: np.ndarray, *, mean: str,
                  variance_at: np.ndarray | None = None) -> KrigingSide:
@@ -179,5 +192,6 @@ def kriging_side(name: str, fac: Factorization, points: np.ndarray, y: np.ndarra
     ``variance_at`` (positions among the new points; default every one)."""
     m = np.asarray(new_points).shape[0]
     at = np.arange(m) if variance_at is None else np.asarray(variance_at, dtype=np.intp)
-    pred = kriging(fac, points, y, kernel, new_points, mean=mean, variance_at=at)
+    pred = kriging(fac, points, y, kernel, new_points, mean=mean, variance_at=at,
+                   cross_product=line_cross_product(points, new_points, kernel))
     return KrigingSide(name=name, mean=pred.mean, variance=pred.variance, variance_at=at)

@@ -88,7 +88,7 @@ from harness.audit.audit_sampling import HoldoutSizeError, holdout_size, varianc
 from harness.audit.operator_preconditioner import HODLR_TOL, PILOT_CANDIDATES
 from harness.audit.solver_seeds import seed_option
 from harness.check.check_options import CheckError, CheckOptions
-from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, plan_fit
+from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, line_applies, plan_fit
 from harness.check.fit_stage import model_template
 from harness.check.frontier_table import timing_repeats
 from harness.check.plan_calibration import (
@@ -119,6 +119,13 @@ REPORT_UNITS = 0.43
 #: Seconds per point of the state-space reference (filter, score and smoother): covaudit's
 #: estimate, not measured here (O(n); it never decides a plan).
 STATESPACE_SECONDS_PER_POINT = 1e-4
+#: Kalman-filter passes with the score of the exact fit on a line: about 45 L-BFGS-B
+#: evaluations and a Newton polish of 1 + 2p passes per evaluation (56 evaluations on
+#: 100,000 points, a development measurement; ``harness.check.line_fit``).
+LINE_FIT_PASSES = 60
+#: One such pass in units per point: 0.24 s at 100,000 points against a unit of about
+#: 2.5 s (development measurement, 2 cores).
+LINE_PASS_UNITS_PER_POINT = 1e-6
 #: Columns of the exact KL divergence's blocks (``harness.audit.metrics.kl_divergence``).
 KL_BLOCK = 256
 #: Right-hand sides of one kriging block (``harness.model.cross_tiles.TILE_COLUMNS``).
@@ -279,6 +286,11 @@ def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calib
                          f"dense fit, about {DENSE_FIT_SCORE_EVALUATIONS} evaluations with "
                          f"the score and {DENSE_FIT_FISHER_EVALUATIONS} with the Fisher "
                          f"information, at most --fit-time-budget {budget:g} s")
+    if fit.engine == "statespace":
+        seconds = LINE_FIT_PASSES * s.n * LINE_PASS_UNITS_PER_POINT * cal.unit_seconds
+        return StagePlan("fit", min(seconds, budget), 8 * s.n * 32,
+                         f"exact fit on the line (Kalman filter), about {LINE_FIT_PASSES} "
+                         f"O(n) passes with the score, at most --fit-time-budget {budget:g} s")
     if fit.engine == "vecchia":
         pilot = min(options.pilot_n, s.n)
         m = FIT_NEIGHBOURS
@@ -508,7 +520,8 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
                        memory_budget=options.memory_budget,
                        time_budget=options.fit_time_budget,
                        dense_max_n=(DENSE_FIT_MAX_N if options.dense_fit_max_n is None
-                                    else options.dense_fit_max_n))
+                                    else options.dense_fit_max_n),
+                       on_line=line_applies(d, template))
     tight = next((r for r in rates.values() if r is not None), None)
     stages = [_fit_stage(sizes, options, fit, calibration, tight),
               _reference_stage(sizes, kind, options, calibration, first,

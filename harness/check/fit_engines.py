@@ -10,7 +10,10 @@ Three engines, one call signature ``engine(theta, *, fisher=False) -> EngineEval
   gradient and Fisher information (Guinness 2021, Stat. Comput. 31, secs. 2-3), the
   ordering, pattern and supernodes built once for the points and reused at every theta;
 * ``CompressedEngine``: a compressed solver's log-likelihood with Hutch++ traces (a
-  stochastic score with its standard error).
+  stochastic score with its standard error);
+* ``StateSpaceEngine``: on a line with a half-integer Matern kernel, the exact
+  log-likelihood and score by the Kalman filter and its sensitivity equations, O(n), and
+  the observed information by central differences of that score.
 """
 
 from __future__ import annotations
@@ -23,6 +26,7 @@ import numpy as np
 
 from harness.model.kernels import Kernel
 from harness.references import dense_evaluate
+from harness.references.statespace import StateSpaceReference
 from harness.solvers.vecchia import DEFAULT_LAM, build_structure
 from harness.solvers.vecchia.vecchia_likelihood import vecchia_evaluate
 
@@ -143,3 +147,83 @@ class CompressedEngine:
         return EngineEvaluation(loglik=ev.loglik, score=np.asarray(ev.score),
                                 fisher=ev.fisher, seconds=time.perf_counter() - start,
                                 score_se=score_se)
+
+
+#: Log-scale step of the observed information's central differences (``StateSpaceEngine``).
+OBSERVED_INFORMATION_STEP = 1e-4
+
+
+def positive_definite(matrix: np.ndarray) -> tuple[np.ndarray, bool]:
+    """The symmetric part of ``matrix`` with each eigenvalue lambda replaced by
+    max(|lambda|, 1e-8 max |lambda|), and whether any was replaced: the modified Newton
+    metric (Nocedal and Wright 2006, sec. 3.4, eigenvalue modification), so that a step
+    B^-1 g is an ascent direction where the log-likelihood is not concave."""
+    sym = 0.5 * (matrix + matrix.T)
+    values, vectors = np.linalg.eigh(sym)
+    floor = 1e-8 * float(np.max(np.abs(values))) if values.size else 0.0
+    fixed = np.maximum(np.abs(values), floor)
+    if np.array_equal(fixed, values):
+        return sym, False
+    return (vectors * fixed) @ vectors.T, True
+
+
+class StateSpaceEngine:
+    """Exact L and score on a line by the Kalman filter; the observed information.
+
+    L by the prediction-error decomposition and g by the filter's sensitivity equations
+    (``harness.references.statespace.StateSpaceReference``), both exact and O(n). With
+    ``fisher`` the metric is the observed information J = -dg/dtheta, by central
+    differences of the exact score with log-scale step h = ``OBSERVED_INFORMATION_STEP``
+    (truncation O(h^2)), symmetrized and, where not positive definite, modified
+    (``positive_definite``). At the MLE J estimates the Fisher information, and is the
+    one Efron and Hinkley (1978, Biometrika 65, 457-487) recommend for the standard
+    errors. Costs 1 + 2p filter passes with the score.
+    """
+
+    name = "statespace"
+
+    def __init__(self, points: np.ndarray, y: np.ndarray, kernel: Kernel, *,
+                 mean: str) -> None:
+        self.y, self.kernel, self.mean = np.asarray(y, dtype=float), kernel, mean
+        self.reference = StateSpaceReference(points, kernel)
+        self._modified: set[bytes] = set()   # thetas whose information was modified
+
+    def modified_at(self, theta: np.ndarray) -> bool:
+        """Whether the information returned at ``theta`` was modified to be positive
+        definite (``positive_definite``)."""
+        return np.asarray(theta, dtype=float).tobytes() in self._modified
+
+    def loglik(self, theta: np.ndarray) -> float:
+        """L(theta) only (one filter pass)."""
+        return self.reference.with_kernel(self.kernel.with_theta(theta)).loglik(
+            self.y, mean=self.mean)
+
+    def _score(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
+        ev = self.reference.with_kernel(self.kernel.with_theta(theta)).evaluate(
+            self.y, mean=self.mean, score=True)
+        return ev.loglik, np.asarray(ev.score, dtype=float)
+
+    def observed_information(self, theta: np.ndarray) -> np.ndarray:
+        """-dg/dtheta by central differences of the exact score (class docstring),
+        before the positive-definite modification."""
+        theta = np.asarray(theta, dtype=float)
+        h = OBSERVED_INFORMATION_STEP
+        columns = []
+        for j in range(theta.size):
+            shift = np.zeros_like(theta)
+            shift[j] = h
+            columns.append((self._score(theta - shift)[1] - self._score(theta + shift)[1])
+                           / (2.0 * h))
+        return np.column_stack(columns)
+
+    def __call__(self, theta: np.ndarray, *, fisher: bool = False) -> EngineEvaluation:
+        start = time.perf_counter()
+        loglik, score = self._score(theta)
+        information = None
+        if fisher:
+            information, modified = positive_definite(self.observed_information(theta))
+            if modified:
+                self._modified.add(np.asarray(theta, dtype=float).tobytes())
+        return EngineEvaluation(loglik=loglik, score=score, fisher=information,
+                                seconds=time.perf_counter() - start)
+

@@ -7,6 +7,9 @@
 * ``vecchia``: the at-scale fit otherwise (``harness.check.vecchia_fit``): Fisher scoring
   on the deterministic Vecchia likelihood, then a refinement toward the exact MLE with
   the exact score where the dense score fits the budget;
+* ``statespace``: in place of ``vecchia`` on a line with a half-integer Matern kernel
+  (where the state-space reference applies): the exact MLE by the Kalman filter's O(n)
+  likelihood and score (``harness.check.line_fit``), no approximation at any n;
 * ``compressed``: in place of ``vecchia`` for a kernel without a compiled form for the
   Vecchia likelihood (``harness.model.kernels.assembly.FAMILY_CODES``): Fisher scoring
   with the compressed solver's stochastic score.
@@ -21,7 +24,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from harness.audit.reference_choice import NoReference, ReferenceProblem, select_reference
 from harness.linalg.dense_budget import DenseBudgetError, check_dense_budget
+from harness.model.kernels import Kernel
 from harness.model.kernels.assembly import FAMILY_CODES
 
 #: The largest n fitted by the dense fit (covaudit's choice). That fit makes about 40
@@ -32,7 +37,7 @@ from harness.model.kernels.assembly import FAMILY_CODES
 #: evaluations and no dense Fisher information at all.
 DENSE_FIT_MAX_N = 4096
 
-PLAN_ENGINES = ("dense", "vecchia", "compressed")
+PLAN_ENGINES = ("dense", "vecchia", "statespace", "compressed")
 
 
 @dataclass(frozen=True)
@@ -42,7 +47,7 @@ class FitPlan:
     Attributes
     ----------
     engine : str
-        ``dense``, ``vecchia`` or ``compressed`` (``PLAN_ENGINES``).
+        ``dense``, ``vecchia``, ``statespace`` or ``compressed`` (``PLAN_ENGINES``).
     reason : str
     dense_max_n : int
         The n threshold the plan used.
@@ -66,6 +71,17 @@ class FitPlan:
                 "exact_score_fits": self.exact_score_fits}
 
 
+def line_applies(d: int, kernel: Kernel) -> bool:
+    """Whether the exact fit on a line applies: the state-space reference's own test
+    (``harness.audit.reference_choice``: 1D points, a half-integer Matern kernel)."""
+    problem = ReferenceProblem(n=1, d=int(d), kernel=kernel)
+    try:
+        select_reference(problem, allowed=("statespace",))
+    except NoReference:
+        return False
+    return True
+
+
 def _fits(n: int, budget: int | None, *, fisher: bool, n_params: int) -> str | None:
     """None when the dense evaluation fits the budget, else the budget's message."""
     try:
@@ -76,7 +92,8 @@ def _fits(n: int, budget: int | None, *, fisher: bool, n_params: int) -> str | N
 
 
 def plan_fit(n: int, n_params: int, *, family: str, memory_budget: int | None,
-             time_budget: float, dense_max_n: int = DENSE_FIT_MAX_N) -> FitPlan:
+             time_budget: float, dense_max_n: int = DENSE_FIT_MAX_N,
+             on_line: bool = False) -> FitPlan:
     """The fit for n points and ``n_params`` parameters (module docstring).
 
     Parameters
@@ -90,11 +107,18 @@ def plan_fit(n: int, n_params: int, *, family: str, memory_budget: int | None,
         Recorded in the plan; the fit stage stops there.
     dense_max_n : int
         n above which the at-scale fit runs (``DENSE_FIT_MAX_N``; 0 forces it).
+    on_line : bool
+        The points are 1D and the kernel a half-integer Matern (``line_applies``): the
+        at-scale fit is then the exact one on the line.
     """
     exact_score_fits = _fits(n, memory_budget, fisher=False, n_params=n_params) is None
-    at_scale = "vecchia" if family in FAMILY_CODES else "compressed"
-    why_not = ("" if at_scale == "vecchia" else
-               f"; kernel {family!r} has no compiled form for the Vecchia likelihood")
+    if on_line:
+        at_scale, why_not = "statespace", "; on a line: the exact Kalman-filter fit"
+    elif family in FAMILY_CODES:
+        at_scale, why_not = "vecchia", ""
+    else:
+        at_scale, why_not = ("compressed", f"; kernel {family!r} has no compiled form for "
+                                           "the Vecchia likelihood")
     if n > dense_max_n:
         return FitPlan(at_scale, f"n = {n:,} above the dense fit's limit of "
                                  f"{dense_max_n:,} points{why_not}", dense_max_n,

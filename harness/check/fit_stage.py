@@ -6,10 +6,11 @@ Fisher scoring polish, ``harness.check.fitting``) up to ``dense_fit_max_n`` with
 budget; beyond it the at-scale fit (``harness.check.vecchia_fit``): Fisher scoring on the
 deterministic Vecchia likelihood to a Newton-decrement threshold, then at most
 ``vecchia_fit.REFINE_MAX_STEPS`` steps with the exact score toward the exact MLE where the
-dense score fits the budget. A kernel
-without a compiled Vecchia form falls back to Fisher scoring with the compressed solver's
-stochastic score. ``fit_time_budget`` caps the fit stage. Or the parameters are given
-(``fixed_params``).
+dense score fits the budget. On a line with a half-integer Matern kernel the at-scale fit is
+exact instead: L-BFGS-B and a Newton polish on the Kalman filter's O(n) likelihood
+(``harness.check.line_fit``). A kernel without a compiled Vecchia form falls back to
+Fisher scoring with the compressed solver's stochastic score. ``fit_time_budget`` caps
+the fit stage. Or the parameters are given (``fixed_params``).
 """
 
 from __future__ import annotations
@@ -25,7 +26,7 @@ from harness.audit.solver_seeds import solver_seed
 from harness.check.check_options import CheckError, CheckOptions
 from harness.check.fisher_steps import fisher_scoring
 from harness.check.fit_engines import CompressedEngine, DenseEngine
-from harness.check.fit_plan import DENSE_FIT_MAX_N, plan_fit
+from harness.check.fit_plan import DENSE_FIT_MAX_N, line_applies, plan_fit
 from harness.check.fit_records import MleFit
 from harness.check.fitting import (
     DENSE_SCORE_TOL_SE,
@@ -36,6 +37,7 @@ from harness.check.fitting import (
     fit_dense,
     fit_mle,
 )
+from harness.check.line_fit import fit_on_line
 from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_TOL_SE, fit_at_scale
 from harness.infra.child_process import run_stage
 from harness.linalg.dense_budget import check_dense_budget
@@ -44,6 +46,8 @@ from harness.references import DenseBudgetError, dense_evaluate
 
 #: Score tolerance (SE units) of the compressed fall-back fit.
 COMPRESSED_SCORE_TOL_SE = 1e-2
+#: What to try when the fit on the line dies in native code.
+LINE_FIT_CRASH_ADVICE = "--fixed-params NAME=VALUE ... (no fit)"
 Progress = Callable[[str], None]
 
 
@@ -111,7 +115,8 @@ def fit_parameters(x: np.ndarray, y: np.ndarray, template: Kernel, options: Chec
                    else options.dense_fit_max_n)
     plan = plan_fit(n, template.n_params, family=template.family,
                     memory_budget=options.memory_budget,
-                    time_budget=options.fit_time_budget, dense_max_n=dense_max_n)
+                    time_budget=options.fit_time_budget, dense_max_n=dense_max_n,
+                    on_line=line_applies(x.shape[1], template))
     notes.append(f"fit plan: {plan.engine} ({plan.reason})")
     if plan.engine == "dense":
         tol_se = options.score_tol_se or DENSE_SCORE_TOL_SE
@@ -122,6 +127,18 @@ def fit_parameters(x: np.ndarray, y: np.ndarray, template: Kernel, options: Chec
                         max_iter=options.fit_max_iter, max_steps=options.fit_max_steps,
                         score_tol_se=tol_se, time_budget=options.fit_time_budget,
                         stage="the dense fit", n=n, advice=DENSE_CRASH_ADVICE)
+    elif plan.engine == "statespace":
+        tol_se = options.score_tol_se or DENSE_SCORE_TOL_SE
+        say(f"fitting by L-BFGS-B + Newton on the exact Kalman-filter likelihood at "
+            f"n = {n:,}")
+        fit = run_stage(fit_on_line, x, y, template, mean=options.mean, starts=starts,
+                        bounds=bounds, max_iter=options.fit_max_iter,
+                        max_steps=options.fit_max_steps, score_tol_se=tol_se,
+                        time_budget=options.fit_time_budget, stage="the fit on the line",
+                        n=n, advice=LINE_FIT_CRASH_ADVICE)
+        notes.append("Fisher information (SE units of the shift metrics): the observed "
+                     "information at the exact MLE, by central differences of the exact "
+                     "Kalman-filter score")
     elif plan.engine == "vecchia":
         pilot = np.sort(rng.choice(n, size=min(options.pilot_n, n), replace=False))
         say(f"fitting by Fisher scoring on the Vecchia likelihood at n = {n:,}"

@@ -286,22 +286,20 @@ def standard_errors(kernel: Kernel, fisher: np.ndarray) -> StandardErrors:
                           microergodic=micro, microergodic_se=micro_se, nu=nu)
 
 
-def _screen(points: np.ndarray, y: np.ndarray, kernel: Kernel, starts: Sequence[np.ndarray],
-            bounds: Sequence[tuple[float, float]], *, mean: str, keep: int,
-            memory_budget: int | None) -> list[np.ndarray]:
-    """The ``keep`` starts with the highest dense log-likelihood (values only)."""
+def screen_starts(value: Callable[[np.ndarray], float], starts: Sequence[np.ndarray],
+                  bounds: Sequence[tuple[float, float]], *, keep: int) -> list[np.ndarray]:
+    """The ``keep`` starts (clipped to the bounds) with the highest log-likelihood
+    ``value(theta)``; a start where it fails or is not finite ranks last."""
     lo = np.array([b[0] for b in bounds])
     hi = np.array([b[1] for b in bounds])
     scored: list[tuple[float, int]] = []
     clipped = [np.clip(np.asarray(s, dtype=float), lo, hi) for s in starts]
     for i, theta in enumerate(clipped):
         try:
-            value = dense_evaluate(points, y, kernel.with_theta(theta), mean=mean,
-                                   score=False, memory_budget=memory_budget,
-                                   certify=False).loglik
+            loglik = value(theta)
         except (np.linalg.LinAlgError, FloatingPointError, ValueError):
-            value = -math.inf
-        scored.append((value if math.isfinite(value) else -math.inf, i))
+            loglik = -math.inf
+        scored.append((loglik if math.isfinite(loglik) else -math.inf, i))
     scored.sort(reverse=True)
     return [clipped[i] for _, i in scored[:keep]]
 
@@ -317,8 +315,11 @@ def fit_dense(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
     ``time_budget`` seconds each stage stops and the fit reports no convergence."""
     deadline = time.monotonic() + time_budget if math.isfinite(time_budget) else None
     engine = DenseEngine(points, y, template, mean=mean, memory_budget=memory_budget)
-    best = _screen(points, y, template, starts, bounds, mean=mean, keep=DENSE_FIT_STARTS,
-                   memory_budget=memory_budget)
+    def dense_loglik(theta: np.ndarray) -> float:
+        return dense_evaluate(points, y, template.with_theta(theta), mean=mean, score=False,
+                              memory_budget=memory_budget, certify=False).loglik
+
+    best = screen_starts(dense_loglik, starts, bounds, keep=DENSE_FIT_STARTS)
     first = fit_mle(engine, template, starts=best, bounds=bounds, max_iter=max_iter,
                     gtol=1e-8, deadline=deadline)
     polish = fisher_scoring(engine, template, first.theta, bounds=bounds,

@@ -355,8 +355,8 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
             solver_failures += [failure] if failure else []
     loglik = (reference.values().loglik.value if isinstance(reference, HasValues)
               else reference.sides(lined.values[-1]).full.loglik)
-    if fitted.fit is not None and fitted.fit.engine == "dense":
-        loglik = fitted.fit.loglik
+    if fitted.fit is not None and fitted.fit.engine in ("dense", "statespace"):
+        loglik = fitted.fit.loglik            # exact at the estimate
     return CheckResult(
         source=source, n=data.n, n_fit=int(y.size), n_holdout=int(hold.size),
         d=int(x.shape[1]), coord_system=data.coord_system, kernel=kernel.family,

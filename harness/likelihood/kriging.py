@@ -13,6 +13,8 @@ tile by tile (``harness.model.cross_tiles``: n x 64 numbers at a time, never the
 n x m array); F' Sigma^-1 k* is (Sigma^-1 F)' k* from q more solves. The variances take
 one block of solves per tile, at most 64 right-hand sides, and may be asked for at a
 subset of the new points only (``variance_at``), since each costs a solve.
+A caller that has an exact structured product with the cross-covariance (on a line, in
+O(n + m)) passes it as ``cross_product`` and the means skip the tiles.
 
 v* is the variance of the latent field s2 R at x*. A new noisy observation there has
 variance v* + tau2 (``observation_variance``); scikit-learn's
@@ -22,6 +24,8 @@ reduction k*' Sigma^-1 k* = ||W^-1 k*||^2 is a sum of squares; otherwise k*' (Si
 """
 
 from __future__ import annotations
+
+from collections.abc import Callable
 
 import numpy as np
 
@@ -42,7 +46,9 @@ def _as_points(values: np.ndarray) -> np.ndarray:
 
 def kriging(factorization: Factorization, points: np.ndarray, y: np.ndarray, kernel: Kernel,
             new_points: np.ndarray, *, mean: str = "zero",
-            variance_at: np.ndarray | None = None) -> KrigingPrediction:
+            variance_at: np.ndarray | None = None,
+            cross_product: Callable[[np.ndarray], np.ndarray] | None = None
+            ) -> KrigingPrediction:
     """Kriging means at ``new_points`` and variances at ``variance_at`` (module docstring).
 
     Parameters
@@ -58,6 +64,10 @@ def kriging(factorization: Factorization, points: np.ndarray, y: np.ndarray, ker
     variance_at : ndarray of int, optional
         Indices into ``new_points`` where the variance is wanted (default: every new
         point). The returned ``variance`` and ``observation_variance`` follow this order.
+    cross_product : callable, optional
+        z -> k(x*, X) z at every new point, for the means; default the tiled product.
+        An exact structured product (on a line,
+        ``harness.references.line_products.LineCrossProducts``) saves the n x m fills.
     """
     fac = adapt(factorization, points, kernel)
     points, y = check_data(points, y, fac.n)
@@ -73,8 +83,11 @@ def kriging(factorization: Factorization, points: np.ndarray, y: np.ndarray, ker
     alpha = np.asarray(fac.solve(y - design @ fit.beta)).ravel()
     sinv_design = np.asarray(fac.solve(design)) if design.shape[1] else None
     mean_values = new_design @ fit.beta
-    for cols, cross in cross_covariance_tiles(kernel, points, new_points):
-        mean_values[cols] += cross.T @ alpha
+    if cross_product is not None:
+        mean_values += np.asarray(cross_product(alpha)).ravel()
+    else:
+        for cols, cross in cross_covariance_tiles(kernel, points, new_points):
+            mean_values[cols] += cross.T @ alpha
     variance = np.empty(at.size)
     sqrt_path = supports_sqrt(fac)
     for cols, cross in cross_covariance_tiles(kernel, points, new_points[at]):

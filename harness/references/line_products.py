@@ -168,3 +168,40 @@ class LineProducts:
         if name == "log_lengthscale":
             return self._product(self._ls_poly, v)
         return self._nugget * np.asarray(v, dtype=float)
+
+
+class LineCrossProducts:
+    """K(x*, X) z = sum_j s2 R(x*_i, x_j) z_j at m new points, exactly in O(n + m).
+
+    The kriging means' product with the cross-covariance: ``LineProducts`` on the union
+    of the n observed and m new points, applied to z at the observed points and zero at
+    the new ones, read at the new points. The nugget acts on the diagonal only, where the
+    new rows hold zero, so what is read is the cross-covariance without the nugget; a new
+    point at an observed coordinate gets s2 there, as k(X, x*) has it.
+
+    Parameters
+    ----------
+    points : ndarray, shape (n,) or (n, 1)
+    new_points : ndarray, shape (m,) or (m, 1)
+    kernel : Kernel
+        As for ``LineProducts`` (``LineProductError`` otherwise).
+    """
+
+    def __init__(self, points: np.ndarray, new_points: np.ndarray, kernel: Kernel) -> None:
+        x = np.asarray(points, dtype=float).reshape(np.shape(points)[0], -1)
+        x_new = np.asarray(new_points, dtype=float).reshape(np.shape(new_points)[0], -1)
+        if x.shape[1] != 1 or x_new.shape[1] != 1:
+            raise LineProductError(f"points on a line needed; got shapes {np.shape(points)} "
+                                   f"and {np.shape(new_points)}")
+        self.n, self.m = x.shape[0], x_new.shape[0]
+        self._union = LineProducts(np.concatenate([x[:, 0], x_new[:, 0]]), kernel)
+
+    def __call__(self, z: np.ndarray) -> np.ndarray:
+        """K(x*, X) z for z of shape (n,) or (n, k)."""
+        values = np.asarray(z, dtype=float)
+        if values.shape[:1] != (self.n,):
+            raise LineProductError(f"z: expected {self.n} rows, got shape {values.shape}")
+        padded = np.zeros((self.n + self.m,) + values.shape[1:])
+        padded[:self.n] = values
+        return self._union.matvec(padded)[self.n:]
+

@@ -40,7 +40,7 @@ from scipy.linalg import blas, solve_triangular
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.compressed import HodlrMatrix
 from harness.solvers.hodlr.orth import basis_factor, cholesky_lower, rcond_for
-from harness.solvers.hodlr.parallel import for_each_node, node_pool
+from harness.solvers.hodlr.parallel import NodePool, for_each_node, node_pool
 from harness.solvers.hodlr.row_blocks import cross_product, subtract_product
 
 
@@ -148,7 +148,7 @@ class SymmetricFactor:
         b = self.tree.bounds[self.tree.depth]
         return [(int(b[j]), int(b[j + 1]), c) for j, c in enumerate(self.leaf_chol)]
 
-    def _leaf_pass(self, pool: ThreadPoolExecutor | None,
+    def _leaf_pass(self, pool: NodePool | None,
                    step: Callable[[np.ndarray, np.ndarray], np.ndarray],
                    y: np.ndarray) -> None:
         def leaf(item: tuple[int, int, np.ndarray]) -> None:
@@ -156,7 +156,7 @@ class SymmetricFactor:
             y[s:e] = step(c, y[s:e])
         for_each_node(pool, leaf, self._leaves())
 
-    def _level_pass(self, pool: ThreadPoolExecutor | None, level: int,
+    def _level_pass(self, pool: NodePool | None, level: int,
                     step: Callable[..., None], y: np.ndarray) -> None:
         def node(j: int) -> None:
             f = self.nodes[level][j]
