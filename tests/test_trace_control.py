@@ -20,7 +20,7 @@ from harness.audit.shared_probes import (
 )
 from harness.infra.exit_codes import ExitCode
 from harness.likelihood import evaluate_likelihood
-from harness.likelihood.trace.control import TraceControl, combine_estimates
+from harness.likelihood.trace.control import TraceControl, combine_estimates, probe_quadratics
 from harness.linalg.rademacher import rademacher_probes
 from harness.model.kernels import make_kernel
 from harness.references import DenseCholesky
@@ -31,6 +31,7 @@ from harness.references.line_products import (
     matern_polynomial,
 )
 from harness.solvers.fallback import adapt
+from harness.solvers.registry import resolve_solver
 from tests.test_statespace_kriging import FIXED, _line_file, _plane_file, _run
 
 NU = {"exponential": 0.5, "matern32": 1.5, "matern52": 2.5}
@@ -171,3 +172,36 @@ def test_check_shares_the_reference_probes_and_resolves_the_shift(tmp_path, caps
     assert row["status"] == "safe"
     assert row["param_shift_se"]["uncertainty"] < 0.01
     assert note in row["param_shift_se"]["note"]
+
+
+def test_probe_quadratics_take_the_declared_affine_form_and_match_the_dense_values():
+    # Source: the definition z' Sigma^-1 Sigma_i z with numpy's dense Sigma and the
+    # kernel's derivative blocks (Sigma_s2 = Sigma - tau2 I, Sigma_tau2 = tau2 I, the
+    # length scale's from scikit-learn's Matern eval_gradient); the HODLR factor at tol
+    # 1e-12 declares the affine forms, a plain adapter does not.
+    rng = np.random.default_rng(5)
+    x = np.sort(rng.uniform(0.0, 6.0, 300))[:, None]
+    kernel = make_kernel("matern32", {"variance": 1.4, "lengthscale": 0.7, "nugget": 0.05})
+    z = rademacher_probes(300, 6, np.random.default_rng(1))
+    skl = sk.ConstantKernel(1.4) * sk.Matern(length_scale=0.7, nu=1.5)
+    cov, grad = skl(x, eval_gradient=True)
+    sigma = cov + 0.05 * np.eye(300)
+    blocks = [cov, grad[:, :, 1], 0.05 * np.eye(300)]
+    expected = np.array([np.einsum("nk,nk->k", z, np.linalg.solve(sigma, b @ z))
+                         for b in blocks])
+    hodlr = resolve_solver("hodlr").factorize(x, kernel, kernel.theta, tol=1e-12, rng=0)
+    calls: list[int] = []
+    adapted = adapt(hodlr, x, kernel)
+    original = adapted.derivative_matvec
+
+    def counting(i, v):
+        calls.append(i)
+        return original(i, v)
+
+    adapted.derivative_matvec = counting  # type: ignore[method-assign]
+    got = probe_quadratics(adapted, 3, z, block=4)
+    np.testing.assert_allclose(got, expected, rtol=1e-8, atol=1e-8)
+    assert set(calls) <= {0, 1, 2} and calls.count(1) >= 2     # the length scale, per block
+    assert calls.count(0) <= 1 and calls.count(2) <= 1         # only the declaration check
+    dense = probe_quadratics(adapt(DenseCholesky(x, kernel), x, kernel), 3, z)
+    np.testing.assert_allclose(dense, expected, rtol=1e-9, atol=1e-9)

@@ -38,6 +38,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from harness.likelihood.trace.affine import declared_reduction
+
 #: Probe columns per block of right-hand sides in ``probe_quadratics`` (memory: a few
 #: n x block arrays at a time).
 PROBE_BLOCK = 16
@@ -78,18 +80,35 @@ def probe_quadratics(factorization: object, count: int, probes: np.ndarray, *,
     """z_j' Sigma^-1 Sigma_i z_j for each parameter i < ``count`` and probe column j.
 
     ``factorization`` offers ``solve`` and ``derivative_matvec(i, B)`` (a solver adapted
-    by ``harness.solvers.fallback`` always does). Columns are taken ``block`` at a time,
-    so memory stays O(n x block). Returns shape (count, k).
+    by ``harness.solvers.fallback`` always does). Where it declares Sigma_i = a_i Sigma +
+    b_i I (``derivative_affine``, checked by ``affine.declared_reduction``), the value is
+    a_i z'z + b_i z' Sigma^-1 z from one shared solve, the same reduction the solver's own
+    likelihood path takes (``harness.likelihood.trace.affine``); a declaration that fails
+    its check is ignored and every parameter takes its own product. Columns are taken
+    ``block`` at a time, so memory stays O(n x block). Returns shape (count, k).
     """
     z = np.asarray(probes, dtype=float)
     out = np.empty((count, z.shape[1]))
     solve = getattr(factorization, "solve")  # noqa: B009
     derivative = getattr(factorization, "derivative_matvec")  # noqa: B009
+    try:
+        reduction = declared_reduction(factorization, count)  # type: ignore[arg-type]
+    except ValueError:
+        reduction = None
+    forms = reduction.forms if reduction is not None else (None,) * count
     for c0 in range(0, z.shape[1], block):
         cols = z[:, c0:c0 + block]
+        base = None          # z' Sigma^-1 z of this block, once
         for i in range(count):
-            products = np.asarray(solve(np.asarray(derivative(i, cols), dtype=float)))
-            out[i, c0:c0 + block] = np.einsum("nk,nk->k", cols, products)
+            form = forms[i]
+            if form is None:
+                products = np.asarray(solve(np.asarray(derivative(i, cols), dtype=float)))
+                out[i, c0:c0 + block] = np.einsum("nk,nk->k", cols, products)
+                continue
+            if base is None:
+                base = np.einsum("nk,nk->k", cols, np.asarray(solve(cols), dtype=float))
+            out[i, c0:c0 + block] = (form.sigma * np.einsum("nk,nk->k", cols, cols)
+                                     + form.identity * base)
     return out
 
 
