@@ -25,7 +25,9 @@ Stated uncertainty. ``loglik_se`` and ``loglik_bound`` hold every
 term, listed with its kind and source in ``uncertainty`` (and so in the reference's
 ``reference_detail`` / ``reference_by_metric`` entries):
 
-    probes              estimate  sample SD of the probe values / sqrt(N), halved
+    probes              estimate  sample SD of the probe values / sqrt(N), halved, times
+                                  the t factor of N - 1 degrees of freedom
+                                  (``harness.linalg.probe_intervals``)
     lanczos             bound     1/2 mean of the Gauss/Gauss-Radau brackets (``lanczos``;
                                   Golub and Meurant 2010, ch. 6), given the Radau node
     cg                  bound     1/2 ||r||^2 / lambda_min (``pcg``; rigorous with a nugget)
@@ -39,7 +41,9 @@ term, listed with its kind and source in ``uncertainty`` (and so in the referenc
 The estimates are independent, so their variances add: loglik_se = sqrt(sum se^2); the
 bounds add linearly: loglik_bound = sum b. The verdict rule uses |e| <= 2 se + b, which
 is conservative for the bounds (each is taken whole, at its worst sign). The score's
-``score_se`` is the probes' SE (1/2 ``trace_se``) and ``score_bound`` the CG bound of
+``score_se`` is the probes' SE (1/2 ``trace_se``: the preconditioner's probed traces
+and the probed difference, their SEs combined with Welch-Satterthwaite degrees of freedom
+and stated with the t factor of ``probe_intervals``) and ``score_bound`` the CG bound of
 its quadratic term (|a'S_i a - a*'S_i a*| <= 2 ||S_i a|| d + ||S_i a|| d^2 / ||a||,
 d = ||r|| / lambda_min) plus the probes' CG bounds (``score_traces``) plus the dots'
 rounding; the rounding of its per-probe values is in the probes' sample variance.
@@ -57,6 +61,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from harness.linalg.probe_intervals import satterthwaite_dof, t_inflation
 from harness.linalg.rademacher import rademacher_probes
 from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
@@ -417,7 +422,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             probes += count
             values = np.concatenate(logdet_samples)
             if values.size > 1:
-                se_l = 0.5 * float(values.std(ddof=1)) / math.sqrt(values.size)
+                se_l = (0.5 * float(values.std(ddof=1)) / math.sqrt(values.size)
+                        * float(t_inflation(values.size - 1)))
             if probes >= min_probes and se_l <= se_target:
                 break
         phases["probes"] = time.perf_counter() - t0
@@ -433,8 +439,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                        operator=op, bound_kind=bound_kind)
     values = np.concatenate(logdet_samples)
     logdet = pre_logdet + float(values.mean())
-    logdet_se = float(values.std(ddof=1)) / math.sqrt(values.size) if values.size > 1 \
-        else float("inf")
+    logdet_se = (float(values.std(ddof=1)) / math.sqrt(values.size)
+                 * float(t_inflation(values.size - 1)) if values.size > 1 else float("inf"))
     converged = gls.converged and lanczos_ok
     if not lanczos_ok:
         messages.append(f"Lanczos did not converge within lanczos_steps = {lanczos_steps} "
@@ -474,7 +480,9 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             else np.full(model.n_params, np.inf)
         ml_traces = pre.estimate + diff.mean(axis=1)
         trace_terms = ml_traces if reml_terms is None else ml_traces - reml_terms
-        trace_se = np.sqrt(pre.se ** 2 + diff_se ** 2)
+        dof = satterthwaite_dof([pre.se ** 2, diff_se ** 2],
+                                [max(pre.probes - 1, 1), max(diff.shape[1] - 1, 1)])
+        trace_se = np.sqrt(pre.se ** 2 + diff_se ** 2) * t_inflation(dof)
         score_vec = 0.5 * quad_terms - 0.5 * trace_terms
         score_se = 0.5 * trace_se
         d_a = (math.sqrt(float(gls.residual @ gls.residual)) / lam_bound
