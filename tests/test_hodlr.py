@@ -641,3 +641,23 @@ def test_level_nodes_run_in_even_contiguous_runs_each_node_once():
         assert pool is not None and pool.threads == 2
         for_each_node(pool, seen.append, list(range(50)))
     assert sorted(seen) == list(range(50))
+
+
+def test_thin_factorizations_run_their_products_on_one_thread():
+    # Source: the rule of harness.solvers.hodlr.solver.serial_if_thin; the result does not
+    # depend on the thread count (parallel module docstring), so both give the same bits.
+    from harness.solvers.hodlr.solver import SERIAL_MAX_RANK
+
+    rng = np.random.default_rng(2)
+    kernel = Matern32(variance=1.0, lengthscale=0.5, nugget=0.01)
+    line = np.sort(rng.uniform(0.0, 40.0, 3000))[:, None]
+    thin = factorize(line, kernel, tol=1e-6, rng=0, threads=2)
+    assert max(level.max for level in thin.ranks) <= SERIAL_MAX_RANK
+    assert thin._threads == 1
+    one = factorize(line, kernel, tol=1e-6, rng=0, threads=1)
+    b = rng.standard_normal((3000, 5))
+    assert np.array_equal(thin.solve(b), one.solve(b)) and thin.logdet() == one.logdet()
+    plane = rng.random((3000, 2))
+    wide = factorize(plane, Matern32(variance=1.0, lengthscale=0.3, nugget=0.01),
+                     tol=1e-8, rng=0, threads=2)
+    assert max(level.max for level in wide.ranks) > SERIAL_MAX_RANK and wide._threads == 2
