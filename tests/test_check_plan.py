@@ -17,7 +17,7 @@ import pytest
 from harness.audit.audit_references import metric_kinds
 from harness.audit.dense_sides import dense_sides
 from harness.check import CheckOptions
-from harness.check.cost_plan import budget_refusal, plan_check
+from harness.check.cost_plan import LINE_FIT_PASSES, budget_refusal, plan_check
 from harness.check.plan_calibration import CALIBRATION_SIZES, rate_solver
 from harness.cli import check_command as check_cli
 from harness.infra.exit_codes import ExitCode
@@ -314,3 +314,20 @@ def test_beyond_the_machine_an_option_with_a_budget_is_advised(monkeypatch):
     assert suggestion.count("--memory-budget") == 1
     budget_gib = float(suggestion[suggestion.index("--memory-budget") + 1])
     assert budget_gib * 2**30 <= cost_plan.total_memory()
+
+
+def test_the_line_fit_is_priced_from_a_timed_filter_pass():
+    # The exact fit on a line (harness.check.line_fit) is priced from one timed Kalman
+    # pass per point (plan_calibration.line_pass_rate); a plane plan times none.
+    rng = np.random.default_rng(6)
+    x = np.sort(rng.uniform(0.0, 50.0, 5000))[:, None]
+    y = np.sin(x[:, 0]) + 0.1 * rng.standard_normal(5000)
+    options = CheckOptions(kernel="matern32", tolerances=(1e-4,), refit=False)
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    rate = plan.calibration.line_pass_seconds_per_point
+    assert plan.fit.engine == "statespace" and rate is not None and rate > 0
+    (fit,) = [s for s in plan.stages if s.stage == "fit"]
+    assert fit.seconds == pytest.approx(LINE_FIT_PASSES * 5000 * rate)
+    plane = plan_check(*_points(), CheckOptions(tolerances=(1e-4,), refit=False),
+                       rng=np.random.default_rng(0))
+    assert plane.calibration.line_pass_seconds_per_point is None

@@ -121,11 +121,9 @@ REPORT_UNITS = 0.43
 STATESPACE_SECONDS_PER_POINT = 1e-4
 #: Kalman-filter passes with the score of the exact fit on a line: about 45 L-BFGS-B
 #: evaluations and a Newton polish of 1 + 2p passes per evaluation (56 evaluations on
-#: 100,000 points, a development measurement; ``harness.check.line_fit``).
+#: 100,000 points, a development measurement; ``harness.check.line_fit``), each timed
+#: by the calibration (``plan_calibration.line_pass_rate``).
 LINE_FIT_PASSES = 60
-#: One such pass in units per point: 0.24 s at 100,000 points against a unit of about
-#: 2.5 s (development measurement, 2 cores).
-LINE_PASS_UNITS_PER_POINT = 1e-6
 #: Columns of the exact KL divergence's blocks (``harness.audit.metrics.kl_divergence``).
 KL_BLOCK = 256
 #: Right-hand sides of one kriging block (``harness.model.cross_tiles.TILE_COLUMNS``).
@@ -287,7 +285,10 @@ def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calib
                          f"the score and {DENSE_FIT_FISHER_EVALUATIONS} with the Fisher "
                          f"information, at most --fit-time-budget {budget:g} s")
     if fit.engine == "statespace":
-        seconds = LINE_FIT_PASSES * s.n * LINE_PASS_UNITS_PER_POINT * cal.unit_seconds
+        rate = cal.line_pass_seconds_per_point
+        if rate is None:
+            return StagePlan("fit", None, 8 * s.n * 32, "exact fit on the line: not timed")
+        seconds = LINE_FIT_PASSES * s.n * rate
         return StagePlan("fit", min(seconds, budget), 8 * s.n * 32,
                          f"exact fit on the line (Kalman filter), about {LINE_FIT_PASSES} "
                          f"O(n) passes with the score, at most --fit-time-budget {budget:g} s")
@@ -438,8 +439,10 @@ def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, line
     kernel = _kernel(points, y, options)
     solvers = {lined.given: (lined.solver, lined.values[-1], dict(lined.options))
                for lined in lineup.solvers if lined.solver.origin == "builtin"}
+    line = options.fixed_params is None and line_applies(int(points.shape[1]), kernel)
     return calibrate(points, kernel, solvers=solvers,
-                     preconditioner=_preconditioner(options) if operator else None, rng=rng)
+                     preconditioner=_preconditioner(options) if operator else None, rng=rng,
+                     line_mean=options.mean if line else None)
 
 
 def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.ndarray,

@@ -26,6 +26,8 @@ each a fraction of a second:
   the growth from the smaller to the larger size gives the exponent of a power law in n
   (``SolverRate.seconds_at``, ``nbytes_at``). A plugin is never called here: it runs
   only in child processes (``harness.check.plugin_guard``), so its cost is not predicted;
+- the Kalman filter, when the fit is the exact one on a line: one filter pass with the
+  score at ``LINE_PASS_N`` of the points (seconds per point; the fit makes a few dozen);
 - the exact operator reference, when the plan takes it: one exact block product
   (``harness.references.operator.measure_product_rate``) and its preconditioner as a
   ``SolverRate``.
@@ -56,6 +58,8 @@ PROBE_REPEATS = 3
 CALIBRATION_SIZES: tuple[int, int] = (512, 2048)
 #: Right-hand sides of the timed solve.
 SOLVE_COLUMNS = 64
+#: Points of the timed Kalman-filter pass (``line_pass_rate``).
+LINE_PASS_N = 4096
 #: Bounds of a fitted growth exponent: time from n to n^3, memory from n to n^2 (the
 #: dense cases; a compressed solver lies between).
 TIME_EXPONENT_RANGE: tuple[float, float] = (1.0, 3.0)
@@ -130,6 +134,9 @@ class Calibration:
         ``"preconditioner"`` for the operator reference's.
     product_columns_per_second : float or None
         Exact-product columns of n^2 entries per second (the operator reference only).
+    line_pass_seconds_per_point : float or None
+        Seconds per point of one Kalman-filter pass with the score (the exact fit on a
+        line only).
     seconds : float
         Wall seconds the calibration took.
     runtime_bytes : int
@@ -143,6 +150,7 @@ class Calibration:
     assembly_entries_per_second: float
     solvers: Mapping[str, SolverRate] = field(default_factory=dict)
     product_columns_per_second: float | None = None
+    line_pass_seconds_per_point: float | None = None
     seconds: float = 0.0
     runtime_bytes: int = 0
 
@@ -159,6 +167,7 @@ class Calibration:
                 "assembly_entries_per_second": self.assembly_entries_per_second,
                 "solvers": {k: v.to_dict() for k, v in self.solvers.items()},
                 "product_columns_per_second": self.product_columns_per_second,
+                "line_pass_seconds_per_point": self.line_pass_seconds_per_point,
                 "seconds": self.seconds, "runtime_bytes": self.runtime_bytes}
 
 
@@ -212,10 +221,29 @@ def product_rate(kernel: Kernel, d: int, *, rng: np.random.Generator) -> float:
     return measure_product_rate(kernel, dimension=d, n=PROBE_N, k=8, rng=rng).column_rate
 
 
+def line_pass_rate(points: np.ndarray, kernel: Kernel, *, mean: str,
+                   rng: np.random.Generator) -> float:
+    """Seconds per point of one Kalman-filter pass with the analytic score
+    (``harness.references.statespace``) on ``LINE_PASS_N`` of the points (at most n), on
+    standard normal values (the cost does not depend on them); the second of two runs,
+    so that loading the compiled kernels is not counted."""
+    from harness.references.statespace import StateSpaceReference
+
+    n = int(points.shape[0])
+    m = min(n, LINE_PASS_N)
+    subset = np.sort(rng.choice(n, size=m, replace=False))
+    y = rng.standard_normal(m)
+    reference = StateSpaceReference(points[subset], kernel)
+    reference.evaluate(y, mean=mean, score=True)
+    start = time.perf_counter()
+    reference.with_kernel(kernel).evaluate(y, mean=mean, score=True)
+    return (time.perf_counter() - start) / m
+
+
 def calibrate(points: np.ndarray, kernel: Kernel, *,
               solvers: Mapping[str, tuple[ResolvedSolver, float | None, Mapping[str, Any]]],
               preconditioner: tuple[ResolvedSolver, float, Mapping[str, Any]] | None,
-              rng: np.random.Generator) -> Calibration:
+              rng: np.random.Generator, line_mean: str | None = None) -> Calibration:
     """The plan's rates (module docstring).
 
     Parameters
@@ -230,6 +258,9 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
         The operator reference's preconditioner (solver, knob value, options), or None
         when the plan takes no operator reference.
     rng : numpy Generator
+    line_mean : str or None
+        The mean model when the fit is the exact one on a line (``line_pass_rate``);
+        None: no line pass is timed.
     """
     runtime = int(psutil.Process().memory_info().rss)
     start = time.perf_counter()
@@ -246,8 +277,11 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
         rates["preconditioner"] = rate_solver(solver, value, points, kernel,
                                               options=options, rng=rng)
         columns = product_rate(kernel, d, rng=rng)
+    line_rate = (None if line_mean is None
+                 else line_pass_rate(points, kernel, mean=line_mean, rng=rng))
     return Calibration(unit_seconds=probe_seconds * (UNIT_N / PROBE_N) ** 3,
                        probe_n=PROBE_N, probe_seconds=probe_seconds,
                        assembly_entries_per_second=assembly, solvers=rates,
                        product_columns_per_second=columns,
+                       line_pass_seconds_per_point=line_rate,
                        seconds=time.perf_counter() - start, runtime_bytes=runtime)
