@@ -122,7 +122,8 @@ class MleFit:
     score : ndarray
         Score at the estimate (near zero at an interior maximum).
     engine : str
-        ``dense``, ``vecchia`` or ``hodlr`` (with its tolerance in ``notes``).
+        ``dense``, ``vecchia``, ``statespace`` or ``hodlr`` (with its tolerance in
+        ``notes``).
     method : str
         ``L-BFGS-B``, ``Fisher scoring`` or a combination.
     starts : tuple of StartResult
@@ -133,7 +134,8 @@ class MleFit:
     seconds : float
     notes : tuple of str
     fisher : ndarray or None
-        Fisher information at the estimate when the method computed it.
+        Fisher information at the estimate when the method computed it (for
+        ``statespace`` the observed information).
     converged : bool
         The stopping rule was met (Fisher scoring: ``step_se <= score_tol_se`` or the
         Newton decrement below its threshold; L-BFGS-B: scipy's success flag; the
