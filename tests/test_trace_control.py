@@ -81,7 +81,7 @@ def _dense_operators(x, kernel):
 
 def test_the_control_is_the_exact_operator_on_its_probes():
     # Source: scipy's dense Cholesky: tr(Sigma^-1 Sigma_i) and z' Sigma^-1 Sigma_i z,
-    # within the control's stated CG bound (plus rounding).
+    # within the control's stated rounding bound (plus the filter's own rounding).
     rng = np.random.default_rng(8)
     x = rng.uniform(0.0, 20.0, 500)
     kernel = make_kernel("matern32", {"variance": 1.3, "lengthscale": 0.7, "nugget": 0.02})
@@ -96,11 +96,18 @@ def test_the_control_is_the_exact_operator_on_its_probes():
     assert "shared-probe control" in note and "8 probes" in note
 
 
-def test_no_control_without_a_nugget_or_probes():
+def test_no_nugget_control_on_distinct_points_and_none_without_probes_or_when_singular():
+    # Source: scipy's dense Cholesky, as above, for a kernel without a nugget.
     x = np.linspace(0.0, 10.0, 50)
-    control, note = line_trace_control(x, make_kernel("matern32", {"lengthscale": 1.0}),
-                                       np.ones((50, 4)))
-    assert control is None and "nugget" in note
+    kernel = make_kernel("matern32", {"lengthscale": 1.0})
+    z = rademacher_probes(50, 4, np.random.default_rng(2))
+    control, note = line_trace_control(x, kernel, z)
+    assert control is not None, note
+    for i, s in enumerate(_dense_operators(x, kernel)):
+        np.testing.assert_allclose(control.per_probe[i], np.einsum("nk,nk->k", z, s @ z),
+                                   rtol=1e-8, atol=1e-8)
+    control, note = line_trace_control(np.r_[x, x[:3]], kernel, np.ones((53, 4)))
+    assert control is None and "singular" in note
     kernel = make_kernel("matern32", {"lengthscale": 1.0, "nugget": 0.1})
     control, note = line_trace_control(x, kernel, np.ones((50, 1)))
     assert control is None and "fewer than 2" in note
