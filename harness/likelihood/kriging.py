@@ -80,8 +80,10 @@ def kriging(factorization: Factorization, points: np.ndarray, y: np.ndarray, ker
     design = design_matrix(points, mean)
     new_design = design_matrix(new_points, mean)
     fit, how = fit_mean(fac, y, design, fac.logdet())
-    alpha = np.asarray(fac.solve(y - design @ fit.beta)).ravel()
-    sinv_design = np.asarray(fac.solve(design)) if design.shape[1] else None
+    # alpha and Sigma^-1 F from one solve with q + 1 right-hand sides
+    solved = np.asarray(fac.solve(np.column_stack([y - design @ fit.beta, design])))
+    alpha = solved[:, 0].copy()
+    sinv_design = solved[:, 1:] if design.shape[1] else None
     mean_values = new_design @ fit.beta
     if cross_product is not None:
         mean_values += np.asarray(cross_product(alpha)).ravel()
