@@ -238,6 +238,7 @@ class _Sizes:
     m: int
     v: int
     mean_columns: int
+    line: bool = False          # 1D points, a half-integer Matern kernel
 
     @property
     def t(self) -> int:
@@ -371,9 +372,11 @@ def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptio
     paired = kind in ("dense", "ladder")
     k = s.k if paired else max(VALUE_PROBES, s.k)
     columns = s.p * (2 * k + 1) + 1 + 2 * s.v
+    # the means' cross-covariance tiles; on a line one exact O(n) product instead
+    # (harness.references.line_products.LineCrossProducts)
+    cross = 0.0 if s.line else s.m * s.t / cal.assembly_entries_per_second
     seconds = (rate.seconds_at(s.n) + rate.seconds_at(s.t)
-               + rate.solve_seconds_at(s.n, columns)
-               + s.m * s.t / cal.assembly_entries_per_second)
+               + rate.solve_seconds_at(s.n, columns) + cross)
     full = rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, k)
     if kind == "dense":
         seconds += (s.n * s.n / cal.assembly_entries_per_second
@@ -506,7 +509,8 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     n, d = int(points.shape[0]), int(points.shape[1])
     lineup = line_up(options, n) if lineup is None else lineup
     template = model_template(options, d)
-    sizes = _sizes(points, options, template.n_params)
+    sizes = replace(_sizes(points, options, template.n_params),
+                    line=line_applies(d, template))
     kind, ref_warnings = reference_kind(options, points, template)
     if calibration is None:
         calibration = calibrate_for(points, y, options, lineup, operator=kind == "operator",
