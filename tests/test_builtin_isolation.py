@@ -161,3 +161,26 @@ def test_the_kernel_preload_leaves_forked_children_able_to_run_parallel_kernels(
     started, child_status, skipped = json.loads(proc.stdout.strip().splitlines()[-1])
     assert started is False and skipped > 0
     assert child_status == 0, proc.stderr
+
+
+_AUDIT_PRELOAD = """
+import json
+import numba.np.ufunc.parallel as parallel
+from harness.audit.line_kernel_preload import LOADED
+print(json.dumps([LOADED.loaded, list(LOADED.failed), parallel._is_initialized]))
+"""
+
+
+def test_the_audit_preload_loads_the_line_products_without_threads() -> None:
+    # harness.audit.line_kernel_preload: with the line products compiled once (the cache
+    # warm), a fresh process's import loads them, fails on nothing and starts no threads.
+    from harness.model.kernels import make_kernel
+    from harness.references.line_products import LineProducts
+
+    kernel = make_kernel("matern32", {"lengthscale": 1.0, "nugget": 0.1})
+    LineProducts(np.arange(20.0), kernel).matvec(np.ones((20, 2)))
+    proc = subprocess.run([sys.executable, "-c", _AUDIT_PRELOAD], capture_output=True,
+                          text=True, timeout=600, check=False)
+    assert proc.returncode == 0, proc.stderr
+    loaded, failed, started = json.loads(proc.stdout.strip().splitlines()[-1])
+    assert loaded >= 1 and failed == [] and started is False

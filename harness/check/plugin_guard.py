@@ -62,6 +62,8 @@ ESTIMATE_PARAMS = 3
 CHILD_MODULES = ("harness.check.pipeline",)
 #: The module whose import loads the built-in solvers' compiled kernels.
 WARM_MODULE = "harness.solvers.compiled_preload"
+#: The module whose import loads the audit's own compiled kernels (on a line).
+AUDIT_WARM_MODULE = "harness.audit.line_kernel_preload"
 
 
 def builtins_in_process() -> bool:
@@ -116,7 +118,8 @@ def prepare_solver_children(solvers: Iterable[ResolvedSolver]) -> bool:
     False where it had started already (``harness.infra.child_process.prepare_server``).
     A plugin's own module is never imported there: the server must not run its code."""
     builtin = any(s.origin == "builtin" for s in solvers) and not builtins_in_process()
-    return prepare_server(CHILD_MODULES + ((WARM_MODULE,) if builtin else ()))
+    return prepare_server(CHILD_MODULES + ((WARM_MODULE,) if builtin else ())
+                          + (AUDIT_WARM_MODULE,))
 
 
 def trial_kernel(kernel: str, shape: Mapping[str, float], fixed: Mapping[str, Any] | None,
