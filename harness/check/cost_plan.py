@@ -509,8 +509,8 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     n, d = int(points.shape[0]), int(points.shape[1])
     lineup = line_up(options, n) if lineup is None else lineup
     template = model_template(options, d)
-    sizes = replace(_sizes(points, options, template.n_params),
-                    line=line_applies(d, template))
+    on_line = line_applies(d, template)
+    sizes = replace(_sizes(points, options, template.n_params), line=on_line)
     kind, ref_warnings = reference_kind(options, points, template)
     if calibration is None:
         calibration = calibrate_for(points, y, options, lineup, operator=kind == "operator",
@@ -528,7 +528,7 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
                        time_budget=options.fit_time_budget,
                        dense_max_n=(DENSE_FIT_MAX_N if options.dense_fit_max_n is None
                                     else options.dense_fit_max_n),
-                       on_line=line_applies(d, template))
+                       on_line=on_line)
     tight = next((r for r in rates.values() if r is not None), None)
     stages = [_fit_stage(sizes, options, fit, calibration, tight),
               _reference_stage(sizes, kind, options, calibration, first,

@@ -10,7 +10,8 @@ cross-covariances s2 R(x*, X) without the nugget (distinct observations).
 
 Cost. The means take ONE solve, alpha, plus products with the cross-covariance built
 tile by tile (``harness.model.cross_tiles``: n x 64 numbers at a time, never the whole
-n x m array); F' Sigma^-1 k* is (Sigma^-1 F)' k* from q more solves. The variances take
+n x m array); F' Sigma^-1 k* is (Sigma^-1 F)' k*, Sigma^-1 F from the same solve as
+alpha (q + 1 right-hand sides). The variances take
 one block of solves per tile, at most 64 right-hand sides, and may be asked for at a
 subset of the new points only (``variance_at``), since each costs a solve.
 A caller that has an exact structured product with the cross-covariance (on a line, in
