@@ -17,7 +17,7 @@ from harness.model.kernels import Exponential, Gaussian, Kernel, Matern, Matern3
 from harness.solvers.hodlr import CompressionBreakdownError, HodlrFactorization, factorize
 from harness.solvers.hodlr.aca import ACA_BLOCK, aca_compiled, recompress
 from harness.solvers.hodlr.orth import thin_qr
-from harness.solvers.hodlr.parallel import contiguous_runs, for_each_node, node_pool
+from harness.solvers.hodlr.parallel import for_each_node, node_pool
 from harness.solvers.protocol import SymmetricFactorization
 
 TOLS = (1e-4, 1e-6, 1e-8, 1e-10)
@@ -629,18 +629,27 @@ def test_after_the_split_compilation_the_kernel_compiles_no_callee(tmp_path):
     assert compiled == ["harness.solvers.hodlr.aca.aca_compiled"], compiled
 
 
-def test_level_nodes_run_in_even_contiguous_runs_each_node_once():
-    # One task per thread, each a run of consecutive nodes (parallel module docstring).
-    for count, parts in [(1, 2), (2, 2), (7, 2), (781, 2), (5, 8)]:
-        runs = contiguous_runs(count, parts)
-        assert [k for run in runs for k in run] == list(range(count))
-        assert len(runs) == min(count, parts)
-        assert max(map(len, runs)) - min(map(len, runs)) <= 1
-    seen: list[int] = []
-    with node_pool(2) as pool:
-        assert pool is not None and pool.threads == 2
-        for_each_node(pool, seen.append, list(range(50)))
-    assert sorted(seen) == list(range(50))
+def test_level_nodes_run_in_contiguous_runs_each_node_once():
+    # One task per thread, each a run of consecutive nodes (parallel module docstring):
+    # every node once, and what each thread did is one or more whole runs, in order.
+    import threading
+
+    for count in (2, 7, 781):
+        seen: list[tuple[int, int]] = []
+
+        def record(k: int, seen: list[tuple[int, int]] = seen) -> None:
+            seen.append((threading.get_ident(), k))
+
+        with node_pool(2) as pool:
+            assert pool is not None and pool.threads == 2
+            for_each_node(pool, record, list(range(count)))
+        assert sorted(k for _, k in seen) == list(range(count))
+        by_thread: dict[int, list[int]] = {}
+        for ident, k in seen:
+            by_thread.setdefault(ident, []).append(k)
+        assert 1 <= len(by_thread) <= 2
+        for done in by_thread.values():
+            assert done == sorted(done)
 
 
 def test_thin_factorizations_run_their_products_on_one_thread():

@@ -176,8 +176,6 @@ def line_cross_product(points: np.ndarray, new_points: np.ndarray, kernel: Kerne
                        ) -> LineCrossProducts | None:
     """The exact O(n + m) product with the cross-covariance for 1D points and a
     half-integer Matern kernel (``LineCrossProducts``), else None (the tiled product)."""
-    if np.ndim(points) != 2 or np.shape(points)[1] != 1:
-        return None
     try:
         return LineCrossProducts(points, new_points, kernel)
     except LineProductError:

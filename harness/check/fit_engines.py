@@ -193,14 +193,16 @@ class StateSpaceEngine:
         definite (``positive_definite``)."""
         return np.asarray(theta, dtype=float).tobytes() in self._modified
 
+    def _at(self, theta: np.ndarray) -> StateSpaceReference:
+        """The filter at ``theta`` (the points' sorting reused)."""
+        return self.reference.with_kernel(self.kernel.with_theta(theta))
+
     def loglik(self, theta: np.ndarray) -> float:
         """L(theta) only (one filter pass)."""
-        return self.reference.with_kernel(self.kernel.with_theta(theta)).loglik(
-            self.y, mean=self.mean)
+        return self._at(theta).loglik(self.y, mean=self.mean)
 
     def _score(self, theta: np.ndarray) -> tuple[float, np.ndarray]:
-        ev = self.reference.with_kernel(self.kernel.with_theta(theta)).evaluate(
-            self.y, mean=self.mean, score=True)
+        ev = self._at(theta).evaluate(self.y, mean=self.mean, score=True)
         return ev.loglik, np.asarray(ev.score, dtype=float)
 
     def observed_information(self, theta: np.ndarray) -> np.ndarray:

@@ -304,22 +304,20 @@ def screen_starts(value: Callable[[np.ndarray], float], starts: Sequence[np.ndar
     return [clipped[i] for _, i in scored[:keep]]
 
 
-def fit_dense(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
-              starts: Sequence[np.ndarray], bounds: Sequence[tuple[float, float]],
-              memory_budget: int | None = None, max_iter: int = 200, max_steps: int = 20,
-              score_tol_se: float = DENSE_SCORE_TOL_SE,
-              time_budget: float = math.inf) -> MleFit:
-    """The dense exact MLE of all points: starts screened by their log-likelihood,
-    L-BFGS-B (``fit_mle``) from the best ``DENSE_FIT_STARTS``, polished by Fisher scoring
-    with the exact score and Fisher information to ``score_tol_se`` SE. Past
-    ``time_budget`` seconds each stage stops and the fit reports no convergence."""
+def screened_fit(engine: Engine, value: Callable[[np.ndarray], float], template: Kernel, *,
+                 starts: Sequence[np.ndarray], bounds: Sequence[tuple[float, float]],
+                 max_iter: int, max_steps: int, score_tol_se: float, time_budget: float,
+                 method: str, what: str) -> MleFit:
+    """An exact fit through ``engine``: the starts screened by ``value`` (the
+    log-likelihood alone, ``screen_starts``), L-BFGS-B (``fit_mle``) from the best
+    ``DENSE_FIT_STARTS`` with the engine's score, polished by the Fisher-scoring iteration
+    (``fisher_scoring``) with the engine's metric to ``score_tol_se`` SE. Past
+    ``time_budget`` seconds each stage stops and the fit reports no convergence.
+    ``method`` labels the result, ``what`` names the fit in the note of a polish that did
+    not converge; the engine's ``name`` is the result's engine."""
+    t0 = time.perf_counter()
     deadline = time.monotonic() + time_budget if math.isfinite(time_budget) else None
-    engine = DenseEngine(points, y, template, mean=mean, memory_budget=memory_budget)
-    def dense_loglik(theta: np.ndarray) -> float:
-        return dense_evaluate(points, y, template.with_theta(theta), mean=mean, score=False,
-                              memory_budget=memory_budget, certify=False).loglik
-
-    best = screen_starts(dense_loglik, starts, bounds, keep=DENSE_FIT_STARTS)
+    best = screen_starts(value, starts, bounds, keep=DENSE_FIT_STARTS)
     first = fit_mle(engine, template, starts=best, bounds=bounds, max_iter=max_iter,
                     gtol=1e-8, deadline=deadline)
     polish = fisher_scoring(engine, template, first.theta, bounds=bounds,
@@ -328,11 +326,31 @@ def fit_dense(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
     final = polish if polish.loglik >= first.loglik - 1e-8 else first
     notes = [*first.notes, *polish.notes]
     if not polish.converged:
-        notes.append("dense fit not converged: " + polish.starts[0].message)
-    return replace(final, method="L-BFGS-B + Fisher scoring", engine="dense",
+        notes.append(f"{what} not converged: " + polish.starts[0].message)
+    return replace(final, method=method, engine=getattr(engine, "name", "custom"),
                    starts=(*first.starts, *polish.starts),
                    evaluations=first.evaluations + polish.evaluations + len(starts),
-                   seconds=first.seconds + polish.seconds, notes=tuple(notes),
+                   seconds=time.perf_counter() - t0, notes=tuple(notes),
                    fisher=polish.fisher, converged=polish.converged,
                    step_se=polish.step_se, score_tol_se=polish.score_tol_se,
                    accepted_steps=polish.accepted_steps)
+
+
+def fit_dense(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: str,
+              starts: Sequence[np.ndarray], bounds: Sequence[tuple[float, float]],
+              memory_budget: int | None = None, max_iter: int = 200, max_steps: int = 20,
+              score_tol_se: float = DENSE_SCORE_TOL_SE,
+              time_budget: float = math.inf) -> MleFit:
+    """The dense exact MLE of all points (``screened_fit`` with the dense Cholesky
+    likelihood, its exact score and Fisher information)."""
+
+    def dense_loglik(theta: np.ndarray) -> float:
+        return dense_evaluate(points, y, template.with_theta(theta), mean=mean, score=False,
+                              memory_budget=memory_budget, certify=False).loglik
+
+    return screened_fit(DenseEngine(points, y, template, mean=mean,
+                                    memory_budget=memory_budget),
+                        dense_loglik, template, starts=starts, bounds=bounds,
+                        max_iter=max_iter, max_steps=max_steps, score_tol_se=score_tol_se,
+                        time_budget=time_budget, method="L-BFGS-B + Fisher scoring",
+                        what="dense fit")

@@ -18,16 +18,14 @@ Efron and Hinkley 1978 for J in place of the expected information).
 from __future__ import annotations
 
 import math
-import time
 from collections.abc import Sequence
 from dataclasses import replace
 
 import numpy as np
 
-from harness.check.fisher_steps import fisher_scoring
 from harness.check.fit_engines import StateSpaceEngine
 from harness.check.fit_records import MleFit
-from harness.check.fitting import DENSE_FIT_STARTS, DENSE_SCORE_TOL_SE, fit_mle, screen_starts
+from harness.check.fitting import DENSE_SCORE_TOL_SE, screened_fit
 from harness.model.kernels import Kernel
 
 
@@ -52,26 +50,14 @@ def fit_on_line(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: st
     score_tol_se : float
         The polish's stopping rule, max_i |(J^-1 g)_i| / SE_i.
     """
-    t0 = time.perf_counter()
-    deadline = time.monotonic() + time_budget if math.isfinite(time_budget) else None
     engine = StateSpaceEngine(points, y, template, mean=mean)
-    best = screen_starts(engine.loglik, starts, bounds, keep=DENSE_FIT_STARTS)
-    first = fit_mle(engine, template, starts=best, bounds=bounds, max_iter=max_iter,
-                    gtol=1e-8, deadline=deadline)
-    polish = fisher_scoring(engine, template, first.theta, bounds=bounds,
-                            max_steps=max_steps, step_tol_se=score_tol_se,
-                            deadline=deadline)
-    final = polish if polish.loglik >= first.loglik - 1e-8 else first
-    notes = [*first.notes, *polish.notes]
-    if engine.modified_at(polish.theta):
-        notes.append("the observed information at the estimate was not positive definite "
-                     "and was modified (eigenvalues replaced by their absolute values)")
-    if not polish.converged:
-        notes.append("exact fit on the line not converged: " + polish.starts[0].message)
-    return replace(final, method="L-BFGS-B + Newton (Kalman filter, exact)",
-                   engine="statespace", starts=(*first.starts, *polish.starts),
-                   evaluations=first.evaluations + polish.evaluations + len(starts),
-                   seconds=time.perf_counter() - t0, notes=tuple(notes),
-                   fisher=polish.fisher, converged=polish.converged,
-                   step_se=polish.step_se, score_tol_se=polish.score_tol_se,
-                   accepted_steps=polish.accepted_steps)
+    fit = screened_fit(engine, engine.loglik, template, starts=starts, bounds=bounds,
+                       max_iter=max_iter, max_steps=max_steps, score_tol_se=score_tol_se,
+                       time_budget=time_budget,
+                       method="L-BFGS-B + Newton (Kalman filter, exact)",
+                       what="exact fit on the line")
+    if not engine.modified_at(fit.theta):
+        return fit
+    return replace(fit, notes=(*fit.notes, "the observed information at the estimate was not "
+                               "positive definite and was modified (eigenvalues replaced by "
+                               "their absolute values)"))
