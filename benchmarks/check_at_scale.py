@@ -40,9 +40,9 @@ Run: ``python benchmarks/check_at_scale.py line-100k --repeats 3 --json
 benchmarks/results/check_at_scale_line-100k.json`` (one scenario per call; each takes
 minutes to hours). ``--repeats K`` runs the check K times from empty folders and reports
 the median time (every run's time is kept under ``repeats``; the largest peak memory is
-reported, the other details are the median run's). ``--plan-only`` records only the plan the check prints before it starts
-(``check --plan-only``): its predicted time per stage and resident memory, in seconds and
-same-run units, within a minute.
+reported, the other details are the median run's). ``--plan-only`` records only the plan
+the check prints before it starts (``check --plan-only``): its predicted time per stage
+and resident memory, in seconds and same-run units, within a minute.
 """
 
 from __future__ import annotations
