@@ -14,7 +14,6 @@ order; callers permute.
 from __future__ import annotations
 
 import threading
-from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
@@ -23,7 +22,7 @@ from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.aca import FactorScratch, LowRank
 from harness.solvers.hodlr.aca_compile import prepare_aca
 from harness.solvers.hodlr.entries import KernelEntries
-from harness.solvers.hodlr.parallel import for_each_node, node_pool
+from harness.solvers.hodlr.parallel import for_each_node, map_in_runs, node_pool
 
 CHECK_ROUNDS = 8
 CHECK_ROWS = 8
@@ -126,15 +125,17 @@ def build_hodlr(entries: KernelEntries, tree: ClusterTree, *, tol: float,
                                     scratch=per_thread.scratch)
 
     leaf_bounds = tree.bounds[tree.depth]
-    results: dict[tuple[int, int], LowRank] = {}
     # jobs go coarse to fine: the workers take the largest blocks first (longest
-    # processing time first), which balances the few big top-level blocks.
-    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-        for job, low in zip(jobs, pool.map(compress, jobs), strict=True):
-            results[job[0], job[1]] = low
-        leaves = tuple(pool.map(lambda j: entries.leaf(int(leaf_bounds[j]),
-                                                       int(leaf_bounds[j + 1]), scaled),
-                                range(leaf_bounds.shape[0] - 1)))
+    # processing time first), which balances the few big top-level blocks; the many
+    # small blocks of the deep levels go in runs (``parallel.map_in_runs``).
+    with node_pool(threads) as nodes:
+        pool = None if nodes is None else nodes.executor
+        lows = map_in_runs(pool, compress, jobs, rows=lambda job: job[3][1] - job[2][0])
+        leaves = tuple(map_in_runs(
+            pool, lambda j: entries.leaf(int(leaf_bounds[j]), int(leaf_bounds[j + 1]), scaled),
+            range(leaf_bounds.shape[0] - 1),
+            rows=lambda j: int(leaf_bounds[j + 1] - leaf_bounds[j])))
+    results = {(job[0], job[1]): low for job, low in zip(jobs, lows, strict=True)}
     pairs = tuple(tuple(results[level, j] for j in range(1 << level))
                   for level in range(tree.depth))
     return HodlrMatrix(tree=tree, leaves=leaves, pairs=pairs)

@@ -40,7 +40,7 @@ from scipy.linalg import blas, solve_triangular
 from harness.geometry.tree import ClusterTree
 from harness.solvers.hodlr.compressed import HodlrMatrix
 from harness.solvers.hodlr.orth import basis_factor, cholesky_lower, rcond_for
-from harness.solvers.hodlr.parallel import NodePool, for_each_node, node_pool
+from harness.solvers.hodlr.parallel import NodePool, for_each_node, map_in_runs, node_pool
 from harness.solvers.hodlr.row_blocks import cross_product, subtract_product
 
 
@@ -187,8 +187,7 @@ class SymmetricFactor:
         """W^-1 x: leaves first, then W_{L-1}^-1 ... W_0^-1."""
         y = x.copy()
         with node_pool(threads) as pool:
-            self._leaf_pass(pool, lambda c, v: solve_triangular(c, v, lower=True,
-                                                                check_finite=False), y)
+            self._leaf_pass(pool, _leaf_solve, y)
             for level in range(self.tree.depth - 1, -1, -1):
                 self._level_pass(pool, level, _inverse_update, y)
         return y
@@ -199,9 +198,22 @@ class SymmetricFactor:
         with node_pool(threads) as pool:
             for level in range(self.tree.depth):
                 self._level_pass(pool, level, _inverse_transpose_update, y)
-            self._leaf_pass(pool, lambda c, v: solve_triangular(
-                c, v, lower=True, trans="T", check_finite=False), y)
+            self._leaf_pass(pool, _leaf_solve_transpose, y)
         return y
+
+
+def _leaf_solve(c: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """L^-1 v for a leaf's Cholesky factor L (Fortran order, from dpotrf) and a C-ordered
+    row block v, in place where BLAS can: v' is a Fortran view, and X' L' = v' is one
+    dtrsm from the right. dtrsm, not scipy's ``solve_triangular``, whose checks cost
+    more than a 128-row leaf's solve (development measurement: 781 leaves of 128 rows, 64
+    columns, 0.04 s against 0.05-0.07 s)."""
+    return blas.dtrsm(1.0, c, v.T, side=1, lower=1, trans_a=1, overwrite_b=1).T
+
+
+def _leaf_solve_transpose(c: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """L'^-1 v as ``_leaf_solve``: X' L = v'."""
+    return blas.dtrsm(1.0, c, v.T, side=1, lower=1, trans_a=0, overwrite_b=1).T
 
 
 def _forward_update(f: NodeFactor, ua: np.ndarray, ub: np.ndarray, xa: np.ndarray,
@@ -333,15 +345,20 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
             subtract_product(basis, rows_b, slice(0, c0), own, coefficients)
         return f, 2.0 * float(np.sum(np.log(np.diag(l22))))
 
-    with ThreadPoolExecutor(max_workers=max(1, threads)) as pool:
-        leaf_out = list(pool.map(leaf, range(leaf_b.shape[0] - 1)))
+    def rows(level: int) -> Callable[[int], int]:  # node j's rows at ``level``
+        return lambda j: int(tree.bounds[level][j + 1] - tree.bounds[level][j])
+
+    with node_pool(threads) as nodes:
+        pool = None if nodes is None else nodes.executor
+        leaf_out = map_in_runs(pool, leaf, range(leaf_b.shape[0] - 1), rows=rows(depth))
         node_out: list[list[tuple[NodeFactor, float]]] = [[] for _ in range(depth)]
         for level in range(depth - 1, 0, -1):
             ranks = [p.rank for p in hodlr.pairs[level]]
-            node_out[level] = list(pool.map(lambda j, lv=level, rk=ranks: node(lv, j, rk[j]),
-                                            range(len(ranks))))
+            node_out[level] = map_in_runs(
+                pool, lambda j, lv=level, rk=ranks: node(lv, j, rk[j]), range(len(ranks)),
+                rows=rows(level))
         if depth:  # one node: on this thread, its two halves' bases on the pool
-            node_out[0] = [node(0, 0, hodlr.pairs[0][0].rank, pool if threads > 1 else None)]
+            node_out[0] = [node(0, 0, hodlr.pairs[0][0].rank, pool)]
     logdet = sum(ld for _, ld in leaf_out) + sum(ld for lv in node_out for _, ld in lv)
     return SymmetricFactor(tree=tree, leaf_chol=tuple(c for c, _ in leaf_out), basis=basis,
                            offsets=offsets,

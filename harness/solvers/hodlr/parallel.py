@@ -11,6 +11,11 @@ of the same-sized nodes of a balanced tree splits evenly this way, and
 a deep level of many small nodes (a line of 10^5 points has 781 leaves of 128) costs
 one task per thread, not one per node, whose pool bookkeeping outweighed a small node's
 own work (a profile of a check on 100,000 points on a line counted 0.9 million tasks).
+
+The compression and the factorization map a function over blocks whose results they
+keep (``map_in_runs``): consecutive blocks go to the pool in runs of at least
+``MIN_TASK_ROWS`` rows, so a big block is still a task of its own and the many small
+blocks of a deep level share a few; without a pool they run on the calling thread.
 """
 
 from __future__ import annotations
@@ -24,6 +29,14 @@ from typing import TypeVar
 from harness.infra.thread_ranges import over_threads
 
 T = TypeVar("T")
+R = TypeVar("R")
+
+#: Rows of blocks one pool task of ``map_in_runs`` covers at least. Development
+#: measurement, points on a line (n = 100,000, ranks 2, tol 1e-6, median of 6): one task
+#: per block gave 12,000 tasks a factorization, whose handoffs cost the compression
+#: 0.58 s against 0.47 s on the calling thread, and the factorization on its one-worker
+#: pool 0.54 s against 0.36 s on the calling thread.
+MIN_TASK_ROWS = 8192
 
 
 @dataclass(frozen=True)
@@ -58,3 +71,24 @@ def for_each_node(pool: NodePool | None, work: Callable[[T], object],
             work(items[k])
 
     over_threads(walk, len(items), threads=pool.threads, pool=pool.executor)
+
+
+def map_in_runs(pool: ThreadPoolExecutor | None, work: Callable[[T], R], items: Sequence[T],
+                *, rows: Callable[[T], int]) -> list[R]:
+    """``[work(item) for item in items]``, the items cut into consecutive runs of at least
+    ``MIN_TASK_ROWS`` rows (``rows(item)`` each), one task of ``pool`` per run; on the
+    calling thread when ``pool`` is None. The results keep the items' order."""
+    if pool is None:
+        return [work(item) for item in items]
+    runs: list[list[T]] = [[]]
+    covered = 0
+    for item in items:
+        runs[-1].append(item)
+        covered += rows(item)
+        if covered >= MIN_TASK_ROWS:
+            runs.append([])
+            covered = 0
+    done: list[R] = []
+    for part in pool.map(lambda run: [work(item) for item in run], [r for r in runs if r]):
+        done.extend(part)
+    return done
