@@ -652,6 +652,41 @@ def test_level_nodes_run_in_contiguous_runs_each_node_once():
             assert done == sorted(done)
 
 
+def test_blocks_map_in_runs_of_enough_rows_in_order():
+    # Source: parallel.map_in_runs's contract (module docstring): the results keep the
+    # items' order; with a pool, each task is a run of consecutive items covering at
+    # least MIN_TASK_ROWS rows (but the last), so a big block is a task of its own; without
+    # a pool, everything runs on the calling thread.
+    import threading
+
+    from harness.solvers.hodlr.parallel import MIN_TASK_ROWS, map_in_runs
+
+    rows = [4 * MIN_TASK_ROWS] + [MIN_TASK_ROWS // 8] * 35  # one big block, many small
+    tasks: list[tuple[int, int]] = []
+
+    def work(k: int) -> tuple[int, int]:
+        return threading.get_ident(), 2 * k
+
+    with node_pool(2) as pool:
+        assert pool is not None
+        original = pool.executor.map
+
+        def counted_map(fn, runs):
+            runs = list(runs)
+            tasks.extend((run[0], len(run)) for run in runs)
+            return original(fn, runs)
+
+        pool.executor.map = counted_map  # type: ignore[method-assign]
+        done = map_in_runs(pool.executor, work, range(len(rows)), rows=lambda k: rows[k])
+    assert [v for _, v in done] == [2 * k for k in range(len(rows))]
+    assert tasks[0] == (0, 1)  # the big block alone
+    assert [length for _, length in tasks[1:]] == [8, 8, 8, 8, 3]
+    assert [start for start, _ in tasks] == [0, 1, 9, 17, 25, 33]
+    inline = map_in_runs(None, work, range(5), rows=lambda k: rows[k])
+    assert {ident for ident, _ in inline} == {threading.get_ident()}
+    assert [v for _, v in inline] == [0, 2, 4, 6, 8]
+
+
 def test_thin_factorizations_run_their_products_on_one_thread():
     # Source: the rule of harness.solvers.hodlr.solver.serial_if_thin; the result does not
     # depend on the thread count (parallel module docstring), so both give the same bits.
