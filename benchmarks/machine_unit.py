@@ -15,6 +15,7 @@ import platform
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 UNIT_N = 8192
 
@@ -100,15 +101,17 @@ def machine() -> dict:
 
 def commit() -> str | None:
     """HEAD's hash, with "+uncommitted" when tracked files outside benchmarks/results
-    differ from it (the run then measured code that no commit holds)."""
+    differ from it (the run then measured code that no commit holds). Asked of the
+    checkout this script lies in, whatever the working directory."""
+    here = Path(__file__).resolve().parent
     proc = subprocess.run(["git", "rev-parse", "HEAD"], capture_output=True, text=True,
-                          check=False)
+                          check=False, cwd=here)
     head = proc.stdout.strip()
     if not head:
         return None
     status = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no", "--",
                              ".", ":(exclude)benchmarks/results"],
-                            capture_output=True, text=True, check=False)
+                            capture_output=True, text=True, check=False, cwd=here)
     return head + "+uncommitted" if status.stdout.strip() else head
 
 
