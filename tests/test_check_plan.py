@@ -268,17 +268,18 @@ def test_the_operator_is_calibrated_only_for_a_plan_that_takes_it(monkeypatch):
     dense = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), refit=False)
     plan = plan_check(x, y, dense, rng=np.random.default_rng(0))
     assert plan.reference == "dense"
-    assert plan.calibration.product_columns_per_second is None
+    assert plan.calibration.product_cost is None
     assert "preconditioner" not in plan.calibration.solvers
     operator = plan_check(x, y, replace(dense, reference="operator"),
                           rng=np.random.default_rng(0))
-    assert operator.calibration.product_columns_per_second > 0
+    assert operator.calibration.product_cost is not None
+    assert operator.calibration.to_dict()["product_columns_per_second"] > 0
     assert operator.calibration.solvers["preconditioner"].name == "hodlr"
     rated: list[bool] = []
     original = cost_plan._with_operator_rates
 
     def spy(calibration, points, values, options):
-        rated.append(calibration.product_columns_per_second is None)
+        rated.append(calibration.product_cost is None)
         return original(calibration, points, values, options)
 
     monkeypatch.setattr(cost_plan, "_with_operator_rates", spy)
@@ -286,7 +287,7 @@ def test_the_operator_is_calibrated_only_for_a_plan_that_takes_it(monkeypatch):
     # operator, and the dense calibration gets the operator's rates added
     over = plan_check(x, y, replace(dense, memory_budget=1), calibration=plan.calibration)
     assert over.reference == "operator" and rated == [True]
-    assert over.calibration.product_columns_per_second > 0
+    assert over.calibration.product_cost is not None
     assert budget_refusal(over, x, y, replace(dense, memory_budget=1)) is not None
 
 

@@ -8,6 +8,8 @@ b'A^-1 b - (b'x + x'r) = r'A^-1 r in [0, ||r||^2 / lambda_min] (algebra, Rayleig
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -245,3 +247,38 @@ def test_cost_estimate_scales_as_n_squared():
         n_params=3)
     with pytest.raises(ValueError, match="rate"):
         estimate_operator_seconds(100, rate=0.0)
+
+
+def test_product_cost_by_width_agrees_with_the_column_count():
+    # Source: product_cost's module docstring: a product of width k costs n^2 (e + k c).
+    # With e = 0 (columns only) the per-call prices must add up to the column count of
+    # predicted_column_products, the same evaluation counted by columns; with e > 0 each
+    # call adds n^2 e, so narrow calls cost more per column than wide ones.
+    from harness.references.operator import ProductCost, operator_evaluation_seconds
+
+    columns_only = ProductCost(entry_seconds=0.0, column_seconds=1e-9,
+                               derivative_entry_seconds=0.0, n=1, widths=(1, 64, 16),
+                               family="matern32")
+    for probes, mean_columns, score in ((16, 0, True), (64, 1, True), (40, 2, False)):
+        by_calls = operator_evaluation_seconds(5000, columns_only, n_params=3,
+                                               mean_columns=mean_columns, probes=probes,
+                                               steps=8, score=score)
+        by_columns = predicted_column_products(n_params=3, mean_columns=mean_columns,
+                                               probes=probes, steps=8, score=score)
+        assert by_calls == pytest.approx(by_columns * 5000 ** 2 * 1e-9, rel=1e-12)
+    entries = replace(columns_only, entry_seconds=60e-9)
+    assert entries.column_rate(64) > 4 * entries.column_rate(8)
+    assert entries.product_seconds(2000, 16, calls=3) == pytest.approx(
+        3 * 2000 ** 2 * (60e-9 + 16e-9))
+
+
+def test_measured_product_cost_is_positive_and_scales_as_n_squared():
+    # Source: product_cost's module docstring (t = n^2 (e + k c), measured at two widths).
+    from harness.references.operator import measure_product_cost
+
+    cost = measure_product_cost(KERNEL, n=512, repeats=1, rng=0)
+    assert cost.column_seconds > 0 and cost.entry_seconds >= 0
+    assert cost.derivative_entry_seconds >= 0 and cost.widths == (1, 64, 16)
+    assert cost.product_seconds(2000, 16) == pytest.approx(4 * cost.product_seconds(1000, 16))
+    with pytest.raises(ValueError, match="widths"):
+        measure_product_cost(KERNEL, n=256, widths=(8, 8), rng=0)

@@ -61,8 +61,10 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
 - reference: dense, two factorizations (all points, conditioning points) with their
   certificates (an L L' product of n^3 / 3 flops each) and the derivative products,
   p n^2 / A + 2 p n^2 (k + 1) / R; operator, the preconditioners plus
-  ``estimate_operator_seconds`` (``harness.references.operator.product_cost``) for the
-  log-likelihood and score, and (10 (1 + v)) column products of t^2 entries for kriging;
+  ``operator_evaluation_seconds`` (``harness.references.operator.product_cost``: each
+  product call priced at its width) for the log-likelihood and score, and for kriging
+  10 product calls at t points for the mean (1 + q columns) and for each block of at most
+  64 variance points;
 - one audit: the solver's factorization at n and at t (at its tightest knob value, so
   an upper estimate for the looser ones) and its solves with p (2k + 1) + 1 + 2 v
   right-hand sides, plus m t cross-covariance entries and, against the dense reference,
@@ -96,7 +98,7 @@ from harness.check.plan_calibration import (
     Calibration,
     SolverRate,
     calibrate,
-    product_rate,
+    product_cost,
     rate_solver,
 )
 from harness.check.plugin_guard import trial_kernel
@@ -105,7 +107,7 @@ from harness.check.solver_lineup import LinedUpSolver, Lineup, line_up
 from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_MAX_STEPS
 from harness.linalg.dense_budget import default_memory_budget, dense_bytes_needed, total_memory
 from harness.model.mean import design_matrix
-from harness.references.operator import estimate_operator_seconds
+from harness.references.operator import operator_evaluation_seconds
 from harness.references.operator.schedule import DEFAULT_TILE
 from harness.solvers.registry import resolve_solver
 
@@ -134,6 +136,17 @@ VALUE_PROBES = 64
 DERIVATIVE_ROWS = 1024
 #: CG steps of one operator solve assumed by ``product_cost`` (its default).
 OPERATOR_STEPS = 8
+#: Probes per block of the operator reference (``operator_evaluate``'s default).
+OPERATOR_PROBE_BATCH = 16
+#: Probes the operator reference is priced at: ``operator_evaluate``'s ``min_probes``,
+#: where it stops when its SE target is met, as it did with the default preconditioner
+#: (HODLR at tol 1e-10) at 16,384 points (``benchmarks/results/operator_preconditioner.json``:
+#: 16 probes, 6 iterations).
+OPERATOR_MIN_PROBES = 16
+#: The operator's preconditioner at all points, priced in factorizations: its own and its
+#: traces (derivative compression and solves), about one more (15.3 s of traces against
+#: 13.6 s of factorization at 16,384 points, ``operator_preconditioner.json``).
+PRECONDITIONER_PASSES = 2
 #: Processes alive at a check's peak, each with its own interpreter and libraries: the
 #: check, its fork server and one child (module docstring).
 RESIDENT_PROCESSES = 3
@@ -337,18 +350,27 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
                          "certified, in a child process")
     if kind == "operator":
         pre = cal.solvers["preconditioner"]
-        probes = max(VALUE_PROBES, s.k)
-        rate = float(cal.product_columns_per_second or 1.0)
-        seconds = (pre.seconds_at(s.n) + pre.seconds_at(s.t)
-                   + estimate_operator_seconds(s.n, rate=rate, n_params=s.p,
-                                               mean_columns=s.mean_columns, probes=probes,
-                                               steps=OPERATOR_STEPS)
-                   + (OPERATOR_STEPS + 2) * (1 + s.v) * s.t * s.t / rate)
+        probes = OPERATOR_MIN_PROBES
+        if cal.product_cost is None:
+            raise ValueError("an operator reference's plan needs the product cost in its "
+                             "calibration")
+        cost = cal.product_cost
+        variance_blocks = [min(KRIGING_BLOCK, s.v - start)
+                           for start in range(0, s.v, KRIGING_BLOCK)]
+        seconds = (PRECONDITIONER_PASSES * pre.seconds_at(s.n) + pre.seconds_at(s.t)
+                   + operator_evaluation_seconds(s.n, cost, n_params=s.p,
+                                                 mean_columns=s.mean_columns, probes=probes,
+                                                 probe_batch=OPERATOR_PROBE_BATCH,
+                                                 steps=OPERATOR_STEPS)
+                   + cost.product_seconds(s.t, 1 + s.mean_columns, calls=OPERATOR_STEPS + 2)
+                   + sum(cost.product_seconds(s.t, width, calls=OPERATOR_STEPS + 2)
+                         for width in variance_blocks))
         block = 8 * s.n * (1 + s.p) * probes + 8 * DEFAULT_TILE ** 2
         return StagePlan("reference", seconds,
                          pre.nbytes_at(s.n) + pre.nbytes_at(s.t) + block,
                          f"exact operator, preconditioned by {options.preconditioner} "
-                         f"({pre.knob} {pre.value:g}), {probes} probes")
+                         f"({pre.knob} {pre.value:g}), {probes} probes (more if its SE "
+                         "target needs them)")
     if kind in ("statespace", "kronecker"):
         return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
                          8 * s.n * (32 if kind == "statespace" else 8),
@@ -452,18 +474,18 @@ def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.nda
                          options: CheckOptions) -> Calibration:
     """``calibration`` with the operator's rates for ``options``: its preconditioner (rated
     here unless the calibration rated this one) and the product rate."""
-    solvers, columns = calibration.solvers, calibration.product_columns_per_second
+    solvers, products = calibration.solvers, calibration.product_cost
     rated = solvers.get("preconditioner")
     solver, value, solver_options = _preconditioner(options)
-    if rated is not None and rated.name == solver.name and columns is not None:
+    if rated is not None and rated.name == solver.name and products is not None:
         return calibration
     kernel, rng = _kernel(points, y, options), np.random.default_rng(options.seed)
     if rated is None or rated.name != solver.name:
         solvers = {**solvers, "preconditioner": rate_solver(
             solver, value, points, kernel, options=solver_options, rng=rng)}
-    if columns is None:
-        columns = product_rate(kernel, int(points.shape[1]), rng=rng)
-    return replace(calibration, solvers=solvers, product_columns_per_second=columns)
+    if products is None:
+        products = product_cost(kernel, int(points.shape[1]), rng=rng)
+    return replace(calibration, solvers=solvers, product_cost=products)
 
 
 def _kernel(points: np.ndarray, y: np.ndarray, options: CheckOptions) -> Any:

@@ -28,9 +28,10 @@ each a fraction of a second:
   only in child processes (``harness.check.plugin_guard``), so its cost is not predicted;
 - the Kalman filter, when the fit is the exact one on a line: one filter pass with the
   score at ``LINE_PASS_N`` of the points (seconds per point; the fit makes a few dozen);
-- the exact operator reference, when the plan takes it: one exact block product
-  (``harness.references.operator.measure_product_rate``) and its preconditioner as a
-  ``SolverRate``.
+- the exact operator reference, when the plan takes it: exact block products at two
+  widths and the derivative products (``harness.references.operator.measure_product_cost``:
+  a product's kernel entries cost the same at any width, so one column rate would
+  misprice blocks of another width) and its preconditioner as a ``SolverRate``.
 
 Randomness only through the ``rng`` passed in; the clock is ``time.perf_counter``.
 """
@@ -41,7 +42,7 @@ import math
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import psutil
@@ -49,6 +50,9 @@ import psutil
 from harness.linalg.dense_rate import PROBE_N, measure_dense_rate
 from harness.model.kernels import Kernel
 from harness.solvers.registry import ResolvedSolver
+
+if TYPE_CHECKING:
+    from harness.references.operator.product_cost import ProductCost
 
 #: The project's time unit: one dpotrf at this n, in the same run.
 UNIT_N = 8192
@@ -60,6 +64,12 @@ CALIBRATION_SIZES: tuple[int, int] = (512, 2048)
 SOLVE_COLUMNS = 64
 #: Points of the timed Kalman-filter pass (``line_pass_rate``).
 LINE_PASS_N = 4096
+#: Points of the timed exact products (``product_cost``): enough for the products'
+#: tiles to run near their large-n rate (a product of 64 columns takes about 0.06 s here).
+PRODUCT_N = 4096
+#: The width at which the plan's JSON states a column rate (``product_columns_per_second``,
+#: kept for scripts that read it): the operator's probe batch.
+PRODUCT_REPORT_WIDTH = 16
 #: Bounds of a fitted growth exponent: time from n to n^3, memory from n to n^2 (the
 #: dense cases; a compressed solver lies between).
 TIME_EXPONENT_RANGE: tuple[float, float] = (1.0, 3.0)
@@ -132,8 +142,8 @@ class Calibration:
     solvers : mapping of str to SolverRate
         By the solver's spelling as given to ``--solver`` (built-in solvers only), and
         ``"preconditioner"`` for the operator reference's.
-    product_columns_per_second : float or None
-        Exact-product columns of n^2 entries per second (the operator reference only).
+    product_cost : ProductCost or None
+        The cost of exact products by width (the operator reference only).
     line_pass_seconds_per_point : float or None
         Seconds per point of one Kalman-filter pass with the score (the exact fit on a
         line only).
@@ -149,7 +159,7 @@ class Calibration:
     probe_seconds: float
     assembly_entries_per_second: float
     solvers: Mapping[str, SolverRate] = field(default_factory=dict)
-    product_columns_per_second: float | None = None
+    product_cost: ProductCost | None = None
     line_pass_seconds_per_point: float | None = None
     seconds: float = 0.0
     runtime_bytes: int = 0
@@ -166,7 +176,11 @@ class Calibration:
                          "probe_seconds": self.probe_seconds},
                 "assembly_entries_per_second": self.assembly_entries_per_second,
                 "solvers": {k: v.to_dict() for k, v in self.solvers.items()},
-                "product_columns_per_second": self.product_columns_per_second,
+                "product_columns_per_second": (
+                    None if self.product_cost is None
+                    else self.product_cost.column_rate(PRODUCT_REPORT_WIDTH)),
+                "product_cost": (None if self.product_cost is None
+                                 else self.product_cost.to_dict()),
                 "line_pass_seconds_per_point": self.line_pass_seconds_per_point,
                 "seconds": self.seconds, "runtime_bytes": self.runtime_bytes}
 
@@ -213,12 +227,12 @@ def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
                       memory_exponent=_exponent(b0, b1, n0, n1, MEMORY_EXPONENT_RANGE))
 
 
-def product_rate(kernel: Kernel, d: int, *, rng: np.random.Generator) -> float:
-    """Exact-product columns of n^2 entries per second: one product of 8 columns at
-    1,024 points (``harness.references.operator.measure_product_rate``)."""
-    from harness.references.operator import measure_product_rate
+def product_cost(kernel: Kernel, d: int, *, rng: np.random.Generator) -> ProductCost:
+    """The cost of exact products by width, at ``PRODUCT_N`` points
+    (``harness.references.operator.measure_product_cost``)."""
+    from harness.references.operator import measure_product_cost
 
-    return measure_product_rate(kernel, dimension=d, n=PROBE_N, k=8, rng=rng).column_rate
+    return measure_product_cost(kernel, dimension=d, n=PRODUCT_N, rng=rng)
 
 
 def line_pass_rate(points: np.ndarray, kernel: Kernel, *, mean: str,
@@ -271,17 +285,17 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
     rates = {given: rate_solver(solver, value, points, kernel, options=options, rng=rng)
              for given, (solver, value, options) in solvers.items()}
     assembly = assembly_rate(kernel, d, rng=rng)
-    columns = None
+    products = None
     if preconditioner is not None:
         solver, value, options = preconditioner
         rates["preconditioner"] = rate_solver(solver, value, points, kernel,
                                               options=options, rng=rng)
-        columns = product_rate(kernel, d, rng=rng)
+        products = product_cost(kernel, d, rng=rng)
     line_rate = (None if line_mean is None
                  else line_pass_rate(points, kernel, mean=line_mean, rng=rng))
     return Calibration(unit_seconds=probe_seconds * (UNIT_N / PROBE_N) ** 3,
                        probe_n=PROBE_N, probe_seconds=probe_seconds,
                        assembly_entries_per_second=assembly, solvers=rates,
-                       product_columns_per_second=columns,
+                       product_cost=products,
                        line_pass_seconds_per_point=line_rate,
                        seconds=time.perf_counter() - start, runtime_bytes=runtime)

@@ -47,9 +47,12 @@ threads follow ``NUMBA_NUM_THREADS`` on that worker.
 from harness.references.operator.operator_kriging import OperatorKriging, operator_kriging
 from harness.references.operator.pcg import PreconditionerError
 from harness.references.operator.product_cost import (
+    ProductCost,
     ProductRate,
     estimate_operator_seconds,
+    measure_product_cost,
     measure_product_rate,
+    operator_evaluation_seconds,
     predicted_column_products,
 )
 from harness.references.operator.products import KernelOperator
@@ -69,10 +72,13 @@ __all__ = [
     "OperatorKriging",
     "PreconditionerError",
     "ProductMemoryError",
+    "ProductCost",
     "ProductRate",
     "estimate_operator_seconds",
     "measure_product_rate",
     "operator_evaluate",
     "operator_kriging",
+    "measure_product_cost",
+    "operator_evaluation_seconds",
     "predicted_column_products",
 ]

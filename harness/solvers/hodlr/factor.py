@@ -354,9 +354,13 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
         node_out: list[list[tuple[NodeFactor, float]]] = [[] for _ in range(depth)]
         for level in range(depth - 1, 0, -1):
             ranks = [p.rank for p in hodlr.pairs[level]]
-            node_out[level] = map_in_runs(
-                pool, lambda j, lv=level, rk=ranks: node(lv, j, rk[j]), range(len(ranks)),
-                rows=rows(level))
+
+            def level_node(j: int, lv: int = level, rk: list[int] = ranks
+                           ) -> tuple[NodeFactor, float]:
+                return node(lv, j, rk[j])
+
+            node_out[level] = map_in_runs(pool, level_node, range(len(ranks)),
+                                          rows=rows(level))
         if depth:  # one node: on this thread, its two halves' bases on the pool
             node_out[0] = [node(0, 0, hodlr.pairs[0][0].rank, pool)]
     logdet = sum(ld for _, ld in leaf_out) + sum(ld for lv in node_out for _, ld in lv)
