@@ -46,7 +46,6 @@ from harness.audit.engine import (
 )
 from harness.audit.line_trace_control import line_trace_control
 from harness.audit.operator_preconditioner import (
-    BuiltPreconditioner,
     PreconditionerSpec,
     build_operator_preconditioner,
 )
@@ -185,9 +184,13 @@ class OperatorReference:
                                preconditioner=built.factorization, rng=base_seed, score=True,
                                memory_budget=memory_budget, client=client, progress=False)
         seconds = time.perf_counter() - t0
-        built_t = build_operator_preconditioner(
-            x[train], kernel, PreconditionerSpec(family=built.family, knob=built.knob_value),
-            rng=rng, leaf_size=leaf_size)
+        # released before the training points' one is built: the two are never held at
+        # once (at 65,536 points HODLR at tol 1e-10 takes gigabytes)
+        spec_t = PreconditionerSpec(family=built.family, knob=built.knob_value)
+        built_record, built_description = built.to_dict(), built.describe()
+        del built
+        built_t = build_operator_preconditioner(x[train], kernel, spec_t, rng=rng,
+                                                leaf_size=leaf_size)
         kr = operator_kriging(x[train], data.y[train], kernel, x[data.holdout],
                               mean=data.mean, preconditioner=built_t.factorization,
                               variance_at=data.variance_positions,
@@ -196,9 +199,9 @@ class OperatorReference:
                          and ev.bound_kind.startswith("residual/nugget"))
         self.messages = tuple(dict.fromkeys((*ev.messages, *kr.messages)))
         self.preconditioner = _preconditioner_record(
-            built, training_seconds=built_t.seconds, loglik_iterations=ev.iterations,
-            kriging_iterations=kr.iterations)
-        del built, built_t
+            built_record, built_description, training_seconds=built_t.seconds,
+            loglik_iterations=ev.iterations, kriging_iterations=kr.iterations)
+        del built_t
         uncertainty = {
             "loglik": dict(ev.uncertainty), "loglik_se": ev.loglik_se,
             "loglik_bound": ev.loglik_bound,
@@ -278,18 +281,19 @@ class OperatorReferenceInfo(ReferenceInfo):
                                     "uncertainty": dict(self.uncertainty)}
 
 
-def _preconditioner_record(built: BuiltPreconditioner, *, training_seconds: float,
-                           loglik_iterations: int, kriging_iterations: int
-                           ) -> dict[str, object]:
+def _preconditioner_record(built: dict[str, object], description: str, *,
+                           training_seconds: float, loglik_iterations: int,
+                           kriging_iterations: int) -> dict[str, object]:
     """The JSON record of the operator reference's preconditioner: that of all points
-    (``BuiltPreconditioner.to_dict``: family, knob value, fallback, pilot table, seconds
-    with the pilot), the seconds of the training points' one (same family and knob value,
-    no pilot) and the real runs' iteration counts (CG plus Lanczos steps for the
-    log-likelihood and score, CG for kriging) beside the pilot's prediction."""
-    return built.to_dict() | {"seconds_training_points": training_seconds,
-                              "iterations_loglik_score": int(loglik_iterations),
-                              "iterations_kriging": int(kriging_iterations),
-                              "description": built.describe()}
+    (``built``, its ``BuiltPreconditioner.to_dict``: family, knob value, fallback, pilot
+    table, seconds with the pilot, and ``description``, its ``describe``), the seconds of
+    the training points' one (same family and knob value, no pilot) and the real runs'
+    iteration counts (CG plus Lanczos steps for the log-likelihood and score, CG for
+    kriging) beside the pilot's prediction."""
+    return built | {"seconds_training_points": training_seconds,
+                    "iterations_loglik_score": int(loglik_iterations),
+                    "iterations_kriging": int(kriging_iterations),
+                    "description": description}
 
 
 class StructuredReference:

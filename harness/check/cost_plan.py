@@ -24,9 +24,10 @@ base plus the largest stage:
   HODLR at the tightest tolerance, so this is a stand-in);
 - reference: dense, ``dense_bytes_needed(n, score)`` (the selector's model) plus the
   derivative blocks of the score, 8 p min(n, 1,024) n (``harness.audit.sides``); operator,
-  the preconditioner of all points and of the conditioning points, both alive at once
-  (``audit_references.OperatorReference``), plus one block product of max(64, k)
-  columns with p outputs, 8 n (1 + p) max(64, k), and a tile per thread,
+  the larger of the preconditioners of all points and of the conditioning points (one
+  at a time: ``audit_references.OperatorReference`` releases the first before it builds
+  the second), plus the probe blocks with their p derivative products at the
+  operator's minimum of 16 probes, 8 n (1 + p) 16, and a tile per thread,
   8 x 512^2 (``harness.references.operator.schedule.column_chunk``); state space, 8 n 32
   (a state of at most 3 and its covariance, filter and smoother: covaudit's bound);
   Kronecker, 8 n 8; ladder, the solver at all points and one conditioning-point factor
@@ -366,8 +367,9 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
                    + sum(cost.product_seconds(s.t, width, calls=OPERATOR_STEPS + 2)
                          for width in variance_blocks))
         block = 8 * s.n * (1 + s.p) * probes + 8 * DEFAULT_TILE ** 2
+        # one preconditioner at a time: all points', then the conditioning points'
         return StagePlan("reference", seconds,
-                         pre.nbytes_at(s.n) + pre.nbytes_at(s.t) + block,
+                         max(pre.nbytes_at(s.n), pre.nbytes_at(s.t)) + block,
                          f"exact operator, preconditioned by {options.preconditioner} "
                          f"({pre.knob} {pre.value:g}), {probes} probes (more if its SE "
                          "target needs them)")
