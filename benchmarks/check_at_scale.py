@@ -166,6 +166,8 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
             "reference_by_metric": kinds, "fit_converged": check.get("fit_converged"),
             "fit": {key: (check.get("fit") or {}).get(key)
                     for key in ("engine", "method", "converged", "loglik")},
+            "refit": {key: (check.get("refit") or {}).get(key)
+                      for key in ("evaluations", "accepted_steps", "seconds", "converged")},
             "verdicts": statuses, "recommendation": check.get("recommendation"),
             "warnings": check.get("warnings"),
             "plan": {"total_seconds": predicted_seconds,

@@ -72,7 +72,8 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   right-hand sides, plus m t cross-covariance entries and, against the dense reference,
   the exact KL divergence's n^2 entries and n solves;
 - timing: (repeats + 1) factorizations and score solves per knob value; refit:
-  ``fit_max_steps`` + 1 of them; report: ``REPORT_UNITS`` units.
+  ``REFIT_EVALUATIONS`` of them (at most ``fit_max_steps`` + 1); report:
+  ``REPORT_UNITS`` units.
 
 A plugin's cost is not predicted (it is never called outside its child process) and
 the plan says so; its stages count as unknown in the totals.
@@ -154,6 +155,12 @@ PRECONDITIONER_PASSES = 2
 #: (1.25 GB peak against 0.76 GB for HODLR at tol 1e-10 at 16,384 points,
 #: ``benchmarks/results/operator_preconditioner.json``).
 PRECONDITIONER_BUILD_PEAK = 1.6
+#: Evaluations the refit is priced at: the start and up to two Fisher-scoring steps. It
+#: starts at the reference's estimate, so a stochastic score stops at its noise floor
+#: after the first step and a deterministic one after a step or two (a check of 100,000
+#: points on a line made 2 evaluations, a development measurement); --fit-max-steps + 1
+#: is the cap the plan's detail also names.
+REFIT_EVALUATIONS = 3
 #: Processes alive at a check's peak, each with its own interpreter and libraries: the
 #: check, its fork server and one child (module docstring).
 RESIDENT_PROCESSES = 3
@@ -447,10 +454,11 @@ def _refit_stage(s: _Sizes, options: CheckOptions, rate: SolverRate | None) -> S
         return StagePlan("refit", 0.0, 0, "no refit")
     if rate is None:
         return StagePlan("refit", None, None, "refit by a plugin: not predicted")
-    steps = options.fit_max_steps + 1
+    steps = min(REFIT_EVALUATIONS, options.fit_max_steps + 1)
     return StagePlan("refit", steps * (rate.seconds_at(s.n) + rate.solve_seconds_at(
         s.n, s.p * (2 * s.k + 1) + 1)), rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
-        f"at most {steps} evaluations with the pick (priced at the tightest value)")
+        f"about {steps} evaluations with the pick, at most {options.fit_max_steps + 1} "
+        "(priced at the tightest value)")
 
 
 def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
