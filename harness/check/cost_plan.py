@@ -69,8 +69,9 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   64 variance points;
 - one audit: the solver's factorization at n and at t (at its tightest knob value, so
   an upper estimate for the looser ones) and its solves with p (2k + 1) + 1 + 2 v
-  right-hand sides, plus m t cross-covariance entries and, against the dense reference,
-  the exact KL divergence's n^2 entries and n solves;
+  right-hand sides (against the state-space reference, whose exact control replaces the
+  solver's own traces, 2k + 2 + q + v / 2), plus m t cross-covariance entries and,
+  against the dense reference, the exact KL divergence's n^2 entries and n solves;
 - timing: (repeats + 1) factorizations and score solves per knob value; refit:
   ``REFIT_EVALUATIONS`` of them (at most ``fit_max_steps`` + 1); report:
   ``REPORT_UNITS`` units.
@@ -408,7 +409,14 @@ def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptio
                          "not predicted", solver=lined.given, values=values, seeds=seeds)
     paired = kind in ("dense", "ladder")
     k = s.k if paired else max(VALUE_PROBES, s.k)
-    columns = s.p * (2 * k + 1) + 1 + 2 * s.v
+    if kind == "statespace":
+        # the Kalman filter's exact shared-probe control (harness.audit.line_trace_control):
+        # per probe a solve and a length-scale derivative product (the affine variance and
+        # nugget share the one solve), 1 + q solves for the GLS and the quadratics, and
+        # the variances by W^-1 (half a solve each); never the solver's own Hutch++
+        columns = 2 * k + 2 + s.mean_columns + s.v / 2
+    else:
+        columns = s.p * (2 * k + 1) + 1 + 2 * s.v
     # the means' cross-covariance tiles; on a line one exact O(n) product instead
     # (harness.references.line_products.LineCrossProducts)
     cross = 0.0 if s.line else s.m * s.t / cal.assembly_entries_per_second
