@@ -268,3 +268,34 @@ def test_bad_preconditioner_options_exit_2_naming_the_option(datafile: Path, cap
         main(["evaluate", str(datafile), *EVALUATE, "--preconditioner", "vecchia",
               "--preconditioner-neighbours", "0"])
     assert stop.value.code == 2 and "--preconditioner-neighbours" in capsys.readouterr().err
+
+
+def test_operator_reference_holds_one_preconditioner_at_a_time(problem, monkeypatch):
+    # Source: OperatorReference's contract (harness.audit.audit_references, and the cost
+    # plan's memory model that relies on it): the preconditioner of all points is released
+    # before the conditioning points' one is built, so the two are never alive at once.
+    import gc
+    import weakref
+
+    import harness.audit.audit_references as audit_references
+
+    points, y, _ = problem
+    data = AuditData(points=points, y=y, kernel=KERNEL, mean="zero",
+                     holdout=np.arange(450, N), fisher=None,
+                     probes=np.random.default_rng(10).choice([-1.0, 1.0], size=(N, 4)),
+                     variance_at=np.arange(5))
+    built: list[weakref.ref] = []
+    alive_at_build: list[int] = []
+    original = audit_references.build_operator_preconditioner
+
+    def tracked(*args, **kwargs):
+        gc.collect()
+        alive_at_build.append(sum(ref() is not None for ref in built))
+        result = original(*args, **kwargs)
+        built.append(weakref.ref(result.factorization))
+        return result
+
+    monkeypatch.setattr(audit_references, "build_operator_preconditioner", tracked)
+    audit_references.OperatorReference(data, base_seed=0,
+                                       preconditioner=PreconditionerSpec(family="hodlr"))
+    assert alive_at_build == [0, 0] and len(built) == 2
