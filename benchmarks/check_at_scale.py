@@ -112,12 +112,19 @@ def matern32_field(points: np.ndarray, lengthscale: float,
     return field * np.sqrt(2.0 / FEATURES)
 
 
+def synthetic_field(n: int, d: int, lengthscale: float, rng: np.random.Generator
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """n points uniform on [0, 1000]^d and their values 10 + f(x) + 0.1 e (module
+    docstring)."""
+    points = rng.uniform(0.0, 1000.0, size=(n, d))
+    values = 10.0 + matern32_field(points, lengthscale, rng) + 0.1 * rng.standard_normal(n)
+    return points, values
+
+
 def write_data(scenario: Scenario, folder: Path, seed: int) -> tuple[Path, list[str]]:
     """The scenario's CSV and the check's column options."""
-    rng = np.random.default_rng(seed)
-    points = rng.uniform(0.0, 1000.0, size=(scenario.n, scenario.d))
-    values = 10.0 + matern32_field(points, scenario.lengthscale, rng) \
-        + 0.1 * rng.standard_normal(scenario.n)
+    points, values = synthetic_field(scenario.n, scenario.d, scenario.lengthscale,
+                                     np.random.default_rng(seed))
     names = ["km"] if scenario.d == 1 else ["east_km", "north_km"]
     frame = pd.DataFrame(points, columns=names)
     frame["level"] = values

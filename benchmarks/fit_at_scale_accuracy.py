@@ -29,7 +29,7 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from check_at_scale import matern32_field  # noqa: E402
+from check_at_scale import synthetic_field  # noqa: E402
 from machine_unit import machine, measure_unit, write_run  # noqa: E402
 
 from harness.check import CheckOptions  # noqa: E402
@@ -83,8 +83,7 @@ def main(argv: list[str] | None = None) -> int:
     rows = []
     for seed in range(1, args.seeds + 1):
         rng = np.random.default_rng(1000 + seed)
-        x = rng.uniform(0.0, 1000.0, size=(args.n, 2))
-        y = 10.0 + matern32_field(x, 50.0, rng) + 0.1 * rng.standard_normal(args.n)
+        x, y = synthetic_field(args.n, 2, 50.0, rng)
         template = model_template(options, 2)
         t0 = time.perf_counter()
         fitted = fit_parameters(x, y, template, options, np.random.default_rng(seed),

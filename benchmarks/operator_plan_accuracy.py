@@ -38,7 +38,7 @@ import numpy as np
 import psutil
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from check_at_scale import matern32_field  # noqa: E402
+from check_at_scale import synthetic_field  # noqa: E402
 from co2_check import TreeMemory  # noqa: E402
 from machine_unit import machine, measure_unit, write_run  # noqa: E402
 
@@ -46,13 +46,6 @@ from machine_unit import machine, measure_unit, write_run  # noqa: E402
 TIME_FACTOR = 2.0
 MEMORY_FACTOR = 1.5
 PARAMETERS = {"variance": 1.0, "lengthscale": 50.0, "nugget": 0.01}
-
-
-def _data(n: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
-    rng = np.random.default_rng(seed)
-    points = rng.uniform(0.0, 1000.0, size=(n, 2))
-    values = 10.0 + matern32_field(points, 50.0, rng) + 0.1 * rng.standard_normal(n)
-    return points, values
 
 
 def _audit_data(points: np.ndarray, values: np.ndarray, seed: int):
@@ -73,7 +66,7 @@ def measure_size(n: int, *, repeats: int, seed: int) -> dict:
     from harness.check.check_options import CheckOptions
     from harness.check.cost_plan import plan_check
 
-    points, values = _data(n, seed)
+    points, values = synthetic_field(n, 2, 50.0, np.random.default_rng(seed))
     options = CheckOptions(fixed_params=dict(PARAMETERS), tolerances=(1e-6,), refit=False,
                            reference="operator")
     plan = plan_check(points, values, options, rng=np.random.default_rng(seed))

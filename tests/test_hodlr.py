@@ -677,7 +677,7 @@ def test_blocks_map_in_runs_of_enough_rows_in_order():
             return original(fn, runs)
 
         pool.executor.map = counted_map  # type: ignore[method-assign]
-        done = map_in_runs(pool.executor, work, range(len(rows)), rows=lambda k: rows[k])
+        done = map_in_runs(pool, work, range(len(rows)), rows=lambda k: rows[k])
     assert [v for _, v in done] == [2 * k for k in range(len(rows))]
     assert tasks[0] == (0, 1)  # the big block alone
     assert [length for _, length in tasks[1:]] == [8, 8, 8, 8, 3]

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from harness.linalg.probe_intervals import satterthwaite_dof, t_inflation
+from harness.linalg.probe_intervals import mean_standard_error, satterthwaite_dof, t_inflation
 
 
 def test_t_factor_is_the_t_quantile_of_the_normal_two_sd_level():
@@ -41,3 +41,12 @@ def test_satterthwaite_dof():
     np.testing.assert_allclose(satterthwaite_dof([np.array([1.0, 0.0]),
                                                   np.array([0.0, 0.0])], [15, 31]),
                                [15.0, math.inf])
+
+
+def test_mean_standard_error_is_the_t_stated_se_of_the_mean():
+    # Source: scipy.stats.sem (s / sqrt(k)) times scipy's t quantile at the normal 2-SD
+    # level over 2; one value has no SE (inf).
+    values = np.random.default_rng(5).standard_normal(16)
+    expected = stats.sem(values) * stats.t.ppf(stats.norm.cdf(2.0), 15) / 2.0
+    assert mean_standard_error(values) == pytest.approx(expected, rel=1e-12)
+    assert mean_standard_error(values[:1]) == math.inf

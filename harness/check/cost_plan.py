@@ -266,7 +266,7 @@ class _Sizes:
     m: int
     v: int
     mean_columns: int
-    line: bool = False          # 1D points, a half-integer Matern kernel
+    line: bool          # 1D points, a half-integer Matern kernel (``fit_plan.line_applies``)
 
     @property
     def t(self) -> int:
@@ -478,17 +478,20 @@ def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
 
 
 def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, lineup: Lineup,
-                  *, operator: bool, rng: np.random.Generator) -> Calibration:
+                  *, operator: bool, on_line: bool, rng: np.random.Generator) -> Calibration:
     """The calibration of a check: the built-in solvers under test at their tightest knob
     value and, when the plan takes the exact operator (``operator``), its preconditioner
     and the product rate. A plan without the operator never runs them, so it does not
     time them either: on a fresh install that would compile the product kernel, about
     13 s, for nothing. ``plan_check`` adds them to a calibration that lacks them when its
-    plan takes the operator (an alternative priced by ``budget_refusal``, for example)."""
+    plan takes the operator (an alternative priced by ``budget_refusal``, for example).
+    ``on_line``: the points and kernel are those of the exact fit on a line
+    (``fit_plan.line_applies``), whose Kalman pass is then timed unless the parameters are
+    fixed."""
     kernel = _kernel(points, y, options)
     solvers = {lined.given: (lined.solver, lined.values[-1], dict(lined.options))
                for lined in lineup.solvers if lined.solver.origin == "builtin"}
-    line = options.fixed_params is None and line_applies(int(points.shape[1]), kernel)
+    line = options.fixed_params is None and on_line   # the fit is the one on the line
     return calibrate(points, kernel, solvers=solvers,
                      preconditioner=_preconditioner(options) if operator else None, rng=rng,
                      line_mean=options.mean if line else None)
@@ -518,7 +521,8 @@ def _kernel(points: np.ndarray, y: np.ndarray, options: CheckOptions) -> Any:
                         points, y, mean=options.mean)
 
 
-def _sizes(points: np.ndarray, options: CheckOptions, n_params: int) -> _Sizes:
+def _sizes(points: np.ndarray, options: CheckOptions, n_params: int, *, line: bool
+           ) -> _Sizes:
     n, d = int(points.shape[0]), int(points.shape[1])
     try:
         m = holdout_size(n, options.holdout, cap=options.holdout_points)
@@ -527,7 +531,7 @@ def _sizes(points: np.ndarray, options: CheckOptions, n_params: int) -> _Sizes:
         raise CheckError(f"--{exc.option.replace('_', '-')}: {exc}") from None
     mean_columns = int(design_matrix(np.zeros((1, d)), options.mean).shape[1])
     return _Sizes(n=n, d=d, p=n_params, k=options.probes, m=m, v=v,
-                  mean_columns=mean_columns)
+                  mean_columns=mean_columns, line=line)
 
 
 def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
@@ -556,11 +560,11 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     lineup = line_up(options, n) if lineup is None else lineup
     template = model_template(options, d)
     on_line = line_applies(d, template)
-    sizes = replace(_sizes(points, options, template.n_params), line=on_line)
+    sizes = _sizes(points, options, template.n_params, line=on_line)
     kind, ref_warnings = reference_kind(options, points, template)
     if calibration is None:
         calibration = calibrate_for(points, y, options, lineup, operator=kind == "operator",
-                                    rng=rng if rng is not None
+                                    on_line=on_line, rng=rng if rng is not None
                                     else np.random.default_rng(options.seed))
     if kind == "operator":
         calibration = _with_operator_rates(calibration, points, y, options)

@@ -228,4 +228,3 @@ class StateSpaceEngine:
                 self._modified.add(np.asarray(theta, dtype=float).tobytes())
         return EngineEvaluation(loglik=loglik, score=score, fisher=information,
                                 seconds=time.perf_counter() - start)
-

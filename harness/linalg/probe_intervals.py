@@ -40,6 +40,16 @@ def t_inflation(dof: float | np.ndarray) -> float | np.ndarray:
     return float(factor) if factor.ndim == 0 else factor
 
 
+def mean_standard_error(values: np.ndarray) -> float:
+    """The stated SE of the mean of the probe ``values``: s / sqrt(k) times the t factor
+    of k - 1 degrees of freedom (module docstring); inf for fewer than 2 values."""
+    k = int(np.size(values))
+    if k < 2:
+        return math.inf
+    return (float(np.std(values, ddof=1)) / math.sqrt(k)
+            * float(t_inflation(k - 1)))
+
+
 def satterthwaite_dof(variances: Sequence[float | np.ndarray],
                       dofs: Sequence[float]) -> float | np.ndarray:
     """nu = (sum v_i)^2 / sum (v_i^2 / nu_i) (module docstring); a term with v_i = 0

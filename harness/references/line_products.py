@@ -204,4 +204,3 @@ class LineCrossProducts:
         padded = np.zeros((self.n + self.m,) + values.shape[1:])
         padded[:self.n] = values
         return self._union.matvec(padded)[self.n:]
-

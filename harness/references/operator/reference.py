@@ -61,7 +61,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from harness.linalg.probe_intervals import satterthwaite_dof, t_inflation
+from harness.linalg.probe_intervals import (
+    mean_standard_error,
+    satterthwaite_dof,
+    t_inflation,
+)
 from harness.linalg.rademacher import rademacher_probes
 from harness.model.evaluation import ModelEvaluation
 from harness.model.kernels import Kernel
@@ -420,10 +424,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                 trace_bounds.append(bounds_i)
                 probe_columns.append(z)
             probes += count
-            values = np.concatenate(logdet_samples)
-            if values.size > 1:
-                se_l = (0.5 * float(values.std(ddof=1)) / math.sqrt(values.size)
-                        * float(t_inflation(values.size - 1)))
+            se_l = 0.5 * mean_standard_error(np.concatenate(logdet_samples))
             if probes >= min_probes and se_l <= se_target:
                 break
         phases["probes"] = time.perf_counter() - t0
@@ -439,8 +440,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                        operator=op, bound_kind=bound_kind)
     values = np.concatenate(logdet_samples)
     logdet = pre_logdet + float(values.mean())
-    logdet_se = (float(values.std(ddof=1)) / math.sqrt(values.size)
-                 * float(t_inflation(values.size - 1)) if values.size > 1 else float("inf"))
+    logdet_se = mean_standard_error(values)
     converged = gls.converged and lanczos_ok
     if not lanczos_ok:
         messages.append(f"Lanczos did not converge within lanczos_steps = {lanczos_steps} "

@@ -128,8 +128,7 @@ def build_hodlr(entries: KernelEntries, tree: ClusterTree, *, tol: float,
     # jobs go coarse to fine: the workers take the largest blocks first (longest
     # processing time first), which balances the few big top-level blocks; the many
     # small blocks of the deep levels go in runs (``parallel.map_in_runs``).
-    with node_pool(threads) as nodes:
-        pool = None if nodes is None else nodes.executor
+    with node_pool(threads) as pool:
         lows = map_in_runs(pool, compress, jobs, rows=lambda job: job[3][1] - job[2][0])
         leaves = tuple(map_in_runs(
             pool, lambda j: entries.leaf(int(leaf_bounds[j]), int(leaf_bounds[j + 1]), scaled),

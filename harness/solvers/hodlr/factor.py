@@ -348,8 +348,7 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
     def rows(level: int) -> Callable[[int], int]:  # node j's rows at ``level``
         return lambda j: int(tree.bounds[level][j + 1] - tree.bounds[level][j])
 
-    with node_pool(threads) as nodes:
-        pool = None if nodes is None else nodes.executor
+    with node_pool(threads) as pool:
         leaf_out = map_in_runs(pool, leaf, range(leaf_b.shape[0] - 1), rows=rows(depth))
         node_out: list[list[tuple[NodeFactor, float]]] = [[] for _ in range(depth)]
         for level in range(depth - 1, 0, -1):
@@ -362,7 +361,8 @@ def factor_symmetric(hodlr: HodlrMatrix, *, tol: float, threads: int) -> Symmetr
             node_out[level] = map_in_runs(pool, level_node, range(len(ranks)),
                                           rows=rows(level))
         if depth:  # one node: on this thread, its two halves' bases on the pool
-            node_out[0] = [node(0, 0, hodlr.pairs[0][0].rank, pool)]
+            node_out[0] = [node(0, 0, hodlr.pairs[0][0].rank,
+                                None if pool is None else pool.executor)]
     logdet = sum(ld for _, ld in leaf_out) + sum(ld for lv in node_out for _, ld in lv)
     return SymmetricFactor(tree=tree, leaf_chol=tuple(c for c, _ in leaf_out), basis=basis,
                            offsets=offsets,

@@ -73,8 +73,8 @@ def for_each_node(pool: NodePool | None, work: Callable[[T], object],
     over_threads(walk, len(items), threads=pool.threads, pool=pool.executor)
 
 
-def map_in_runs(pool: ThreadPoolExecutor | None, work: Callable[[T], R], items: Sequence[T],
-                *, rows: Callable[[T], int]) -> list[R]:
+def map_in_runs(pool: NodePool | None, work: Callable[[T], R], items: Sequence[T], *,
+                rows: Callable[[T], int]) -> list[R]:
     """``[work(item) for item in items]``, the items cut into consecutive runs of at least
     ``MIN_TASK_ROWS`` rows (``rows(item)`` each), one task of ``pool`` per run; on the
     calling thread when ``pool`` is None. The results keep the items' order."""
@@ -89,6 +89,7 @@ def map_in_runs(pool: ThreadPoolExecutor | None, work: Callable[[T], R], items: 
             runs.append([])
             covered = 0
     done: list[R] = []
-    for part in pool.map(lambda run: [work(item) for item in run], [r for r in runs if r]):
+    for part in pool.executor.map(lambda run: [work(item) for item in run],
+                                  [r for r in runs if r]):
         done.extend(part)
     return done
