@@ -97,3 +97,26 @@ def test_param_alone_gives_a_whole_starting_point():
     theta = _start_from_params(template, data_scale(x, y, mean=options.mean), options)
     assert theta.shape == template.theta.shape
     assert theta[1] == pytest.approx(np.log(250.0))        # the given value, on log scale
+
+
+@pytest.mark.parametrize("verb", VERBS)
+def test_a_default_written_in_a_help_text_is_the_options_own(verb):
+    # a help text that writes "(default X)" by hand must name the value argparse holds:
+    # check --preconditioner once said "default vecchia" while its default was hodlr
+    import re
+
+    stated = 0
+    for action in _verb_parsers()[verb]._actions:
+        if action.default is None or action.default is argparse.SUPPRESS:
+            continue
+        for match in re.finditer(r"\(default ([^)]*)\)", action.help or ""):
+            word = re.split(r"[;,\s]", match.group(1).strip())[0].rstrip("/")
+            try:
+                same = float(word) == float(action.default)
+            except (TypeError, ValueError):
+                same = word == str(action.default)
+            assert same, (f"covaudit {verb} {action.option_strings[0]}: help says default "
+                          f"{word!r}, the option's default is {action.default!r}")
+            stated += 1
+    if verb == "check":
+        assert stated >= 4                      # the check's hand-written defaults are seen

@@ -159,9 +159,10 @@ def add_parser(subparsers: argparse._SubParsersAction) -> None:
                         "dense, statespace, operator, or ladder (extra evidence only)")
     p.add_argument("--preconditioner", type=PRECONDITIONER.argparse_type(),
                    default=PRECONDITIONER.default, metavar="{vecchia,hodlr}",
-                   help="the exact-operator reference's preconditioner: vecchia (its "
-                        "neighbour count chosen by a pilot on a subsample) or hodlr at tol "
-                        "1e-10 (default vecchia)")
+                   help="the exact-operator reference's preconditioner: hodlr at tol "
+                        "1e-10 or vecchia (its neighbour count chosen by a pilot on a "
+                        f"subsample; less memory, more iterations) (default "
+                        f"{PRECONDITIONER.default})")
     where = p.add_mutually_exclusive_group()
     where.add_argument("--dask-local", type=positive_int("--dask-local"), metavar="N",
                        default=None,
