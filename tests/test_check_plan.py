@@ -337,3 +337,63 @@ def test_the_line_fit_is_priced_from_a_timed_filter_pass():
     plane = plan_check(*_points(), CheckOptions(tolerances=(1e-4,), refit=False),
                        rng=np.random.default_rng(0))
     assert plane.calibration.line_pass_seconds_per_point is None
+
+
+def test_each_knob_value_is_priced_at_its_own_rate():
+    # A looser value is cheaper (HODLR on 65,536 scattered points: about 30 s per audit at
+    # tol 1e-6 against 70 s at 1e-8, benchmarks/results/check_at_scale_plane-65k.json);
+    # pricing every value at the tightest overstated the audits 2.6 times there. The
+    # audit stage is the seeds times the sum of the values' audits.
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    options = CheckOptions(fixed_params=fixed, tolerances=(1e-4, 1e-8), refit=False,
+                           solver_seeds=2)
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    rated = plan.calibration.value_rates["hodlr"]
+    assert [r.value for r in rated] == [1e-4, 1e-8]
+    assert rated[-1] == plan.calibration.solvers["hodlr"]
+    assert plan.calibration.to_dict()["value_rates"]["hodlr"][0]["value"] == 1e-4
+    audits = next(stage for stage in plan.stages if stage.stage == "audits")
+    assert "tol 0.0001 to 1e-08" in audits.detail
+
+    def audit_seconds(loose):
+        calibration = replace(plan.calibration, value_rates={"hodlr": (loose, rated[1])})
+        again = plan_check(x, y, options, calibration=calibration)
+        return next(stage for stage in again.stages if stage.stage == "audits").seconds
+
+    def scaled(factor):
+        return replace(rated[1], value=1e-4, factor_seconds=factor * rated[1].factor_seconds,
+                       solve_seconds_per_column=factor * rated[1].solve_seconds_per_column)
+
+    # unrated values fall back to the tightest, which is the tightest rated twice
+    unrated = plan_check(x, y, options, calibration=replace(plan.calibration, value_rates={}))
+    as_tight = next(stage for stage in unrated.stages if stage.stage == "audits").seconds
+    assert audit_seconds(rated[1]) == pytest.approx(as_tight, rel=1e-12)
+    # the loose value's solver share at 0, 1 and 10 times the tight one's: linear in it
+    free, same, tenfold = audit_seconds(scaled(0.0)), audit_seconds(scaled(1.0)), \
+        audit_seconds(scaled(10.0))
+    assert same == pytest.approx(as_tight, rel=1e-12) and free < same
+    assert tenfold - free == pytest.approx(10 * (same - free), rel=1e-9)
+    assert audits.seconds == pytest.approx(audit_seconds(rated[0]), rel=1e-12)
+
+
+def test_the_operator_stage_follows_the_measured_iteration_counts():
+    # The reference's products are its CG iterations and Lanczos steps, measured on a
+    # window of the data (harness.references.operator.iteration_counts): with every
+    # count doubled the stage's product time grows, and the detail names the counts.
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    options = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), reference="operator",
+                           refit=False)
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    counts = plan.calibration.operator_counts
+    assert counts is not None and counts.converged and counts.cg_iterations >= 1
+    assert plan.calibration.to_dict()["operator_iterations"]["n"] == counts.n
+    reference = next(stage for stage in plan.stages if stage.stage == "reference")
+    assert f"about {counts.cg_iterations} CG iterations" in reference.detail
+    more = replace(counts, cg_iterations=2 * counts.cg_iterations + 5,
+                   lanczos_steps=2 * counts.lanczos_steps + 5)
+    slower = plan_check(x, y, options, calibration=replace(plan.calibration,
+                                                           operator_counts=more))
+    assert next(stage for stage in slower.stages
+                if stage.stage == "reference").seconds > reference.seconds

@@ -280,7 +280,7 @@ def pilot_neighbours(points: np.ndarray, kernel: Kernel, *, rng: np.random.Gener
         raise ValueError("pilot_neighbours: no candidate neighbour counts")
     s = min(int(pilot_points), max(n // 4, min(n, PILOT_MIN_POINTS)))
     start = time.perf_counter()
-    pick = _local_window(x, s, rng)
+    pick = local_window(x, s, rng)
     xs = x[pick]
     usable = [int(m) for m in candidates if int(m) < s - 1] or [min(int(m) for m in candidates)]
     _warm_up(xs, kernel, min(usable))
@@ -335,7 +335,7 @@ def pilot_neighbours(points: np.ndarray, kernel: Kernel, *, rng: np.random.Gener
                           seconds=time.perf_counter() - start)
 
 
-def _local_window(points: np.ndarray, size: int, rng: np.random.Generator) -> np.ndarray:
+def local_window(points: np.ndarray, size: int, rng: np.random.Generator) -> np.ndarray:
     """Indices of the ``size`` points nearest a point drawn at random (all when ``size``
     is n): a window keeps the data's local density, against which Vecchia's accuracy is
     set, where a thinned random subsample would make every factor look more accurate."""

@@ -64,11 +64,12 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   certificates (an L L' product of n^3 / 3 flops each) and the derivative products,
   p n^2 / A + 2 p n^2 (k + 1) / R; operator, the preconditioners plus
   ``operator_evaluation_seconds`` (``harness.references.operator.product_cost``: each
-  product call priced at its width) for the log-likelihood and score, and for kriging
-  10 product calls at t points for the mean (1 + q columns) and for each block of at most
-  64 variance points;
-- one audit: the solver's factorization at n and at t (at its tightest knob value, so
-  an upper estimate for the looser ones) and its solves with p (2k + 1) + 1 + 2 v
+  product call priced at its width, with the CG iterations and Lanczos steps measured
+  on a window of the data, ``Calibration.operator_counts``) for the log-likelihood and
+  score, and for kriging, CG at t points (its iterations + 2 product calls) for the mean
+  (1 + q columns) and for each block of at most 64 variance points;
+- one audit at each knob value: the solver's factorization at n and at t (at that
+  value, ``Calibration.value_rates``) and its solves with p (2k + 1) + 1 + 2 v
   right-hand sides (against the state-space reference, whose exact control replaces the
   solver's own traces, 2k + 2 + q + v / 2), plus m t cross-covariance entries and,
   against the dense reference, the exact KL divergence's n^2 entries and n solves;
@@ -102,6 +103,7 @@ from harness.check.plan_calibration import (
     Calibration,
     SolverRate,
     calibrate,
+    operator_iteration_counts,
     product_cost,
     rate_solver,
 )
@@ -138,8 +140,6 @@ KRIGING_BLOCK = 64
 VALUE_PROBES = 64
 #: Rows per block of the dense reference's derivative products (``harness.audit.sides``).
 DERIVATIVE_ROWS = 1024
-#: CG steps of one operator solve assumed by ``product_cost`` (its default).
-OPERATOR_STEPS = 8
 #: Probes per block of the operator reference (``operator_evaluate``'s default).
 OPERATOR_PROBE_BATCH = 16
 #: Probes the operator reference is priced at: ``operator_evaluate``'s ``min_probes``,
@@ -369,16 +369,21 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
         if cal.product_cost is None:
             raise ValueError("an operator reference's plan needs the product cost in its "
                              "calibration")
-        cost = cal.product_cost
+        cost, counts = cal.product_cost, cal.operator_counts
+        if counts is None:
+            raise ValueError("an operator reference's plan needs the operator's iteration "
+                             "counts in its calibration")
+        cg, calls = counts.cg_iterations, counts.cg_iterations + 2
         variance_blocks = [min(KRIGING_BLOCK, s.v - start)
                            for start in range(0, s.v, KRIGING_BLOCK)]
         seconds = (PRECONDITIONER_PASSES * pre.seconds_at(s.n) + pre.seconds_at(s.t)
                    + operator_evaluation_seconds(s.n, cost, n_params=s.p,
                                                  mean_columns=s.mean_columns, probes=probes,
                                                  probe_batch=OPERATOR_PROBE_BATCH,
-                                                 steps=OPERATOR_STEPS)
-                   + cost.product_seconds(s.t, 1 + s.mean_columns, calls=OPERATOR_STEPS + 2)
-                   + sum(cost.product_seconds(s.t, width, calls=OPERATOR_STEPS + 2)
+                                                 steps=cg,
+                                                 lanczos_steps=counts.lanczos_steps)
+                   + cost.product_seconds(s.t, 1 + s.mean_columns, calls=calls)
+                   + sum(cost.product_seconds(s.t, width, calls=calls)
                          for width in variance_blocks))
         block = 8 * s.n * (1 + s.p) * probes + 8 * DEFAULT_TILE ** 2
         # one preconditioner at a time: all points', then the conditioning points'
@@ -386,7 +391,9 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
         return StagePlan("reference", seconds, int(held) + block,
                          f"exact operator, preconditioned by {options.preconditioner} "
                          f"({pre.knob} {pre.value:g}), {probes} probes (more if its SE "
-                         "target needs them)")
+                         f"target needs them), about {cg} CG iterations and "
+                         f"{counts.lanczos_steps} Lanczos steps per solve (measured on "
+                         f"{counts.n:,} points)")
     if kind in ("statespace", "kronecker"):
         return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
                          8 * s.n * (32 if kind == "statespace" else 8),
@@ -420,17 +427,27 @@ def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptio
     # the means' cross-covariance tiles; on a line one exact O(n) product instead
     # (harness.references.line_products.LineCrossProducts)
     cross = 0.0 if s.line else s.m * s.t / cal.assembly_entries_per_second
-    seconds = (rate.seconds_at(s.n) + rate.seconds_at(s.t)
-               + rate.solve_seconds_at(s.n, columns) + cross)
+
+    def one_audit(at: SolverRate) -> float:
+        seconds = (at.seconds_at(s.n) + at.seconds_at(s.t)
+                   + at.solve_seconds_at(s.n, columns) + cross)
+        if kind == "dense":
+            seconds += (s.n * s.n / cal.assembly_entries_per_second
+                        + at.solve_seconds_at(s.n, s.n))
+        return seconds
+
+    # each knob value at its own rate (the tightest alone when the values were not rated)
+    by_value = cal.value_rates.get(lined.given) or (rate,) * values
+    each = [one_audit(at) for at in by_value]
     full = rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, k)
     if kind == "dense":
-        seconds += (s.n * s.n / cal.assembly_entries_per_second
-                    + rate.solve_seconds_at(s.n, s.n))
         full += 2 * 8 * s.n * KL_BLOCK
     train = rate.nbytes_at(s.t) + 3 * 8 * s.t * KRIGING_BLOCK
-    return StagePlan("audits", values * seeds * seconds, max(full, train),
-                     f"{values} knob values x {seeds} seeds of {lined.given!r}, "
-                     f"{seconds:.3g} s each at most ({rate.knob} {rate.value:g})",
+    span = (f"{each[0]:.3g} s" if len(each) == 1 else
+            f"{min(each):.3g} to {max(each):.3g} s")
+    return StagePlan("audits", seeds * sum(each), max(full, train),
+                     f"{values} knob values x {seeds} seeds of {lined.given!r}, {span} each "
+                     f"({rate.knob} {by_value[0].value:g} to {rate.value:g})",
                      solver=lined.given, values=values, seeds=seeds)
 
 
@@ -479,17 +496,17 @@ def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:
 
 def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, lineup: Lineup,
                   *, operator: bool, on_line: bool, rng: np.random.Generator) -> Calibration:
-    """The calibration of a check: the built-in solvers under test at their tightest knob
-    value and, when the plan takes the exact operator (``operator``), its preconditioner
-    and the product rate. A plan without the operator never runs them, so it does not
-    time them either: on a fresh install that would compile the product kernel, about
-    13 s, for nothing. ``plan_check`` adds them to a calibration that lacks them when its
-    plan takes the operator (an alternative priced by ``budget_refusal``, for example).
-    ``on_line``: the points and kernel are those of the exact fit on a line
-    (``fit_plan.line_applies``), whose Kalman pass is then timed unless the parameters are
-    fixed."""
+    """The calibration of a check: the built-in solvers under test at each of their knob
+    values and, when the plan takes the exact operator (``operator``), its preconditioner,
+    the product rate and the operator's iteration counts. A plan without the operator
+    never runs them, so it does not time them either: on a fresh install that would
+    compile the product kernel, about 13 s, for nothing. ``plan_check`` adds them to a
+    calibration that lacks them when its plan takes the operator (an alternative priced
+    by ``budget_refusal``, for example). ``on_line``: the points and kernel are those of
+    the exact fit on a line (``fit_plan.line_applies``), whose Kalman pass is then timed
+    unless the parameters are fixed."""
     kernel = _kernel(points, y, options)
-    solvers = {lined.given: (lined.solver, lined.values[-1], dict(lined.options))
+    solvers = {lined.given: (lined.solver, tuple(lined.values), dict(lined.options))
                for lined in lineup.solvers if lined.solver.origin == "builtin"}
     line = options.fixed_params is None and on_line   # the fit is the one on the line
     return calibrate(points, kernel, solvers=solvers,
@@ -499,20 +516,27 @@ def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, line
 
 def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.ndarray,
                          options: CheckOptions) -> Calibration:
-    """``calibration`` with the operator's rates for ``options``: its preconditioner (rated
-    here unless the calibration rated this one) and the product rate."""
+    """``calibration`` with the operator's rates for ``options``: its preconditioner and
+    iteration counts (measured here unless the calibration rated this preconditioner) and
+    the product rate."""
     solvers, products = calibration.solvers, calibration.product_cost
+    counts = calibration.operator_counts
     rated = solvers.get("preconditioner")
-    solver, value, solver_options = _preconditioner(options)
-    if rated is not None and rated.name == solver.name and products is not None:
+    preconditioner = _preconditioner(options)
+    solver, value, solver_options = preconditioner
+    same = rated is not None and rated.name == solver.name
+    if same and products is not None and counts is not None:
         return calibration
     kernel, rng = _kernel(points, y, options), np.random.default_rng(options.seed)
-    if rated is None or rated.name != solver.name:
+    if not same:
         solvers = {**solvers, "preconditioner": rate_solver(
             solver, value, points, kernel, options=solver_options, rng=rng)}
+    if not same or counts is None:
+        counts = operator_iteration_counts(points, kernel, preconditioner, rng=rng)
     if products is None:
         products = product_cost(kernel, int(points.shape[1]), rng=rng)
-    return replace(calibration, solvers=solvers, product_cost=products)
+    return replace(calibration, solvers=solvers, product_cost=products,
+                   operator_counts=counts)
 
 
 def _kernel(points: np.ndarray, y: np.ndarray, options: CheckOptions) -> Any:

@@ -32,7 +32,15 @@ each a fraction of a second:
 - the exact operator reference, when the plan takes it: exact block products at two
   widths and the derivative products (``harness.references.operator.measure_product_cost``:
   a product's kernel entries cost the same at any width, so one column rate would
-  misprice blocks of another width) and its preconditioner as a ``SolverRate``.
+  misprice blocks of another width), its preconditioner as a ``SolverRate``, and its
+  preconditioned CG iterations and Lanczos steps on a window of the data
+  (``harness.references.operator.iteration_counts``: they set how many products the
+  reference makes, and they stay about the same at n).
+
+Each built-in solver is rated at every knob value of the check, not only the tightest:
+a looser value is cheaper (HODLR on 65,536 scattered points took about 30 s per audit at
+tol 1e-6 and 70 s at tol 1e-8, ``benchmarks/results/check_at_scale_plane-65k.json``), and
+pricing every value at the tightest overstated the audits 2.6 times there.
 
 Randomness only through the ``rng`` passed in; the clock is ``time.perf_counter``.
 """
@@ -53,6 +61,7 @@ from harness.model.kernels import Kernel
 from harness.solvers.registry import ResolvedSolver
 
 if TYPE_CHECKING:
+    from harness.references.operator.iteration_counts import IterationCounts
     from harness.references.operator.product_cost import ProductCost
 
 #: The project's time unit: one dpotrf at this n, in the same run.
@@ -71,8 +80,14 @@ SOLVE_COLUMNS = 64
 #: Points of the timed Kalman-filter pass (``line_pass_rate``).
 LINE_PASS_N = 4096
 #: Points of the timed exact products (``product_cost``): enough for the products'
-#: tiles to run near their large-n rate (a product of 64 columns takes about 0.06 s here).
-PRODUCT_N = 4096
+#: tiles to run at their large-n rate. Development measurement (2D Matern 3/2, 2 cores),
+#: nanoseconds per kernel entry of a product of 1 and 64 columns: 2.5 and 3.7 at 4,096
+#: points, 1.4 and 3.2 at 8,192, 1.3 and 3.1 at 16,384 and 32,768 (the 64-column product
+#: takes about 0.2 s at 8,192 points).
+PRODUCT_N = 8192
+#: Points of the window on which the operator's iteration counts are measured
+#: (``operator_iteration_counts``).
+OPERATOR_WINDOW_N = 2048
 #: The width at which the plan's JSON states a column rate (``product_columns_per_second``,
 #: kept for scripts that read it): the operator's probe batch.
 PRODUCT_REPORT_WIDTH = 16
@@ -146,10 +161,15 @@ class Calibration:
     assembly_entries_per_second : float
         Kernel entries of Sigma assembled per second.
     solvers : mapping of str to SolverRate
-        By the solver's spelling as given to ``--solver`` (built-in solvers only), and
-        ``"preconditioner"`` for the operator reference's.
+        By the solver's spelling as given to ``--solver`` (built-in solvers only), at its
+        tightest knob value, and ``"preconditioner"`` for the operator reference's.
+    value_rates : mapping of str to tuple of SolverRate
+        By the same spelling, one rate per knob value of the check, loosest first.
     product_cost : ProductCost or None
         The cost of exact products by width (the operator reference only).
+    operator_counts : IterationCounts or None
+        The operator's preconditioned CG iterations and Lanczos steps, measured on a
+        window of ``OPERATOR_WINDOW_N`` points (the operator reference only).
     line_pass_seconds_per_point : float or None
         Seconds per point of one Kalman-filter pass with the score (the exact fit on a
         line only).
@@ -165,7 +185,9 @@ class Calibration:
     probe_seconds: float
     assembly_entries_per_second: float
     solvers: Mapping[str, SolverRate] = field(default_factory=dict)
+    value_rates: Mapping[str, tuple[SolverRate, ...]] = field(default_factory=dict)
     product_cost: ProductCost | None = None
+    operator_counts: IterationCounts | None = None
     line_pass_seconds_per_point: float | None = None
     seconds: float = 0.0
     runtime_bytes: int = 0
@@ -182,11 +204,15 @@ class Calibration:
                          "probe_seconds": self.probe_seconds},
                 "assembly_entries_per_second": self.assembly_entries_per_second,
                 "solvers": {k: v.to_dict() for k, v in self.solvers.items()},
+                "value_rates": {k: [rate.to_dict() for rate in v]
+                                for k, v in self.value_rates.items()},
                 "product_columns_per_second": (
                     None if self.product_cost is None
                     else self.product_cost.column_rate(PRODUCT_REPORT_WIDTH)),
                 "product_cost": (None if self.product_cost is None
                                  else self.product_cost.to_dict()),
+                "operator_iterations": (None if self.operator_counts is None
+                                        else self.operator_counts.to_dict()),
                 "line_pass_seconds_per_point": self.line_pass_seconds_per_point,
                 "seconds": self.seconds, "runtime_bytes": self.runtime_bytes}
 
@@ -260,8 +286,27 @@ def line_pass_rate(points: np.ndarray, kernel: Kernel, *, mean: str,
     return (time.perf_counter() - start) / m
 
 
+def operator_iteration_counts(points: np.ndarray, kernel: Kernel,
+                              preconditioner: tuple[ResolvedSolver, float, Mapping[str, Any]],
+                              *, rng: np.random.Generator) -> IterationCounts:
+    """The operator's preconditioned CG iterations and Lanczos steps on the
+    ``OPERATOR_WINDOW_N`` points nearest a point drawn from ``rng`` (at most n): a window
+    keeps the data's density, which sets Sigma's conditioning
+    (``harness.references.operator.iteration_counts``), with the preconditioner the
+    reference will build, factorized on the window."""
+    from harness.audit.operator_preconditioner import local_window
+    from harness.references.operator.iteration_counts import measure_iteration_counts
+
+    solver, value, options = preconditioner
+    window = points[local_window(points, min(OPERATOR_WINDOW_N, int(points.shape[0])), rng)]
+    factor = solver.factorize(window, kernel, kernel.theta,
+                              **(solver.knob.arguments(value) | dict(options)))
+    return measure_iteration_counts(window, kernel, factor, rng=rng)
+
+
 def calibrate(points: np.ndarray, kernel: Kernel, *,
-              solvers: Mapping[str, tuple[ResolvedSolver, float | None, Mapping[str, Any]]],
+              solvers: Mapping[str, tuple[ResolvedSolver, tuple[float | None, ...],
+                                          Mapping[str, Any]]],
               preconditioner: tuple[ResolvedSolver, float, Mapping[str, Any]] | None,
               rng: np.random.Generator, line_mean: str | None = None) -> Calibration:
     """The plan's rates (module docstring).
@@ -273,7 +318,8 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
     kernel : Kernel
         The model before the fit (``harness.check.plugin_guard.trial_kernel``).
     solvers : mapping
-        Built-in solvers to time, by spelling: (solver, tightest knob value, options).
+        Built-in solvers to time, by spelling: (solver, its knob values loosest first,
+        options); each value is rated, the last (the tightest) also as the solver's rate.
     preconditioner : tuple or None
         The operator reference's preconditioner (solver, knob value, options), or None
         when the plan takes no operator reference.
@@ -289,21 +335,23 @@ def calibrate(points: np.ndarray, kernel: Kernel, *,
     # The solvers before the dense fill: on a cold cache the solvers' kernels compile
     # here while ``harness.check.compile_ahead`` compiles the fill on the other core
     sizes = LINE_CALIBRATION_SIZES if d == 1 else CALIBRATION_SIZES
-    rates = {given: rate_solver(solver, value, points, kernel, options=options, rng=rng,
-                                sizes=sizes)
-             for given, (solver, value, options) in solvers.items()}
+    value_rates = {given: tuple(rate_solver(solver, value, points, kernel, options=options,
+                                            rng=rng, sizes=sizes) for value in values)
+                   for given, (solver, values, options) in solvers.items()}
+    rates = {given: by_value[-1] for given, by_value in value_rates.items()}
     assembly = assembly_rate(kernel, d, rng=rng)
-    products = None
+    products = counts = None
     if preconditioner is not None:
         solver, value, options = preconditioner
         rates["preconditioner"] = rate_solver(solver, value, points, kernel,
                                               options=options, rng=rng)
         products = product_cost(kernel, d, rng=rng)
+        counts = operator_iteration_counts(points, kernel, preconditioner, rng=rng)
     line_rate = (None if line_mean is None
                  else line_pass_rate(points, kernel, mean=line_mean, rng=rng))
     return Calibration(unit_seconds=probe_seconds * (UNIT_N / PROBE_N) ** 3,
                        probe_n=PROBE_N, probe_seconds=probe_seconds,
                        assembly_entries_per_second=assembly, solvers=rates,
-                       product_cost=products,
-                       line_pass_seconds_per_point=line_rate,
+                       value_rates=value_rates, product_cost=products,
+                       operator_counts=counts, line_pass_seconds_per_point=line_rate,
                        seconds=time.perf_counter() - start, runtime_bytes=runtime)

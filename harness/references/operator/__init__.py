@@ -18,7 +18,8 @@ Modules, one concern each:
 - ``score_traces``: tr(Sigma^-1 Sigma_i) as the preconditioner's trace plus a correction;
 - ``reference``: ``operator_evaluate`` -> ``OperatorEvaluation``;
 - ``operator_kriging``: kriging mean and variance by CG;
-- ``product_cost``: the time of an evaluation from a measured product rate.
+- ``product_cost``: the time of an evaluation from a measured product rate;
+- ``iteration_counts``: the preconditioned CG and Lanczos counts on a window of the data.
 
 Usage::
 

@@ -145,17 +145,21 @@ def measure_product_cost(kernel: Kernel, *, dimension: int = 2, n: int = 2048,
 def operator_evaluation_seconds(n: int, cost: ProductCost, *, n_params: int = 3,
                                 mean_columns: int = 0, probes: int = 16,
                                 probe_batch: int = 16, steps: int = 8,
+                                lanczos_steps: int | None = None,
                                 score: bool = True) -> float:
     """Predicted seconds of the products of one ``operator_evaluate`` at n points, each
     call priced at its width (module docstring), with the counts of
     ``predicted_column_products``: CG for [y, F], ``steps`` + 2 calls of 2 + q columns;
-    per batch of at most ``probe_batch`` probes, Lanczos ``steps`` + 1 calls and, with the
-    score, CG ``steps`` + 2 calls and one derivative product; with the score, one
-    derivative product of the 1 + q GLS columns."""
+    per batch of at most ``probe_batch`` probes, Lanczos ``lanczos_steps`` + 1 calls
+    (``steps`` when None) and, with the score, CG ``steps`` + 2 calls and one derivative
+    product; with the score, one derivative product of the 1 + q GLS columns. The counts
+    measured on a window of the data (``iteration_counts``) make the estimate a
+    prediction."""
+    lanczos = steps if lanczos_steps is None else lanczos_steps
     seconds = cost.product_seconds(n, 2 + mean_columns, calls=steps + 2)
     batches = [min(probe_batch, probes - start) for start in range(0, probes, probe_batch)]
     for width in batches:
-        seconds += cost.product_seconds(n, width, calls=steps + 1)
+        seconds += cost.product_seconds(n, width, calls=lanczos + 1)
         if score:
             seconds += (cost.product_seconds(n, width, calls=steps + 2)
                         + cost.derivative_seconds(n, width, n_params))

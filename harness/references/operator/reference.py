@@ -72,7 +72,12 @@ from harness.model.kernels import Kernel
 from harness.model.mean import design_matrix
 from harness.references.operator.lanczos import IndefiniteOperatorError, slq_logdet
 from harness.references.operator.operator_gls import RankDeficientDesignError, gls_by_cg
-from harness.references.operator.pcg import PreconditionerError, lambda_min_estimate, pcg
+from harness.references.operator.pcg import (
+    BlockMap,
+    PreconditionerError,
+    lambda_min_estimate,
+    pcg,
+)
 from harness.references.operator.products import KernelOperator
 from harness.references.operator.rounding import (
     ENTRY_ULPS,
@@ -230,7 +235,7 @@ class OperatorEvaluation:
             seconds=dict(self.phases), notes=notes)
 
 
-def _sqrt_maps(preconditioner: Factorization):
+def sqrt_maps(preconditioner: Factorization) -> tuple[BlockMap, BlockMap] | None:
     """(W^-1, W^-T) of the preconditioner, or None when it exposes no symmetric factor."""
     solve_sqrt = getattr(preconditioner, "solve_sqrt", None)
     apply_sqrt = getattr(preconditioner, "apply_sqrt", None)
@@ -341,12 +346,12 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
             return 0.1 * ritz * lambda_min_estimate(precondition, n, rng=lam_rng)
 
     pre_logdet = float(preconditioner.logdet())
-    sqrt_maps = _sqrt_maps(preconditioner)
+    maps = sqrt_maps(preconditioner)
     if not math.isfinite(pre_logdet):
         messages.append(f"preconditioner log det is {pre_logdet!r}: not positive definite")
         return _failed(n, model, mean=mean, reml=reml, messages=messages, start=start,
                        operator=op, bound_kind=bound_kind)
-    if sqrt_maps is None:
+    if maps is None:
         messages.append("preconditioner has no symmetric factor (solve_sqrt/apply_sqrt): "
                         "log det by unpreconditioned Lanczos on Sigma")
         pre_logdet = 0.0
@@ -354,7 +359,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         def apply_c(v: np.ndarray) -> np.ndarray:
             return op.matvec(v)
     else:
-        w_inv, w_inv_t = sqrt_maps
+        w_inv, w_inv_t = maps
 
         def apply_c(v: np.ndarray) -> np.ndarray:
             out = w_inv(op.matvec(np.asarray(w_inv_t(v)).reshape(v.shape)))
@@ -452,7 +457,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         probe_se=probe_se, widths=np.concatenate(width_samples), radau_node=radau_node,
         cg_bound=float(gls.bound), bound_kind=bound_kind, dot_bound=float(gls.dot_rounding),
         q_round=q_round, logdet_entry=ld_entry, pivots=pivot_logdet_se(n)
-        if sqrt_maps is not None else 0.0,
+        if maps is not None else 0.0,
         combination=UNIT_ROUNDOFF * 2.0 * (abs(gls.quadratic) + abs(pre_logdet)
                                            + abs(logdet - pre_logdet) + n * LOG_2PI))
     loglik_se = math.sqrt(sum(float(t["value"]) ** 2 for t in terms.values()
