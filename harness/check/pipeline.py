@@ -10,7 +10,10 @@
    installed) that applies, the ladder with a warning when none does; ``dense``,
    ``statespace`` and ``operator`` ask for one kind; ``ladder`` (the solver at tol /
    ``ladder_factor``, a single ``tol`` solver only) is extra evidence only, verdicts at
-   best unresolved.
+   best unresolved. An at-scale estimate that is the Vecchia MLE (no exact refinement
+   fitted the budget) gets its distance to the exact MLE from a value reference's exact
+   score at the estimate (``harness.check.exact_distance``): in the fit's record and
+   the notes, and a warning when it is measurably beyond the fit's tolerance.
 3. For each solver (``harness.check.solver_lineup``: ``--solver`` repeatable, ``--sweep``
    its knob values), the audit engine (``harness.audit.engine.audit_tolerances``): every
    knob value on ``solver_seeds`` seeds of its randomness; likelihood and score metrics
@@ -70,6 +73,7 @@ from harness.check.check_options import (
 from harness.check.check_records import CheckResult, ToleranceResult
 from harness.check.check_state import CheckState
 from harness.check.data_checks import ValidatedData
+from harness.check.exact_distance import BEYOND, ExactDistance, exact_distance
 from harness.check.fit_stage import FitOutcome, fit_parameters, fixed_parameters, model_template
 from harness.check.fitting import standard_errors
 from harness.check.frontier import FrontierPick
@@ -86,6 +90,7 @@ from harness.check.refit import isolated_refit, refit_with_solver
 from harness.check.solver_audit import SolverAudit, audit_solver, trial_before_fit
 from harness.check.solver_lineup import line_up
 from harness.check.solver_timing import PointTiming, Stopwatch, timing_machine
+from harness.check.vecchia_fit import REFINE_TOL_SE
 from harness.infra.option_specs import LADDER_FACTOR, SOLVER_SEEDS, TIMING_REPEATS, TOLERANCE
 from harness.model.kernels import Kernel
 
@@ -357,6 +362,15 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
               else reference.sides(lined.values[-1]).full.loglik)
     if fitted.fit is not None and fitted.fit.engine in ("dense", "statespace"):
         loglik = fitted.fit.loglik            # exact at the estimate
+    fit_info = dict(fitted.info)
+    distance = _distance_to_exact_mle(fitted, reference)
+    if distance is not None:
+        fit_info["exact_distance"] = distance.to_dict()
+        notes.append(distance.sentence())
+        if distance.status == BEYOND:
+            warnings.append("the fit's estimate (the Vecchia MLE) is measurably more than "
+                            f"{distance.tolerance_se:g} SE from the exact MLE: "
+                            + distance.sentence())
     return CheckResult(
         source=source, n=data.n, n_fit=int(y.size), n_holdout=int(hold.size),
         d=int(x.shape[1]), coord_system=data.coord_system, kernel=kernel.family,
@@ -364,7 +378,7 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
         se={"log": dict(zip(kernel.param_names, se.log_se.tolist(), strict=True)),
             "natural": se.natural_se, "microergodic": se.microergodic,
             "microergodic_se": se.microergodic_se, "nu": se.nu},
-        loglik=float(loglik), reference=kind, fit=fitted.info, tolerances=tuple(rows),
+        loglik=float(loglik), reference=kind, fit=fit_info, tolerances=tuple(rows),
         recommended_tolerance=rec.tol if knob.is_tol else None,
         recommended_knob=None if rec.tol is None else {"solver": solver.name,
                                                        "name": knob.name, "value": rec.tol},
@@ -383,6 +397,25 @@ def _result(data: ValidatedData, options: CheckOptions, primary: SolverAudit,
         solver_failures=tuple(solver_failures), solvers=tuple(entries),
         frontier=pick.to_dict(),
         score_probes=int(getattr(reference, "probes", options.probes)))
+
+
+def _distance_to_exact_mle(fitted: FitOutcome, reference: PairedReference | ValueReference
+                           ) -> ExactDistance | None:
+    """The at-scale fit's distance to the exact MLE from the value reference's exact
+    score at the estimate (``harness.check.exact_distance``); None unless the estimate is
+    an unrefined Vecchia MLE and the reference gives a finite score with its SE."""
+    fit = fitted.fit
+    if fit is None or fit.engine != "vecchia" or len(fit.stages) > 1 \
+            or not isinstance(reference, HasValues):
+        return None
+    values = reference.values()
+    try:
+        return exact_distance(values.score, values.score_se, fitted.fisher,
+                              param_names=tuple(fitted.kernel.param_names),
+                              tolerance_se=REFINE_TOL_SE,
+                              probes=int(getattr(reference, "probes", 0)))
+    except ValueError:
+        return None
 
 
 def _holdout_info(reference: PairedReference | ValueReference, tol: float, y: np.ndarray,

@@ -20,8 +20,10 @@ exact MLE with the exact score.
    ``fisher_steps.free_step``. It stops when the estimated distance to the exact MLE,
    sqrt(s' B s) in SE units (a bound on every parameter's |s_i| / SE_i), is at most
    ``REFINE_TOL_SE``. Beyond the budget the refinement is not done (an
-   exact-operator score is not implemented here) and the record says so: the estimate
-   is then the Vecchia MLE.
+   exact-operator score per step would cost a whole reference stage each) and the
+   record says so: the estimate is then the Vecchia MLE, and the check measures its
+   distance to the exact MLE from its reference's exact score at the estimate
+   (``harness.check.exact_distance``).
 
 Why ``FIT_NEIGHBOURS`` = 40: the Vecchia pass costs O(n m^2) with m nonzeros per column
 of the inverse Cholesky factor; a fixed count of nearest earlier points keeps m bounded
@@ -228,7 +230,8 @@ def fit_at_scale(points: np.ndarray, y: np.ndarray, template: Kernel, *, mean: s
                       f"{y.size:,} is over the memory budget, and a refinement against "
                       "the exact operator is not implemented; the estimate is the "
                       f"Vecchia MLE at neighbours = {neighbours}, its distance to the "
-                      "exact MLE not measured")
+                      "exact MLE measured at the reference when the reference gives an "
+                      "exact score")
     elif deadline is not None and time.monotonic() > deadline:
         refinement = ("not done: the fit's time budget was spent by the Vecchia pilot; "
                       "the estimate is the Vecchia MLE")
