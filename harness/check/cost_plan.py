@@ -95,7 +95,13 @@ from harness.audit.audit_sampling import HoldoutSizeError, holdout_size, varianc
 from harness.audit.operator_preconditioner import HODLR_TOL, PILOT_CANDIDATES
 from harness.audit.solver_seeds import seed_option
 from harness.check.check_options import CheckError, CheckOptions
-from harness.check.fit_plan import DENSE_FIT_MAX_N, FitPlan, line_applies, plan_fit
+from harness.check.fit_plan import (
+    DENSE_FIT_MAX_N,
+    FitPlan,
+    line_applies,
+    plan_fit,
+    plan_fixed_fisher,
+)
 from harness.check.fit_stage import model_template
 from harness.check.frontier_table import timing_repeats
 from harness.check.plan_calibration import (
@@ -210,6 +216,9 @@ class CostPlan:
     memory_budget: int
     calibration: Calibration
     notes: tuple[str, ...] = field(default_factory=tuple)
+    #: With --fixed-params (``fit`` None): where the Fisher information at them is
+    #: computed (``fit_plan.plan_fixed_fisher``).
+    fixed_fisher: FitPlan | None = None
 
     @property
     def peak_stage(self) -> StagePlan:
@@ -248,6 +257,8 @@ class CostPlan:
             "reference_warnings": list(self.reference_warnings),
             "n_holdout": self.n_holdout, "n_variance_points": self.n_variance_points,
             "fit": None if self.fit is None else self.fit.to_dict(),
+            "fixed_fisher": (None if self.fixed_fisher is None
+                             else self.fixed_fisher.to_dict()),
             "stages": [s.to_dict(unit) for s in self.stages],
             "base_bytes": self.base_bytes, "peak_bytes": self.peak_bytes,
             "resident_bytes": self.resident_bytes,
@@ -292,18 +303,41 @@ def _budget(options: CheckOptions) -> int:
             else int(options.memory_budget))
 
 
-def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calibration,
-               tight: SolverRate | None) -> StagePlan:
-    budget = options.fit_time_budget
-    if fit is None and tight is not None and dense_bytes_needed(
-            s.n, fisher=True, n_params=s.p) > _budget(options):
-        return StagePlan("fit", tight.seconds_at(s.n) + tight.solve_seconds_at(
-            s.n, s.p * (2 * s.k + 1) + 1), tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
-            "fixed parameters: the Fisher information by Hutch++ at the tightest tolerance")
-    if fit is None:  # --fixed-params: the dense Fisher information at them
+def _vecchia_pass_seconds(s: _Sizes, cal: Calibration) -> float:
+    """One pass of the fit's Vecchia likelihood with its score and Fisher information:
+    n m^3 / 3 flops of the local factorizations and n m^2 kernel entries."""
+    m = FIT_NEIGHBOURS
+    return _flop_seconds(cal, s.n * m ** 3 / 3.0) + s.n * m * m / cal.assembly_entries_per_second
+
+
+def _fixed_fisher_stage(s: _Sizes, plan: FitPlan, cal: Calibration,
+                        tight: SolverRate | None) -> StagePlan:
+    """--fixed-params: the Fisher information at them, by ``plan``'s engine
+    (``fit_plan.plan_fixed_fisher``)."""
+    if plan.engine == "dense":
         return StagePlan("fit", _dense_evaluation(cal, s.n, s.p, fisher=True),
                          dense_bytes_needed(s.n, fisher=True, n_params=s.p),
                          "fixed parameters: the dense Fisher information at them")
+    if plan.engine == "vecchia":
+        return StagePlan("fit", _vecchia_pass_seconds(s, cal),
+                         8 * s.n * FIT_NEIGHBOURS * (s.p + 2),
+                         f"fixed parameters: the Vecchia Fisher information at them "
+                         f"(m = {FIT_NEIGHBOURS})")
+    if tight is None:
+        return StagePlan("fit", None, None, "fixed parameters: the Fisher information by a "
+                                            "plugin's Hutch++: not predicted")
+    return StagePlan("fit", tight.seconds_at(s.n) + tight.solve_seconds_at(
+        s.n, s.p * (2 * s.k + 1) + 1), tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
+        "fixed parameters: the Fisher information by Hutch++ at the tightest tolerance")
+
+
+def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calibration,
+               tight: SolverRate | None, *, fixed: FitPlan | None) -> StagePlan:
+    budget = options.fit_time_budget
+    if fixed is not None or fit is None:
+        if fixed is None:
+            raise ValueError("a plan without a fit needs the fixed parameters' Fisher plan")
+        return _fixed_fisher_stage(s, fixed, cal, tight)
     if fit.engine == "dense":
         seconds = (DENSE_FIT_SCORE_EVALUATIONS * _dense_evaluation(cal, s.n, s.p, fisher=False)
                    + DENSE_FIT_FISHER_EVALUATIONS * _dense_evaluation(cal, s.n, s.p,
@@ -324,9 +358,7 @@ def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calib
     if fit.engine == "vecchia":
         pilot = min(options.pilot_n, s.n)
         m = FIT_NEIGHBOURS
-        passes = options.fit_max_steps * (
-            _flop_seconds(cal, s.n * m ** 3 / 3.0)
-            + s.n * m * m / cal.assembly_entries_per_second)
+        passes = options.fit_max_steps * _vecchia_pass_seconds(s, cal)
         refine = (REFINE_MAX_STEPS * _dense_evaluation(cal, s.n, s.p, fisher=False)
                   if fit.exact_score_fits else 0.0)
         seconds = (DENSE_FIT_SCORE_EVALUATIONS * _dense_evaluation(cal, pilot, s.p, fisher=False)
@@ -595,16 +627,19 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     rates: dict[str, SolverRate | None] = {
         lined.given: calibration.solvers.get(lined.given) for lined in lineup.solvers}
     first = rates[lineup.solvers[0].given]
-    fit = None
-    if options.fixed_params is None:
+    dense_max_n = (DENSE_FIT_MAX_N if options.dense_fit_max_n is None
+                   else options.dense_fit_max_n)
+    fit = fixed = None
+    if options.fixed_params is not None:
+        fixed = plan_fixed_fisher(n, template.n_params, family=template.family,
+                                  memory_budget=options.memory_budget, dense_max_n=dense_max_n)
+    else:
         fit = plan_fit(n, template.n_params, family=template.family,
                        memory_budget=options.memory_budget,
-                       time_budget=options.fit_time_budget,
-                       dense_max_n=(DENSE_FIT_MAX_N if options.dense_fit_max_n is None
-                                    else options.dense_fit_max_n),
+                       time_budget=options.fit_time_budget, dense_max_n=dense_max_n,
                        on_line=on_line)
     tight = next((r for r in rates.values() if r is not None), None)
-    stages = [_fit_stage(sizes, options, fit, calibration, tight),
+    stages = [_fit_stage(sizes, options, fit, calibration, tight, fixed=fixed),
               _reference_stage(sizes, kind, options, calibration, first,
                                len(lineup.solvers[0].values)),
               *(_audit_stage(sizes, lined, kind, options, calibration, rates[lined.given])
@@ -617,7 +652,8 @@ def plan_check(points: np.ndarray, y: np.ndarray, options: CheckOptions, *,
     return CostPlan(n=n, d=d, n_params=template.n_params, reference=kind,
                     reference_warnings=tuple(ref_warnings),
                     reference_by_metric=metric_kinds(kind), n_holdout=sizes.m,
-                    n_variance_points=sizes.v, fit=fit, stages=tuple(stages),
+                    n_variance_points=sizes.v, fit=fit, fixed_fisher=fixed,
+                    stages=tuple(stages),
                     base_bytes=8 * n * (d + 1 + sizes.k), memory_budget=budget,
                     calibration=calibration)
 
@@ -641,7 +677,8 @@ def _alternatives(plan: CostPlan, options: CheckOptions) -> Sequence[tuple[str,
     if options.probes > 4:
         out.append((f"--probes {max(4, options.probes // 4)}",
                     replace(options, probes=max(4, options.probes // 4))))
-    if plan.fit is not None and plan.fit.engine == "dense":
+    if any(chosen is not None and chosen.engine == "dense"
+           for chosen in (plan.fit, plan.fixed_fisher)):
         out.append(("--dense-fit-max-n 0", replace(options, dense_fit_max_n=0)))
     if plan.n_holdout > 100:
         out.append(("--holdout-points 100", replace(options, holdout_points=100)))

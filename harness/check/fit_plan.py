@@ -22,6 +22,7 @@ momentary free memory. ``--fit-time-budget`` caps the fit stage; it does not cho
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from harness.audit.reference_choice import NoReference, ReferenceProblem, select_reference
@@ -130,3 +131,14 @@ def plan_fit(n: int, n_params: int, *, family: str, memory_budget: int | None,
     return FitPlan("dense", f"n = {n:,} within the dense fit's limit of {dense_max_n:,} "
                             "points and the memory budget", dense_max_n, exact_score_fits,
                    time_budget)
+
+
+def plan_fixed_fisher(n: int, n_params: int, *, family: str, memory_budget: int | None,
+                      dense_max_n: int = DENSE_FIT_MAX_N) -> FitPlan:
+    """Where the Fisher information at fixed parameters (``--fixed-params``) is computed:
+    by the engine the fit would use (``plan_fit``), so dense only within the dense fit's
+    limit of n and the budget, else the deterministic Vecchia information (O(n m^2)),
+    else Hutch++ with the compressed solver. Never the line's observed information: away
+    from the MLE it need not be positive definite."""
+    return plan_fit(n, n_params, family=family, memory_budget=memory_budget,
+                    time_budget=math.inf, dense_max_n=dense_max_n, on_line=False)

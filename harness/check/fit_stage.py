@@ -26,7 +26,12 @@ from harness.audit.solver_seeds import solver_seed
 from harness.check.check_options import CheckError, CheckOptions
 from harness.check.fisher_steps import fisher_scoring
 from harness.check.fit_engines import CompressedEngine, DenseEngine
-from harness.check.fit_plan import DENSE_FIT_MAX_N, line_applies, plan_fit
+from harness.check.fit_plan import (
+    DENSE_FIT_MAX_N,
+    line_applies,
+    plan_fit,
+    plan_fixed_fisher,
+)
 from harness.check.fit_records import MleFit
 from harness.check.fitting import (
     DENSE_SCORE_TOL_SE,
@@ -38,7 +43,7 @@ from harness.check.fitting import (
     fit_mle,
 )
 from harness.check.line_fit import fit_on_line
-from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_TOL_SE, fit_at_scale
+from harness.check.vecchia_fit import FIT_NEIGHBOURS, REFINE_TOL_SE, fit_at_scale, vecchia_fisher
 from harness.infra.child_process import run_stage
 from harness.linalg.dense_budget import check_dense_budget
 from harness.model.kernels import Kernel, make_kernel
@@ -183,16 +188,30 @@ def fit_parameters(x: np.ndarray, y: np.ndarray, template: Kernel, options: Chec
 
 
 def fixed_parameters(x: np.ndarray, y: np.ndarray, options: CheckOptions, d: int) -> FitOutcome:
+    """The given parameters and the Fisher information at them, by the engine the fit
+    would use at this n and budget (``fit_plan.plan_fixed_fisher``): dense, Vecchia
+    (deterministic) or Hutch++ at the tightest tolerance."""
     params = dict(options.fixed_params or {})
     kernel = make_kernel(options.kernel, dict(options.shape) | params)
     kernel.check_dimension(d)
     notes: list[str] = []
-    if dense_fits(y.size, options.memory_budget, fisher=True, n_params=kernel.n_params):
+    plan = plan_fixed_fisher(int(y.size), kernel.n_params, family=kernel.family,
+                             memory_budget=options.memory_budget,
+                             dense_max_n=(DENSE_FIT_MAX_N if options.dense_fit_max_n is None
+                                          else options.dense_fit_max_n))
+    if plan.engine == "dense":
         evaluation = run_stage(dense_evaluate, x, y, kernel, mean=options.mean, score=False,
                                fisher=True, certify=False, memory_budget=options.memory_budget,
                                stage="the dense Fisher information", n=int(y.size),
                                advice=DENSE_CRASH_ADVICE)
         fisher = np.asarray(evaluation.fisher)
+    elif plan.engine == "vecchia":
+        fisher = run_stage(vecchia_fisher, x, y, kernel, mean=options.mean,
+                           stage="the Vecchia Fisher information", n=int(y.size),
+                           advice=DENSE_CRASH_ADVICE)
+        notes.append("Fisher information (SE units of the shift metrics) from the Vecchia "
+                     f"approximation with {FIT_NEIGHBOURS} neighbours at the given "
+                     f"parameters, not exact ({plan.reason})")
     else:
         fisher = np.asarray(CompressedEngine(x, y, kernel, mean=options.mean,
                                              tol=min(options.tolerances),
@@ -200,4 +219,5 @@ def fixed_parameters(x: np.ndarray, y: np.ndarray, options: CheckOptions, d: int
             kernel.theta, fisher=True).fisher)
         notes.append("Fisher information estimated by Hutch++ at the tightest tolerance")
     return FitOutcome(None, kernel, fisher, {"method": "fixed (--params)", "engine": None,
-                                       "converged": None}, notes, True)
+                                       "converged": None,
+                                       "fisher_engine": plan.engine}, notes, True)

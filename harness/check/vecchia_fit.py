@@ -93,6 +93,16 @@ class Refinement:
     note: str
 
 
+def vecchia_fisher(points: np.ndarray, y: np.ndarray, kernel: Kernel, *, mean: str,
+                   neighbours: int = FIT_NEIGHBOURS) -> np.ndarray:
+    """The Vecchia Fisher information at ``kernel``'s parameters, the at-scale fit's
+    metric (Guinness 2021, Stat. Comput. 31, secs. 2-3): deterministic, O(n m^2) for m
+    nearest earlier points; the check's SE unit at fixed parameters beyond the dense
+    fit's limit."""
+    engine = VecchiaEngine(points, y, kernel, mean=mean, neighbours=neighbours)
+    return np.asarray(engine(kernel.theta, fisher=True).fisher)
+
+
 def bfgs_update(metric: np.ndarray, step: np.ndarray, change: np.ndarray) -> np.ndarray:
     """B+ = B - B s s' B / (s' B s) + v v' / (v' s) (Nocedal and Wright 2006, eq. 6.19),
     with v the decrease of the score along the step; B itself when v' s <= 0 (no

@@ -31,8 +31,13 @@ def plan_lines(plan: CostPlan) -> list[str]:
     unit = cal.unit_seconds
     by_metric = ", ".join(f"{group} {kind or 'not measured'}"
                           for group, kind in plan.reference_by_metric.items())
-    fit = ("fixed parameters (--fixed-params)" if plan.fit is None
-           else f"{plan.fit.engine} ({plan.fit.reason})")
+    if plan.fit is not None:
+        fit = f"{plan.fit.engine} ({plan.fit.reason})"
+    elif plan.fixed_fisher is not None:
+        fit = (f"fixed parameters (--fixed-params); Fisher information: "
+               f"{plan.fixed_fisher.engine} ({plan.fixed_fisher.reason})")
+    else:
+        fit = "fixed parameters (--fixed-params)"
     lines = [f"plan: n = {plan.n:,}, d = {plan.d}, {plan.n_params} kernel parameters, "
              f"{plan.n_holdout:,} held-out points, {plan.n_variance_points:,} with a "
              "variance",
