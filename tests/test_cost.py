@@ -89,3 +89,33 @@ def test_operator_reference_cost_is_its_predicted_products_at_the_measured_rate(
     assert slow.operator_reference and not slow.dense_reference
     expected = estimate_operator_seconds(60_000, rate=1e9, n_params=3, mean_columns=1)
     assert slow.seconds - fast.seconds == pytest.approx(expected * 0.9, rel=1e-9)
+
+
+def test_a_measured_product_cost_prices_each_call_at_its_width():
+    # With a ProductCost (covaudit cases measures one) each product call costs
+    # n^2 (e + width c) (harness.references.operator.product_cost): with no entry cost it
+    # is the column-rate estimate at rate 1 / c (the same column products), and an entry
+    # cost adds n^2 e per call on top.
+    import dataclasses
+
+    from harness.grid.cases.cost import estimate_cost
+    from harness.references.operator import ProductCost, operator_evaluation_seconds
+
+    task = next(t for t in load_case(Path(__file__).resolve().parent.parent / "cases"
+                                     / "smoke.toml").tasks() if t.solver == "hodlr")
+    big = dataclasses.replace(task, n=60_000, references=("operator",), timing=False,
+                              metrics=("loglik",))
+    columns_only = ProductCost(entry_seconds=0.0, column_seconds=1e-10,
+                               derivative_entry_seconds=0.0, n=8192, widths=(1, 64, 16),
+                               family="matern32")
+    by_width = estimate_cost(big, dense_limit_bytes=None, operator_rate=columns_only)
+    by_rate = estimate_cost(big, dense_limit_bytes=None, operator_rate=1e10)
+    assert by_width.operator_reference
+    assert by_width.seconds == pytest.approx(by_rate.seconds, rel=1e-9)
+    with_entries = dataclasses.replace(columns_only, entry_seconds=1e-9,
+                                       derivative_entry_seconds=2e-9)
+    dearer = estimate_cost(big, dense_limit_bytes=None, operator_rate=with_entries)
+    added = (operator_evaluation_seconds(60_000, with_entries, n_params=3, mean_columns=1)
+             - operator_evaluation_seconds(60_000, columns_only, n_params=3, mean_columns=1))
+    assert added > 0
+    assert dearer.seconds - by_width.seconds == pytest.approx(added, rel=1e-9)

@@ -45,12 +45,11 @@ def run(args: argparse.Namespace) -> int:
     uses_operator = [t for t in tasks if "operator" in t.references]
     if uses_operator and not args.no_probe:
         from harness.model.kernels import make_kernel
-        from harness.references.operator import measure_product_rate
+        from harness.references.operator import measure_product_cost
 
         first = uses_operator[0]
-        operator_rate = measure_product_rate(
-            make_kernel(first.kernel, dict(first.kernel_params)), dimension=first.d, n=2048,
-            k=8, rng=0).column_rate
+        operator_rate = measure_product_cost(
+            make_kernel(first.kernel, dict(first.kernel_params)), dimension=first.d, rng=0)
     grid = estimate_grid(tasks, dense_limit_bytes=budget, rate=rate,
                          load_factor=1.0 if args.no_probe else contention(),
                          operator_rate=operator_rate)

@@ -46,6 +46,7 @@ import numpy as np
 from harness.grid.tasks import Task
 from harness.infra.solver_cost import DENSE_FLOPS, dense_flops, evaluation_flops
 from harness.linalg.dense_rate import DenseRate
+from harness.references.operator.product_cost import ProductCost
 
 #: Dense-work flops of the fixed cost of one job (accuracy or timing).
 JOB_OVERHEAD_FLOPS = 3.6e9
@@ -118,21 +119,31 @@ def _jobs(task: Task) -> int:
     return 2 if task.timing and task.exclusive_timing else 1
 
 
-def _operator_seconds(task: Task, column_rate: float) -> float:
-    """Seconds of the exact-operator reference: its predicted n^2-entry column products
-    at ``column_rate`` (``harness.references.operator.estimate_operator_seconds``)."""
+def _operator_seconds(task: Task, cost: ProductCost | float) -> float:
+    """Seconds of the exact-operator reference: each product call at its width from a
+    measured ``ProductCost`` (``harness.references.operator.operator_evaluation_seconds``:
+    a product evaluates its n^2 kernel entries once whatever its width), or its predicted
+    n^2-entry column products at a column rate when only that is known
+    (``estimate_operator_seconds``)."""
     from harness.model.mean import design_matrix
-    from harness.references.operator import estimate_operator_seconds
+    from harness.references.operator import (
+        estimate_operator_seconds,
+        operator_evaluation_seconds,
+    )
 
     mean_columns = design_matrix(np.zeros((1, task.d)), task.mean).shape[1]
-    seconds = estimate_operator_seconds(task.n, rate=column_rate, n_params=_params(task),
-                                        mean_columns=mean_columns)
+    if isinstance(cost, ProductCost):
+        seconds = operator_evaluation_seconds(task.n, cost, n_params=_params(task),
+                                              mean_columns=mean_columns)
+    else:
+        seconds = estimate_operator_seconds(task.n, rate=cost, n_params=_params(task),
+                                            mean_columns=mean_columns)
     return seconds * (2 if "perturbed" in task.metrics else 1)
 
 
 def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
                   rate: float | None = None,
-                  operator_rate: float | None = None) -> CostEstimate:
+                  operator_rate: ProductCost | float | None = None) -> CostEstimate:
     """Estimate one task's cost (module docstring); the dense reference is assumed when it
     fits the budget, the exact operator when the task's references name it and dense does
     not fit (or is not named).
@@ -141,10 +152,10 @@ def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
     ----------
     rate : float, optional
         Dense flop/s of this machine (``measure_dense_rate``); ``DENSE_FLOPS`` when None.
-    operator_rate : float, optional
-        Exact-product columns (n^2 kernel entries each) per second
-        (``harness.references.operator.measure_product_rate``); ``OPERATOR_COLUMN_RATE``
-        when None.
+    operator_rate : ProductCost or float, optional
+        The measured cost of exact products by width
+        (``harness.references.operator.measure_product_cost``), or exact-product columns
+        (n^2 kernel entries each) per second; ``OPERATOR_COLUMN_RATE`` when None.
     """
     flops_per_second = DENSE_FLOPS if rate is None else float(rate)
     if not (math.isfinite(flops_per_second) and flops_per_second > 0):
@@ -178,7 +189,7 @@ def estimate_cost(task: Task, *, dense_limit_bytes: int | None,
 def estimate_grid(tasks: Sequence[Task], *, dense_limit_bytes: int | None,
                   rate: DenseRate | float | None = None,
                   load_factor: float = 1.0,
-                  operator_rate: float | None = None) -> GridEstimate:
+                  operator_rate: ProductCost | float | None = None) -> GridEstimate:
     """Every task's estimate plus the run's start-up (compilation), serial seconds.
 
     Parameters

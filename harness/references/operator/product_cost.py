@@ -99,7 +99,7 @@ class ProductCost:
         return asdict(self)
 
 
-def measure_product_cost(kernel: Kernel, *, dimension: int = 2, n: int = 2048,
+def measure_product_cost(kernel: Kernel, *, dimension: int = 2, n: int = 8192,
                          widths: tuple[int, int] = (1, 64), derivative_width: int = 16,
                          repeats: int = 3, rng: np.random.Generator | int | None = None
                          ) -> ProductCost:
