@@ -21,7 +21,9 @@ base plus the largest stage:
   neighbour indices and p derivative factors, O(n m) numbers each; the pilot is an
   L-BFGS-B fit with the score, no Fisher information); compressed, the first built-in
   solver's factor at its tightest value with the score's arrays (the fit itself uses
-  HODLR at the tightest tolerance, so this is a stand-in);
+  HODLR at the tightest tolerance, so this is a stand-in); with ``--fixed-params`` the
+  Fisher information's engine (``fit_plan.plan_fixed_fisher``): dense as above, Vecchia
+  8 n m (p + 2), compressed as above;
 - reference: dense, ``dense_bytes_needed(n, score)`` (the selector's model) plus the
   derivative blocks of the score, 8 p min(n, 1,024) n (``harness.audit.sides``); operator,
   the larger of the preconditioners of all points and of the conditioning points (one
@@ -59,7 +61,8 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   ``DENSE_FIT_FISHER_EVALUATIONS`` with the Fisher information (``fit_plan``'s count);
   Vecchia, the pilot's dense fit, ``fit_max_steps`` Vecchia passes of n m^3 / 3 flops
   plus n m^2 kernel entries, and ``REFINE_MAX_STEPS`` exact-score evaluations; each
-  capped by ``--fit-time-budget``;
+  capped by ``--fit-time-budget``; with ``--fixed-params`` one dense evaluation with the
+  Fisher information, one Vecchia pass, or one compressed evaluation with its score;
 - reference: dense, two factorizations (all points, conditioning points) with their
   certificates (an L L' product of n^3 / 3 flops each) and the derivative products,
   p n^2 / A + 2 p n^2 (k + 1) / R; operator, the preconditioners plus
@@ -334,10 +337,10 @@ def _fixed_fisher_stage(s: _Sizes, plan: FitPlan, cal: Calibration,
 def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calibration,
                tight: SolverRate | None, *, fixed: FitPlan | None) -> StagePlan:
     budget = options.fit_time_budget
-    if fixed is not None or fit is None:
-        if fixed is None:
-            raise ValueError("a plan without a fit needs the fixed parameters' Fisher plan")
+    if fixed is not None:
         return _fixed_fisher_stage(s, fixed, cal, tight)
+    if fit is None:
+        raise ValueError("a plan without a fit needs the fixed parameters' Fisher plan")
     if fit.engine == "dense":
         seconds = (DENSE_FIT_SCORE_EVALUATIONS * _dense_evaluation(cal, s.n, s.p, fisher=False)
                    + DENSE_FIT_FISHER_EVALUATIONS * _dense_evaluation(cal, s.n, s.p,

@@ -22,8 +22,9 @@ each a fraction of a second:
   second, ``harness.model.kernels.lower_fill.assemble_lower``);
 - each built-in solver under test (``SolverRate``): a factorization of a seeded subset
   of the data at ``CALIBRATION_SIZES`` points (``LINE_CALIBRATION_SIZES`` on a line; at
-  most n) at its tightest knob value
-  (the costliest), its ``nbytes`` and one solve with ``SOLVE_COLUMNS`` right-hand sides;
+  most n) at each of its knob values (the tightest, the costliest, is also its rate for
+  the stages priced at one value), its ``nbytes`` and one solve with ``SOLVE_COLUMNS``
+  right-hand sides;
   the growth from the smaller to the larger size gives the exponent of a power law in n
   (``SolverRate.seconds_at``, ``nbytes_at``). A plugin is never called here: it runs
   only in child processes (``harness.check.plugin_guard``), so its cost is not predicted;
@@ -293,7 +294,9 @@ def operator_iteration_counts(points: np.ndarray, kernel: Kernel,
     ``OPERATOR_WINDOW_N`` points nearest a point drawn from ``rng`` (at most n): a window
     keeps the data's density, which sets Sigma's conditioning
     (``harness.references.operator.iteration_counts``), with the preconditioner the
-    reference will build, factorized on the window."""
+    plan rates, factorized on the window: the reference's own for HODLR; for Vecchia
+    the pilot's largest neighbour count, as its rate (the fewest iterations, so a
+    smaller count chosen by the pilot makes more)."""
     from harness.audit.operator_preconditioner import local_window
     from harness.references.operator.iteration_counts import measure_iteration_counts
 
