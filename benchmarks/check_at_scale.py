@@ -172,7 +172,7 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
     return {"n": check.get("n"), "reference": check.get("reference"), "rows": rows,
             "reference_by_metric": kinds, "fit_converged": check.get("fit_converged"),
             "fit": {key: (check.get("fit") or {}).get(key)
-                    for key in ("engine", "method", "converged", "loglik")},
+                    for key in ("engine", "method", "converged", "loglik", "exact_distance")},
             "refit": {key: (check.get("refit") or {}).get(key)
                       for key in ("evaluations", "accepted_steps", "seconds", "converged")},
             "verdicts": statuses, "recommendation": check.get("recommendation"),

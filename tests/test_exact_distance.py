@@ -127,5 +127,8 @@ def test_a_check_beyond_the_dense_score_states_the_distance():
     assert distance["status"] in (WITHIN, BEYOND, UNRESOLVED)
     assert len(distance["shift_se"]) == 3 and all(np.isfinite(distance["shift_se"]))
     assert all(u > 0 for u in distance["uncertainty_se"])
+    # the probes behind the reference's score SE (the operator's own), not the solver's
+    described = result.reference_detail["description"]
+    assert f"{distance['probes']} probes," in described
     assert any(note.startswith("distance of the estimate to the exact MLE")
                for note in result.notes)

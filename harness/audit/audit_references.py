@@ -236,7 +236,7 @@ class OperatorReference:
             loglik=ReferenceValue(ev.loglik, se=float(ev.loglik_se),
                                   bound=float(ev.loglik_bound)),
             score=np.asarray(ev.score, dtype=float), score_se=score_se,
-            trace_control=control,
+            score_probes=int(ev.probes), trace_control=control,
             score_se_shared=(None if ev.shared_probes is None
                              else np.asarray(ev.shared_probes.other_score_bound) / 2.0),
             krige_mean=np.asarray(kr.mean), krige_mean_bound=np.asarray(kr.mean_bound),

@@ -166,6 +166,8 @@ class ReferenceValues:
     #: The score's uncertainty that remains when the solver shares ``trace_control``'s
     #: probes (the part not from the trace probes); None: zeros.
     score_se_shared: np.ndarray | None = None
+    #: The probes behind ``score_se`` (0: the score is exact, or their count unknown).
+    score_probes: int = 0
 
 
 class ValueReference(Protocol):

@@ -55,8 +55,9 @@ class ExactDistance:
     tolerance_se : float
     status : {"within", "beyond", "unresolved"}
     probes, probes_needed : int
-        The score's probes, and those that would resolve the status (``probes`` when
-        resolved; 0 when no count can: a distance at the tolerance itself).
+        The probes behind the score's SE, and those that would resolve the status
+        (``probes`` when resolved; 0 when no count can: a distance at the tolerance
+        itself, or a score SE whose probe count is not known).
     """
 
     param_names: tuple[str, ...]
@@ -83,8 +84,7 @@ class ExactDistance:
             return (f"{head}: beyond {self.tolerance_se:g} SE (the estimate is the Vecchia "
                     "MLE, not the exact one)")
         need = (f"about {self.probes_needed:,} score probes would resolve it"
-                if self.probes_needed else "no probe count resolves a distance at the "
-                                           "tolerance itself")
+                if self.probes_needed else "no probe count known to resolve it")
         return (f"{head}: not resolved against {self.tolerance_se:g} SE with "
                 f"{self.probes} probes ({need})")
 
@@ -139,7 +139,8 @@ def exact_distance(score: np.ndarray, score_se: np.ndarray, fisher: np.ndarray, 
         with np.errstate(divide="ignore"):
             factor = float(np.max(np.where(room > 0, (2 * u / room) ** 2, np.inf)))
         status = UNRESOLVED
-        needed = int(math.ceil(probes * factor)) if math.isfinite(factor) else 0
+        needed = (int(math.ceil(probes * factor)) if math.isfinite(factor) and probes > 0
+                  else 0)
     return ExactDistance(param_names=tuple(param_names), shift_se=tuple(d.tolist()),
                          uncertainty_se=tuple(u.tolist()), loglik_gap_nat=gap,
                          loglik_gap_se=gap_se, tolerance_se=float(tolerance_se),

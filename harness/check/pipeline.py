@@ -412,8 +412,7 @@ def _distance_to_exact_mle(fitted: FitOutcome, reference: PairedReference | Valu
     try:
         return exact_distance(values.score, values.score_se, fitted.fisher,
                               param_names=tuple(fitted.kernel.param_names),
-                              tolerance_se=REFINE_TOL_SE,
-                              probes=int(getattr(reference, "probes", 0)))
+                              tolerance_se=REFINE_TOL_SE, probes=values.score_probes)
     except ValueError:
         return None
 
