@@ -22,7 +22,8 @@ HODLR at tol 1e-10 as P, 2 CG iterations and 2 Lanczos steps on 2,048, 4,096 and
 points alike; with the Vecchia factor of 40 neighbours 10, 11 and 11 iterations and 5
 steps; with 10 neighbours 24, 29 and 32 iterations and 10, 12 and 14 steps. The whole
 reference at 65,536 points with HODLR made 7 iterations for its GLS solve, Lanczos runs
-and probe solves together (``benchmarks/results/check_at_scale_plane-65k.json``).
+and probe solves together (the reference's detail in the check.json of that benchmark's
+run, not kept in the repository).
 """
 
 from __future__ import annotations
