@@ -341,8 +341,9 @@ def test_the_line_fit_is_priced_from_a_timed_filter_pass():
 
 def test_each_knob_value_is_priced_at_its_own_rate():
     # A looser value is cheaper (HODLR on 65,536 scattered points: about 30 s per audit at
-    # tol 1e-6 against 70 s at 1e-8, benchmarks/results/check_at_scale_plane-65k.json);
-    # pricing every value at the tightest overstated the audits 2.6 times there. The
+    # tol 1e-6 against 70 s at 1e-8, the timestamps in
+    # benchmarks/results/check_at_scale_plane-65k.json); pricing every value at the
+    # tightest overstated the audits 2.6 times there (that file's first version). The
     # audit stage is the seeds times the sum of the values' audits.
     x, y = _points()
     fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
