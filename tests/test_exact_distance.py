@@ -82,7 +82,7 @@ def test_statuses_and_the_probes_that_would_resolve():
     noisy = exact_distance(np.array([0.03, 0.0]), np.full(2, 0.1), fisher, param_names=names,
                            tolerance_se=0.02, probes=16)
     assert noisy.status == UNRESOLVED and noisy.probes_needed > 16
-    assert f"about {noisy.probes_needed:,} score probes" in noisy.sentence()
+    assert f"from 16 probes; about {noisy.probes_needed:,} would be needed" in noisy.sentence()
     # with that many probes the score's SE falls by sqrt(16 / needed): resolved
     scaled = np.full(2, 0.1) * np.sqrt(16 / noisy.probes_needed)
     again = exact_distance(np.array([0.03, 0.0]), scaled, fisher, param_names=names,

@@ -83,10 +83,10 @@ class ExactDistance:
         if self.status == BEYOND:
             return (f"{head}: beyond {self.tolerance_se:g} SE (the estimate is the Vecchia "
                     "MLE, not the exact one)")
-        need = (f"about {self.probes_needed:,} score probes would resolve it"
-                if self.probes_needed else "no probe count known to resolve it")
-        return (f"{head}: not resolved against {self.tolerance_se:g} SE with "
-                f"{self.probes} probes ({need})")
+        need = (f"about {self.probes_needed:,} would be needed to resolve it"
+                if self.probes_needed else "no probe count is known to resolve it")
+        return (f"{head}: not resolved against {self.tolerance_se:g} SE (the reference's "
+                f"score SE comes from {self.probes} probes; {need})")
 
     def to_dict(self) -> dict[str, object]:
         return {"param_names": list(self.param_names), "shift_se": list(self.shift_se),
