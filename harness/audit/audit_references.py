@@ -52,6 +52,7 @@ from harness.audit.operator_preconditioner import (
 from harness.audit.sides import KrigingSide, evaluate_side, kriging_side
 from harness.audit.solver_seeds import seeded_options, solver_seed
 from harness.infra.child_process import run_stage
+from harness.infra.memory_release import release_freed_memory
 from harness.likelihood.trace.control import TraceControl
 from harness.references import CERTIFICATE_THRESHOLD
 from harness.references.operator.products import KernelOperator
@@ -189,6 +190,7 @@ class OperatorReference:
         spec_t = PreconditionerSpec(family=built.family, knob=built.knob_value)
         built_record, built_description = built.to_dict(), built.describe()
         del built
+        release_freed_memory()
         built_t = build_operator_preconditioner(x[train], kernel, spec_t, rng=rng,
                                                 leaf_size=leaf_size)
         kr = operator_kriging(x[train], data.y[train], kernel, x[data.holdout],
@@ -202,6 +204,7 @@ class OperatorReference:
             built_record, built_description, training_seconds=built_t.seconds,
             loglik_iterations=ev.iterations, kriging_iterations=kr.iterations)
         del built_t
+        release_freed_memory()   # the heap pages of both factorizations, for the audits
         uncertainty = {
             "loglik": dict(ev.uncertainty), "loglik_se": ev.loglik_se,
             "loglik_bound": ev.loglik_bound,
