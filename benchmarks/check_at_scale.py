@@ -133,9 +133,11 @@ def write_data(scenario: Scenario, folder: Path, seed: int) -> tuple[Path, list[
     return path, ["--coords", ",".join(names), "--value", "level", "--coord-units", "km"]
 
 
-def _within(predicted: float | None, measured: float, factor: float) -> bool | None:
+def within(predicted: float | None, measured: float, factor: float) -> bool:
+    """Whether measured / predicted lies in [1 / factor, factor]; False when either is
+    missing or not positive (nothing was compared, so the criterion is not met)."""
     if predicted is None or not predicted > 0 or not measured > 0:
-        return None
+        return False
     return 1.0 / factor <= measured / predicted <= factor
 
 
@@ -157,8 +159,8 @@ def summarize(check: dict, scenario: Scenario, *, seconds: float, units: float,
         "memory": None if scenario.max_gib is None else tree_gib <= scenario.max_gib,
         "fit_converged": bool(check.get("fit_converged")),
         "every_value_judged": bool(statuses) and all(s is not None for s in statuses.values()),
-        "plan_time_within_2x": _within(predicted_seconds, seconds, TIME_FACTOR),
-        "plan_memory_within_1.5x": _within(predicted_gib, tree_gib, MEMORY_FACTOR),
+        "plan_time_within_2x": within(predicted_seconds, seconds, TIME_FACTOR),
+        "plan_memory_within_1.5x": within(predicted_gib, tree_gib, MEMORY_FACTOR),
     }
     if scenario.statespace_everywhere:
         limits["statespace_for_every_metric"] = bool(kinds) and all(

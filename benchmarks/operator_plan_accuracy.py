@@ -38,13 +38,10 @@ import numpy as np
 import psutil
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from check_at_scale import synthetic_field  # noqa: E402
+from check_at_scale import MEMORY_FACTOR, TIME_FACTOR, synthetic_field, within  # noqa: E402
 from co2_check import TreeMemory  # noqa: E402
 from machine_unit import machine, measure_unit, write_run  # noqa: E402
 
-#: The plan's predictions must lie within these factors of the measured.
-TIME_FACTOR = 2.0
-MEMORY_FACTOR = 1.5
 PARAMETERS = {"variance": 1.0, "lengthscale": 50.0, "nugget": 0.01}
 
 
@@ -92,16 +89,14 @@ def measure_size(n: int, *, repeats: int, seed: int) -> dict:
     peak = max(r["peak_above_start_bytes"] for r in runs)
     if stage.seconds is None or stage.peak_bytes is None:
         raise RuntimeError(f"the plan predicted no reference stage at n = {n}: {stage.detail}")
-    time_ratio = measured / stage.seconds
-    memory_ratio = peak / stage.peak_bytes
     return {"n": n, "plan": {"seconds": stage.seconds, "peak_bytes": stage.peak_bytes,
                              "detail": stage.detail,
                              "calibration": plan.calibration.to_dict()},
             "measured_median_seconds": measured, "measured_peak_above_start_bytes": peak,
-            "runs": runs, "measured_over_predicted": {"time": time_ratio,
-                                                      "memory": memory_ratio},
-            "time_within_2x": 1 / TIME_FACTOR <= time_ratio <= TIME_FACTOR,
-            "memory_within_1.5x": 1 / MEMORY_FACTOR <= memory_ratio <= MEMORY_FACTOR}
+            "runs": runs, "measured_over_predicted": {"time": measured / stage.seconds,
+                                                      "memory": peak / stage.peak_bytes},
+            "time_within_2x": within(stage.seconds, measured, TIME_FACTOR),
+            "memory_within_1.5x": within(stage.peak_bytes, peak, MEMORY_FACTOR)}
 
 
 def main(argv: list[str] | None = None) -> int:

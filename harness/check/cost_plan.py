@@ -301,6 +301,14 @@ def _score_bytes(n: int, p: int, k: int) -> int:
     return 8 * n * (p * (2 * k + 1) + k + 1)
 
 
+def _scored_evaluation(rate: SolverRate, s: _Sizes) -> tuple[float, int]:
+    """One evaluation by a compressed solver with its Hutch++ score at n: seconds of its
+    factorization and p (2k + 1) + 1 solves, and bytes of its factor with the score's
+    arrays."""
+    return (rate.seconds_at(s.n) + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1),
+            rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k))
+
+
 def _budget(options: CheckOptions) -> int:
     return (default_memory_budget() if options.memory_budget is None
             else int(options.memory_budget))
@@ -329,9 +337,9 @@ def _fixed_fisher_stage(s: _Sizes, plan: FitPlan, cal: Calibration,
     if tight is None:
         return StagePlan("fit", None, None, "fixed parameters: the Fisher information by a "
                                             "plugin's Hutch++: not predicted")
-    return StagePlan("fit", tight.seconds_at(s.n) + tight.solve_seconds_at(
-        s.n, s.p * (2 * s.k + 1) + 1), tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
-        "fixed parameters: the Fisher information by Hutch++ at the tightest tolerance")
+    return StagePlan("fit", *_scored_evaluation(tight, s),
+                     "fixed parameters: the Fisher information by Hutch++ at the tightest "
+                     "tolerance")
 
 
 def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calibration,
@@ -380,10 +388,8 @@ def _fit_stage(s: _Sizes, options: CheckOptions, fit: FitPlan | None, cal: Calib
     if tight is None:
         return StagePlan("fit", None, None, "compressed fit by a plugin: not predicted")
     steps = options.fit_max_steps
-    seconds = steps * (tight.seconds_at(s.n)
-                       + tight.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1))
-    return StagePlan("fit", min(seconds, budget),
-                     tight.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
+    seconds, nbytes = _scored_evaluation(tight, s)
+    return StagePlan("fit", min(steps * seconds, budget), nbytes,
                      f"compressed fit, {steps} Fisher-scoring steps with {tight.name}, at "
                      f"most --fit-time-budget {budget:g} s")
 
@@ -498,9 +504,9 @@ def _timing_stage(s: _Sizes, lineup: Lineup, options: CheckOptions, rates: Mappi
         if rate is None:
             unknown.append(lined.given)
             continue
-        seconds += len(lined.values) * (repeats + 1) * (
-            rate.seconds_at(s.n) + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1))
-        peak = max(peak, rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k))
+        one, nbytes = _scored_evaluation(rate, s)
+        seconds += len(lined.values) * (repeats + 1) * one
+        peak = max(peak, nbytes)
     if kind == "dense":
         seconds += (repeats + 1) * _dense_evaluation(cal, s.n, s.p, fisher=False)
         peak = max(peak, dense_bytes_needed(s.n, score=True))
@@ -515,10 +521,10 @@ def _refit_stage(s: _Sizes, options: CheckOptions, rate: SolverRate | None) -> S
     if rate is None:
         return StagePlan("refit", None, None, "refit by a plugin: not predicted")
     steps = min(REFIT_EVALUATIONS, options.fit_max_steps + 1)
-    return StagePlan("refit", steps * (rate.seconds_at(s.n) + rate.solve_seconds_at(
-        s.n, s.p * (2 * s.k + 1) + 1)), rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k),
-        f"about {steps} evaluations with the pick, at most {options.fit_max_steps + 1} "
-        "(priced at the tightest value)")
+    seconds, nbytes = _scored_evaluation(rate, s)
+    return StagePlan("refit", steps * seconds, nbytes,
+                     f"about {steps} evaluations with the pick, at most "
+                     f"{options.fit_max_steps + 1} (priced at the tightest value)")
 
 
 def _preconditioner(options: CheckOptions) -> tuple[Any, float, dict[str, Any]]:

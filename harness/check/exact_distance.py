@@ -121,13 +121,13 @@ def exact_distance(score: np.ndarray, score_se: np.ndarray, fisher: np.ndarray, 
     except np.linalg.LinAlgError as exc:
         raise ValueError("the Fisher information is not positive definite") from exc
     cov = inverse.T @ inverse                           # F^-1
+    variance = s * s                                    # the diagonal of S
     se = np.sqrt(np.diag(cov))
     delta = cov @ g
-    noise = cov @ np.diag(s * s) @ cov
     d = delta / se
-    u = np.sqrt(np.diag(noise)) / se
-    gap = 0.5 * float(g @ delta) - 0.5 * float(np.trace(cov @ np.diag(s * s)))
-    gap_se = float(math.sqrt(max(float(delta @ (s * s * delta)), 0.0)))
+    u = np.sqrt(np.einsum("ij,j,ji->i", cov, variance, cov)) / se   # diag(F^-1 S F^-1)
+    gap = 0.5 * float(g @ delta) - 0.5 * float(np.diag(cov) @ variance)   # tr(F^-1 S)
+    gap_se = float(math.sqrt(max(float(delta @ (variance * delta)), 0.0)))
     if np.all(np.abs(d) + 2 * u <= tolerance_se):
         status, needed = WITHIN, probes
     elif np.any(np.abs(d) - 2 * u > tolerance_se):

@@ -82,12 +82,6 @@ LINE_CALIBRATION_SIZES: tuple[int, int] = (2048, 16384)
 SOLVE_COLUMNS = 64
 #: Points of the timed Kalman-filter pass (``line_pass_rate``).
 LINE_PASS_N = 4096
-#: Points of the timed exact products (``product_cost``): enough for the products'
-#: tiles to run at their large-n rate. Development measurement (2D Matern 3/2, 2 cores),
-#: nanoseconds per kernel entry of a product of 1 and 64 columns: 2.5 and 3.7 at 4,096
-#: points, 1.4 and 3.2 at 8,192, 1.3 and 3.1 at 16,384 and 32,768 (the 64-column product
-#: takes about 0.2 s at 8,192 points).
-PRODUCT_N = 8192
 #: Points of the window on which the operator's iteration counts are measured
 #: (``operator_iteration_counts``).
 OPERATOR_WINDOW_N = 2048
@@ -263,11 +257,12 @@ def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
 
 
 def product_cost(kernel: Kernel, d: int, *, rng: np.random.Generator) -> ProductCost:
-    """The cost of exact products by width, at ``PRODUCT_N`` points
+    """The cost of exact products by width, at
+    ``harness.references.operator.product_cost.PRODUCT_N`` points
     (``harness.references.operator.measure_product_cost``)."""
     from harness.references.operator import measure_product_cost
 
-    return measure_product_cost(kernel, dimension=d, n=PRODUCT_N, rng=rng)
+    return measure_product_cost(kernel, dimension=d, rng=rng)
 
 
 def line_pass_rate(points: np.ndarray, kernel: Kernel, *, mean: str,

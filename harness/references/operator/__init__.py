@@ -49,10 +49,8 @@ from harness.references.operator.operator_kriging import OperatorKriging, operat
 from harness.references.operator.pcg import PreconditionerError
 from harness.references.operator.product_cost import (
     ProductCost,
-    ProductRate,
     estimate_operator_seconds,
     measure_product_cost,
-    measure_product_rate,
     operator_evaluation_seconds,
     predicted_column_products,
 )
@@ -74,9 +72,7 @@ __all__ = [
     "PreconditionerError",
     "ProductMemoryError",
     "ProductCost",
-    "ProductRate",
     "estimate_operator_seconds",
-    "measure_product_rate",
     "operator_evaluate",
     "operator_kriging",
     "measure_product_cost",

@@ -37,14 +37,14 @@ from harness.model.kernels import Kernel
 from harness.references.operator.lanczos import slq_logdet
 from harness.references.operator.pcg import pcg
 from harness.references.operator.products import KernelOperator
-from harness.references.operator.reference import sqrt_maps
+from harness.references.operator.reference import (
+    CG_RTOL,
+    LANCZOS_STEPS,
+    LANCZOS_TOL,
+    MAX_ITERATIONS,
+    sqrt_maps,
+)
 from harness.solvers.protocol import Factorization
-
-#: The reference's stopping rules (``operator_evaluate``'s defaults).
-CG_RTOL = 1e-10
-MAX_ITERATIONS = 1000
-LANCZOS_STEPS = 300
-LANCZOS_TOL = 1e-6
 
 
 @dataclass(frozen=True)

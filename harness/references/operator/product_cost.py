@@ -36,37 +36,6 @@ from harness.model.kernels import Kernel
 
 
 @dataclass(frozen=True)
-class ProductRate:
-    """Measured speed of exact products: n^2-entry columns per second."""
-
-    column_rate: float
-    n: int
-    k: int
-    seconds: float
-    family: str
-
-    def to_dict(self) -> dict[str, object]:
-        return asdict(self)
-
-
-def measure_product_rate(kernel: Kernel, *, dimension: int = 2, n: int = 4096, k: int = 16,
-                         rng: np.random.Generator | int | None = None) -> ProductRate:
-    """Time one product Sigma B at n uniform points in the unit cube (after a warm-up)."""
-    from harness.references.operator.products import KernelOperator
-
-    gen = np.random.default_rng(rng)
-    points = gen.random((n, dimension))
-    block = gen.standard_normal((n, k))
-    op = KernelOperator(points, kernel, progress=False)
-    op.matvec(block[:, :1])                     # compile / warm caches
-    start = time.perf_counter()
-    op.matvec(block)
-    seconds = time.perf_counter() - start
-    return ProductRate(column_rate=n * n * k / seconds, n=n, k=k, seconds=seconds,
-                       family=kernel.family)
-
-
-@dataclass(frozen=True)
 class ProductCost:
     """Measured cost of exact products (module docstring): Sigma B with k columns takes
     n^2 (``entry_seconds`` + k ``column_seconds``); the p derivative products
@@ -99,7 +68,15 @@ class ProductCost:
         return asdict(self)
 
 
-def measure_product_cost(kernel: Kernel, *, dimension: int = 2, n: int = 8192,
+#: Points of the timed products (``measure_product_cost``): enough for the products'
+#: tiles to run at their large-n rate. Development measurement (2D Matern 3/2, 2 cores),
+#: nanoseconds per kernel entry of a product of 1 and 64 columns: 2.5 and 3.7 at 4,096
+#: points, 1.4 and 3.2 at 8,192, 1.3 and 3.1 at 16,384 and 32,768 (the 64-column product
+#: takes about 0.2 s at 8,192 points).
+PRODUCT_N = 8192
+
+
+def measure_product_cost(kernel: Kernel, *, dimension: int = 2, n: int = PRODUCT_N,
                          widths: tuple[int, int] = (1, 64), derivative_width: int = 16,
                          repeats: int = 3, rng: np.random.Generator | int | None = None
                          ) -> ProductCost:
@@ -182,15 +159,16 @@ def predicted_column_products(*, n_params: int, mean_columns: int = 0, probes: i
     return int(total)
 
 
-def estimate_operator_seconds(n: int, *, rate: ProductRate | float, n_params: int = 3,
+def estimate_operator_seconds(n: int, *, rate: float, n_params: int = 3,
                               mean_columns: int = 0, probes: int = 16, steps: int = 8,
                               score: bool = True) -> float:
     """Predicted seconds of one operator evaluation at n points (not counting the
-    preconditioner's own factorization). ``rate`` is a ``ProductRate`` or its
-    ``column_rate`` (n^2-entry columns per second)."""
+    preconditioner's own factorization) at one column ``rate`` (n^2-entry columns per
+    second, e.g. ``ProductCost.column_rate``): the estimate where no ``ProductCost`` was
+    measured."""
     if n < 1:
         raise ValueError(f"n must be a positive number of points, got {n}")
-    column_rate = rate.column_rate if isinstance(rate, ProductRate) else float(rate)
+    column_rate = float(rate)
     if not column_rate > 0:
         raise ValueError(f"rate must be > 0 columns per second, got {column_rate!r}")
     columns = predicted_column_products(n_params=n_params, mean_columns=mean_columns,

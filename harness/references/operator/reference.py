@@ -100,6 +100,13 @@ LOG_2PI = math.log(2.0 * math.pi)
 #: Bound names reported in ``OperatorEvaluation.bound_kind``.
 BOUND_NUGGET = "residual/nugget"
 BOUND_ESTIMATE = "residual/ritz-estimate"
+#: ``operator_evaluate``'s default stopping rules: the CG relative residual and iteration
+#: budget per solve, the Lanczos budget and per-step convergence (nats) per probe
+#: (``iteration_counts`` measures with the same).
+CG_RTOL = 1e-10
+MAX_ITERATIONS = 1000
+LANCZOS_STEPS = 300
+LANCZOS_TOL = 1e-6
 
 
 @dataclass(frozen=True)
@@ -265,9 +272,10 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                       reml: bool = False, preconditioner: Factorization,
                       rng: np.random.Generator | int | None = None, se_target: float = 0.02,
                       max_probes: int = 256, probe_batch: int = 16, min_probes: int = 16,
-                      preconditioner_probes: int = 64, cg_rtol: float = 1e-10,
-                      max_iterations: int = 1000, lanczos_steps: int = 300,
-                      lanczos_tol: float = 1e-6, score: bool = True, tile: int = DEFAULT_TILE,
+                      preconditioner_probes: int = 64, cg_rtol: float = CG_RTOL,
+                      max_iterations: int = MAX_ITERATIONS,
+                      lanczos_steps: int = LANCZOS_STEPS, lanczos_tol: float = LANCZOS_TOL,
+                      score: bool = True, tile: int = DEFAULT_TILE,
                       memory_budget: int | None = None, client: object | None = None,
                       progress: bool | None = None) -> OperatorEvaluation:
     """Evaluate L, its score and their uncertainties with exact products (module docstring).
