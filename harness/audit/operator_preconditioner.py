@@ -36,7 +36,7 @@ from harness.model.kernels import Kernel
 from harness.references.operator.lanczos import slq_logdet
 from harness.references.operator.pcg import pcg
 from harness.references.operator.products import KernelOperator
-from harness.references.operator.score_traces import preconditioner_traces
+from harness.references.operator.score_traces import control_traces
 from harness.solvers.protocol import Factorization
 from harness.solvers.registry import resolve_solver
 from harness.solvers.vecchia import NEIGHBOURS_KNOB, VecchiaFactorization, VecchiaInputError
@@ -64,7 +64,8 @@ REFERENCE_MIN_PROBES = 16
 REFERENCE_MAX_PROBES = 256
 REFERENCE_SE_TARGET = 0.02
 #: Probes of the preconditioner's own traces (``operator_evaluate``'s
-#: ``preconditioner_probes``); the pilot times them at its size.
+#: ``preconditioner_probes``) where they are not exact; the pilot times the traces at its
+#: size (the Vecchia factor's are exact: its derivative factor, no probes).
 REFERENCE_PRECONDITIONER_PROBES = 64
 #: Lanczos probes the pilot uses to estimate the per-probe variance of z' log(C) z.
 PILOT_LANCZOS_PROBES = 8
@@ -311,7 +312,7 @@ def pilot_neighbours(points: np.ndarray, kernel: Kernel, *, rng: np.random.Gener
         slq = slq_logdet(apply_c, probes, max_steps=PILOT_LANCZOS_STEPS)
         lanczos_seconds = clock() - t0
         t0 = clock()
-        preconditioner_traces(fac, kernel.n_params, probes=REFERENCE_PRECONDITIONER_PROBES,
+        control_traces(fac, kernel.n_params, probes=REFERENCE_PRECONDITIONER_PROBES,
                               rng=rng)
         trace_seconds = clock() - t0
         converged = bool(run.converged and slq.converged.all())

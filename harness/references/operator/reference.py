@@ -5,7 +5,8 @@ P (any ``Factorization``) only speeds the iterations up:
 
     Q        = r' Sigma^-1 r by PCG, bound ||r_res||^2 / tau2         (``pcg``, ``operator_gls``)
     log det  = log det P + log det(W^-1 Sigma W^-T),  P = W W'         (``lanczos``)
-    traces   = tr(P^-1 P_i) + tr(Sigma^-1 Sigma_i - P^-1 P_i)          (``score_traces``)
+    traces   = tr(P^-1 P_i) + tr(Sigma^-1 Sigma_i - P^-1 P_i)          (``score_traces``;
+               the first exact where P offers it, e.g. the Vecchia factor)
     L        = -1/2 Q - 1/2 log det Sigma - n/2 log(2 pi)             (R&W 2006, eq. 2.30)
     L_REML   = L_ML - 1/2 log det G + 1/2 log det F'F + p/2 log(2 pi) (Harville 1974, eq. 5)
     g_i      = 1/2 a' Sigma_i a - 1/2 tr(Sigma^-1 Sigma_i)            (R&W 2006, eq. 5.9)
@@ -42,10 +43,11 @@ The estimates are independent, so their variances add: loglik_se = sqrt(sum se^2
 bounds add linearly: loglik_bound = sum b. The verdict rule uses |e| <= 2 se + b, which
 is conservative for the bounds (each is taken whole, at its worst sign). The score's
 ``score_se`` is the probes' SE (1/2 ``trace_se``: the preconditioner's probed traces
-and the probed difference, their SEs combined with Welch-Satterthwaite degrees of freedom
-and stated with the t factor of ``probe_intervals``) and ``score_bound`` the CG bound of
-its quadratic term (|a'S_i a - a*'S_i a*| <= 2 ||S_i a|| d + ||S_i a|| d^2 / ||a||,
-d = ||r|| / lambda_min) plus the probes' CG bounds (``score_traces``) plus the dots'
+(none where they are exact) and the probed difference, their SEs combined with
+Welch-Satterthwaite degrees of freedom and stated with the t factor of
+``probe_intervals``) and ``score_bound`` the CG bound of its quadratic term
+(|a'S_i a - a*'S_i a*| <= 2 ||S_i a|| d + ||S_i a|| d^2 / ||a||, d = ||r|| / lambda_min)
+plus the probes' CG bounds (``score_traces``) plus the dots'
 rounding; the rounding of its per-probe values is in the probes' sample variance.
 
 A preconditioner that is not positive
@@ -90,7 +92,7 @@ from harness.references.operator.rounding import (
 )
 from harness.references.operator.schedule import DEFAULT_TILE
 from harness.references.operator.score_traces import (
-    preconditioner_traces,
+    control_traces,
     trace_difference_bounded,
 )
 from harness.solvers.protocol import Factorization
@@ -293,7 +295,8 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
     preconditioner : Factorization
         Of the same Sigma(theta); its ``solve`` preconditions CG, its symmetric factor
         (``solve_sqrt``/``apply_sqrt``) the Lanczos runs, its ``derivative_matvec`` the
-        trace control variate. Without a symmetric factor log det is estimated by plain
+        trace control variate (with no probe variance where it has exact
+        ``derivative_traces``). Without a symmetric factor log det is estimated by plain
         Lanczos on Sigma (slower, larger SE; said in ``messages``).
     rng : Generator, int or None
         Seeds the probes (``numpy.random.default_rng``).
@@ -387,7 +390,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         quad_terms = reml_terms = None
         if score:
             t0 = time.perf_counter()
-            pre = preconditioner_traces(preconditioner, p, probes=preconditioner_probes,
+            pre = control_traces(preconditioner, p, probes=preconditioner_probes,
                                         rng=pre_rng)
             if pre.message:
                 messages.append(pre.message)
@@ -430,7 +433,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
                             if solved.residual is not None and solved.lambda_min > 0
                             else np.full(count, np.inf))
                 values_i, exact_i, bounds_i = trace_difference_bounded(
-                    op, preconditioner, z, solved.x, control=pre.available,
+                    op, preconditioner, z, solved.x, use_control=pre.available,
                     error_norms=cg_error)
                 trace_samples.append(values_i)
                 exact_samples.append(exact_i)

@@ -1,17 +1,21 @@
 """Score traces tr(Sigma^-1 Sigma_i) as the preconditioner's trace plus an exact correction.
 
-With P the preconditioner and P_i its derivative products (``derivative_matvec``),
+With C the preconditioner (the control variate) and C_i its derivative products
+(``derivative_matvec``),
 
-    tr(Sigma^-1 Sigma_i) = tr(P^-1 P_i) + tr(Sigma^-1 Sigma_i - P^-1 P_i).
+    tr(Sigma^-1 Sigma_i) = tr(C^-1 C_i) + tr(Sigma^-1 Sigma_i - C^-1 C_i).
 
-Both terms are Hutchinson estimates, E[z' A z] = tr(A) for Rademacher z (Hutchinson
-1990, Commun. Statist. Simul. 19(2)): the first with many probes at the preconditioner's
-low cost, the second with exact products Sigma_i z and CG solves Sigma^-1 z. Since
-Sigma ~ P and Sigma_i ~ P_i, the per-probe differences are small, and so is their
-sample spread (the preconditioner acts as a control variate). The standard error of
-each is its sample standard deviation over sqrt(probes); the two are independent, so
-their variances add. Without ``derivative_matvec`` the first term is dropped and the
-second is the plain estimate of tr(Sigma^-1 Sigma_i).
+The second term is a Hutchinson estimate, E[z' A z] = tr(A) for Rademacher z
+(Hutchinson 1990, Commun. Statist. Simul. 19(2)), with exact products Sigma_i z and CG
+solves Sigma^-1 z. Since Sigma ~ C and Sigma_i ~ C_i, the per-probe differences are
+small, and so is their sample spread. The first term is exact where C offers
+``derivative_traces`` (the Vecchia factor: d log det C / dtheta_i in O(n)) and then has
+no variance; otherwise it is a Hutchinson estimate with many probes at C's low cost,
+whose variance is the plain estimator's, 2 sum_{j != k} S_jk^2 / probes for S the
+symmetric part of C^-1 C_i (Hutchinson 1990), and dominates when C is accurate. The
+standard error of each estimate is its sample standard deviation over sqrt(probes); the
+two are independent, so their variances add. Without ``derivative_matvec`` the first term is
+dropped and the second is the plain estimate of tr(Sigma^-1 Sigma_i).
 """
 
 from __future__ import annotations
@@ -26,67 +30,86 @@ from harness.solvers.protocol import Factorization
 
 
 @dataclass(frozen=True)
-class PreconditionerTraces:
-    """Hutchinson estimate of tr(P^-1 P_i) with its standard error (zeros if unavailable)."""
+class ControlTraces:
+    """tr(C^-1 C_i) with its standard error (zeros if unavailable); ``exact`` when it
+    came from the control's ``derivative_traces`` (SE 0, no probes)."""
 
     estimate: np.ndarray
     se: np.ndarray
     probes: int
     available: bool
     message: str | None
+    exact: bool = False
 
 
-def _preconditioner_quadratics(preconditioner: Factorization, z: np.ndarray,
-                               n_params: int) -> np.ndarray:
-    u = np.asarray(preconditioner.solve(z)).reshape(z.shape)
+def _control_quadratics(control: Factorization, z: np.ndarray, n_params: int) -> np.ndarray:
+    """Per probe z' C^-1 C_i z, shape (p, count)."""
+    u = np.asarray(control.solve(z)).reshape(z.shape)
     out = np.empty((n_params, z.shape[1]))
     for i in range(n_params):
-        pz = np.asarray(preconditioner.derivative_matvec(i, z)).reshape(z.shape)  # type: ignore[attr-defined]
-        out[i] = np.sum(u * pz, axis=0)
+        cz = np.asarray(control.derivative_matvec(i, z)).reshape(z.shape)  # type: ignore[attr-defined]
+        out[i] = np.sum(u * cz, axis=0)
     return out
 
 
-def preconditioner_traces(preconditioner: Factorization, n_params: int, *, probes: int,
-                          rng: np.random.Generator, batch: int = 16) -> PreconditionerTraces:
-    """tr(P^-1 P_i) by Hutchinson with ``probes`` Rademacher probes."""
+def control_traces(control: Factorization, n_params: int, *, probes: int,
+                   rng: np.random.Generator, batch: int = 16) -> ControlTraces:
+    """tr(C^-1 C_i) of the ``control``: exact from its ``derivative_traces`` where it has
+    them (and they are finite), else by Hutchinson with ``probes`` Rademacher probes."""
     zero = np.zeros(n_params)
-    if not callable(getattr(preconditioner, "derivative_matvec", None)):
-        return PreconditionerTraces(zero, zero, 0, False,
-                                    "preconditioner has no derivative_matvec: score traces "
-                                    "are plain Hutchinson estimates with exact products")
-    n = int(preconditioner.n)
+    if not callable(getattr(control, "derivative_matvec", None)):
+        return ControlTraces(zero, zero, 0, False,
+                             "the trace control has no derivative_matvec: score traces are "
+                             "plain Hutchinson estimates with exact products")
+    exact = _exact_traces(control, n_params)
+    if exact is not None:
+        return ControlTraces(exact, zero, 0, True, None, exact=True)
+    n = int(control.n)
     samples = []
     try:
         for start in range(0, probes, batch):
             z = rademacher_probes(n, min(batch, probes - start), rng)
-            samples.append(_preconditioner_quadratics(preconditioner, z, n_params))
+            samples.append(_control_quadratics(control, z, n_params))
     except Exception as exc:  # a plugin's optional member may refuse (size, kernel)
-        return PreconditionerTraces(zero, zero, 0, False,
-                                    f"preconditioner's derivative_matvec failed "
-                                    f"({type(exc).__name__}: {exc}); score traces are plain "
-                                    "Hutchinson estimates with exact products")
+        return ControlTraces(zero, zero, 0, False,
+                             f"the trace control's derivative_matvec failed "
+                             f"({type(exc).__name__}: {exc}); score traces are plain "
+                             "Hutchinson estimates with exact products")
     values = np.concatenate(samples, axis=1)
     se = values.std(axis=1, ddof=1) / np.sqrt(values.shape[1]) if values.shape[1] > 1 \
         else np.full(n_params, np.inf)
-    return PreconditionerTraces(values.mean(axis=1), se, values.shape[1], True, None)
+    return ControlTraces(values.mean(axis=1), se, values.shape[1], True, None)
 
 
-def trace_difference_bounded(operator: KernelOperator, preconditioner: Factorization,
-                             z: np.ndarray, sinv_z: np.ndarray, *, control: bool,
+def _exact_traces(control: Factorization, n_params: int) -> np.ndarray | None:
+    """The control's exact traces, or None where it has none (or they fail or are not
+    finite: the probed estimate is then taken)."""
+    member = getattr(control, "derivative_traces", None)
+    if not callable(member):
+        return None
+    try:
+        values = np.asarray(member(), dtype=float).reshape(n_params)
+    except Exception:  # a plugin's optional member may refuse; probing still works
+        return None
+    return values if np.all(np.isfinite(values)) else None
+
+
+def trace_difference_bounded(operator: KernelOperator, control: Factorization,
+                             z: np.ndarray, sinv_z: np.ndarray, *, use_control: bool,
                              error_norms: np.ndarray
                              ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Per-probe z' Sigma^-1 Sigma_i z - z' P^-1 P_i z, the exact part z' Sigma^-1 Sigma_i z
+    """Per-probe z' Sigma^-1 Sigma_i z - z' C^-1 C_i z, the exact part z' Sigma^-1 Sigma_i z
     alone, and each value's CG error bound, all shape (p, count).
 
     ``sinv_z`` is Sigma^-1 z from CG; Sigma_i z are exact products. With
-    ``control=False`` the second term is omitted. ``error_norms`` bounds
+    ``use_control=False`` the second term is omitted. ``error_norms`` bounds
     ||sinv_z - Sigma^-1 z|| per probe (||r|| / lambda_min); then
     |z' Sigma_i (x - x*)| <= ||Sigma_i z|| ||x - x*|| (Cauchy-Schwarz).
     """
     exact = operator.derivative_matvecs(z)                    # (p, n, count)
     per_probe = np.einsum("nc,pnc->pc", sinv_z, exact)
     values = per_probe.copy()
-    if control:
-        values -= _preconditioner_quadratics(preconditioner, z, operator.n_params)
+    if use_control:
+        values -= _control_quadratics(control, z, operator.n_params)
     bounds = np.linalg.norm(exact, axis=1) * np.asarray(error_norms)[None, :]
     return values, per_probe, bounds
