@@ -324,3 +324,5 @@ def test_vecchia_preconditioner_gives_exact_control_traces_and_a_sharper_score(p
         assert np.all(np.abs(ev.score - dense.score) <= 4 * ev.score_se + ev.score_bound
                       + 1e-6)
     assert np.all(evs[0].score_se < evs[1].score_se)
+    assert [ev.preconditioner_traces for ev in evs] == ["exact", "64 probes"]
+    assert evs[0].to_dict()["preconditioner_traces"] == "exact"

@@ -212,7 +212,8 @@ class OperatorReference:
             "score_bound": None if ev.score_bound is None
             else [float(v) for v in ev.score_bound],
             "score_note": "score_se (probes, estimate) enters the verdicts as score_se + "
-                          "score_bound / 2 (the CG bounds and the dots' rounding, bounds)"}
+                          "score_bound / 2 (the CG bounds and the dots' rounding, bounds)",
+            "score_preconditioner_traces": ev.preconditioner_traces}
         self.info: ReferenceInfo = OperatorReferenceInfo(
             "operator", certified,
             f"exact operator: loglik SE {ev.loglik_se:.2g} nat, bound {ev.loglik_bound:.2g} "

@@ -313,7 +313,7 @@ def pilot_neighbours(points: np.ndarray, kernel: Kernel, *, rng: np.random.Gener
         lanczos_seconds = clock() - t0
         t0 = clock()
         control_traces(fac, kernel.n_params, probes=REFERENCE_PRECONDITIONER_PROBES,
-                              rng=rng)
+                       rng=rng)
         trace_seconds = clock() - t0
         converged = bool(run.converged and slq.converged.all())
         iterations = run.iterations if run.converged else PILOT_MAX_ITERATIONS

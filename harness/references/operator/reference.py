@@ -179,6 +179,10 @@ class OperatorEvaluation:
     shared_probes : SharedProbes or None
         The score's trace probes with their exact per-probe values, for a solver's
         audit on the same probes; None without a score. Not in ``to_dict``.
+    preconditioner_traces : str
+        How tr(P^-1 P_i) was taken: "exact" (the preconditioner's ``derivative_traces``),
+        "N probes", "none" (no control: plain Hutchinson of the exact traces), or ""
+        without a score.
     """
 
     n: int
@@ -209,6 +213,7 @@ class OperatorEvaluation:
     score_bound: np.ndarray | None = None
     uncertainty: dict[str, object] = field(default_factory=dict)
     shared_probes: SharedProbes | None = None
+    preconditioner_traces: str = ""
 
     def to_dict(self) -> dict[str, object]:
         def arr(a: np.ndarray | None) -> object:
@@ -227,6 +232,7 @@ class OperatorEvaluation:
             "mean": self.mean, "reml": self.reml, "phases": dict(self.phases),
             "loglik_bound": self.loglik_bound, "score_bound": arr(self.score_bound),
             "uncertainty": dict(self.uncertainty),
+            "preconditioner_traces": self.preconditioner_traces,
         }
 
     def as_model_evaluation(self) -> ModelEvaluation:
@@ -391,7 +397,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         if score:
             t0 = time.perf_counter()
             pre = control_traces(preconditioner, p, probes=preconditioner_probes,
-                                        rng=pre_rng)
+                                 rng=pre_rng)
             if pre.message:
                 messages.append(pre.message)
             da = op.derivative_matvecs(gls.a)                   # (p, n)
@@ -520,7 +526,9 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         products=op.column_products, probes=probes, seconds=time.perf_counter() - start,
         converged=converged, messages=tuple(dict.fromkeys(messages)), bound_kind=bound_kind,
         mean=mean, reml=reml, phases=phases, loglik_bound=float(loglik_bound),
-        score_bound=score_bound, uncertainty=terms, shared_probes=shared)
+        score_bound=score_bound, uncertainty=terms, shared_probes=shared,
+        preconditioner_traces="" if pre is None else
+        "exact" if pre.exact else f"{pre.probes} probes" if pre.available else "none")
 
 
 def _uncertainty_terms(*, probe_se: float, widths: np.ndarray, radau_node: float,
