@@ -17,7 +17,12 @@ import pytest
 from harness.audit.audit_references import metric_kinds
 from harness.audit.dense_sides import dense_sides
 from harness.check import CheckOptions
-from harness.check.cost_plan import LINE_FIT_PASSES, budget_refusal, plan_check
+from harness.check.cost_plan import (
+    LINE_FIT_PASSES,
+    STATESPACE_REFERENCE_PASSES,
+    budget_refusal,
+    plan_check,
+)
 from harness.check.plan_calibration import CALIBRATION_SIZES, rate_solver
 from harness.cli import check_command as check_cli
 from harness.infra.exit_codes import ExitCode
@@ -339,6 +344,48 @@ def test_the_line_fit_is_priced_from_a_timed_filter_pass():
     assert plane.calibration.line_pass_seconds_per_point is None
 
 
+def test_the_statespace_reference_is_priced_in_timed_kalman_passes():
+    # With fixed parameters there is no fit on the line, yet the state-space reference
+    # times one Kalman pass (plan_calibration.line_pass_rate) and is priced in passes of
+    # it, not by a fixed rate per point.
+    rng = np.random.default_rng(7)
+    x = np.sort(rng.uniform(0.0, 50.0, 5000))[:, None]
+    y = np.sin(x[:, 0]) + 0.1 * rng.standard_normal(5000)
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    options = CheckOptions(kernel="matern32", fixed_params=fixed, reference="statespace",
+                           tolerances=(1e-4,), refit=False)
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    rate = plan.calibration.line_pass_seconds_per_point
+    assert rate is not None and rate > 0
+    (reference,) = [s for s in plan.stages if s.stage == "reference"]
+    assert reference.seconds == pytest.approx(STATESPACE_REFERENCE_PASSES * 5000 * rate)
+    assert f"{STATESPACE_REFERENCE_PASSES} Kalman passes" in reference.detail
+
+
+def test_each_audit_pays_the_solvers_derivative_set_up():
+    # HODLR compresses its derivative blocks on the first derivative product (14 of 88 s
+    # of one audit on 1,048,576 points on a line, in a profile); the calibration times it
+    # (SolverRate.derivative_seconds) and each (knob value, seed) audit pays it once.
+    x, y = _points()
+    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
+    options = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), refit=False,
+                           solver_seeds=2)
+    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
+    (rate,) = plan.calibration.value_rates["hodlr"]
+    assert rate.derivative_seconds > 0
+    assert plan.calibration.to_dict()["solvers"]["hodlr"]["derivative_seconds"] > 0
+
+    def audit_seconds(derivative_seconds: float) -> float:
+        rated = replace(rate, derivative_seconds=derivative_seconds)
+        calibration = replace(plan.calibration, value_rates={"hodlr": (rated,)},
+                              solvers={**plan.calibration.solvers, "hodlr": rated})
+        again = plan_check(x, y, options, calibration=calibration)
+        return next(stage for stage in again.stages if stage.stage == "audits").seconds
+
+    extra = replace(rate, derivative_seconds=10.0).derivative_seconds_at(x.shape[0])
+    assert audit_seconds(10.0) - audit_seconds(0.0) == pytest.approx(2 * extra, rel=1e-9)
+
+
 def test_each_knob_value_is_priced_at_its_own_rate():
     # A looser value is cheaper (HODLR on 65,536 scattered points: about 30 s per audit at
     # tol 1e-6 against 70 s at 1e-8, the timestamps in
@@ -364,7 +411,8 @@ def test_each_knob_value_is_priced_at_its_own_rate():
 
     def scaled(factor):
         return replace(rated[1], value=1e-4, factor_seconds=factor * rated[1].factor_seconds,
-                       solve_seconds_per_column=factor * rated[1].solve_seconds_per_column)
+                       solve_seconds_per_column=factor * rated[1].solve_seconds_per_column,
+                       derivative_seconds=factor * rated[1].derivative_seconds)
 
     # unrated values fall back to the tightest, which is the tightest rated twice
     unrated = plan_check(x, y, options, calibration=replace(plan.calibration, value_rates={}))

@@ -70,13 +70,16 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   product call priced at its width, with the CG iterations and Lanczos steps measured
   on a window of the data, ``Calibration.operator_counts``) for the log-likelihood and
   score, and for kriging, CG at t points (its iterations + 2 product calls) for the mean
-  (1 + q columns) and for each block of at most 64 variance points;
+  (1 + q columns) and for each block of at most 64 variance points; state-space,
+  ``STATESPACE_REFERENCE_PASSES`` timed Kalman passes with the score;
 - one audit at each knob value: the solver's factorization at n and at t (at that
-  value, ``Calibration.value_rates``) and its solves with p (2k + 1) + 1 + 2 v
+  value, ``Calibration.value_rates``), its derivative set-up at n
+  (``SolverRate.derivative_seconds``) and its solves with p (2k + 1) + 1 + 2 v
   right-hand sides (against the state-space reference, whose exact control replaces the
   solver's own traces, 2k + 2 + q + v / 2), plus m t cross-covariance entries and,
   against the dense reference, the exact KL divergence's n^2 entries and n solves;
-- timing: (repeats + 1) factorizations and score solves per knob value; refit:
+- timing: (repeats + 1) factorizations, derivative set-ups and score solves per knob
+  value; refit:
   ``REFIT_EVALUATIONS`` of them (at most ``fit_max_steps`` + 1); report:
   ``REPORT_UNITS`` units.
 
@@ -133,9 +136,16 @@ DENSE_FIT_FISHER_EVALUATIONS = 3
 #: The check report in units: 4.45 s against a same-run unit of 10.44 s for a 300-point,
 #: two-solver check (``benchmarks/results/figure_drawing.json``, report.covaudit).
 REPORT_UNITS = 0.43
-#: Seconds per point of the state-space reference (filter, score and smoother): covaudit's
-#: estimate, not measured here (O(n); it never decides a plan).
+#: Seconds per point of the Kronecker reference, and of the state-space one where no
+#: Kalman pass was timed: covaudit's estimate, not measured here (O(n); it never decides
+#: a plan).
 STATESPACE_SECONDS_PER_POINT = 1e-4
+#: The state-space reference (filter with the score, smoother, the shared probes'
+#: control), priced in timed Kalman passes with the score: it took 3 to 8 of them on 65,536
+#: to 1,048,576 points on a line (a development measurement of the reference alone, and
+#: the stage's timestamps in a check at 1,048,576 points; not a committed file), the
+#: upper end taken. The former 1e-4 s per point overstated it 7 times at 10^6 points.
+STATESPACE_REFERENCE_PASSES = 8
 #: Kalman-filter passes with the score of the exact fit on a line: about 45 L-BFGS-B
 #: evaluations and a Newton polish of 1 + 2p passes per evaluation (56 evaluations on
 #: 100,000 points, a development measurement; ``harness.check.line_fit``), each timed
@@ -303,9 +313,10 @@ def _score_bytes(n: int, p: int, k: int) -> int:
 
 def _scored_evaluation(rate: SolverRate, s: _Sizes) -> tuple[float, int]:
     """One evaluation by a compressed solver with its Hutch++ score at n: seconds of its
-    factorization and p (2k + 1) + 1 solves, and bytes of its factor with the score's
-    arrays."""
-    return (rate.seconds_at(s.n) + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1),
+    factorization, its derivative set-up and p (2k + 1) + 1 solves, and bytes of its
+    factor with the score's arrays."""
+    return (rate.seconds_at(s.n) + rate.derivative_seconds_at(s.n)
+            + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1),
             rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k))
 
 
@@ -436,9 +447,14 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
                          f"{counts.lanczos_steps} Lanczos steps per solve (measured on "
                          f"{counts.n:,} points)")
     if kind in ("statespace", "kronecker"):
-        return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
-                         8 * s.n * (32 if kind == "statespace" else 8),
-                         f"{kind} reference, O(n)")
+        rate = cal.line_pass_seconds_per_point if kind == "statespace" else None
+        if rate is None:
+            return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
+                             8 * s.n * (32 if kind == "statespace" else 8),
+                             f"{kind} reference, O(n)")
+        return StagePlan("reference", STATESPACE_REFERENCE_PASSES * s.n * rate, 8 * s.n * 32,
+                         f"statespace reference, O(n): about {STATESPACE_REFERENCE_PASSES} "
+                         "Kalman passes with the score")
     if first is None:
         return StagePlan("reference", None, None, "ladder of a plugin: not predicted")
     return StagePlan("reference", n_values * (first.seconds_at(s.n) + first.seconds_at(s.t)),
@@ -470,7 +486,7 @@ def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptio
     cross = 0.0 if s.line else s.m * s.t / cal.assembly_entries_per_second
 
     def one_audit(at: SolverRate) -> float:
-        seconds = (at.seconds_at(s.n) + at.seconds_at(s.t)
+        seconds = (at.seconds_at(s.n) + at.derivative_seconds_at(s.n) + at.seconds_at(s.t)
                    + at.solve_seconds_at(s.n, columns) + cross)
         if kind == "dense":
             seconds += (s.n * s.n / cal.assembly_entries_per_second
@@ -544,15 +560,15 @@ def calibrate_for(points: np.ndarray, y: np.ndarray, options: CheckOptions, line
     compile the product kernel, about 13 s, for nothing. ``plan_check`` adds them to a
     calibration that lacks them when its plan takes the operator (an alternative priced
     by ``budget_refusal``, for example). ``on_line``: the points and kernel are those of
-    the exact fit on a line (``fit_plan.line_applies``), whose Kalman pass is then timed
-    unless the parameters are fixed."""
+    the exact fit on a line and of the state-space reference
+    (``fit_plan.line_applies``), whose Kalman pass is then timed: both are priced in
+    passes."""
     kernel = _kernel(points, y, options)
     solvers = {lined.given: (lined.solver, tuple(lined.values), dict(lined.options))
                for lined in lineup.solvers if lined.solver.origin == "builtin"}
-    line = options.fixed_params is None and on_line   # the fit is the one on the line
     return calibrate(points, kernel, solvers=solvers,
                      preconditioner=_preconditioner(options) if operator else None, rng=rng,
-                     line_mean=options.mean if line else None)
+                     line_mean=options.mean if on_line else None)
 
 
 def _with_operator_rates(calibration: Calibration, points: np.ndarray, y: np.ndarray,
