@@ -43,6 +43,8 @@ the median time (every run's time is kept under ``repeats``; the largest peak me
 reported, the other details are the median run's). ``--plan-only`` records only the plan
 the check prints before it starts (``check --plan-only``): its predicted time per stage
 and resident memory, in seconds and same-run units, within a minute.
+``--check-options='--preconditioner vecchia'`` adds options to the scenario's (the
+results file's command says which).
 """
 
 from __future__ import annotations
@@ -50,6 +52,7 @@ from __future__ import annotations
 import argparse
 import json
 import resource
+import shlex
 import shutil
 import statistics
 import subprocess
@@ -271,6 +274,10 @@ def main(argv: list[str] | None = None) -> int:
                              "take hours)")
     parser.add_argument("--plan-only", action="store_true",
                         help="record the check's plan (check --plan-only) without running it")
+    parser.add_argument("--check-options", default="",
+                        help="more options of the check, appended to the scenario's, as one "
+                             "string, e.g. --check-options='--preconditioner vecchia' (the "
+                             "limits stay the scenario's)")
     args = parser.parse_args(argv)
     scenario = SCENARIOS[args.scenario]
     info = machine()
@@ -281,7 +288,7 @@ def main(argv: list[str] | None = None) -> int:
         work.mkdir(parents=True, exist_ok=True)
         data, columns = write_data(scenario, work, args.seed)
         command = ["check", data.name, *columns, "--kernel", "matern32", *scenario.options,
-                   "--out", "out"]
+                   *shlex.split(args.check_options), "--out", "out"]
         if args.plan_only:
             return _record_plan(args, command, work, info, unit)
         runs = [_run_check(work, command) for _ in range(args.repeats)]
