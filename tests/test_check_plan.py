@@ -362,30 +362,6 @@ def test_the_statespace_reference_is_priced_in_timed_kalman_passes():
     assert f"{STATESPACE_REFERENCE_PASSES} Kalman passes" in reference.detail
 
 
-def test_each_audit_pays_the_solvers_derivative_set_up():
-    # HODLR compresses its derivative blocks on the first derivative product (14 of 88 s
-    # of one audit on 1,048,576 points on a line, in a profile); the calibration times it
-    # (SolverRate.derivative_seconds) and each (knob value, seed) audit pays it once.
-    x, y = _points()
-    fixed = {"variance": 1.0, "lengthscale": 2.0, "nugget": 0.1}
-    options = CheckOptions(fixed_params=fixed, tolerances=(1e-4,), refit=False,
-                           solver_seeds=2)
-    plan = plan_check(x, y, options, rng=np.random.default_rng(0))
-    (rate,) = plan.calibration.value_rates["hodlr"]
-    assert rate.derivative_seconds > 0
-    assert plan.calibration.to_dict()["solvers"]["hodlr"]["derivative_seconds"] > 0
-
-    def audit_seconds(derivative_seconds: float) -> float:
-        rated = replace(rate, derivative_seconds=derivative_seconds)
-        calibration = replace(plan.calibration, value_rates={"hodlr": (rated,)},
-                              solvers={**plan.calibration.solvers, "hodlr": rated})
-        again = plan_check(x, y, options, calibration=calibration)
-        return next(stage for stage in again.stages if stage.stage == "audits").seconds
-
-    extra = replace(rate, derivative_seconds=10.0).derivative_seconds_at(x.shape[0])
-    assert audit_seconds(10.0) - audit_seconds(0.0) == pytest.approx(2 * extra, rel=1e-9)
-
-
 def test_each_knob_value_is_priced_at_its_own_rate():
     # A looser value is cheaper (HODLR on 65,536 scattered points: about 30 s per audit at
     # tol 1e-6 against 70 s at 1e-8, the timestamps in
@@ -411,8 +387,7 @@ def test_each_knob_value_is_priced_at_its_own_rate():
 
     def scaled(factor):
         return replace(rated[1], value=1e-4, factor_seconds=factor * rated[1].factor_seconds,
-                       solve_seconds_per_column=factor * rated[1].solve_seconds_per_column,
-                       derivative_seconds=factor * rated[1].derivative_seconds)
+                       solve_seconds_per_column=factor * rated[1].solve_seconds_per_column)
 
     # unrated values fall back to the tightest, which is the tightest rated twice
     unrated = plan_check(x, y, options, calibration=replace(plan.calibration, value_rates={}))

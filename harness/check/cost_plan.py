@@ -73,13 +73,11 @@ Computations*, 4th ed., sec. 4.2: Cholesky n^3/3 flops, its inverse 2 n^3/3):
   (1 + q columns) and for each block of at most 64 variance points; state-space,
   ``STATESPACE_REFERENCE_PASSES`` timed Kalman passes with the score;
 - one audit at each knob value: the solver's factorization at n and at t (at that
-  value, ``Calibration.value_rates``), its derivative set-up at n
-  (``SolverRate.derivative_seconds``) and its solves with p (2k + 1) + 1 + 2 v
+  value, ``Calibration.value_rates``) and its solves with p (2k + 1) + 1 + 2 v
   right-hand sides (against the state-space reference, whose exact control replaces the
   solver's own traces, 2k + 2 + q + v / 2), plus m t cross-covariance entries and,
   against the dense reference, the exact KL divergence's n^2 entries and n solves;
-- timing: (repeats + 1) factorizations, derivative set-ups and score solves per knob
-  value; refit:
+- timing: (repeats + 1) factorizations and score solves per knob value; refit:
   ``REFIT_EVALUATIONS`` of them (at most ``fit_max_steps`` + 1); report:
   ``REPORT_UNITS`` units.
 
@@ -144,7 +142,7 @@ STATESPACE_SECONDS_PER_POINT = 1e-4
 #: control), priced in timed Kalman passes with the score: it took 3 to 8 of them on 65,536
 #: to 1,048,576 points on a line (a development measurement of the reference alone, and
 #: the stage's timestamps in a check at 1,048,576 points; not a committed file), the
-#: upper end taken. The former 1e-4 s per point overstated it 7 times at 10^6 points.
+#: upper end taken. The former 1e-4 s per point said 105 s there, against 14 s.
 STATESPACE_REFERENCE_PASSES = 8
 #: Kalman-filter passes with the score of the exact fit on a line: about 45 L-BFGS-B
 #: evaluations and a Newton polish of 1 + 2p passes per evaluation (56 evaluations on
@@ -313,10 +311,9 @@ def _score_bytes(n: int, p: int, k: int) -> int:
 
 def _scored_evaluation(rate: SolverRate, s: _Sizes) -> tuple[float, int]:
     """One evaluation by a compressed solver with its Hutch++ score at n: seconds of its
-    factorization, its derivative set-up and p (2k + 1) + 1 solves, and bytes of its
-    factor with the score's arrays."""
-    return (rate.seconds_at(s.n) + rate.derivative_seconds_at(s.n)
-            + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1),
+    factorization and p (2k + 1) + 1 solves, and bytes of its factor with the score's
+    arrays."""
+    return (rate.seconds_at(s.n) + rate.solve_seconds_at(s.n, s.p * (2 * s.k + 1) + 1),
             rate.nbytes_at(s.n) + _score_bytes(s.n, s.p, s.k))
 
 
@@ -486,7 +483,7 @@ def _audit_stage(s: _Sizes, lined: LinedUpSolver, kind: str, options: CheckOptio
     cross = 0.0 if s.line else s.m * s.t / cal.assembly_entries_per_second
 
     def one_audit(at: SolverRate) -> float:
-        seconds = (at.seconds_at(s.n) + at.derivative_seconds_at(s.n) + at.seconds_at(s.t)
+        seconds = (at.seconds_at(s.n) + at.seconds_at(s.t)
                    + at.solve_seconds_at(s.n, columns) + cross)
         if kind == "dense":
             seconds += (s.n * s.n / cal.assembly_entries_per_second

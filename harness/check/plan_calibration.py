@@ -112,11 +112,7 @@ class SolverRate:
     seconds(n) = factor_seconds * (n / n_measured)^time_exponent, and the same for the
     solve per right-hand side and for ``nbytes`` with ``memory_exponent``; the exponents
     come from the two sizes (``_exponent``), clipped to ``TIME_EXPONENT_RANGE`` and
-    ``MEMORY_EXPONENT_RANGE``. ``derivative_seconds`` is the first derivative product of
-    each parameter on one column (``derivative_matvec``; it includes what a solver builds
-    for them on first use, HODLR's compressed derivative blocks: 14 of 88 s of an audit
-    on 1,048,576 points on a line, in a profile), with its own exponent. At n =
-    n_measured the values are measured, not predicted.
+    ``MEMORY_EXPONENT_RANGE``. At n = n_measured the values are measured, not predicted.
     """
 
     name: str
@@ -128,15 +124,9 @@ class SolverRate:
     nbytes: int
     time_exponent: float
     memory_exponent: float
-    derivative_seconds: float = 0.0
-    derivative_exponent: float = 1.0
 
     def seconds_at(self, n: int) -> float:
         return self.factor_seconds * (n / self.n_measured) ** self.time_exponent
-
-    def derivative_seconds_at(self, n: int) -> float:
-        """Seconds of the first derivative product of every parameter at n."""
-        return self.derivative_seconds * (n / self.n_measured) ** self.derivative_exponent
 
     def solve_seconds_at(self, n: int, columns: float) -> float:
         """Seconds of solves (or products) with ``columns`` right-hand sides at n: the
@@ -153,9 +143,7 @@ class SolverRate:
                 "n_measured": self.n_measured, "factor_seconds": self.factor_seconds,
                 "solve_seconds_per_column": self.solve_seconds_per_column,
                 "nbytes": self.nbytes, "time_exponent": self.time_exponent,
-                "memory_exponent": self.memory_exponent,
-                "derivative_seconds": self.derivative_seconds,
-                "derivative_exponent": self.derivative_exponent}
+                "memory_exponent": self.memory_exponent}
 
 
 @dataclass(frozen=True)
@@ -249,7 +237,7 @@ def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
     n = points.shape[0]
     small, large = (min(size, n) for size in sizes)
     order = rng.permutation(n)
-    measured: list[tuple[int, float, float, int, float]] = []
+    measured: list[tuple[int, float, float, int]] = []
     arguments = solver.knob.arguments(value) | dict(options)
     for size in dict.fromkeys((small, large)):
         x = points[np.sort(order[:size])]
@@ -260,21 +248,13 @@ def rate_solver(solver: ResolvedSolver, value: float | None, points: np.ndarray,
         start = time.perf_counter()
         fac.solve(block)
         solve = (time.perf_counter() - start) / SOLVE_COLUMNS
-        derivative = getattr(fac, "derivative_matvec", None)
-        start = time.perf_counter()
-        if callable(derivative):
-            for i in range(kernel.n_params):
-                derivative(i, block[:, :1])
-        derivatives = time.perf_counter() - start
-        measured.append((size, factor, solve, int(fac.nbytes), derivatives))
+        measured.append((size, factor, solve, int(fac.nbytes)))
         del fac
-    (n0, t0, _, b0, d0), (n1, t1, s1, b1, d1) = measured[0], measured[-1]
+    (n0, t0, _, b0), (n1, t1, s1, b1) = measured[0], measured[-1]
     return SolverRate(name=solver.name, knob=solver.knob.name, value=value, n_measured=n1,
                       factor_seconds=t1, solve_seconds_per_column=s1, nbytes=b1,
                       time_exponent=_exponent(t0, t1, n0, n1, TIME_EXPONENT_RANGE),
-                      memory_exponent=_exponent(b0, b1, n0, n1, MEMORY_EXPONENT_RANGE),
-                      derivative_seconds=d1,
-                      derivative_exponent=_exponent(d0, d1, n0, n1, TIME_EXPONENT_RANGE))
+                      memory_exponent=_exponent(b0, b1, n0, n1, MEMORY_EXPONENT_RANGE))
 
 
 def product_cost(kernel: Kernel, d: int, *, rng: np.random.Generator) -> ProductCost:
