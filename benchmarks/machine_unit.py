@@ -109,8 +109,10 @@ def commit() -> str | None:
     head = proc.stdout.strip()
     if not head:
         return None
+    # pathspecs from the top of the checkout: relative to this folder, "." saw only
+    # benchmarks/ and the exclusion missed benchmarks/results
     status = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no", "--",
-                             ".", ":(exclude)benchmarks/results"],
+                             ":(top)", ":(top,exclude)benchmarks/results"],
                             capture_output=True, text=True, check=False, cwd=here)
     return head + "+uncommitted" if status.stdout.strip() else head
 
