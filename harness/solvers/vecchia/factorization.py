@@ -200,8 +200,8 @@ class VecchiaFactorization:
         """tr(Sigma~^-1 dSigma~/dtheta_i) for every parameter, exactly, shape (p,).
 
         By Jacobi's formula, d log det A = tr(A^-1 dA) (Magnus and Neudecker 2019,
-        "Matrix Differential Calculus", ch. 8, sec. 3), and log det Sigma~ =
-        -2 sum_k log U_kk, so
+        "Matrix Differential Calculus", 3rd ed., ch. 8; the chapter from memory), and
+        log det Sigma~ = -2 sum_k log U_kk, so
 
             tr(Sigma~^-1 dSigma~_i) = -2 sum_k dU_kk,i / U_kk,
 
