@@ -35,8 +35,10 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 from check_at_scale import synthetic_field  # noqa: E402
 from machine_unit import machine, measure_unit, write_run  # noqa: E402
+from probed_traces import ProbedTraces  # noqa: E402
 
 from harness.model.kernels import Matern32  # noqa: E402
 from harness.references.operator import operator_evaluate  # noqa: E402
@@ -44,18 +46,6 @@ from harness.solvers.hodlr.solver import factorize as hodlr  # noqa: E402
 from harness.solvers.vecchia import factorize as vecchia  # noqa: E402
 
 KERNEL = Matern32(1.0, 50.0, 0.01)
-
-
-class ProbedTraces:
-    """A factorization with its exact ``derivative_traces`` hidden."""
-
-    def __init__(self, factorization: object) -> None:
-        self._factorization = factorization
-
-    def __getattr__(self, name: str) -> object:
-        if name == "derivative_traces":
-            raise AttributeError(name)
-        return getattr(self._factorization, name)
 
 
 def evaluate(points: np.ndarray, y: np.ndarray, preconditioner: object) -> dict:

@@ -284,24 +284,13 @@ def test_measured_product_cost_is_positive_and_scales_as_n_squared():
         measure_product_cost(KERNEL, n=256, widths=(8, 8), rng=0)
 
 
-class _ProbedTraces:
-    """A factorization with its exact ``derivative_traces`` hidden: the operator then
-    probes the preconditioner's traces, as for any factorization without them."""
-
-    def __init__(self, factorization: object) -> None:
-        self._factorization = factorization
-
-    def __getattr__(self, name: str) -> object:
-        if name == "derivative_traces":
-            raise AttributeError(name)
-        return getattr(self._factorization, name)
-
-
 def test_vecchia_preconditioner_gives_exact_control_traces_and_a_sharper_score(points):
     # Source: the dense score (certified Cholesky; R&W 2006, eq. 5.9). With the Vecchia
     # factor as preconditioner its traces tr(P^-1 P_i) are exact (its log det gradient),
     # so the score's SE is the probed difference's alone; with them hidden the same
     # preconditioner's traces are probed (64 probes) and add their variance.
+    from probed_traces import ProbedTraces
+
     from harness.references.operator.score_traces import control_traces
     from harness.solvers.vecchia import factorize as vecchia
 
@@ -311,14 +300,14 @@ def test_vecchia_preconditioner_gives_exact_control_traces_and_a_sharper_score(p
     traces = control_traces(pre, KERNEL.n_params, probes=64, rng=np.random.default_rng(0))
     assert traces.exact and traces.probes == 0 and np.all(traces.se == 0.0)
     np.testing.assert_allclose(traces.estimate, pre.derivative_traces())
-    probed = control_traces(_ProbedTraces(pre), KERNEL.n_params, probes=64,
+    probed = control_traces(ProbedTraces(pre), KERNEL.n_params, probes=64,
                             rng=np.random.default_rng(0))
     assert not probed.exact and probed.probes == 64 and np.all(probed.se > 0.0)
     # the probed estimate agrees with the exact traces within its own 4 SE
     assert np.all(np.abs(probed.estimate - traces.estimate) <= 4 * probed.se)
     evs = [operator_evaluate(points, y, KERNEL, mean="constant", preconditioner=p, rng=5,
                              se_target=1.0, max_probes=32)
-           for p in (pre, _ProbedTraces(pre))]
+           for p in (pre, ProbedTraces(pre))]
     for ev in evs:
         assert ev.converged, ev.messages
         assert np.all(np.abs(ev.score - dense.score) <= 4 * ev.score_se + ev.score_bound

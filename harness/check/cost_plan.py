@@ -444,12 +444,12 @@ def _reference_stage(s: _Sizes, kind: str, options: CheckOptions, cal: Calibrati
                          f"{counts.lanczos_steps} Lanczos steps per solve (measured on "
                          f"{counts.n:,} points)")
     if kind in ("statespace", "kronecker"):
+        nbytes = 8 * s.n * (32 if kind == "statespace" else 8)
         rate = cal.line_pass_seconds_per_point if kind == "statespace" else None
         if rate is None:
-            return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n,
-                             8 * s.n * (32 if kind == "statespace" else 8),
+            return StagePlan("reference", STATESPACE_SECONDS_PER_POINT * s.n, nbytes,
                              f"{kind} reference, O(n)")
-        return StagePlan("reference", STATESPACE_REFERENCE_PASSES * s.n * rate, 8 * s.n * 32,
+        return StagePlan("reference", STATESPACE_REFERENCE_PASSES * s.n * rate, nbytes,
                          f"statespace reference, O(n): about {STATESPACE_REFERENCE_PASSES} "
                          "Kalman passes with the score")
     if first is None:

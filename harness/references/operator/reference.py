@@ -527,8 +527,7 @@ def operator_evaluate(points: np.ndarray, y: np.ndarray, kernel: Kernel,
         converged=converged, messages=tuple(dict.fromkeys(messages)), bound_kind=bound_kind,
         mean=mean, reml=reml, phases=phases, loglik_bound=float(loglik_bound),
         score_bound=score_bound, uncertainty=terms, shared_probes=shared,
-        preconditioner_traces="" if pre is None else
-        "exact" if pre.exact else f"{pre.probes} probes" if pre.available else "none")
+        preconditioner_traces="" if pre is None else pre.describe())
 
 
 def _uncertainty_terms(*, probe_se: float, widths: np.ndarray, radau_node: float,

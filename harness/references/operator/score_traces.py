@@ -41,6 +41,12 @@ class ControlTraces:
     message: str | None
     exact: bool = False
 
+    def describe(self) -> str:
+        """How the traces were taken: "exact", "N probes", or "none" (no control)."""
+        if self.exact:
+            return "exact"
+        return f"{self.probes} probes" if self.available else "none"
+
 
 def _control_quadratics(control: Factorization, z: np.ndarray, n_params: int) -> np.ndarray:
     """Per probe z' C^-1 C_i z, shape (p, count)."""
